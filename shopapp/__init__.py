@@ -1,0 +1,109 @@
+"""shopapp: jobs, calculations and certificates for a rotor-balancing shop.
+
+``create_app(config=None)`` builds the Flask application in small named steps.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import logging
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+from flask import Flask
+
+from shopapp.config import check_config, load_config
+from shopapp.database import Database
+from shopapp.extensions import close_db_session, csrf, login_manager
+from shopapp.logging_setup import configure_logging
+
+__version__ = "0.1.0"
+
+log = logging.getLogger("shopapp")
+
+
+def create_app(config: Mapping[str, Any] | None = None) -> Flask:
+    """Build the application.
+
+    Configuration precedence: defaults → ``instance/shopapp.toml`` →
+    ``SHOPAPP_*`` environment variables → ``config``.
+    """
+    cfg = load_config(config)
+    check_config(cfg)
+    app = Flask(
+        __name__,
+        instance_path=cfg["INSTANCE_PATH"],
+        template_folder="web/templates",
+        static_folder="web/static",
+    )
+    app.config.update(cfg)
+    app.config["PERMANENT_SESSION_LIFETIME"] = dt.timedelta(
+        minutes=int(cfg["SESSION_LIFETIME_MINUTES"])
+    )
+    app.config.setdefault("SESSION_COOKIE_HTTPONLY", True)
+    app.config.setdefault("SESSION_COOKIE_SAMESITE", "Lax")
+    configure_logging(str(cfg.get("LOG_LEVEL", "INFO")))
+    register_database(app)
+    register_extensions(app)
+    register_blueprints(app)
+    register_errorhandlers(app)
+    register_security_headers(app)
+    register_template_helpers(app)
+    register_commands(app)
+    return app
+
+
+def register_database(app: Flask) -> None:
+    url = str(app.config["DATABASE_URL"])
+    if url.startswith("sqlite:///") and not url.startswith("sqlite:///:memory:"):
+        Path(url.removeprefix("sqlite:///")).parent.mkdir(parents=True, exist_ok=True)
+    app.extensions["shopapp.db"] = Database(url, echo=bool(app.config.get("SQL_ECHO")))
+    app.teardown_appcontext(close_db_session)
+
+
+def register_extensions(app: Flask) -> None:
+    csrf.init_app(app)
+    login_manager.init_app(app)
+    login_manager.login_view = "auth.login"
+    login_manager.login_message = "Please log in to see that page."
+    login_manager.session_protection = "strong"
+
+
+def register_blueprints(app: Flask) -> None:
+    from shopapp.web import register_web
+
+    register_web(app)
+
+
+def register_errorhandlers(app: Flask) -> None:
+    from shopapp.web.errors import register_error_pages
+
+    register_error_pages(app)
+
+
+def register_security_headers(app: Flask) -> None:
+    @app.after_request
+    def _headers(response):  # type: ignore[no-untyped-def]
+        response.headers.setdefault("X-Content-Type-Options", "nosniff")
+        response.headers.setdefault("X-Frame-Options", "DENY")
+        response.headers.setdefault("Referrer-Policy", "same-origin")
+        response.headers.setdefault(
+            "Content-Security-Policy",
+            "default-src 'self'; img-src 'self' data:; style-src 'self' 'unsafe-inline'; "
+            "script-src 'self'; frame-ancestors 'none'; form-action 'self'",
+        )
+        response.headers.setdefault("Permissions-Policy", "camera=(), microphone=()")
+        return response
+
+
+def register_commands(app: Flask) -> None:
+    from shopapp.cli import register_commands as _register
+
+    _register(app)
+
+
+def register_template_helpers(app: Flask) -> None:
+    from shopapp.web.helpers import register_helpers
+
+    register_helpers(app)

@@ -1,0 +1,66 @@
+"""ORM models (SQLAlchemy 2, typed). Import from here."""
+
+from shopapp.models.base import Base, utcnow
+from shopapp.models.certificates import CERTIFICATE_STATES, AuditEvent, Certificate
+from shopapp.models.jobs import (
+    CORRECTION_ACTIONS,
+    JOB_KINDS,
+    JOB_STATES,
+    READING_UNITS,
+    RUN_PURPOSES,
+    TOLERANCE_METHODS,
+    Correction,
+    InfluenceSet,
+    Job,
+    JobTransition,
+    Run,
+    RunReading,
+)
+from shopapp.models.people import ANGLE_SENSES, ROLES, UNBALANCE_DISPLAY_UNITS, ShopSettings, User
+from shopapp.models.registry import (
+    BEARING_KINDS,
+    CORRECTION_METHODS,
+    KEY_CONVENTIONS,
+    ROTATIONS,
+    ROTOR_KINDS,
+    Customer,
+    Machine,
+    MachineVerification,
+    Rotor,
+    RotorType,
+)
+
+__all__ = [
+    "ANGLE_SENSES",
+    "BEARING_KINDS",
+    "CERTIFICATE_STATES",
+    "CORRECTION_ACTIONS",
+    "CORRECTION_METHODS",
+    "JOB_KINDS",
+    "JOB_STATES",
+    "KEY_CONVENTIONS",
+    "READING_UNITS",
+    "ROLES",
+    "ROTATIONS",
+    "ROTOR_KINDS",
+    "RUN_PURPOSES",
+    "TOLERANCE_METHODS",
+    "UNBALANCE_DISPLAY_UNITS",
+    "AuditEvent",
+    "Base",
+    "Certificate",
+    "Correction",
+    "Customer",
+    "InfluenceSet",
+    "Job",
+    "JobTransition",
+    "Machine",
+    "MachineVerification",
+    "Rotor",
+    "RotorType",
+    "Run",
+    "RunReading",
+    "ShopSettings",
+    "User",
+    "utcnow",
+]

@@ -1,0 +1,38 @@
+"""Errors the services raise; the web, CLI and API turn them into messages."""
+
+from __future__ import annotations
+
+
+class ServiceError(Exception):
+    """Base of every domain error; ``message`` is shown to the person as is."""
+
+    status = 400
+
+    def __init__(self, message: str) -> None:
+        super().__init__(message)
+        self.message = message
+
+
+class ValidationFailed(ServiceError):
+    """Bad input for one field (or several: ``errors`` maps field → message)."""
+
+    status = 422
+
+    def __init__(self, field: str, message: str, errors: dict[str, str] | None = None) -> None:
+        super().__init__(f"{field}: {message}")
+        self.field = field
+        self.errors = errors or {field: message}
+
+
+class PermissionDenied(ServiceError):
+    status = 403
+
+
+class NotFound(ServiceError):
+    status = 404
+
+
+class TransitionRefused(ServiceError):
+    """A job (or certificate) cannot move to the asked state; says why."""
+
+    status = 409

@@ -1,0 +1,105 @@
+"""The ``shopapp`` command through click's runner: db, user, help, one-line errors."""
+
+from __future__ import annotations
+
+import pytest
+from click.testing import CliRunner
+
+from shopapp.cli import main
+
+
+@pytest.fixture()
+def cli(fresh_database_url, tmp_path, monkeypatch):  # type: ignore[no-untyped-def]
+    monkeypatch.setenv("SHOPAPP_DATABASE_URL", fresh_database_url)
+    monkeypatch.setenv("SHOPAPP_INSTANCE_PATH", str(tmp_path))
+    runner = CliRunner()
+
+    def run(*args: str, input: str | None = None):  # type: ignore[no-untyped-def]
+        return runner.invoke(main, list(args), input=input, catch_exceptions=False)
+
+    return run
+
+
+def test_help_lists_the_commands(cli) -> None:
+    out = cli("--help").output
+    for name in ("db", "user", "serve"):
+        assert f"  {name}" in out
+
+
+def test_every_command_has_help(cli) -> None:
+    for args in (["db", "--help"], ["db", "upgrade", "--help"], ["db", "downgrade", "--help"],
+                 ["db", "current", "--help"], ["user", "add", "--help"],
+                 ["user", "list", "--help"], ["serve", "--help"]):
+        result = cli(*args)
+        assert result.exit_code == 0, args
+        assert "Usage:" in result.output
+
+
+def test_db_upgrade_current_downgrade(cli) -> None:
+    assert "base" in cli("db", "current").output
+    up = cli("db", "upgrade")
+    assert up.exit_code == 0
+    assert "newest" in cli("db", "current").output
+    down = cli("db", "downgrade", "--yes")
+    assert down.exit_code == 0
+    assert "database at base" in down.output
+
+
+def test_downgrade_to_base_asks_first(cli) -> None:
+    cli("db", "upgrade")
+    result = cli("db", "downgrade", input="n\n")
+    assert result.exit_code != 0
+    assert "newest" in cli("db", "current").output  # nothing dropped
+
+
+def test_user_add_with_password_stdin_then_list(cli) -> None:
+    cli("db", "upgrade")
+    result = cli("user", "add", "Mara", "--role", "quality", "--full-name", "Mara Quill",
+                 "--password-stdin", input="long-enough-pw\n")
+    assert result.exit_code == 0, result.output
+    assert "created mara (quality)" in result.output
+    listing = cli("user", "list").output
+    assert "mara" in listing and "quality" in listing and "Mara Quill" in listing
+
+
+def test_user_add_asks_password_twice(cli) -> None:
+    cli("db", "upgrade")
+    result = cli("user", "add", "olek", "--role", "operator",
+                 input="long-enough-pw\nlong-enough-pw\n")
+    assert result.exit_code == 0, result.output
+    assert "created olek" in result.output
+
+
+@pytest.mark.parametrize(
+    "args, stdin, message",
+    [
+        (["user", "add", "x1", "--role", "operator", "--password-stdin"], "short\n",
+         "password: must be at least 8 characters"),
+        (["user", "add", "Bad Name!", "--role", "operator", "--password-stdin"],
+         "long-enough-pw\n", "username: 'bad name!' is not allowed"),
+        (["user", "add", "x2", "--role", "wizard", "--password-stdin"], "long-enough-pw\n",
+         "'wizard' is not one of"),
+    ],
+)
+def test_user_add_errors_are_one_line(cli, args, stdin, message) -> None:
+    cli("db", "upgrade")
+    result = cli(*args, input=stdin)
+    assert result.exit_code != 0
+    assert message in result.output
+    assert "Traceback" not in result.output
+
+
+def test_duplicate_user_is_refused(cli) -> None:
+    cli("db", "upgrade")
+    cli("user", "add", "sam", "--role", "owner", "--password-stdin", input="long-enough-pw\n")
+    again = cli("user", "add", "sam", "--role", "owner", "--password-stdin",
+                input="long-enough-pw\n")
+    assert again.exit_code == 1
+    assert "'sam' is already taken" in again.output
+
+
+def test_user_list_on_unmigrated_database_is_one_clear_line(cli) -> None:
+    result = cli("user", "list")
+    assert result.exit_code == 1
+    assert result.output.startswith("Error: database error:")
+    assert "Traceback" not in result.output

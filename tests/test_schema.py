@@ -1,0 +1,272 @@
+"""The database itself refuses impossible data, and the migrations equal the models."""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+
+import pytest
+from alembic.autogenerate import compare_metadata
+from alembic.runtime.migration import MigrationContext
+from sqlalchemy import delete, inspect, text, update
+from sqlalchemy.exc import DBAPIError, IntegrityError
+
+from shopapp import schema
+from shopapp.database import make_engine
+from shopapp.models import Base, Certificate, Customer, Job, Rotor, RotorType, Run, RunReading
+
+
+def _refused(db, obj) -> None:
+    """Flushing ``obj`` must be refused by the database; the session is usable after."""
+    db.add(obj)
+    with pytest.raises(IntegrityError):
+        db.flush()
+    db.rollback()
+
+
+# --- CHECK constraints -------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    "field, value",
+    [
+        ("mass_kg", 0.0),
+        ("mass_kg", -3.0),
+        ("service_speed_rpm", 0.0),
+        ("radius_1_mm", -1.0),
+        ("positions_1", 1),
+        ("kind", "toaster"),
+        ("method_1", "glue"),
+        ("bearing_b_mm", 0.0),  # bearings in one place
+    ],
+)
+def test_rotor_type_checks(db, shop, field, value) -> None:
+    customer = shop.customer()
+    good = shop.rotor_type(customer)
+    assert good.id  # the factory's values are acceptable
+    kwargs = {field: value, "part_number": f"BAD-{field}-{value}"}
+    with pytest.raises(IntegrityError):
+        shop.rotor_type(customer, **kwargs)
+    db.rollback()
+
+
+def test_plane_two_needs_its_radius(db, shop) -> None:
+    with pytest.raises(IntegrityError):
+        shop.rotor_type(radius_2_mm=None)
+    db.rollback()
+
+
+@pytest.mark.parametrize(
+    "field, value",
+    [
+        ("balancing_speed_rpm", 0.0),
+        ("service_speed_rpm", -1480.0),
+        ("state", "lost"),
+        ("kind", "warranty"),
+        ("tolerance_grade", None),  # method 'grade' without a grade
+        ("reopen_count", -1),
+        ("promised_on", dt.date(2026, 10, 1)),  # before received
+    ],
+)
+def test_job_checks(db, shop, field, value) -> None:
+    rotor = shop.rotor()
+    with pytest.raises(IntegrityError):
+        shop.job(rotor, **{field: value})
+    db.rollback()
+
+
+def test_return_job_must_link_the_earlier_job(db, shop) -> None:
+    with pytest.raises(IntegrityError):
+        shop.job(kind="return")
+    db.rollback()
+
+
+def test_run_and_reading_checks(db, shop) -> None:
+    job = shop.job()
+    _refused(db, Run(job_id=job.id, seq=1, purpose="initial", speed_rpm=-5))
+    job = shop.job()
+    _refused(db, Run(job_id=job.id, seq=1, purpose="trial", speed_rpm=600))  # trial w/o mass
+    job = shop.job()
+    run = Run(job_id=job.id, seq=1, purpose="initial", speed_rpm=600)
+    db.add(run)
+    db.flush()
+    _refused(db, RunReading(run_id=run.id, plane=1, amplitude=10, angle_deg=360.0))
+    job = shop.job()
+    run = Run(job_id=job.id, seq=1, purpose="initial", speed_rpm=600)
+    db.add(run)
+    db.flush()
+    _refused(db, RunReading(run_id=run.id, plane=3, amplitude=10, angle_deg=10))
+
+
+# --- UNIQUE constraints ------------------------------------------------------
+
+
+def test_job_numbers_are_unique(db, shop) -> None:
+    shop.job(number="J-1")
+    with pytest.raises(IntegrityError):
+        shop.job(number="J-1")
+    db.rollback()
+
+
+def test_serial_unique_per_customer_only(db, shop) -> None:
+    rt = shop.rotor_type()
+    shop.rotor(rt, serial_number="S-100")
+    other = shop.rotor_type()
+    assert shop.rotor(other, serial_number="S-100").id  # another customer: fine
+    with pytest.raises(IntegrityError):
+        shop.rotor(rt, serial_number="S-100")
+    db.rollback()
+
+
+def test_run_sequence_unique_per_job(db, shop) -> None:
+    job = shop.job()
+    db.add(Run(job_id=job.id, seq=1, purpose="initial", speed_rpm=600))
+    db.flush()
+    _refused(db, Run(job_id=job.id, seq=1, purpose="check", speed_rpm=600))
+
+
+# --- foreign keys: history is never cascaded away ---------------------------
+
+
+def test_customer_with_jobs_cannot_be_deleted(db, shop) -> None:
+    job = shop.job()
+    db.commit()
+    with pytest.raises(IntegrityError):
+        db.execute(delete(Customer).where(Customer.id == job.customer_id))
+    db.rollback()
+
+
+def test_rotor_must_exist(db, shop) -> None:
+    customer = shop.customer()
+    _refused(db, Rotor(customer_id=customer.id, rotor_type_id=999_999, serial_number="X"))
+
+
+def test_rotor_type_with_rotors_cannot_be_deleted(db, shop) -> None:
+    rotor = shop.rotor()
+    db.commit()
+    with pytest.raises(IntegrityError):
+        db.execute(delete(RotorType).where(RotorType.id == rotor.rotor_type_id))
+    db.rollback()
+
+
+# --- certificates are immutable in the database itself ----------------------
+
+
+def _certificate(db, shop, user) -> Certificate:
+    job = shop.job()
+    pdf = b"%PDF-1.4 test"
+    cert = Certificate(
+        number="C-0001", revision=1, job_id=job.id, state="issued", issued_by_id=user.id,
+        pdf=pdf, pdf_sha256=hashlib.sha256(pdf).hexdigest(), data_json="{}",
+        data_sha256=hashlib.sha256(b"{}").hexdigest(),
+    )
+    db.add(cert)
+    db.flush()
+    return cert
+
+
+def test_issued_certificate_content_cannot_be_updated(db, shop, make_user) -> None:
+    user = make_user("quality")
+    cert = _certificate(db, shop, user)
+    with pytest.raises(DBAPIError, match="immutable"):
+        db.execute(update(Certificate).where(Certificate.id == cert.id).values(data_json='{"a":1}'))
+    db.rollback()
+
+
+def test_certificate_can_be_voided_once_then_never_changed(db, shop, make_user) -> None:
+    from shopapp.models import utcnow
+
+    user = make_user("quality")
+    cert = _certificate(db, shop, user)
+    db.execute(
+        update(Certificate).where(Certificate.id == cert.id)
+        .values(state="void", voided_at=utcnow(), void_reason="typo", voided_by_id=user.id)
+    )
+    with pytest.raises(DBAPIError, match="immutable"):
+        db.execute(update(Certificate).where(Certificate.id == cert.id).values(void_reason="x"))
+    db.rollback()
+
+
+def test_certificate_cannot_be_deleted(db, shop, make_user) -> None:
+    user = make_user("quality")
+    cert = _certificate(db, shop, user)
+    with pytest.raises(DBAPIError, match="never deleted"):
+        db.execute(delete(Certificate).where(Certificate.id == cert.id))
+    db.rollback()
+
+
+# --- backend settings --------------------------------------------------------
+
+
+def test_sqlite_runs_with_foreign_keys_and_wal(engine, backend) -> None:
+    if backend != "sqlite":
+        pytest.skip("SQLite pragmas only apply to SQLite")
+    with engine.connect() as conn:
+        assert conn.execute(text("PRAGMA foreign_keys")).scalar() == 1
+        assert conn.execute(text("PRAGMA journal_mode")).scalar() == "wal"
+
+
+def test_every_foreign_key_is_indexed(engine) -> None:
+    insp = inspect(engine)
+    missing = []
+    for table in Base.metadata.sorted_tables:
+        indexed = {ix["column_names"][0] for ix in insp.get_indexes(table.name)}
+        indexed |= {u["column_names"][0] for u in insp.get_unique_constraints(table.name)}
+        for fk in table.foreign_keys:
+            if fk.parent.name not in indexed:
+                missing.append(f"{table.name}.{fk.parent.name}")
+    assert missing == []
+
+
+def test_timestamps_come_back_aware_utc(db, shop) -> None:
+    job = shop.job()
+    db.commit()
+    db.expire_all()
+    again = db.get(Job, job.id)
+    assert again.created_at.tzinfo is not None
+    assert again.created_at.utcoffset() == dt.timedelta(0)
+
+
+# --- migrations == models ----------------------------------------------------
+
+
+def test_upgrade_head_gives_exactly_the_models_schema(fresh_database_url: str) -> None:
+    schema.upgrade(fresh_database_url, "head")
+    eng = make_engine(fresh_database_url)
+    try:
+        with eng.connect() as conn:
+            ctx = MigrationContext.configure(conn, opts={"compare_type": True})
+            diff = compare_metadata(ctx, Base.metadata)
+        assert diff == []
+    finally:
+        eng.dispose()
+
+
+def test_downgrade_base_then_upgrade_head(fresh_database_url: str) -> None:
+    schema.upgrade(fresh_database_url, "head")
+    schema.downgrade(fresh_database_url, "base")
+    eng = make_engine(fresh_database_url)
+    try:
+        names = set(inspect(eng).get_table_names()) - {"alembic_version"}
+        assert names == set()
+        schema.upgrade(fresh_database_url, "head")
+        assert set(Base.metadata.tables) <= set(inspect(eng).get_table_names())
+        assert schema.is_at_head(eng, fresh_database_url)
+    finally:
+        eng.dispose()
+
+
+def test_migrated_database_keeps_certificate_triggers(fresh_database_url: str) -> None:
+    schema.upgrade(fresh_database_url, "head")
+    eng = make_engine(fresh_database_url)
+    try:
+        with eng.connect() as conn:
+            if eng.dialect.name == "sqlite":
+                names = set(conn.execute(
+                    text("SELECT name FROM sqlite_master WHERE type = 'trigger'")).scalars())
+            else:
+                names = set(conn.execute(text(
+                    "SELECT tgname FROM pg_trigger WHERE NOT tgisinternal")).scalars())
+        assert "certificate_immutable" in names
+    finally:
+        eng.dispose()
