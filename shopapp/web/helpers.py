@@ -46,4 +46,7 @@ def safe_next(target: str | None, fallback: str) -> str:
 def register_helpers(app: Flask) -> None:
     @app.context_processor
     def _inject() -> dict[str, Any]:
-        return {"can": lambda action: can(current_user, action) if current_user else False}
+        return {
+            "can": lambda action: can(current_user, action) if current_user else False,
+            "endpoints": app.view_functions,
+        }

@@ -1,0 +1,1 @@
+"""reportlab documents rendered from plain data (dataclasses a service builds)."""
