@@ -63,7 +63,9 @@ def removal_angle_deg(add_angle_deg: float) -> float:
     return normalize_deg(finite("angle_deg", add_angle_deg) + 180.0)
 
 
-def to_display_deg(angle_deg: float, *, sense: str = "with_rotation", zero_deg: float = 0.0) -> float:
+def to_display_deg(
+    angle_deg: float, *, sense: str = "with_rotation", zero_deg: float = 0.0
+) -> float:
     """Convert an internal angle to the shop's display convention.
 
     ``sense`` is ``"with_rotation"`` (angles grow in the direction of rotation,
@@ -76,7 +78,9 @@ def to_display_deg(angle_deg: float, *, sense: str = "with_rotation", zero_deg: 
     return normalize_deg(rel if sense == "with_rotation" else -rel)
 
 
-def from_display_deg(display_deg: float, *, sense: str = "with_rotation", zero_deg: float = 0.0) -> float:
+def from_display_deg(
+    display_deg: float, *, sense: str = "with_rotation", zero_deg: float = 0.0
+) -> float:
     """Inverse of :func:`to_display_deg`."""
     if sense not in ANGLE_SENSES:
         raise BalancingInputError("angle_sense", f"must be one of {', '.join(ANGLE_SENSES)}")
