@@ -40,7 +40,9 @@ def phasor(amplitude: float, angle_deg: float, *, field: str = "reading") -> com
 
 def amplitude_angle(value: complex) -> tuple[float, float]:
     """Return ``(abs(value), angle_deg)`` with the angle normalised to [0, 360)."""
-    return abs(value), normalize_deg(math.degrees(cmath.phase(value)))
+    # math.atan2, not cmath.phase: the latter raises OverflowError on a subnormal
+    # imaginary part (an angle of ~1e-160 degrees), the former just returns ~0.
+    return abs(value), normalize_deg(math.degrees(math.atan2(value.imag, value.real)))
 
 
 def normalize_deg(angle_deg: float) -> float:
