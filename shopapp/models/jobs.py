@@ -88,6 +88,10 @@ class Job(Base):
     machine_id: Mapped[int | None] = mapped_column(
         ForeignKey("machine.id", ondelete="RESTRICT"), index=True
     )
+    # Shop arbor the rotor is balanced on (traceability), if any.
+    arbor_id: Mapped[int | None] = mapped_column(
+        ForeignKey("arbor.id", ondelete="RESTRICT"), index=True
+    )
     operator_id: Mapped[int | None] = mapped_column(
         ForeignKey("user_account.id", ondelete="RESTRICT"), index=True
     )
@@ -198,6 +202,11 @@ class Run(Base):
     trial_radius_mm: Mapped[float | None] = mapped_column(Float)
     # True when an earlier trial mass was still on the rotor during this run.
     earlier_trial_left_on: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+    # Stored verdict of a check/final run: True when within tolerance in every plane,
+    # False when not, NULL when not judged (other purposes, or readings unusable).
+    # Set by the jobs service when the run is recorded; the shop measures (first-pass
+    # rate) read it in SQL.
+    within_tolerance: Mapped[bool | None] = mapped_column(Boolean)
     notes: Mapped[str] = mapped_column(Text, nullable=False, default="")
     by_id: Mapped[int | None] = mapped_column(
         ForeignKey("user_account.id", ondelete="RESTRICT"), index=True
