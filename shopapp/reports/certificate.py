@@ -1,0 +1,566 @@
+"""The balance certificate: the data it certifies and its PDF.
+
+:class:`CertificateData` is everything printed on a certificate, as plain
+values (numbers already in the shop's display units and angle convention, so
+the document needs no database). Its canonical JSON (:func:`canonical_json`)
+is what is stored and hashed; :func:`render` turns the data into PDF bytes,
+the same bytes every time for the same data.
+
+The layout is ours, made for a customer's incoming inspection: the first block
+answers "is this rotor accepted, and against what?" (number, revision, rotor,
+customer, verdict); then the rotor and its tolerance, how it was balanced,
+the result per plane with a polar plot, what the certificate covers, who
+signed, and how to check that the document is genuine.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as dt
+import hashlib
+import json
+import math
+from dataclasses import dataclass
+from typing import Any
+
+from reportlab.lib.units import mm
+from reportlab.platypus import Flowable, Paragraph, Spacer, Table, TableStyle
+
+from shopapp.charts import Figure
+from shopapp.charts.polar import PolarVector, polar_figure
+from shopapp.reports import traceability_section
+from shopapp.reports.common import (
+    FONT_BOLD,
+    INK,
+    MARGIN,
+    PAGE_SIZE,
+    SHADE,
+    DocumentMeta,
+    build_pdf,
+    esc,
+    fmt_date,
+    fmt_num,
+    grid_table,
+    keep,
+    styles,
+)
+from shopapp.reports.drawing import to_drawing
+from shopapp.reports.traceability_section import ErrorLine, ResidualTestLine
+
+SCHEMA_VERSION = 1
+SIGNIFICANT_DIGITS = 6  # stored precision of every float in the certified data
+
+COVERAGE_STATEMENT = (
+    "This certificate covers the balance of the rotor as a rigid rotor, on the balancing "
+    "machine named above, at the stated balancing speed, against the stated tolerance. It is "
+    "not a vibration acceptance of the assembled machine: bearings, fits, alignment, the "
+    "foundation, coupling and operating speed of the installation all affect vibration in "
+    "service."
+)
+CAUTION = (
+    "Caution: installation, running-in and service use are governed by the machine maker's "
+    "instructions, the installation's own acceptance criteria and local codes. Do not run the "
+    "rotor above its stated service speed, and keep correction masses, fasteners and guards "
+    "as fitted here."
+)
+
+
+@dataclass(frozen=True)
+class PlaneVector:
+    """An unbalance in one correction plane, as printed."""
+
+    plane: int
+    unbalance_gmm: float
+    unbalance_shop: float  # in CertificateData.unit
+    angle_deg: float  # shop's display convention
+
+
+@dataclass(frozen=True)
+class CorrectionLine:
+    """One correction applied (mass actually fitted or removed)."""
+
+    plane: int
+    action: str  # "add" | "remove"
+    mass_g: float
+    angle_deg: float  # shop's display convention
+    radius_mm: float
+    details: str  # split onto positions or drilling, in words; "" when a single mass
+
+
+@dataclass(frozen=True)
+class LimitLine:
+    """A residual against its limit in one plane (bearing or correction plane)."""
+
+    name: str  # "bearing A", "plane 1", ...
+    limit_gmm: float
+    limit_shop: float
+    residual_gmm: float
+    residual_shop: float
+    percent_of_limit: float
+    passed: bool
+    deciding: bool  # this plane decides the verdict (the tolerance's reference planes)
+
+
+@dataclass(frozen=True)
+class CertificateData:
+    """Everything a balance certificate states. Built by ``services.certificates``."""
+
+    schema: int
+    number: str
+    revision: int
+    revision_reason: str
+    issued_at: str  # ISO 8601 UTC
+    shop_name: str
+    shop_address: str
+    customer_name: str
+    customer_order_ref: str
+    job_number: str
+    rotor_part_number: str
+    rotor_description: str
+    serial_number: str
+    mass_kg: float
+    service_speed_rpm: float
+    balancing_speed_rpm: float
+    planes: int
+    radius_1_mm: float
+    radius_2_mm: float | None
+    bearing_a_mm: float
+    bearing_b_mm: float
+    centre_of_mass_mm: float
+    plane_1_mm: float
+    plane_2_mm: float | None
+    tolerance_method: str  # the job's: "grade" (ISO 21940-11) | "4w/n" | "explicit"
+    tolerance_basis: str  # in words, e.g. "ISO 21940-11 balance grade G 6.3"
+    grade_mm_s: float | None
+    u_per_gmm: float
+    e_per_um: float | None
+    journal_load_a_kg: float | None
+    journal_load_b_kg: float | None
+    reference_planes: str  # "bearing_planes" | "correction_planes"
+    unit: str  # shop's unbalance unit
+    angle_convention: str  # in words
+    machine_name: str
+    machine_kind: str  # "hard-bearing" | "soft-bearing"
+    machine_verified_on: str | None  # ISO date of the last verification, None when none
+    machine_verification: str  # "passed" | "failed" | "no verification on file"
+    received_on: str
+    balanced_on: str  # date of the run that was judged
+    initial_run: int  # run numbers on the job
+    final_run: int
+    initial: tuple[PlaneVector, ...]
+    corrections: tuple[CorrectionLine, ...]
+    residual: tuple[PlaneVector, ...]
+    limits: tuple[LimitLine, ...]
+    plot_limits_shop: tuple[float, ...]  # limit circle per correction plane, shop's unit
+    passed: bool
+    operator_name: str
+    issued_by_name: str
+    notes: tuple[str, ...] = ()
+    # Traceability (shopapp.reports.traceability_section); empty when not applicable.
+    key_statement: str = ""
+    key_compensation: str = ""
+    arbor: str = ""
+    residual_tests: tuple[ResidualTestLine, ...] = ()
+    balance_errors: tuple[ErrorLine, ...] = ()
+    error_rule: str = ""
+
+    # --- serialisation -------------------------------------------------------------
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain dict (tuples as lists) with every float rounded to the stored precision."""
+        return _rounded(dataclasses.asdict(self))
+
+    @classmethod
+    def from_dict(cls, raw: dict[str, Any]) -> CertificateData:
+        """Inverse of :meth:`to_dict` (unknown keys refused, so a bad store shows)."""
+        values = dict(raw)
+        values["initial"] = tuple(PlaneVector(**v) for v in values["initial"])
+        values["residual"] = tuple(PlaneVector(**v) for v in values["residual"])
+        values["corrections"] = tuple(CorrectionLine(**v) for v in values["corrections"])
+        values["limits"] = tuple(LimitLine(**v) for v in values["limits"])
+        values["notes"] = tuple(values.get("notes", ()))
+        values = traceability_section.lines_from_dict(values)
+        return cls(**values)
+
+    @classmethod
+    def from_json(cls, text: str) -> CertificateData:
+        return cls.from_dict(json.loads(text))
+
+    @property
+    def issued_on(self) -> str:
+        return self.issued_at[:10]
+
+
+def _round(value: float) -> float:
+    if not math.isfinite(value):
+        raise ValueError(f"certificate data holds a non-finite number ({value!r})")
+    out = float(f"{value:.{SIGNIFICANT_DIGITS}g}")
+    return 0.0 if out == 0 else out  # no "-0.0" in the canonical text
+
+
+def _rounded(obj: Any) -> Any:
+    if isinstance(obj, bool):
+        return obj
+    if isinstance(obj, float):
+        return _round(obj)
+    if isinstance(obj, dict):
+        return {k: _rounded(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_rounded(v) for v in obj]
+    return obj
+
+
+def canonical_json(data: CertificateData) -> str:
+    """The canonical JSON of ``data``: sorted keys, no spaces, UTF-8, floats to 6 digits.
+
+    ``json.dumps(sort_keys=True, separators=(",", ":"), ensure_ascii=False)`` of
+    :meth:`CertificateData.to_dict`. Rounding is idempotent, so
+    ``canonical_json(from_json(canonical_json(d))) == canonical_json(d)``.
+    """
+    return json.dumps(data.to_dict(), sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+
+
+def data_sha256(data: CertificateData) -> str:
+    """SHA-256 (hex) of the UTF-8 canonical JSON: the content hash printed on the certificate."""
+    return hashlib.sha256(canonical_json(data).encode("utf-8")).hexdigest()
+
+
+def normalized(data: CertificateData) -> CertificateData:
+    """``data`` as it reads back from its canonical JSON (rounded), ready to render and store."""
+    return CertificateData.from_json(canonical_json(data))
+
+
+# --- layout -------------------------------------------------------------------------
+
+_CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
+
+
+def _u(value: float | None, unit: str) -> str:
+    return "–" if value is None else f"{fmt_num(value)} {unit}"
+
+
+def _ang(value: float) -> str:
+    return f"{value:.0f}°"
+
+
+def _rpm(value: float) -> str:
+    return f"{value:.0f} rpm"
+
+
+def _widths(*fractions: float) -> list[float]:
+    total = sum(fractions)
+    return [_CONTENT_WIDTH * f / total for f in fractions]
+
+
+def _unit_heads(what: str, unit: str) -> list[str]:
+    """Column heads in the shop's unit, plus g·mm when the shop works in another unit."""
+    return [f"{what} ({unit})"] if unit == "g·mm" else [f"{what} ({unit})", f"{what} (g·mm)"]
+
+
+def _unit_values(shop: float, gmm: float, unit: str) -> list[str]:
+    return [fmt_num(shop)] if unit == "g·mm" else [fmt_num(shop), fmt_num(gmm)]
+
+
+def _unit_widths(unit: str) -> list[float]:
+    return [0.3] if unit == "g·mm" else [0.22, 0.22]
+
+
+def _vector_table(vectors: tuple[PlaneVector, ...], what: str, unit: str) -> Flowable:
+    rows = [["Plane", *_unit_heads(what, unit), "Angle"]]
+    for v in vectors:
+        rows.append([f"plane {v.plane}", *_unit_values(v.unbalance_shop, v.unbalance_gmm, unit),
+                     _ang(v.angle_deg)])
+    return grid_table(rows, _widths(0.25, *_unit_widths(unit), 0.25), align_right_from=1)
+
+
+def _verdict_word(passed: bool) -> str:
+    return "WITHIN TOLERANCE" if passed else "OUT OF TOLERANCE"
+
+
+def first_lines(data: CertificateData) -> list[tuple[str, str]]:
+    """The identification block printed first on the certificate (also shown by /verify)."""
+    return [
+        ("Certificate", f"{data.number} revision {data.revision}"),
+        ("Issued", fmt_date(data.issued_at)),
+        ("Customer", data.customer_name),
+        ("Rotor", f"{data.rotor_part_number} {data.rotor_description}".strip()),
+        ("Serial number", data.serial_number),
+        ("Result", _verdict_word(data.passed).lower() + " in every plane"
+         if data.passed else _verdict_word(False).lower()),
+    ]
+
+
+def _identity_block(data: CertificateData) -> Flowable:
+    st = styles()
+    left = [
+        Paragraph(esc(data.shop_name), st.subtitle),
+        Paragraph("Balance certificate", st.title),
+        Paragraph(esc("Rigid-rotor balance, measured and certified by the shop named above"),
+                  st.small),
+    ]
+    rows = [[Paragraph(esc(k), st.cell_bold), Paragraph(esc(v), st.cell)]
+            for k, v in first_lines(data)[:2]]
+    ident = Table(rows, colWidths=[24 * mm, 46 * mm])
+    ident.setStyle(TableStyle([
+        ("BOX", (0, 0), (-1, -1), 1.0, INK),
+        ("BACKGROUND", (0, 0), (-1, -1), SHADE),
+        ("TOPPADDING", (0, 0), (-1, -1), 2),
+        ("BOTTOMPADDING", (0, 0), (-1, -1), 2),
+    ]))
+    outer = Table([[left, ident]], colWidths=[_CONTENT_WIDTH - 72 * mm, 72 * mm])
+    outer.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
+                               ("LEFTPADDING", (0, 0), (-1, -1), 0),
+                               ("RIGHTPADDING", (0, 0), (-1, -1), 0)]))
+    return outer
+
+
+def _acceptance_block(data: CertificateData) -> Flowable:
+    """The incoming-inspection summary: what, whose, against what, verdict."""
+    st = styles()
+    lines = first_lines(data)[2:5]
+    basis = f"{data.tolerance_basis}; judged in the {data.reference_planes.replace('_', ' ')}"
+    rows = [[k, v] for k, v in lines] + [
+        ["Customer order", data.customer_order_ref or "–"],
+        ["Our job", data.job_number],
+        ["Tolerance", basis],
+    ]
+    table = grid_table(rows, [32 * mm, _CONTENT_WIDTH - 32 * mm - 48 * mm], header_rows=0,
+                       label_column=True)
+    worst = max((x.percent_of_limit for x in data.limits if x.deciding), default=0.0)
+    verdict = Paragraph(
+        f'<font name="{FONT_BOLD}" size="12">{esc(_verdict_word(data.passed))}</font>'
+        f"<br/>{'in every plane' if data.passed else 'see the result table'}"
+        f"<br/>worst plane at {worst:.0f} % of its limit",
+        st.body,
+    )
+    box = Table([[verdict]], colWidths=[46 * mm])
+    box.setStyle(TableStyle([("BOX", (0, 0), (-1, -1), 1.6, INK),
+                             ("VALIGN", (0, 0), (-1, -1), "MIDDLE"),
+                             ("TOPPADDING", (0, 0), (-1, -1), 6),
+                             ("BOTTOMPADDING", (0, 0), (-1, -1), 6)]))
+    outer = Table([[table, box]], colWidths=[_CONTENT_WIDTH - 48 * mm, 48 * mm])
+    outer.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
+                               ("LEFTPADDING", (0, 0), (-1, -1), 0),
+                               ("RIGHTPADDING", (0, 0), (-1, -1), 0)]))
+    return outer
+
+
+def _rotor_section(data: CertificateData) -> list[Flowable]:
+    st = styles()
+    two = data.planes == 2
+    rows = [
+        ["Mass", f"{fmt_num(data.mass_kg)} kg",
+         "Service speed", _rpm(data.service_speed_rpm)],
+        ["Correction radius, plane 1", f"{fmt_num(data.radius_1_mm)} mm",
+         "Correction radius, plane 2", f"{fmt_num(data.radius_2_mm)} mm" if two else "–"],
+        ["Bearing A / bearing B at", f"{fmt_num(data.bearing_a_mm)} / "
+         f"{fmt_num(data.bearing_b_mm)} mm", "Centre of mass at",
+         f"{fmt_num(data.centre_of_mass_mm)} mm"],
+        ["Plane 1 at", f"{fmt_num(data.plane_1_mm)} mm",
+         "Plane 2 at", f"{fmt_num(data.plane_2_mm)} mm" if two else "single plane"],
+    ]
+    w = _CONTENT_WIDTH / 4
+    return [
+        keep(Paragraph("1  Rotor", st.heading),
+             grid_table(rows, [w * 1.15, w * 0.85, w * 1.15, w * 0.85], header_rows=0),
+             Paragraph("Axial positions in mm from the drawing's datum.", st.small)),
+    ]
+
+
+def _tolerance_section(data: CertificateData) -> list[Flowable]:
+    st = styles()
+    lines = [f"Basis: {data.tolerance_basis}."]
+    if data.tolerance_method == "grade":
+        lines.append(
+            f"Permissible residual unbalance U_per = {fmt_num(data.u_per_gmm)} g·mm "
+            f"(e_per = {fmt_num(data.e_per_um)} g·mm/kg) at the service speed "
+            f"{_rpm(data.service_speed_rpm)}, allocated to the bearing planes."
+        )
+    elif data.tolerance_method == "4w/n":
+        loads = f"{fmt_num(data.journal_load_a_kg)} kg"
+        if data.journal_load_b_kg is not None:
+            loads += f" and {fmt_num(data.journal_load_b_kg)} kg"
+        lines.append(f"4W/N per correction plane with static journal loads of {loads} at "
+                     f"{_rpm(data.service_speed_rpm)}.")
+    else:
+        lines.append("Limits per correction plane as specified by the customer.")
+    rows: list[list[str]] = [["Plane", *_unit_heads("Limit", data.unit), "Decides the verdict"]]
+    for lim in data.limits:
+        rows.append([lim.name, *_unit_values(lim.limit_shop, lim.limit_gmm, data.unit),
+                     "yes" if lim.deciding else "no, shown for information"])
+    return [keep(
+        Paragraph("2  Tolerance", st.heading),
+        *[Paragraph(esc(t), st.body) for t in lines],
+        Spacer(1, 2 * mm),
+        grid_table(rows, _widths(0.25, *_unit_widths(data.unit), 0.31), align_right_from=1),
+    )]
+
+
+def _balancing_section(data: CertificateData) -> list[Flowable]:
+    st = styles()
+    if data.machine_verified_on is None:
+        verification = "no verification on file"
+    else:
+        verification = f"last verified {data.machine_verified_on}: {data.machine_verification}"
+    out: list[Flowable] = [
+        Paragraph("3  How it was balanced", st.heading),
+        grid_table([
+            ["Balancing machine", f"{data.machine_name} ({data.machine_kind})"],
+            ["Machine verification", verification],
+            ["Balancing speed", _rpm(data.balancing_speed_rpm)],
+            ["Angles", data.angle_convention],
+            ["Received / balanced", f"{data.received_on} / {data.balanced_on}"],
+        ], [45 * mm, _CONTENT_WIDTH - 45 * mm], header_rows=0, label_column=True),
+        Spacer(1, 2 * mm),
+        Paragraph(esc(f"Initial unbalance (run {data.initial_run})"), st.cell_bold),
+    ]
+    out.append(_vector_table(data.initial, "Unbalance", data.unit))
+    w = _CONTENT_WIDTH
+    out.append(Spacer(1, 2 * mm))
+    out.append(Paragraph("Corrections applied", st.cell_bold))
+    if data.corrections:
+        crow = [["Plane", "Action", "Mass", "Angle", "Radius", "How"]]
+        for c in data.corrections:
+            crow.append([f"plane {c.plane}", "added" if c.action == "add" else "removed",
+                         f"{fmt_num(c.mass_g)} g", _ang(c.angle_deg), f"{fmt_num(c.radius_mm)} mm",
+                         c.details or "single mass"])
+        out.append(grid_table(crow, [w * 0.1, w * 0.11, w * 0.12, w * 0.1, w * 0.12, w * 0.45]))
+    else:
+        out.append(Paragraph("none: the rotor was within tolerance as received", st.body))
+    return out
+
+
+def _result_section(data: CertificateData) -> list[Flowable]:
+    st = styles()
+    rows = [["Plane", f"Residual ({data.unit})", f"Limit ({data.unit})", "% of limit",
+             "Verdict"]]
+    for lim in data.limits:
+        verdict = "within" if lim.passed else "OUT"
+        if not lim.deciding:
+            verdict += " (information)"
+        rows.append([lim.name, fmt_num(lim.residual_shop), fmt_num(lim.limit_shop),
+                     f"{lim.percent_of_limit:.0f} %", verdict])
+    w = _CONTENT_WIDTH
+    out: list[Flowable] = [
+        keep(
+            Paragraph(esc(f"4  Result (run {data.final_run})"), st.heading),
+            _vector_table(data.residual, "Residual", data.unit),
+            Spacer(1, 2 * mm),
+            grid_table(rows, [w * 0.2, w * 0.2, w * 0.2, w * 0.15, w * 0.25],
+                       align_right_from=1),
+        ),
+    ]
+    for note in data.notes:
+        out.append(Paragraph(esc(note), st.small))
+    plot = _polar_plot(data)
+    if plot is not None:
+        out.append(Spacer(1, 3 * mm))
+        out.append(keep(plot, Paragraph(esc(
+            "Polar plot per correction plane: initial unbalance (thin dashed arrow), residual "
+            "(heavy solid arrow) and the limit circle (heavy dashed circle); 0° at the top, "
+            "angles growing clockwise in the shop's angle convention."
+        ), st.small)))
+    return out
+
+
+def polar_figures(data: CertificateData, size: float = 200.0) -> list[Figure]:
+    """One polar plot per correction plane: initial and residual with the limit circle.
+
+    Built with :func:`shopapp.charts.polar.polar_figure`, the job page's chart code.
+    The stored angles are already in the shop's display convention, so they are
+    passed with the identity convention (with rotation, zero at 0°).
+    """
+    figures = []
+    for k in range(data.planes):
+        vectors = []
+        if k < len(data.initial):
+            v = data.initial[k]
+            vectors.append(PolarVector(f"initial (run {data.initial_run})", v.unbalance_shop,
+                                       v.angle_deg, "initial"))
+        if k < len(data.residual):
+            v = data.residual[k]
+            vectors.append(PolarVector(f"residual (run {data.final_run})", v.unbalance_shop,
+                                       v.angle_deg, "residual"))
+        limit = data.plot_limits_shop[k] if k < len(data.plot_limits_shop) else None
+        figures.append(polar_figure(vectors, limit=limit, title=f"Plane {k + 1}",
+                                    unit_label=data.unit, size=size))
+    return figures
+
+
+def _polar_plot(data: CertificateData) -> Flowable | None:
+    """The polar plots side by side, drawn from the shared chart geometry."""
+    figures = polar_figures(data)
+    if not figures:
+        return None
+    drawings = [to_drawing(f) for f in figures]
+    table = Table([drawings], colWidths=[_CONTENT_WIDTH / len(drawings)] * len(drawings))
+    table.setStyle(TableStyle([("ALIGN", (0, 0), (-1, -1), "CENTER"),
+                               ("VALIGN", (0, 0), (-1, -1), "TOP")]))
+    return table
+
+
+def _closing_section(data: CertificateData, content_hash: str) -> list[Flowable]:
+    st = styles()
+    sign = grid_table(
+        [["", "Name", "Date"],
+         ["Balanced by (operator)", data.operator_name or "–", data.balanced_on],
+         ["Issued by (quality)", data.issued_by_name, fmt_date(data.issued_at)]],
+        [50 * mm, 70 * mm, _CONTENT_WIDTH - 120 * mm], label_column=True,
+    )
+    out: list[Flowable] = [
+        keep(Paragraph("5  What this certificate covers", st.heading),
+             Paragraph(esc(COVERAGE_STATEMENT), st.body),
+             Paragraph(esc(CAUTION), st.caution)),
+        keep(Paragraph("6  Signed", st.heading), sign),
+    ]
+    if data.revision > 1 or data.revision_reason:
+        out.append(Paragraph(esc(
+            f"Revision {data.revision} replaces the earlier revisions of {data.number}, which "
+            f"are void. Reason: {data.revision_reason or 'not stated'}."
+        ), st.body))
+    out.append(keep(
+        Paragraph("7  Check that this document is genuine", st.heading),
+        Paragraph(esc("Content hash (SHA-256 of the certified data):"), st.body),
+        Paragraph(esc(content_hash), st.mono),
+        Paragraph(esc(
+            f"Enter the certificate number {data.number} or this hash on the shop's "
+            "verification page (/verify on the shop's shopapp server, no login needed), or run "
+            "'shopapp report verify FILE.pdf' on the PDF file. The page states whether this "
+            "revision is valid, void or superseded. The hash changes if any certified value "
+            "changes."
+        ), st.body),
+    ))
+    return out
+
+
+def meta(data: CertificateData, content_hash: str | None = None) -> DocumentMeta:
+    """PDF info, header and footer of a certificate (creation date = issue time)."""
+    content_hash = content_hash or data_sha256(data)
+    return DocumentMeta(
+        title=f"Balance certificate {data.number} revision {data.revision}",
+        created=dt.datetime.fromisoformat(data.issued_at),
+        id_seed=content_hash,
+        author=data.shop_name,
+        subject=f"{data.number} rev {data.revision}; serial {data.serial_number}",
+        keywords=f"shopapp-certificate {data.number} rev {data.revision} data-sha256 "
+                 f"{content_hash}",
+        header_left=f"{data.shop_name} · balance certificate",
+        header_right=f"{data.number} revision {data.revision} · serial {data.serial_number}",
+        footer_left=f"content hash {content_hash[:16]}… · verify at /verify",
+    )
+
+
+def render(data: CertificateData) -> bytes:
+    """The certificate as PDF bytes (A4, reproducible: same data, same bytes).
+
+    The content hash printed on it is :func:`data_sha256` of ``data``.
+    """
+    content_hash = data_sha256(data)
+    story: list[Flowable] = [_identity_block(data), Spacer(1, 4 * mm), _acceptance_block(data)]
+    story += _rotor_section(data)
+    story += _tolerance_section(data)
+    story += _balancing_section(data)
+    story += _result_section(data)
+    story += traceability_section.section(data)
+    story += _closing_section(data, content_hash)
+    return build_pdf(story, meta(data, content_hash))

@@ -1,0 +1,309 @@
+"""What every shopapp PDF shares: fonts, paragraph styles, header and footer with
+"page x of y", table styling, and reproducible bytes.
+
+A document is a list of platypus flowables plus a :class:`DocumentMeta`;
+:func:`build_pdf` turns them into bytes. Two builds of the same flowables and
+meta give the same bytes: reportlab's invariant mode is on, the creation date
+printed into the PDF comes from ``meta.created`` and the document ID is an MD5
+of ``meta.id_seed`` (not of the wall clock), so a stored certificate can be
+re-rendered and checked against its stored SHA-256.
+
+Only the 14 standard PDF fonts are used (nothing embedded, nothing that varies
+between machines). They cover the Windows-1252 characters; :func:`pdf_text`
+replaces the few symbols outside it that our texts use.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from io import BytesIO
+from typing import Any
+
+from reportlab.lib import colors
+from reportlab.lib.enums import TA_LEFT
+from reportlab.lib.pagesizes import A4
+from reportlab.lib.styles import ParagraphStyle
+from reportlab.lib.units import mm
+from reportlab.pdfgen.canvas import Canvas
+from reportlab.platypus import Flowable, Paragraph, SimpleDocTemplate, Table, TableStyle
+from reportlab.platypus.flowables import KeepTogether
+
+FONT = "Helvetica"
+FONT_BOLD = "Helvetica-Bold"
+FONT_ITALIC = "Helvetica-Oblique"
+FONT_MONO = "Courier"
+
+INK = colors.HexColor("#1d232a")
+MUTED = colors.HexColor("#5b6570")
+RULE = colors.HexColor("#b9c1c9")
+SHADE = colors.HexColor("#eef1f4")
+
+PAGE_SIZE = A4
+MARGIN = 18 * mm
+HEADER_GAP = 10 * mm  # space the running header and footer take inside the margins
+
+# Symbols our texts use that the standard fonts (Windows-1252) cannot show.
+_REPLACEMENTS = {
+    "≤": "<=",
+    "≥": ">=",
+    "−": "-",
+    "Ω": "Omega",
+    "√": "sqrt",
+    "→": "->",
+    "≈": "~",
+    "⌀": "Ø",
+    "\u2009": " ",
+    "\u202f": " ",
+}
+
+
+def pdf_text(text: str) -> str:
+    """``text`` made printable with the standard fonts (Windows-1252), no silent boxes."""
+    out = []
+    for ch in text:
+        ch = _REPLACEMENTS.get(ch, ch)
+        try:
+            ch.encode("cp1252")
+        except UnicodeEncodeError:
+            ch = "?"
+        out.append(ch)
+    return "".join(out)
+
+
+def esc(text: object) -> str:
+    """Escape for a platypus Paragraph (its mini-markup) after :func:`pdf_text`."""
+    s = pdf_text(str(text))
+    return s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+
+
+@dataclass(frozen=True)
+class Styles:
+    """The paragraph styles of our documents."""
+
+    title: ParagraphStyle
+    subtitle: ParagraphStyle
+    heading: ParagraphStyle
+    body: ParagraphStyle
+    small: ParagraphStyle
+    cell: ParagraphStyle
+    cell_bold: ParagraphStyle
+    mono: ParagraphStyle
+    caution: ParagraphStyle
+
+
+def styles() -> Styles:
+    """Fresh paragraph styles (fresh objects, so one document cannot change another's)."""
+    base = ParagraphStyle("body", fontName=FONT, fontSize=9, leading=11.5, textColor=INK,
+                          alignment=TA_LEFT)
+    return Styles(
+        title=ParagraphStyle("title", parent=base, fontName=FONT_BOLD, fontSize=16, leading=19,
+                             spaceAfter=2),
+        subtitle=ParagraphStyle("subtitle", parent=base, fontSize=10, leading=13,
+                                textColor=MUTED, spaceAfter=6),
+        heading=ParagraphStyle("heading", parent=base, fontName=FONT_BOLD, fontSize=10.5,
+                               leading=13, spaceBefore=8, spaceAfter=3),
+        body=base,
+        small=ParagraphStyle("small", parent=base, fontSize=7.5, leading=9.5, textColor=MUTED),
+        cell=ParagraphStyle("cell", parent=base, fontSize=8.5, leading=10.5),
+        cell_bold=ParagraphStyle("cell_bold", parent=base, fontName=FONT_BOLD, fontSize=8.5,
+                                 leading=10.5),
+        mono=ParagraphStyle("mono", parent=base, fontName=FONT_MONO, fontSize=8, leading=10),
+        caution=ParagraphStyle("caution", parent=base, fontSize=8.5, leading=11,
+                               borderColor=INK, borderWidth=0.8, borderPadding=5,
+                               spaceBefore=8, spaceAfter=8, backColor=SHADE),
+    )
+
+
+def grid_table(
+    rows: Sequence[Sequence[Any]],
+    col_widths: Sequence[float] | None = None,
+    *,
+    header_rows: int = 1,
+    label_column: bool = False,
+    align_right_from: int | None = None,
+) -> Table:
+    """A ruled table: shaded header row(s), optional shaded first column, numbers right-aligned.
+
+    Cells may be strings (wrapped into paragraphs of the ``cell`` style) or flowables.
+    """
+    st = styles()
+    body: list[list[Any]] = []
+    for r, row in enumerate(rows):
+        cells: list[Any] = []
+        for c, value in enumerate(row):
+            if isinstance(value, Flowable):
+                cells.append(value)
+                continue
+            bold = r < header_rows or (label_column and c == 0)
+            style = st.cell_bold if bold else st.cell
+            if align_right_from is not None and c >= align_right_from and r >= header_rows:
+                style = ParagraphStyle(f"{style.name}_r", parent=style, alignment=2)
+            cells.append(Paragraph(esc(value), style))
+        body.append(cells)
+    table = Table(body, colWidths=list(col_widths) if col_widths else None, repeatRows=header_rows)
+    commands: list[tuple[Any, ...]] = [
+        ("GRID", (0, 0), (-1, -1), 0.4, RULE),
+        ("VALIGN", (0, 0), (-1, -1), "TOP"),
+        ("TOPPADDING", (0, 0), (-1, -1), 2),
+        ("BOTTOMPADDING", (0, 0), (-1, -1), 2),
+        ("LEFTPADDING", (0, 0), (-1, -1), 3),
+        ("RIGHTPADDING", (0, 0), (-1, -1), 3),
+    ]
+    if header_rows:
+        commands.append(("BACKGROUND", (0, 0), (-1, header_rows - 1), SHADE))
+    if label_column:
+        commands.append(("BACKGROUND", (0, header_rows), (0, -1), SHADE))
+    table.setStyle(TableStyle(commands))
+    return table
+
+
+def keep(*flowables: Flowable) -> KeepTogether:
+    """Keep a heading with what follows it."""
+    return KeepTogether(list(flowables))
+
+
+@dataclass(frozen=True)
+class DocumentMeta:
+    """What a document says about itself: PDF info, running header and footer.
+
+    ``created`` is printed as the PDF creation date; ``id_seed`` (any text that
+    identifies the content, e.g. its SHA-256) becomes the PDF document ID.
+    """
+
+    title: str
+    created: dt.datetime
+    id_seed: str
+    author: str = ""
+    subject: str = ""
+    keywords: str = ""
+    header_left: str = ""
+    header_right: str = ""
+    footer_left: str = ""
+
+
+def pdf_date(moment: dt.datetime) -> str:
+    """A PDF date string ``D:YYYYMMDDHHmmSS+00'00'`` in UTC (PDF 1.7, section 7.9.4)."""
+    if moment.tzinfo is None:
+        raise ValueError("created must be timezone-aware")
+    u = moment.astimezone(dt.UTC)
+    return u.strftime("D:%Y%m%d%H%M%S+00'00'")
+
+
+def _canvas_class(meta: DocumentMeta) -> type[Canvas]:
+    """A canvas that holds pages back until the end, so each footer can say "page x of y"."""
+    created = pdf_date(meta.created)
+    seed = meta.id_seed.encode("utf-8")
+
+    class _Canvas(Canvas):
+        def __init__(self, *args: Any, **kwargs: Any) -> None:
+            kwargs["invariant"] = 1
+            super().__init__(*args, **kwargs)
+            # Creation date and ID come from the content, not the clock or the
+            # environment (reportlab would otherwise hash its own time stamp).
+            self.setDateFormatter(lambda *_ymdhms: created)
+            self._doc.signature = hashlib.md5(b"shopapp " + seed, usedforsecurity=False)
+            self._pages: list[dict[str, Any]] = []
+
+        def showPage(self) -> None:  # reportlab's method name
+            self._pages.append(dict(self.__dict__))
+            self._startPage()
+
+        def save(self) -> None:
+            total = len(self._pages)
+            for number, state in enumerate(self._pages, start=1):
+                self.__dict__.update(state)
+                _draw_running(self, meta, number, total)
+                Canvas.showPage(self)
+            Canvas.save(self)
+
+    return _Canvas
+
+
+def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -> None:
+    width, height = canvas._pagesize
+    canvas.saveState()
+    canvas.setStrokeColor(RULE)
+    canvas.setLineWidth(0.5)
+    top = height - MARGIN + 4 * mm
+    canvas.line(MARGIN, top - 1.5 * mm, width - MARGIN, top - 1.5 * mm)
+    canvas.setFillColor(MUTED)
+    canvas.setFont(FONT, 7.5)
+    canvas.drawString(MARGIN, top, pdf_text(meta.header_left))
+    canvas.drawRightString(width - MARGIN, top, pdf_text(meta.header_right))
+    bottom = MARGIN - 6 * mm
+    canvas.line(MARGIN, bottom + 3.5 * mm, width - MARGIN, bottom + 3.5 * mm)
+    canvas.drawString(MARGIN, bottom, pdf_text(meta.footer_left))
+    canvas.setFont(FONT_BOLD, 8)
+    canvas.setFillColor(INK)
+    canvas.drawRightString(width - MARGIN, bottom, f"page {number} of {total}")
+    canvas.restoreState()
+
+
+def build_pdf(
+    story: list[Flowable],
+    meta: DocumentMeta,
+    *,
+    pagesize: tuple[float, float] = PAGE_SIZE,
+    on_page: Callable[[Canvas, Any], None] | None = None,
+) -> bytes:
+    """Lay out ``story`` on A4 pages with our header and footer; return the PDF bytes.
+
+    Deterministic: the same story and meta give the same bytes (see module docstring).
+    """
+    buf = BytesIO()
+    doc = SimpleDocTemplate(
+        buf,
+        pagesize=pagesize,
+        leftMargin=MARGIN,
+        rightMargin=MARGIN,
+        topMargin=MARGIN + HEADER_GAP - 4 * mm,
+        bottomMargin=MARGIN + HEADER_GAP - 6 * mm,
+        title=pdf_text(meta.title),
+        author=pdf_text(meta.author),
+        subject=pdf_text(meta.subject),
+        keywords=pdf_text(meta.keywords),
+        creator="shopapp",
+        invariant=1,
+    )
+
+    def _page(canvas: Canvas, document: Any) -> None:
+        if on_page is not None:
+            on_page(canvas, document)
+
+    doc.build(story, onFirstPage=_page, onLaterPages=_page, canvasmaker=_canvas_class(meta))
+    return buf.getvalue()
+
+
+def fmt_num(value: float | None, digits: int = 3) -> str:
+    """A measured number for print: ``digits`` significant figures, no exponent for shop sizes.
+
+    ``None`` prints as an en dash (nothing to show).
+    """
+    if value is None:
+        return "–"
+    if value == 0:
+        return "0"
+    mag = abs(value)
+    if mag >= 10 ** digits:
+        return f"{value:.0f}"
+    decimals = max(0, digits - 1 - int(_floor_log10(mag)))
+    return f"{value:.{decimals}f}"
+
+
+def _floor_log10(x: float) -> int:
+    return math.floor(math.log10(x))
+
+
+def fmt_date(value: str | dt.date | dt.datetime | None) -> str:
+    """An ISO date (``YYYY-MM-DD``) for print; datetimes print their UTC date."""
+    if value is None or value == "":
+        return "–"
+    if isinstance(value, str):
+        return value[:10]
+    if isinstance(value, dt.datetime):
+        return value.astimezone(dt.UTC).date().isoformat()
+    return value.isoformat()

@@ -1,0 +1,1 @@
+"""Certificates: register, issue, reissue, void, downloads and the public verification page."""
