@@ -1,0 +1,47 @@
+"""``shopapp report shop --month 2026-10 --output FILE.pdf`` / ``--json``: the monthly report.
+
+The PDF is the same two-page report as the dashboard's button; ``--json`` prints the
+same figures keyed by the measure names (see ``shopapp.services.measures``), so they
+can be checked and scripted.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+from pathlib import Path
+
+import click
+from flask.cli import with_appcontext
+
+from shopapp.cli.common import app_db, one_line_errors
+from shopapp.reports import shop_month
+from shopapp.services import measures
+
+
+@click.command("shop")
+@click.option("--month", required=True, metavar="YYYY-MM", help="The month, e.g. 2026-10.")
+@click.option("--output", "-o", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="PDF file to write.")
+@click.option("--json", "as_json", is_flag=True, help="Print the figures as JSON.")
+@click.option("--as-of", "as_of", type=click.DateTime(formats=["%Y-%m-%d"]), default=None,
+              help="Count work in progress and machine verification as of this day "
+                   "(YYYY-MM-DD; default today).")
+@with_appcontext
+@one_line_errors
+def shop_command(month: str, output: Path | None, as_json: bool,
+                 as_of: dt.datetime | None) -> None:
+    """The month's shop measures as a two-page PDF (--output) and/or JSON (--json)."""
+    if output is None and not as_json:
+        raise click.UsageError("give --output FILE.pdf, --json, or both")
+    period = measures.parse_month(month)
+    today = as_of.date() if as_of else dt.date.today()
+    with app_db().session() as sess:
+        report = measures.shop_report(sess, period, by=None, today=today)
+    if output is not None:
+        output.parent.mkdir(parents=True, exist_ok=True)
+        output.write_bytes(shop_month.render(report))
+        if not as_json:
+            click.echo(f"wrote {output}: shop report {period.label}")
+    if as_json:
+        click.echo(json.dumps(report.to_json(), indent=2, ensure_ascii=False))

@@ -1,0 +1,56 @@
+"""``shopapp report shop``: JSON keyed by the measure names, the two-page PDF, errors.
+
+Figures are the hand counts of tests/measures_shop.py.
+"""
+
+from __future__ import annotations
+
+import json
+
+from pypdf import PdfReader
+
+from tests import measures_shop
+
+MEASURES = ("jobs_received", "jobs_dispatched", "wip_jobs", "wip_age_median_wd",
+            "wip_age_max_wd", "turnaround_median_wd", "turnaround_p90_wd", "promised_hit_rate",
+            "reached_in_tolerance", "first_pass_rate", "correction_cycles_mean", "reworked_jobs",
+            "rework_rate", "rework_reasons", "rejected_jobs", "rejection_reasons",
+            "rotors_getting_worse", "machine_utilisation", "machine_verification", "by",
+            "trend", "previous")
+
+
+def test_json_prints_the_months_figures(runner, db, shop, make_user) -> None:  # type: ignore[no-untyped-def]
+    measures_shop.build(db, shop, make_user)
+    result = runner.invoke(args=["report", "shop", "--month", "2026-10", "--json",
+                                 "--as-of", "2026-11-15"])
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.output)
+    assert set(MEASURES) <= set(data)
+    assert data["jobs_received"] == 11  # J1–J4, J6–J12
+    assert data["rework_rate"] == 0.5  # 3 reworked / 6 reached
+    assert data["first_pass_rate"] == 0.8  # 4 of 5 judged
+    assert data["turnaround_median_wd"] == 3.0
+    assert data["previous"]["jobs_received"] == 1  # J5 in September
+    assert [r["reason"] for r in data["rejection_reasons"]] == ["cracked hub",
+                                                                "over machine capacity"]
+    status = {m["machine"]: m["status"] for m in data["machine_verification"]}
+    assert status["Hand shop M1"] == "due soon"  # due 2026-11-20, as of 2026-11-15
+
+
+def test_pdf_has_two_pages(runner, db, shop, make_user, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    measures_shop.build(db, shop, make_user)
+    out = tmp_path / "oct.pdf"
+    result = runner.invoke(args=["report", "shop", "--month", "2026-10", "--output", str(out)])
+    assert result.exit_code == 0, result.output
+    assert "wrote" in result.output
+    reader = PdfReader(out)
+    assert len(reader.pages) == 2
+    text = reader.pages[0].extract_text()
+    assert "October 2026" in text and "First-pass rate" in text
+
+
+def test_bad_month_and_missing_output_are_one_line_errors(runner) -> None:  # type: ignore[no-untyped-def]
+    bad = runner.invoke(args=["report", "shop", "--month", "Oct", "--json"])
+    assert bad.exit_code != 0 and "YYYY-MM" in bad.output and "Traceback" not in bad.output
+    neither = runner.invoke(args=["report", "shop", "--month", "2026-10"])
+    assert neither.exit_code != 0 and "--output" in neither.output
