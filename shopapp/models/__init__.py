@@ -29,6 +29,15 @@ from shopapp.models.registry import (
     Rotor,
     RotorType,
 )
+from shopapp.models.traceability import (
+    RESIDUAL_TEST_POSITIONS,
+    Arbor,
+    ArborErrorMeasurement,
+    ArborErrorSubtraction,
+    BalanceErrorEstimate,
+    ProvingRotor,
+    ResidualTest,
+)
 
 __all__ = [
     "ANGLE_SENSES",
@@ -40,13 +49,18 @@ __all__ = [
     "JOB_STATES",
     "KEY_CONVENTIONS",
     "READING_UNITS",
+    "RESIDUAL_TEST_POSITIONS",
     "ROLES",
     "ROTATIONS",
     "ROTOR_KINDS",
     "RUN_PURPOSES",
     "TOLERANCE_METHODS",
     "UNBALANCE_DISPLAY_UNITS",
+    "Arbor",
+    "ArborErrorMeasurement",
+    "ArborErrorSubtraction",
     "AuditEvent",
+    "BalanceErrorEstimate",
     "Base",
     "Certificate",
     "Correction",
@@ -56,6 +70,8 @@ __all__ = [
     "JobTransition",
     "Machine",
     "MachineVerification",
+    "ProvingRotor",
+    "ResidualTest",
     "Rotor",
     "RotorType",
     "Run",

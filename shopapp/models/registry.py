@@ -82,6 +82,16 @@ class RotorType(Base):
         CheckConstraint(
             "(plane_2_mm IS NULL) = (radius_2_mm IS NULL)", name="plane_2_complete"
         ),
+        # Key size for the key-convention compensation (traceability).
+        positive("key_width_mm"),
+        positive("key_height_mm"),
+        positive("key_length_mm"),
+        positive("hub_length_mm"),
+        positive("key_radius_mm"),
+        CheckConstraint(
+            "key_angle_deg IS NULL OR (key_angle_deg >= 0 AND key_angle_deg < 360)",
+            name="key_angle_range",
+        ),
     )
 
     id: Mapped[IntPK]
@@ -113,6 +123,13 @@ class RotorType(Base):
     tolerance_gmm: Mapped[float | None] = mapped_column(Float)
     rotation: Mapped[str] = mapped_column(String(4), nullable=False, default="cw")
     key_convention: Mapped[str] = mapped_column(String(10), nullable=False, default="none")
+    # Keyway and key (all optional; needed for the half-key compensation), mm / degrees.
+    key_width_mm: Mapped[float | None] = mapped_column(Float)
+    key_height_mm: Mapped[float | None] = mapped_column(Float)
+    key_length_mm: Mapped[float | None] = mapped_column(Float)
+    hub_length_mm: Mapped[float | None] = mapped_column(Float)
+    key_radius_mm: Mapped[float | None] = mapped_column(Float)
+    key_angle_deg: Mapped[float | None] = mapped_column(Float)
     notes: Mapped[str] = mapped_column(Text, nullable=False, default="")
     archived: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False, index=True)
     created_at: Mapped[Timestamp]
@@ -206,6 +223,12 @@ class MachineVerification(Base):
     measured_umar_gmm: Mapped[float | None] = mapped_column(Float)
     urr_pct: Mapped[float | None] = mapped_column(Float)
     passed: Mapped[bool] = mapped_column(Boolean, nullable=False)
+    # The proving rotor and the machine's claims at the time of the test (traceability).
+    proving_rotor_id: Mapped[int | None] = mapped_column(
+        ForeignKey("proving_rotor.id", ondelete="RESTRICT"), index=True
+    )
+    claimed_umar_gmm: Mapped[float | None] = mapped_column(Float)
+    claimed_urr_pct: Mapped[float | None] = mapped_column(Float)
     readings: Mapped[dict[str, Any]] = mapped_column(JSON, nullable=False, default=dict)
     performed_by_id: Mapped[int | None] = mapped_column(
         ForeignKey("user_account.id", ondelete="RESTRICT"), index=True
