@@ -1,0 +1,112 @@
+"""``shopapp demo load``: fill an empty database with the invented demo shop."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+import click
+from flask.cli import with_appcontext
+
+from shopapp.cli.common import app_db, one_line_errors
+from shopapp.services import demo
+
+
+class _Bars:
+    """A click progress bar per phase: a new bar whenever the total changes."""
+
+    def __init__(self) -> None:
+        self._bar: Any = None
+        self._total = 0
+        self._done = 0
+
+    def __call__(self, done: int, total: int) -> None:
+        if self._bar is None or total != self._total:
+            self.close()
+            self._bar = click.progressbar(length=total, label="  ", show_pos=True)
+            self._bar.__enter__()
+            self._total, self._done = total, 0
+        self._bar.update(max(0, done - self._done))
+        self._done = done
+
+    def message(self, text: str) -> None:
+        self.close()
+        click.echo(text)
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.__exit__(None, None, None)
+            self._bar = None
+
+
+@click.group("demo", help="The invented demo shop (fictional customers, rotors and history).")
+def demo_group() -> None:
+    pass
+
+
+@demo_group.command(
+    "load",
+    help="Load the demo shop: users, customers, rotor types, machines and YEARS of jobs "
+    "simulated with the balancing core. Refuses a database that already has customers or jobs "
+    "unless --force, which adds the demo shop beside them under distinct names and deletes "
+    "nothing. Prints the logins.",
+)
+@click.option("--seed", type=int, default=1, show_default=True,
+              help="Same seed, same shop and history (passwords are new each time).")
+@click.option("--years", type=click.FloatRange(min=0.05, max=10.0), default=2.0,
+              show_default=True, help="Length of the history, ending today (or --end).")
+@click.option("--end", "end_date", type=click.DateTime(formats=["%Y-%m-%d"]), default=None,
+              help="Last day of the history, YYYY-MM-DD (default today).")
+@click.option("--jobs-per-year", type=click.IntRange(min=1, max=100_000), default=None,
+              help=f"New jobs per year (default {demo.DEFAULT_JOBS_PER_YEAR}).")
+@click.option("--no-certificates", is_flag=True,
+              help="Skip the certificate PDFs (much faster).")
+@click.option("--force", is_flag=True,
+              help="Add the demo shop beside existing data (distinct names; nothing deleted).")
+@with_appcontext
+@one_line_errors
+def load(seed: int, years: float, end_date: dt.datetime | None, jobs_per_year: int | None,
+         no_certificates: bool, force: bool) -> None:
+    bars = _Bars()
+    try:
+        with app_db().session() as sess:
+            logins = demo.load_demo(
+                sess, seed=seed, years=years, progress=bars.message, steps=bars,
+                end_date=end_date.date() if end_date else None, jobs_per_year=jobs_per_year,
+                force=force, certificates=not no_certificates,
+            )
+    finally:
+        bars.close()
+    click.echo("demo shop loaded; log in with (role, username, password):")
+    for role, name, password in logins:
+        click.echo(f"  {role:<9} {name:<16} {password}")
+
+
+@demo_group.command(
+    "bulk",
+    help="Generate a large history for benchmarks (e.g. --jobs 100000 --runs-per-job 10): "
+    "same shop and physics, no certificates. Refuses a non-empty database unless --force.",
+)
+@click.option("--jobs", type=click.IntRange(min=1, max=2_000_000), required=True,
+              help="About this many jobs.")
+@click.option("--runs-per-job", type=click.IntRange(min=4, max=50), default=10,
+              show_default=True, help="Runs per job (final runs repeated to reach it).")
+@click.option("--seed", type=int, default=1, show_default=True)
+@click.option("--years", type=click.FloatRange(min=0.05, max=10.0), default=2.0,
+              show_default=True)
+@click.option("--force", is_flag=True, help="Add beside existing data (nothing deleted).")
+@with_appcontext
+@one_line_errors
+def bulk(jobs: int, runs_per_job: int, seed: int, years: float, force: bool) -> None:
+    bars = _Bars()
+    try:
+        with app_db().session() as sess:
+            summary = demo.generate_bulk(sess, jobs=jobs, runs_per_job=runs_per_job, seed=seed,
+                                         years=years, force=force, progress=bars.message,
+                                         steps=bars)
+    finally:
+        bars.close()
+    click.echo(f"{summary.jobs} jobs, {summary.runs} runs, {summary.readings} readings, "
+               f"{summary.audit_events} audit events in {summary.seconds:.0f} s")
+    for role, name, password in summary.logins:
+        click.echo(f"  {role:<9} {name:<16} {password}")

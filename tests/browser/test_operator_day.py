@@ -1,0 +1,124 @@
+"""An operator's day at the machine, in a real browser.
+
+The readings come from a known linear plant ``V = A·U`` (reading µm per gram
+at the correction radius; the influence-coefficient model of balancing
+texts, e.g. Rao, *Mechanical Vibrations*, balancing of rotating machines —
+from memory). With the hidden initial unbalance ``U0`` the exact two-plane
+correction is ``W = −U0``; the check run after fitting what the page advised
+is ``V0 + A·W_applied``, so it passes when the page's advice is right.
+"""
+
+from __future__ import annotations
+
+import cmath
+import math
+import re
+
+import pytest
+
+from tests.browser.conftest import LiveShop
+
+pytestmark = pytest.mark.browser
+
+# The plant (µm per gram at 300 mm) and the rotor's hidden unbalance (grams at 300 mm).
+A = ((cmath.rect(0.80, math.radians(30)), cmath.rect(0.25, math.radians(-40))),
+     (cmath.rect(0.20, math.radians(200)), cmath.rect(0.70, math.radians(60))))
+U0 = (cmath.rect(40.0, math.radians(70)), cmath.rect(25.0, math.radians(250)))
+TRIAL_G = 50.0
+TRIAL_ANGLE = {1: 0.0, 2: 90.0}
+
+
+def _reading(u: tuple[complex, complex]) -> tuple[complex, complex]:
+    return (A[0][0] * u[0] + A[0][1] * u[1], A[1][0] * u[0] + A[1][1] * u[1])
+
+
+def _amp_ang(v: complex) -> tuple[str, str]:
+    return f"{abs(v):.4f}", f"{math.degrees(cmath.phase(v)) % 360.0:.2f}"
+
+
+def _log_run(page, purpose: str, v: tuple[complex, complex], trial: int | None = None,
+             radius_mm: float = 300.0) -> None:  # type: ignore[no-untyped-def]
+    form = page.locator("#add-run form")
+    form.get_by_label("Purpose").select_option(purpose)
+    form.get_by_label("Reading unit").select_option("um")
+    for plane in (1, 2):
+        amp, ang = _amp_ang(v[plane - 1])
+        form.get_by_label(f"Plane {plane} amplitude").fill(amp)
+        form.get_by_label(f"Plane {plane} angle (°)").fill(ang)
+    if trial is None:
+        # The form prefills the trial radius; a non-trial run must not carry trial fields.
+        form.get_by_label("Trial mass radius (mm)").fill("")
+    else:
+        form.get_by_label("Trial mass in plane").select_option(str(trial))
+        form.get_by_label("Trial mass (g)").fill(f"{TRIAL_G:g}")
+        form.get_by_label("Trial mass angle (°)").fill(f"{TRIAL_ANGLE[trial]:g}")
+        form.get_by_label("Trial mass radius (mm)").fill(f"{radius_mm:g}")
+    form.get_by_role("button", name="Log run").click()
+    page.wait_for_load_state()
+    assert page.locator("small.error, #page-error").count() == 0, page.inner_text("main")
+
+
+def test_operator_books_in_balances_and_reaches_tolerance(live_shop: LiveShop, page,
+                                                          tmp_path) -> None:  # type: ignore[no-untyped-def]
+    shop = live_shop
+    page.goto(shop.url + "/login")
+    page.get_by_label("Username").fill(shop.username)
+    page.get_by_label("Password").fill(shop.password)
+    page.get_by_role("button", name="Log in").click()
+    page.wait_for_url(shop.url + "/")
+
+    # Book the rotor in.
+    page.goto(shop.url + "/jobs/new")
+    intake = page.locator("form").filter(has=page.get_by_role("button", name="Book in"))
+    # The look-up form above repeats the ids customer_id / serial_number, so their labels
+    # point there: these two are found by name inside the intake form.
+    intake.locator("select[name=customer_id]").select_option(label=shop.customer)
+    intake.locator("input[name=serial_number]").fill("FFW-0001")
+    intake.get_by_label("Rotor type (customer · part number)").select_option(
+        str(shop.rotor_type_id))
+    intake.get_by_label("Balancing speed (rpm)").fill("600")
+    intake.get_by_label("Machine", exact=True).select_option(str(shop.machine_id))
+    intake.get_by_role("button", name="Book in").click()
+    page.wait_for_url(re.compile(r".*/jobs/\d+$"))
+    assert "booked in" in page.locator("h1").inner_text()
+
+    # Initial run and one trial run per plane (each trial mass removed before the next).
+    v0 = _reading(U0)
+    _log_run(page, "initial", v0)
+    for plane in (1, 2):
+        t = cmath.rect(TRIAL_G, math.radians(TRIAL_ANGLE[plane]))
+        u = (U0[0] + t, U0[1]) if plane == 1 else (U0[0], U0[1] + t)
+        _log_run(page, "trial", _reading(u), trial=plane, radius_mm=shop.radius_mm)
+
+    # The suggested correction: the exact answer is W = −U0 (the rotor's unbalance, opposite).
+    advice = page.locator("#advice")
+    assert advice.is_visible()
+    applied = []
+    for plane in (1, 2):
+        rec = page.locator(f"#record-{plane}")
+        mass = float(rec.get_by_label("Mass (g)").input_value())
+        angle = float(rec.get_by_label("Angle (°)").input_value())
+        want = -U0[plane - 1]
+        assert mass == pytest.approx(abs(want), rel=2e-3)
+        assert abs((angle - math.degrees(cmath.phase(want)) + 180.0) % 360.0 - 180.0) < 0.5
+        applied.append(cmath.rect(mass, math.radians(angle)))
+        rec.get_by_role("button", name=f"Record plane {plane}").click()
+        page.wait_for_load_state()
+        assert page.locator("small.error, #page-error").count() == 0, page.inner_text("main")
+
+    # Check run after fitting exactly what was recorded.
+    u1 = (U0[0] + applied[0], U0[1] + applied[1])
+    _log_run(page, "check", _reading(u1))
+    verdicts = page.locator("#verdicts")
+    assert "in tolerance" in verdicts.locator("h3").last.inner_text()
+    page.get_by_role("button", name="Mark in tolerance").click()
+    page.wait_for_load_state()
+
+    heading = page.locator("h1").inner_text()
+    assert "in tolerance" in heading
+    assert page.locator("#polar svg").count() == 2  # one polar plot per correction plane
+    page.screenshot(path=str(tmp_path / "operator-day.png"), full_page=True)
+    assert (tmp_path / "operator-day.png").stat().st_size > 10_000
+    body = page.inner_text("main")
+    assert "Run 4 (check): in tolerance" in body
+    assert "FFW-0001" in body
