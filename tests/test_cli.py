@@ -103,3 +103,18 @@ def test_user_list_on_unmigrated_database_is_one_clear_line(cli) -> None:
     assert result.exit_code == 1
     assert result.output.startswith("Error: database error:")
     assert "Traceback" not in result.output
+
+
+def test_first_start_without_demo_creates_one_admin_then_only_reminds(cli, tmp_path) -> None:
+    cli("db", "upgrade")
+    first = cli("first-start", "--no-demo")
+    assert first.exit_code == 0, first.output
+    assert "created a first admin user" in first.output
+    logins = (tmp_path / "first-logins.txt").read_text()
+    password = logins.split()[-1]
+    assert len(password) >= 12
+    assert "admin" in cli("user", "list").output
+    again = cli("first-start")
+    assert again.exit_code == 0
+    assert "log in with one of the accounts in" in again.output
+    assert cli("user", "list").output.count("\n") == 1  # still exactly one user

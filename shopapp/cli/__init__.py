@@ -6,33 +6,23 @@ import click
 from flask import Flask
 from flask.cli import FlaskGroup
 
+from shopapp.cli.calc import calc_command
 from shopapp.cli.common import cli_app
 from shopapp.cli.db import db_group
+from shopapp.cli.demo import demo_group
 from shopapp.cli.first_start import first_start
+from shopapp.cli.report import report_group
 from shopapp.cli.serve import serve
 from shopapp.cli.users import user_group
 
-
-def _commands() -> list[click.Command]:
-    cmds: list[click.Command] = [db_group, user_group, serve, first_start]
-    for module, name in (
-        ("shopapp.cli.calc", "calc_command"),
-        ("shopapp.cli.demo", "demo_group"),
-        ("shopapp.cli.report", "report_group"),
-    ):
-        try:
-            mod = __import__(module, fromlist=[name])
-        except ModuleNotFoundError as exc:
-            if exc.name != module:
-                raise
-            continue
-        cmds.append(getattr(mod, name))
-    return cmds
+COMMANDS: tuple[click.Command, ...] = (
+    db_group, user_group, serve, first_start, calc_command, demo_group, report_group,
+)
 
 
 def register_commands(app: Flask) -> None:
     """Make the same commands reachable as ``flask --app shopapp ...``."""
-    for cmd in _commands():
+    for cmd in COMMANDS:
         if cmd.name != "serve":
             app.cli.add_command(cmd)
 
@@ -46,5 +36,8 @@ main = FlaskGroup(
     set_debug_flag=False,
     help="shopapp: jobs, balancing calculations and certificates for a rotor-balancing shop.",
 )
-for _cmd in _commands():
+for _cmd in COMMANDS:
     main.add_command(_cmd)
+
+# FlaskGroup's own --app/--env-file/--debug options mean nothing here: the app is ours.
+main.params = [p for p in main.params if p.name not in {"app", "env_file", "debug"}]

@@ -15,7 +15,7 @@ from flask import current_app
 from flask.cli import with_appcontext
 
 from shopapp.cli.common import app_db, one_line_errors
-from shopapp.services import users
+from shopapp.services import demo, users
 
 LOGINS_FILE = "first-logins.txt"
 
@@ -39,13 +39,8 @@ def first_start(no_demo: bool) -> None:
             if path.is_file():
                 click.echo(f"log in with one of the accounts in {path}")
             return
-    demo = None
     if not no_demo:
-        try:
-            from shopapp.services import demo  # type: ignore[no-redef]
-        except ModuleNotFoundError:
-            demo = None
-    if demo is not None:
+        click.echo("loading the demo shop (about two years of jobs); logins follow when done")
         with app_db().session() as sess:
             logins = demo.load_demo(sess, seed=1, years=2, progress=click.echo)
         lines = [f"{role:<9} {name:<12} {pw}" for role, name, pw in logins]
@@ -58,7 +53,7 @@ def first_start(no_demo: bool) -> None:
                 password=password,
             )
         lines = [f"admin     admin        {password}"]
-        click.echo("no demo data available; created a first admin user (role, username, password):")
+        click.echo("created a first admin user (role, username, password):")
     for line in lines:
         click.echo("  " + line)
     click.echo(f"(also written to {_write_logins(lines)})")
