@@ -197,7 +197,8 @@ def fresh_database_url(database_url: str, tmp_path: Path) -> Iterator[str]:
         yield f"sqlite:///{tmp_path / 'fresh.sqlite3'}"
         return
     name = f"shopapp_fresh_{uuid.uuid4().hex[:10]}"
-    admin = make_engine(database_url).execution_options(isolation_level="AUTOCOMMIT")
+    base = make_engine(database_url)
+    admin = base.execution_options(isolation_level="AUTOCOMMIT")
     with admin.connect() as conn:
         conn.execute(text(f'CREATE DATABASE "{name}"'))
     try:
@@ -212,4 +213,5 @@ def fresh_database_url(database_url: str, tmp_path: Path) -> Iterator[str]:
                 {"n": name},
             )
             conn.execute(text(f'DROP DATABASE IF EXISTS "{name}"'))
-        admin.dispose()
+        # The option engine shares its parent's pool: dispose the parent itself.
+        base.dispose()
