@@ -2,7 +2,7 @@
 
 Revision ID: 0001
 Revises:
-Create Date: 2026-12-01 18:52:16.629648
+Create Date: 2026-12-01 19:28:21.498005
 """
 
 from __future__ import annotations
@@ -438,6 +438,7 @@ def upgrade() -> None:
         sa.Column("machine_id", sa.Integer(), nullable=True),
         sa.Column("arbor_id", sa.Integer(), nullable=True),
         sa.Column("operator_id", sa.Integer(), nullable=True),
+        sa.Column("influence_set_id", sa.Integer(), nullable=True),
         sa.Column("state", sa.String(length=16), nullable=False),
         sa.Column("kind", sa.String(length=8), nullable=False),
         sa.Column("return_of_job_id", sa.Integer(), nullable=True),
@@ -528,6 +529,13 @@ def upgrade() -> None:
             ondelete="RESTRICT",
         ),
         sa.ForeignKeyConstraint(
+            ["influence_set_id"],
+            ["influence_set.id"],
+            name=op.f("fk_job_influence_set_id_influence_set"),
+            ondelete="RESTRICT",
+            use_alter=True,
+        ),
+        sa.ForeignKeyConstraint(
             ["machine_id"],
             ["machine.id"],
             name=op.f("fk_job_machine_id_machine"),
@@ -557,6 +565,9 @@ def upgrade() -> None:
         batch_op.create_index(batch_op.f("ix_job_dispatched_on"), ["dispatched_on"], unique=False)
         batch_op.create_index(
             batch_op.f("ix_job_first_in_tolerance_at"), ["first_in_tolerance_at"], unique=False
+        )
+        batch_op.create_index(
+            batch_op.f("ix_job_influence_set_id"), ["influence_set_id"], unique=False
         )
         batch_op.create_index(batch_op.f("ix_job_kind"), ["kind"], unique=False)
         batch_op.create_index(batch_op.f("ix_job_machine_id"), ["machine_id"], unique=False)
@@ -1150,8 +1161,19 @@ def upgrade() -> None:
 
     # ### end Alembic commands ###
 
-    # Issued certificates never change (see shopapp/models/certificates.py).
     bind = op.get_bind()
+    # job.influence_set_id and influence_set.source_job_id point at each other; the
+    # first is created after both tables (SQLite already has it inline in CREATE TABLE).
+    if bind.dialect.name != "sqlite":
+        op.create_foreign_key(
+            "fk_job_influence_set_id_influence_set",
+            "job",
+            "influence_set",
+            ["influence_set_id"],
+            ["id"],
+            ondelete="RESTRICT",
+        )
+    # Issued certificates never change (see shopapp/models/certificates.py).
     if bind.dialect.name == "sqlite":
         for sql in SQLITE_CERTIFICATE_TRIGGERS:
             op.execute(sql)
@@ -1162,6 +1184,8 @@ def upgrade() -> None:
 
 def downgrade() -> None:
     bind = op.get_bind()
+    if bind.dialect.name != "sqlite":
+        op.drop_constraint("fk_job_influence_set_id_influence_set", "job", type_="foreignkey")
     if bind.dialect.name == "sqlite":
         op.execute("DROP TRIGGER IF EXISTS certificate_immutable")
         op.execute("DROP TRIGGER IF EXISTS certificate_no_delete")
@@ -1252,6 +1276,7 @@ def downgrade() -> None:
         batch_op.drop_index(batch_op.f("ix_job_operator_id"))
         batch_op.drop_index(batch_op.f("ix_job_machine_id"))
         batch_op.drop_index(batch_op.f("ix_job_kind"))
+        batch_op.drop_index(batch_op.f("ix_job_influence_set_id"))
         batch_op.drop_index(batch_op.f("ix_job_first_in_tolerance_at"))
         batch_op.drop_index(batch_op.f("ix_job_dispatched_on"))
         batch_op.drop_index(batch_op.f("ix_job_customer_id"))

@@ -95,6 +95,12 @@ class Job(Base):
     operator_id: Mapped[int | None] = mapped_column(
         ForeignKey("user_account.id", ondelete="RESTRICT"), index=True
     )
+    # The stored influence set the job's corrections were computed from, fixed when the
+    # first correction from it is recorded, so a set learned later never re-judges the job.
+    # use_alter: influence_set.source_job_id points back at job (a cycle of foreign keys).
+    influence_set_id: Mapped[int | None] = mapped_column(
+        ForeignKey("influence_set.id", ondelete="RESTRICT", use_alter=True), index=True
+    )
     state: Mapped[str] = mapped_column(String(16), nullable=False, default="booked_in", index=True)
     kind: Mapped[str] = mapped_column(String(8), nullable=False, default="new", index=True)
     return_of_job_id: Mapped[int | None] = mapped_column(

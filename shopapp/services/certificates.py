@@ -5,12 +5,12 @@ Rules (issue 5):
 - Only the quality role issues, reissues or voids (``issue_certificates``).
 - A certificate is issued only for a job ``in_tolerance`` whose last check or
   final run is within every plane's limit (the verdict of
-  :func:`shopapp.services.job_calc.evaluate`) on a machine whose verification
-  was current on that run's date. A machine with no verification records is
-  accepted and the certificate says "no verification on file" (until the
-  traceability work makes records mandatory); a machine with records is
-  refused when, on the run's date, its last verification had failed or was
-  older than its ``verification_interval_days``.
+  :func:`shopapp.services.job_calc.evaluate`) on a machine that was not
+  overdue or failed on that run's date — the one register rule of
+  :func:`shopapp.services.traceability.require_machine_current` (a machine
+  never tested counts from its register entry, and its certificate says "no
+  verification on file"). A job that requires a residual-unbalance test needs
+  each plane's latest test valid and within its limit.
 - Issued certificates never change (the database refuses it too, see
   :mod:`shopapp.models.certificates`). A mistake is fixed by :func:`reissue`:
   the same number with the next revision, and the old revision is voided with
@@ -49,7 +49,6 @@ from shopapp.models import (
     InfluenceSet,
     Job,
     Machine,
-    MachineVerification,
     Rotor,
     RotorType,
     Run,
@@ -77,74 +76,6 @@ REISSUABLE_JOB_STATES = ("certified", "dispatched")
 KIND_WORDS = {"hard": "hard-bearing", "soft": "soft-bearing"}
 
 
-# --------------------------------------------------------------------------- machine verification
-
-
-@dataclass(frozen=True)
-class MachineStatus:
-    """A machine's verification standing on a given date.
-
-    ``state`` is ``"none"`` (no records at all: allowed, printed as "no
-    verification on file"), ``"current"``, ``"failed"``, ``"overdue"`` or
-    ``"not_yet"`` (records exist, but none on or before the date).
-    """
-
-    machine_name: str
-    on: dt.date
-    state: str
-    last: MachineVerification | None
-    due_on: dt.date | None
-
-    @property
-    def allows_certificate(self) -> bool:
-        return self.state in ("none", "current")
-
-    def refusal(self) -> str:
-        """Why a certificate cannot be issued, naming the machine, since when, and who clears it."""
-        clear = ("A quality manager clears this by recording a passing verification "
-                 "(proving-rotor test) of the machine; then repeat the check run on it.")
-        name = self.machine_name
-        if self.state == "failed" and self.last is not None:
-            return (f"Machine {name!r} failed its verification on {self.last.performed_on} and "
-                    f"has not passed one since (the check run was on {self.on}). {clear}")
-        if self.state == "overdue" and self.due_on is not None and self.last is not None:
-            return (f"Machine {name!r} was overdue for verification since {self.due_on} (last "
-                    f"verified {self.last.performed_on}) on the check run's date {self.on}. "
-                    f"{clear}")
-        if self.state == "not_yet":
-            return (f"Machine {name!r} had no verification on or before the check run's date "
-                    f"{self.on}. {clear}")
-        return ""
-
-
-def machine_status(session: Session, machine: Machine, on: dt.date) -> MachineStatus:
-    """The machine's verification standing on date ``on`` (two small queries).
-
-    Overdue when ``on > last.performed_on + verification_interval_days``.
-    """
-    any_record = session.scalar(
-        select(func.count()).select_from(MachineVerification)
-        .where(MachineVerification.machine_id == machine.id)
-    )
-    if not any_record:
-        return MachineStatus(machine.name, on, "none", None, None)
-    last = session.scalars(
-        select(MachineVerification)
-        .where(MachineVerification.machine_id == machine.id,
-               MachineVerification.performed_on <= on)
-        .order_by(MachineVerification.performed_on.desc(), MachineVerification.id.desc())
-        .limit(1)
-    ).first()
-    if last is None:
-        return MachineStatus(machine.name, on, "not_yet", None, None)
-    due = last.performed_on + dt.timedelta(days=machine.verification_interval_days)
-    if not last.passed:
-        return MachineStatus(machine.name, on, "failed", last, due)
-    if on > due:
-        return MachineStatus(machine.name, on, "overdue", last, due)
-    return MachineStatus(machine.name, on, "current", last, due)
-
-
 # --------------------------------------------------------------------------- reading a job
 
 
@@ -161,17 +92,20 @@ class JobEvidence:
     initial_run: Run | None
     initial: job_calc.RunVerdict | None
     machine: Machine
-    machine_status: MachineStatus
+    machine_status: traceability.VerificationStatus
+    as_of: dt.datetime | None = None
 
 
-def _load_job(session: Session, job: Job) -> tuple[list[Run], list[Correction], list[InfluenceSet]]:
-    runs = list(session.scalars(
-        select(Run).where(Run.job_id == job.id).options(selectinload(Run.readings))
-        .order_by(Run.seq)
-    ))
-    corrections = list(session.scalars(
-        select(Correction).where(Correction.job_id == job.id).order_by(Correction.id)
-    ))
+def _load_job(session: Session, job: Job, as_of: dt.datetime | None = None
+              ) -> tuple[list[Run], list[Correction], list[InfluenceSet]]:
+    """The job's runs, corrections and stored sets; with ``as_of`` only what existed then."""
+    run_q = select(Run).where(Run.job_id == job.id)
+    corr_q = select(Correction).where(Correction.job_id == job.id)
+    if as_of is not None:
+        run_q = run_q.where(Run.taken_at <= as_of)
+        corr_q = corr_q.where(Correction.applied_at <= as_of)
+    runs = list(session.scalars(run_q.options(selectinload(Run.readings)).order_by(Run.seq)))
+    corrections = list(session.scalars(corr_q.order_by(Correction.id)))
     sets: list[InfluenceSet] = []
     if job.machine_id is not None:
         sets = list(session.scalars(
@@ -181,8 +115,13 @@ def _load_job(session: Session, job: Job) -> tuple[list[Run], list[Correction], 
     return runs, corrections, sets
 
 
-def evidence(session: Session, job: Job) -> JobEvidence:
+def evidence(session: Session, job: Job, *, as_of: dt.datetime | None = None) -> JobEvidence:
     """Check that ``job`` may be certified and gather what the certificate states.
+
+    ``as_of``: judge the job as it stood at that moment (runs, corrections and
+    residual tests made up to then) — a historical certificate; the whole job
+    when omitted. The machine's verification is judged on the final run's date
+    by the register rule of :func:`shopapp.services.traceability.require_machine_current`.
 
     Raises
     ------
@@ -194,7 +133,7 @@ def evidence(session: Session, job: Job) -> JobEvidence:
             f"Job {job.number} has no balancing machine recorded: record the machine the "
             "rotor was balanced on before certifying."
         )
-    runs, corrections, sets = _load_job(session, job)
+    runs, corrections, sets = _load_job(session, job, as_of)
     calc = job_calc.evaluate(job, runs=runs, corrections=corrections, influence_sets=sets,
                              arbor_error_gmm=job_traceability.arbor_error_gmm(session, job))
     if calc.tolerance is None:
@@ -219,17 +158,14 @@ def evidence(session: Session, job: Job) -> JobEvidence:
     initial_run = next((r for r in runs if r.purpose == "initial"), None)
     initial = calc.verdicts.get(initial_run.id) if initial_run is not None else None
     on = final_run.taken_at.astimezone(dt.UTC).date()
-    status = machine_status(session, job.machine, on)
-    if not status.allows_certificate:
-        raise TransitionRefused(f"Job {job.number}: {status.refusal()}")
-    # Traceability register rule (also for a machine never tested: it counts from its
-    # register entry) and a required residual-unbalance test.
+    # The register rule (the only one: a machine never tested counts from its register
+    # entry) on the final run's date, and a required residual-unbalance test.
     try:
-        job_traceability.check_certifiable(session, job, on)
+        status = job_traceability.check_certifiable(session, job, on, as_of=as_of)
     except traceability.MachineNotCurrent as exc:
         raise TransitionRefused(f"Job {job.number}: {exc.message}") from None
     return JobEvidence(job, calc, tuple(runs), tuple(corrections), final_run, final,
-                       initial_run, initial, job.machine, status)
+                       initial_run, initial, job.machine, status, as_of)
 
 
 # --------------------------------------------------------------------------- building the data
@@ -368,9 +304,11 @@ def build_data(
         angle_convention=_angle_words(settings),
         machine_name=ev.machine.name,
         machine_kind=KIND_WORDS.get(ev.machine.bearing_kind, ev.machine.bearing_kind),
-        machine_verified_on=status.last.performed_on.isoformat() if status.last else None,
-        machine_verification=("no verification on file" if status.state == "none"
-                              else "passed" if status.last and status.last.passed else "failed"),
+        machine_verified_on=(status.last_passed_on.isoformat()
+                             if status is not None and status.last_passed_on else None),
+        machine_verification=("no verification on file"
+                              if status is None or status.last_test_on is None
+                              else "passed" if status.last_test_passed else "failed"),
         received_on=job.received_on.isoformat(),
         balanced_on=ev.final_run.taken_at.astimezone(dt.UTC).date().isoformat(),
         initial_run=ev.initial_run.seq if ev.initial_run is not None else 0,
@@ -385,7 +323,7 @@ def build_data(
         issued_by_name=issued_by.full_name,
         notes=tuple(notes),
         **job_traceability.certificate_fields(session, job, ev.calc, to_shop=show.unbalance,
-                                              to_display_deg=show.angle),
+                                              to_display_deg=show.angle, as_of=ev.as_of),
     )
     return report.normalized(data)
 
@@ -396,8 +334,11 @@ def build_data(
 def next_number(session: Session, year: int) -> str:
     """``BC-<year>-<n>`` with n one more than the largest used this year."""
     prefix = f"{NUMBER_PREFIX}-{year:04d}-"
+    # The running number is zero-padded, so the longest, then largest, numbers come first;
+    # a few are read in case a malformed number sorts before the real largest.
     numbers = session.scalars(
-        select(Certificate.number).where(Certificate.number.like(prefix + "%")).distinct()
+        select(Certificate.number).where(Certificate.number.like(prefix + "%"))
+        .order_by(func.length(Certificate.number).desc(), Certificate.number.desc()).limit(20)
     )
     best = 0
     for n in numbers:
@@ -439,6 +380,19 @@ def _summary(cert: Certificate) -> dict[str, Any]:
 def _now() -> dt.datetime:
     # Whole seconds: the issue time is printed and hashed, and must read back identically.
     return utcnow().replace(microsecond=0)
+
+
+def _moment(value: dt.datetime | None, field: str) -> dt.datetime:
+    """A given historical moment (aware, not in the future) in whole UTC seconds, else now."""
+    now = _now()
+    if value is None:
+        return now
+    if not isinstance(value, dt.datetime) or value.tzinfo is None:
+        raise ValidationFailed(field, "must be a date and time with its time zone")
+    moment = value.astimezone(dt.UTC).replace(microsecond=0)
+    if moment > now:
+        raise ValidationFailed(field, f"{moment.isoformat()} is in the future")
+    return moment
 
 
 def _reason(reason: str | None, field: str = "reason") -> str:
@@ -512,29 +466,35 @@ def rerender(cert: Certificate) -> bytes:
 # --------------------------------------------------------------------------- use-cases
 
 
-def issue(session: Session, job: Job, *, by: User) -> Certificate:
+def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None = None
+          ) -> Certificate:
     """Issue a certificate for ``job`` and mark the job certified.
 
     Refused (each with its own message) for a role other than quality, a job not
     ``in_tolerance``, a job that already has a valid certificate, a last check
     run that is out of tolerance or cannot be judged, and a machine whose
     verification had failed or was overdue on the run's date.
+
+    ``issued_at``: a past moment for loading historical records (the demo
+    shop); the job is then judged as it stood at that moment and the
+    transition is dated then. Default: now.
     """
     require(by, "issue_certificates")
+    historical = issued_at is not None
+    issued_at = _moment(issued_at, "issued_at")
     if job.state not in CERTIFIABLE_STATES:
         raise TransitionRefused(
             f"Job {job.number} is {job.state.replace('_', ' ')}: only a job in tolerance can "
             "be certified."
         )
-    existing = current_certificate(session, job)
+    earlier = job_certificates(session, job)
+    existing = next((c for c in earlier if c.state == "issued"), None)
     if existing is not None:
         raise TransitionRefused(
             f"Job {job.number} already has certificate {existing.number} revision "
             f"{existing.revision}; reissue it instead."
         )
-    ev = evidence(session, job)
-    earlier = job_certificates(session, job)
-    issued_at = _now()
+    ev = evidence(session, job, as_of=issued_at if historical else None)
     if earlier:
         # Certified again after rework: the next revision of the job's number.
         number, revision = earlier[0].number, earlier[0].revision + 1
@@ -545,21 +505,34 @@ def issue(session: Session, job: Job, *, by: User) -> Certificate:
     data = build_data(session, ev, number=number, revision=revision, reason=reason,
                       issued_at=issued_at, issued_by=by)
     cert = _store(session, data, job, by=by, issued_at=issued_at)
-    jobs_service.mark_certified(session, job, by=by)
-    audit.record(session, by=by, entity="certificate", entity_id=cert.id, action="issue",
-                 after=_summary(cert), job_id=job.id)
+    jobs_service.mark_certified(session, job, by=by, at=issued_at if historical else None)
+    _audit(session, by=by, entity_id=cert.id, action="issue", after=_summary(cert),
+           job_id=job.id, at=issued_at if historical else None)
     return cert
 
 
-def reissue(session: Session, certificate: Certificate, *, by: User, reason: str) -> Certificate:
+def _audit(session: Session, *, by: User | None, entity_id: int, action: str,
+           job_id: int | None, at: dt.datetime | None, before: dict[str, Any] | None = None,
+           after: dict[str, Any] | None = None) -> None:
+    event = audit.record(session, by=by, entity="certificate", entity_id=entity_id,
+                         action=action, before=before, after=after, job_id=job_id)
+    if at is not None:
+        event.at = at  # a historical record keeps its own time
+
+
+def reissue(session: Session, certificate: Certificate, *, by: User, reason: str,
+            issued_at: dt.datetime | None = None) -> Certificate:
     """A new revision of ``certificate`` (same number, revision + 1) from the job's data now.
 
     The old revision is voided with "superseded by revision n". Only the latest
     revision of a certified or dispatched job can be reissued; the job must
     still meet every condition of :func:`issue` except its state.
+    ``issued_at``: a past moment for historical records, as for :func:`issue`.
     """
     require(by, "issue_certificates")
     text = _reason(reason)
+    historical = issued_at is not None
+    issued_at = _moment(issued_at, "issued_at")
     job = certificate.job
     latest = by_number(session, certificate.number)
     if latest.id != certificate.id:
@@ -572,20 +545,21 @@ def reissue(session: Session, certificate: Certificate, *, by: User, reason: str
             f"Job {job.number} is {job.state.replace('_', ' ')}: a certificate is reissued only "
             "for a certified or dispatched job (a reopened job is certified again with Issue)."
         )
-    ev = evidence(session, job)
-    issued_at = _now()
+    at = issued_at if historical else None
+    ev = evidence(session, job, as_of=at)
     revision = certificate.revision + 1
     data = build_data(session, ev, number=certificate.number, revision=revision, reason=text,
                       issued_at=issued_at, issued_by=by)
     if certificate.state == "issued":
-        _void(session, certificate, by=by, reason=f"superseded by revision {revision}")
+        _void(session, certificate, by=by, reason=f"superseded by revision {revision}", at=at)
     cert = _store(session, data, job, by=by, issued_at=issued_at)
-    audit.record(session, by=by, entity="certificate", entity_id=cert.id, action="reissue",
-                 before=_summary(certificate), after=_summary(cert), job_id=job.id)
+    _audit(session, by=by, entity_id=cert.id, action="reissue", before=_summary(certificate),
+           after=_summary(cert), job_id=job.id, at=at)
     return cert
 
 
-def _void(session: Session, cert: Certificate, *, by: User | None, reason: str) -> None:
+def _void(session: Session, cert: Certificate, *, by: User | None, reason: str,
+          at: dt.datetime | None = None) -> None:
     if cert.state != "issued":
         when = cert.voided_at.date().isoformat() if cert.voided_at else "earlier"
         raise TransitionRefused(
@@ -594,18 +568,30 @@ def _void(session: Session, cert: Certificate, *, by: User | None, reason: str) 
     before = _summary(cert)
     # The only change the database allows on a certificate row.
     cert.state = "void"
-    cert.voided_at = _now()
+    cert.voided_at = at or _now()
     cert.voided_by_id = by.id if by is not None else None
     cert.void_reason = reason
     session.flush()
-    audit.record(session, by=by, entity="certificate", entity_id=cert.id, action="void",
-                 before=before, after=_summary(cert), job_id=cert.job_id)
+    _audit(session, by=by, entity_id=cert.id, action="void", before=before,
+           after=_summary(cert), job_id=cert.job_id, at=at)
 
 
-def void(session: Session, certificate: Certificate, *, by: User, reason: str) -> Certificate:
-    """Void an issued certificate (quality only; reason required). The job's state is kept."""
+def void(session: Session, certificate: Certificate, *, by: User, reason: str,
+         voided_at: dt.datetime | None = None) -> Certificate:
+    """Void an issued certificate (quality only; reason required). The job's state is kept.
+
+    ``voided_at``: a past moment for historical records (default now); not
+    before the certificate was issued.
+    """
     require(by, "issue_certificates")
-    _void(session, certificate, by=by, reason=_reason(reason))
+    text = _reason(reason)
+    at = None
+    if voided_at is not None:
+        at = _moment(voided_at, "voided_at")
+        if at < certificate.issued_at:
+            raise ValidationFailed("voided_at", f"{at.isoformat()} is before the certificate "
+                                   f"was issued ({certificate.issued_at.isoformat()})")
+    _void(session, certificate, by=by, reason=text, at=at)
     return certificate
 
 

@@ -28,8 +28,20 @@ reopened jobs with reasons, customer returns linked to the earlier job,
 rejections with reasons, jobs still in progress at the end date, one machine
 due for verification soon and one that was overdue for a while (its jobs of
 that period were checked again after re-verification), learned influence
-sets, a JobTransition row for every state change, AuditEvent rows for every
-action, and certificates (some reissued, some void).
+sets (a new one per learning job; a job judged with a stored set records it),
+a JobTransition row for every state change, AuditEvent rows for every action,
+and certificates (some reissued, some void).
+
+Traceability (issue 6) goes through the services, after the bulk rows, in the
+order it happened and dated then (:func:`_replay`): proving rotors and
+proving tests (:func:`shopapp.services.traceability.record_proving_test`), a
+shop arbor with a slowly drifting error history from index runs, the jobs
+balanced on it (which subtract its latest measured error, and whose
+simulated readings carry the true error), key conventions on two rotor
+types, residual-unbalance tests of the jobs that require one (4W/N and the
+customer who asks), made before certifying, and every certificate through
+:func:`shopapp.services.certificates.issue` / ``reissue`` / ``void`` with
+their historical times.
 
 :func:`generate_bulk` builds a much larger history (e.g. 100 000 jobs and
 1 000 000 runs) for benchmarks with the same model, closed-form 2×2 algebra
@@ -43,9 +55,7 @@ from __future__ import annotations
 
 import bisect
 import cmath
-import dataclasses
 import datetime as dt
-import hashlib
 import heapq
 import json
 import math
@@ -57,11 +67,11 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from sqlalchemy import JSON, Boolean, Date, DateTime, func, insert, select, text
-from sqlalchemy.orm import Session, selectinload
+from sqlalchemy import JSON, Boolean, Date, DateTime, bindparam, func, insert, select, text, update
+from sqlalchemy.orm import Session
 
-from shopapp.balancing import influence, positions, removal, tolerance, verification
-from shopapp.balancing.phasors import amplitude_angle, normalize_deg
+from shopapp.balancing import influence, positions, removal, tolerance
+from shopapp.balancing.phasors import amplitude_angle, normalize_deg, phasor
 from shopapp.balancing.planes import transfer_matrix
 from shopapp.models import (
     AuditEvent,
@@ -83,8 +93,11 @@ from shopapp.models import (
 from shopapp.models.base import UTCDateTime
 from shopapp.services import demo_scenario as sc
 from shopapp.services import job_calc
+from shopapp.services import job_traceability as jt
+from shopapp.services import traceability as tr
 from shopapp.services.errors import ServiceError, ValidationFailed
 from shopapp.services.numbering import DEFAULT_PATTERN, format_number, per_year
+from shopapp.services.settings import get_settings
 from shopapp.services.users import hash_password
 
 Progress = Callable[[str], object]
@@ -439,7 +452,8 @@ def generate_bulk(
     validated core call per step, jobs repeat their final run until they
     have ``runs_per_job`` runs (a repeatability record, as a shop keeps for
     the balance-error estimate), fleets grow with the job count, and no
-    certificates are issued. About 100 000 jobs / 1 000 000 runs take a few
+    certificates, residual-unbalance tests or arbor jobs are made (the
+    machines' proving tests are). About 100 000 jobs / 1 000 000 runs take a few
     minutes on SQLite.
     """
     if jobs < 1:
@@ -488,7 +502,7 @@ def _generate(
         n_new = max(1, round((jobs_per_year or DEFAULT_JOBS_PER_YEAR) * years))
     gen = _Generator(session, rng=random.Random(seed), start=start, end=end, tag=tag,
                      solver=_Solver(exact), runs_per_job=runs_per_job,
-                     fleet_scale=max(1.0, n_new / 640.0))
+                     fleet_scale=max(1.0, n_new / 640.0), with_certificates=with_certificates)
     say(f"demo: setting up {gen.shop_name} ({start.isoformat()} to {end.isoformat()})")
     logins = gen.setup()
     say(f"demo: planning about {n_new} jobs")
@@ -497,10 +511,9 @@ def _generate(
     gen.simulate(plans, steps)
     say("demo: writing rows")
     gen.write(steps)
-    n_certs = 0
-    if with_certificates and gen.cert_events:
-        say(f"demo: issuing certificates for {len(gen.cert_jobs)} jobs")
-        n_certs = _issue_certificates(session, gen, steps)
+    say("demo: traceability records" + (f" and certificates for {len(gen.cert_jobs)} jobs"
+                                        if with_certificates else ""))
+    n_certs = _replay(session, gen, steps)
     session.flush()
     by_state: dict[str, int] = {}
     for row in gen.rows_done["jobs"]:
@@ -545,8 +558,8 @@ def _demo_tag(session: Session, force: bool) -> str:
 
 class _Generator:
     def __init__(self, session: Session, *, rng: random.Random, start: dt.date, end: dt.date,
-                 tag: str, solver: _Solver, runs_per_job: int | None, fleet_scale: float
-                 ) -> None:
+                 tag: str, solver: _Solver, runs_per_job: int | None, fleet_scale: float,
+                 with_certificates: bool = False) -> None:
         self.session = session
         self.rng = rng
         self.start = start
@@ -572,8 +585,24 @@ class _Generator:
         self.rotor_rows: list[dict[str, Any]] = []
         self.sets: dict[tuple[int, int, float], list[dict[str, Any]]] = {}
         self.set_scores: dict[int, tuple[dt.datetime, float]] = {}
-        self.cert_events: list[tuple[dt.datetime, int, str, dict[str, Any]]] = []
         self.cert_jobs: set[int] = set()
+        # The certificates service writes the "certified" transitions when it issues.
+        self.with_certificates = with_certificates
+        # Traceability and certificates, written through the services after the rows:
+        # (at, order, job_id, kind, data), kind "arbor" | "rtest" | "cert".
+        self.ops: list[tuple[dt.datetime, int, int, str, dict[str, Any]]] = []
+        self.timeline: dict[int, list[tuple[dt.datetime, str]]] = {}
+        self.final: dict[int, tuple[str, dt.datetime]] = {}
+        self.job_sets: list[dict[str, int]] = []
+        self.verification_dates: dict[str, list[dt.date]] = {}
+        # (measured_on, first run, second run, measured error per plane)
+        self.arbor_plan: list[tuple[dt.date, list[tuple[float, float]],
+                                    list[tuple[float, float]], Pair]] = []
+        self.arbor_rows: list[Any] = []
+        self.arbor_row: Any = None
+        self.rtest_jobs = 0
+        # A stream of its own, so the register does not shift the jobs' physics.
+        self.register_rng = random.Random(rng.random())
         self.shop_name = sc.SHOP_NAME + self.tag
         self.pattern = DEFAULT_PATTERN if not tag else (
             "D" + tag.strip(" []").split()[-1] + "-{year}-{seq:05d}")
@@ -664,6 +693,7 @@ class _Generator:
                         after={"name": m.name + self.tag})
         self._insert(Machine, rows)
         self._verifications()
+        self._arbor_plan()
 
         rows = []
         for spec in sc.ROTOR_TYPES:
@@ -694,8 +724,7 @@ class _Generator:
             self.shop_name = row.shop_name
 
     def _verifications(self) -> None:
-        """Proving-rotor tests through the period, shaped by each machine's ``history``."""
-        rows = []
+        """Proving-rotor test dates through the period, shaped by each machine's ``history``."""
         span = (self.end - self.start).days
         for mm in self.machines.values():
             m = mm.spec
@@ -717,44 +746,59 @@ class _Generator:
             else:
                 anchor = self.end - dt.timedelta(days=interval // 2)
                 dates = _series_back(anchor, interval, self.start)
-            for day in sorted(set(dates)):
-                rows.append(self._verification_row(mm, day))
-        self._insert(MachineVerification, rows)
+            # Recorded through the traceability service after the rows (_register).
+            self.verification_dates[m.key] = sorted(set(dates))
 
-    def _verification_row(self, mm: _MachineModel, day: dt.date) -> dict[str, Any]:
-        """A passing proving-rotor test, evaluated by :mod:`shopapp.balancing.verification`."""
-        rng = self.rng
-        m = mm.spec
-        claimed = m.claimed_emar_gmm_per_kg * m.proving_rotor_mass_kg
-        test = 10.0 * claimed
-        residual = _rect(claimed * rng.uniform(0.2, 0.7), rng.uniform(0, 360))
-        pos = [45.0 * k for k in range(8)]
-        amps, angs = [], []
-        for p in pos:
-            z = (residual + _rect(test, p)) * (1.0 + rng.gauss(0, 0.004))
-            z += complex(rng.gauss(0, 0.01 * claimed), rng.gauss(0, 0.01 * claimed))
-            a, g = amplitude_angle(z)
-            amps.append(round(a, 2))
-            angs.append(round(g, 1) % 360.0)
-        fit = verification.minimum_achievable_residual(
-            test, pos, amps, angs, claimed_umar_gmm=claimed, rotor_mass_kg=m.proving_rotor_mass_kg
-        )
-        before = [round(20.0 * claimed * rng.uniform(0.8, 1.2), 1) for _ in range(2)]
-        reduction = [min(99.5, m.claimed_urr_pct + rng.uniform(1.0, 6.0)) for _ in range(2)]
-        after = [round(b * (1.0 - r / 100.0), 2) for b, r in zip(before, reduction, strict=True)]
-        urr = verification.unbalance_reduction_ratio(before, after,
-                                                     claimed_urr_percent=m.claimed_urr_pct)
-        return {
-            "id": self.ids.take(MachineVerification), "machine_id": mm.id, "performed_on": day,
-            "proving_rotor": m.proving_rotor, "proving_rotor_mass_kg": m.proving_rotor_mass_kg,
-            "measured_umar_gmm": fit.umar_gmm, "urr_pct": urr.min_urr_percent,
-            "passed": bool(fit.passed and urr.passed),
-            "readings": {"test_unbalance_gmm": test, "positions_deg": pos,
-                         "indicated_gmm": amps, "indicated_angles_deg": angs,
-                         "urr_before_gmm": before, "urr_after_gmm": after},
-            "performed_by_id": self.quality_id, "notes": "demo proving-rotor test",
-            "created_at": _at(day, 15 * 60),
-        }
+    def _arbor_plan(self) -> None:
+        """The arbor's index runs over the period and the error each gives (exact mode only).
+
+        Its true error drifts linearly (demo_scenario); each measurement mounts a
+        reference impeller, runs, turns it 180° on the arbor, runs again
+        (calibrated g·mm readings, rounded like the display), and separates the
+        two with :func:`shopapp.services.traceability.separate_index_runs`, as
+        :func:`~shopapp.services.traceability.record_arbor_error` will.
+        """
+        if not self.exact or not any(spec.part_number == sc.ARBOR_ROTOR_TYPE
+                                     for spec in sc.ROTOR_TYPES):
+            return
+        rng = self.register_rng
+        d = self.start - dt.timedelta(days=20)
+        while d <= self.end:
+            day = add_working_days(d, 0)
+            if day <= self.end:
+                true = self.arbor_true_error(day)
+                u_r = [_rect(rng.uniform(40.0, 120.0), rng.uniform(0, 360)) for _ in range(2)]
+                runs = []
+                for sign in (1.0, -1.0):  # the rotor turned 180° on the arbor: −U_r
+                    run = []
+                    for i in (0, 1):
+                        z = sign * u_r[i] + true[i] + complex(rng.gauss(0, 0.3),
+                                                              rng.gauss(0, 0.3))
+                        a, g = amplitude_angle(z)
+                        run.append((round(a, 1), float(round(g) % 360)))
+                    runs.append(run)
+                sep = tr.separate_index_runs(runs[0], runs[1], planes=2)
+                # As stored (amplitude and angle) and read back by arbor_error_vector.
+                meas = tuple(phasor(*amplitude_angle(z)) for z in sep.arbor)
+                self.arbor_plan.append((day, runs[0], runs[1], (meas[0], meas[1])))
+            d += dt.timedelta(days=sc.ARBOR_MEASURE_EVERY_DAYS)
+
+    def arbor_true_error(self, day: dt.date) -> Pair:
+        """The arbor's true error on ``day`` (g·mm per plane, arbor frame)."""
+        span = max(1, (self.end - self.start).days + 20)
+        frac = min(1.0, max(0.0, (day - self.start).days + 20) / span)
+        out = [_rect(a * (1.0 + (sc.ARBOR_DRIFT - 1.0) * frac), g + sc.ARBOR_TURN_DEG * frac)
+               for a, g in sc.ARBOR_ERROR_GMM]
+        return out[0], out[1]
+
+    def state_before(self, job_id: int, at: dt.datetime) -> str:
+        """The job's state just before ``at`` (from the transitions it was given)."""
+        state = "booked_in"
+        for t, to_state in self.timeline.get(job_id, ()):
+            if t >= at:
+                break
+            state = to_state
+        return state
 
     def _type_model(self, spec: sc.RotorTypeSpec, customer_id: int) -> _TypeModel:
         mm = self.machines[spec.machine]
@@ -1060,6 +1104,12 @@ class _Generator:
         self._insert(InfluenceSet, sets)
         self.counts["sets"] = len(sets)
         self.flush_rows()
+        if self.job_sets:
+            # The job rows went in before the sets (foreign keys), so their set comes now.
+            job_t = Job.__table__
+            self.session.execute(
+                update(job_t).where(job_t.c.id == bindparam("jid"))
+                .values(influence_set_id=bindparam("sid")), self.job_sets)
         _move_sequences(self.session)
         self.session.flush()
 
@@ -1154,6 +1204,13 @@ class _JobSim:
         self.stored: dict[str, Any] | None = None
         self.learned: dict[str, Any] | None = None
         self.clock = plan.start_at or plan.booked_at
+        # Intake default of the jobs service: the customer asks for it, or 4W/N.
+        self.test_required = bool(gen.requires_test[self.tm.customer_id]
+                                  or self.tm.spec.tolerance_method == "4w/n")
+        # On the shop arbor: its true error is in the readings; the job subtracts the
+        # latest measured one (None: not on the arbor, or nothing to subtract yet).
+        self.arbor_true: Pair | None = None
+        self.arbor_sub: Pair | None = None
 
     # ---------------------------------------------------------------- physics helpers
 
@@ -1166,7 +1223,9 @@ class _JobSim:
         a = self.p.rotor.a_true
         rng = self.rng
         out = []
-        for v in (a[0] * u[0] + a[1] * u[1], a[2] * u[0] + a[3] * u[1]):
+        extra = self.arbor_true or (0j, 0j)
+        for k, v in enumerate((a[0] * u[0] + a[1] * u[1], a[2] * u[0] + a[3] * u[1])):
+            v = v + extra[k]
             sigma = 0.006 * abs(v) + self.tm.noise_abs
             v = v + complex(rng.gauss(0, sigma), rng.gauss(0, sigma))
             amp, ang = amplitude_angle(v)
@@ -1178,9 +1237,16 @@ class _JobSim:
     def phasors(reading: tuple[tuple[float, float], tuple[float, float]]) -> Pair:
         return _rect(*reading[0]), _rect(*reading[1])
 
+    def seen(self, reading: tuple[tuple[float, float], tuple[float, float]]) -> Pair:
+        """The reading as the job evaluates it: less the arbor error it subtracts."""
+        v = self.phasors(reading)
+        if self.arbor_sub is None:
+            return v
+        return v[0] - self.arbor_sub[0], v[1] - self.arbor_sub[1]
+
     def residual(self, reading: tuple[tuple[float, float], tuple[float, float]]) -> Pair:
         return self.solver.unbalance_gmm(self.a_est if not self.tm.calibrated else None,
-                                         self.phasors(reading), self.tm.radii)
+                                         self.seen(reading), self.tm.radii)
 
     def add_run(self, purpose: str, reading: tuple[tuple[float, float], tuple[float, float]],
                 within: bool | None = None, trial: tuple[int, float, float] | None = None,
@@ -1336,7 +1402,7 @@ class _JobSim:
         cycles = 0
         finals_due = self.p.final_runs
         while True:
-            v = self.phasors(self.runs[answering]["reading"])
+            v = self.seen(self.runs[answering]["reading"])
             w = self.solver.correction(self.a_est, v)
             recs, effect = self.fit(w)
             if recs:
@@ -1413,6 +1479,7 @@ class _JobSim:
             return
         assert p.start_at is not None
         self.clock = p.start_at
+        self.mount_on_arbor()
         u = self.initial_unbalance()
         self.choose_coefficients()
         self.tr(self.clock, "booked_in", "on_machine", "first run logged (initial)",
@@ -1430,6 +1497,8 @@ class _JobSim:
             self.clock = _at(add_working_days(self.clock.date(), 1),
                              WORKDAY_START_MIN + rng.uniform(0, 90))
         u, ok = self.correct_until_passed(u, initial)
+        if ok:
+            u, ok = self.residual_test(u)
         if not ok:
             self.tick(5, 20)
             self.tr(self.clock, "on_machine", "rejected", sc.REJECT_ON_MACHINE[1],
@@ -1438,15 +1507,103 @@ class _JobSim:
             return
         self.tick(1, 4)
         self.tr(self.clock, "on_machine", "in_tolerance", action="in_tolerance")
-        if self.source == "trials" and not self.g.sets.get(self.set_key()):
-            # One stored set per rotor type, machine and speed: the page of an older job
-            # picks the newest set, so a second set would change its verdict afterwards.
+        if self.source == "trials":
+            # A new set per learning job: an older job keeps the set it used (or those
+            # learned before its initial run), so a later set never re-judges it.
             self.learn()
         if p.reopen == "overdue":
             self.reopen_overdue(u)
         else:
             u = self.certify_and_dispatch(u)
         self.emit()
+
+    def mount_on_arbor(self) -> None:
+        """Impellers of the arbor's rotor type are balanced on the shop arbor."""
+        g = self.g
+        if not g.arbor_plan or self.tm.spec.part_number != sc.ARBOR_ROTOR_TYPE:
+            return
+        day = self.clock.date()
+        self.arbor_true = g.arbor_true_error(day)
+        known = [k for k, m in enumerate(g.arbor_plan) if m[0] <= day]
+        measurement = known[-1] if known else None
+        if measurement is not None:
+            self.arbor_sub = g.arbor_plan[measurement][3]
+        self.events.append(_Event(self.clock, "arbor", {"measurement": measurement,
+                                                        "by": self.op_id}))
+
+    def residual_test(self, u: Pair) -> tuple[Pair, bool]:
+        """The residual-unbalance test of a job that requires one, before in_tolerance.
+
+        Per plane the test mass job_traceability suggests (2 × the plane's limit at
+        the correction radius, in stock steps, not above it) at 8 positions and back
+        at position 1; readings ``S·(U_res + T·e^{iθ_k})`` with ``S`` the machine's
+        sensitivity in that plane and ``U_res`` the rotor's true residual, noisy and
+        rounded like the display. Judged as the service will
+        (:func:`shopapp.services.job_traceability.evaluate_residual_test`): an
+        invalid test is repeated, one over the limit means another correction.
+        One job of the history gets a repeat of position 1 that disagrees.
+        """
+        if not self.test_required or not self.g.exact:
+            return u, True
+        g = self.g
+        g.rtest_jobs += 1
+        spoil = g.rtest_jobs == 2
+        for _attempt in range(6):
+            ok = True
+            for plane in (1, 2):
+                for _try in range(6):
+                    self.tick(12, 25)
+                    rec, out = self.one_residual_test(u, plane, spoil)
+                    spoil = False
+                    self.events.append(_Event(self.clock, "rtest", rec))
+                    if out.valid:
+                        break
+                if not (out.valid and out.within_tolerance):
+                    ok = False
+            if ok:
+                return u, True
+            self.p.final_runs = 0
+            u, passed = self.correct_until_passed(u, len(self.runs) - 1, max_cycles=3)
+            if not passed:
+                return u, False
+        return u, False
+
+    def one_residual_test(self, u: Pair, plane: int, spoil: bool
+                          ) -> tuple[dict[str, Any], jt.ResidualOutcome]:
+        rng = self.rng
+        tm = self.tm
+        i = plane - 1
+        radius = tm.radii[i]
+        limit = tm.tolerance.plane_limits_gmm[i]
+        step = tm.spec.stock_g
+        mass = round(max(step, math.floor(jt.SUGGESTED_FACTOR * limit / radius / step) * step), 6)
+        t_gmm = mass * radius
+        a = self.p.rotor.a_true
+        sens = (a[0] if plane == 1 else a[3]) / radius  # reading per g·mm in this plane
+        u_res = u[i] * radius
+
+        def read(theta: float) -> tuple[float, float]:
+            z = sens * (u_res + _rect(t_gmm, theta))
+            # A settled reading (the operator waits for the display): a third of a run's noise.
+            sigma = 0.004 * abs(z) + tm.noise_abs / 3.0
+            z += complex(rng.gauss(0, sigma), rng.gauss(0, sigma))
+            amp, ang = amplitude_angle(z)
+            return round(amp, tm.decimals), float(round(ang) % 360)
+
+        pos = tr.equally_spaced_deg(8)
+        points = [read(p) for p in pos]
+        rep_amp, rep_ang = read(pos[0])
+        if spoil:  # the rotor shifted on its supports during the test
+            rep_amp = round(rep_amp * 1.3, tm.decimals)
+        rec = {"plane": plane, "test_mass_g": mass, "test_radius_mm": radius, "positions": 8,
+               "amplitudes": [x for x, _ in points], "angles_deg": [y for _, y in points],
+               "repeat_amplitude": rep_amp, "repeat_angle_deg": rep_ang,
+               "unit": tm.machine.spec.reading_unit, "by": self.op_id}
+        out = jt.evaluate_residual_test(
+            plane=plane, test_mass_g=mass, test_radius_mm=radius, positions=8,
+            amplitudes=rec["amplitudes"], angles_deg=rec["angles_deg"],
+            repeat_amplitude=rep_amp, repeat_angle_deg=rep_ang, permissible_gmm=limit)
+        return rec, out
 
     def learn(self) -> None:
         assert self.a_est is not None
@@ -1461,12 +1618,16 @@ class _JobSim:
         self.events.append(_Event(self.clock, "learn", {"set": s}))
 
     def certify(self, day: dt.date) -> None:
+        # At least a minute after reaching tolerance (transitions keep their order).
+        self.clock += dt.timedelta(minutes=1)
         self.day_at(day, 60, 480)
         self.tr(self.clock, "in_tolerance", "certified", by=self.g.quality_id,
                 action="certified")
         self.events.append(_Event(self.clock, "cert", {"what": "issue"}))
 
     def dispatch(self, day: dt.date) -> None:
+        # At least a minute after the certificate, so the two transitions keep their order.
+        self.clock += dt.timedelta(minutes=1)
         self.day_at(day, 90, 510)
         self.tr(self.clock, "certified", "dispatched", action="dispatch")
 
@@ -1510,6 +1671,7 @@ class _JobSim:
         if not ok:
             self.p.final_runs = 0
             u, ok = self.correct_until_passed(u, idx)
+        u, _ok = self.residual_test(u)
         self.tick(1, 4)
         self.tr(self.clock, "on_machine", "in_tolerance", action="in_tolerance")
         self.certify(max(p.certify2_day, self.clock.date()))
@@ -1534,6 +1696,7 @@ class _JobSim:
         if not ok:
             self.p.final_runs = 0
             u, ok = self.correct_until_passed(u, idx)
+        u, _ok = self.residual_test(u)
         self.tick(1, 4)
         self.tr(self.clock, "on_machine", "in_tolerance", action="in_tolerance")
         assert p.certify2_day is not None and p.dispatch2_day is not None
@@ -1558,10 +1721,17 @@ class _JobSim:
         seq = 0
         started = False
         last_at = p.booked_at
+        timeline: list[tuple[dt.datetime, str]] = []
+        set_recorded = False
         for e in events:
             last_at = max(last_at, e.at)
             if e.kind == "tr":
                 d = e.data
+                timeline.append((e.at, d["to"]))
+                if d["action"] == "certified" and g.with_certificates:
+                    # Written by the certificates service when it issues (_replay).
+                    state = d["to"]
+                    continue
                 g.rows.transitions.append({
                     "id": g.ids.take(JobTransition), "job_id": job_id, "from_state": d["from"],
                     "to_state": d["to"], "reason": d["reason"], "by_id": d["by"], "at": e.at})
@@ -1617,6 +1787,13 @@ class _JobSim:
                 g._audit(e.at, rec["by"], "run", rid, "record_run", after=after, job_id=job_id)
             elif e.kind == "corr":
                 answering = run_ids[e.data["answering"]]
+                if self.source == "stored" and self.stored is not None and not set_recorded:
+                    # As jobs.record_correction does: the job keeps the set it used.
+                    set_recorded = True
+                    g.job_sets.append({"jid": job_id, "sid": self.stored["id"]})
+                    g._audit(e.at, self.op_id, "job", job_id, "use_influence_set",
+                             before={"influence_set_id": None},
+                             after={"influence_set_id": self.stored["id"]}, job_id=job_id)
                 for r in e.data["recs"]:
                     cid = g.ids.take(Correction)
                     g.rows.corrections.append({"id": cid, "job_id": job_id, "run_id": answering,
@@ -1641,8 +1818,13 @@ class _JobSim:
                 g._audit(e.at, self.op_id, "influence_set", sid, "prediction_scored",
                          after={"last_prediction_error_pct": e.data["err"]}, job_id=job_id)
             elif e.kind == "cert":
-                g.cert_events.append((e.at, job_id, e.data["what"], dict(e.data)))
                 g.cert_jobs.add(job_id)
+                if g.with_certificates:
+                    g.ops.append((e.at, len(g.ops), job_id, "cert", dict(e.data)))
+            elif e.kind in ("arbor", "rtest"):
+                g.ops.append((e.at, len(g.ops), job_id, e.kind, dict(e.data)))
+        g.timeline[job_id] = timeline
+        g.final[job_id] = (state, last_at)
         p.result_state = state
         p.result_dispatched = state == "dispatched"
         g.rows.jobs.append({
@@ -1655,168 +1837,190 @@ class _JobSim:
             "first_in_tolerance_at": first_tol, **tm.tol_columns,
             "service_speed_rpm": tm.spec.service_speed_rpm,
             "balancing_speed_rpm": tm.spec.balancing_speed_rpm,
-            "residual_test_required": g.requires_test[tm.customer_id],
+            "residual_test_required": self.test_required,
             "reopen_count": reopen_count, "reject_reason": reject_reason, "notes": p.notes,
             "created_at": p.booked_at, "updated_at": last_at,
         })
 
 
-# --------------------------------------------------------------------------- certificates
+# --------------------------------------------------------------------------- replay
 
 
-def _issue_certificates(session: Session, gen: _Generator, steps: Steps | None) -> int:
-    """Certificates for the demo's certified and dispatched jobs, dated as they happened.
+def _date_new_audits(session: Session, at: dt.datetime) -> None:
+    """Date the audit events a service call just added (not yet flushed) at ``at``."""
+    for obj in session.new:
+        if isinstance(obj, AuditEvent):
+            obj.at = at
 
-    Uses :mod:`shopapp.services.certificates` (its evidence rules and
-    :func:`~shopapp.services.certificates.build_data`) and
-    :func:`shopapp.reports.certificate.render`, so every certificate is one
-    the service would issue for the job's data at that moment; only the issue
-    time is the historical one instead of now. Skipped (returns 0) when the
-    certificates service is not installed. Revisions: a reopened certified
-    job voids its certificate and is certified again under the same number;
-    a few are reissued for a corrected order reference. The PDFs are rendered
-    one by one (rendering is most of the time, about 0.2 s each).
+
+def _proving_readings(rng: random.Random, machine: Machine, rotor: Any) -> dict[str, Any]:
+    """One proving test's readings: the test mass at the 8 holes of each plane, and URR.
+
+    Simulated (invented) as ISO 21940-21's idea has it, from memory: the
+    proving rotor's residual per plane (0.2–0.6 × the plane's share of the
+    claimed U_mar) plus a test unbalance of 15 × that share moved round the
+    holes, read by the machine with 0.4 % gain and 1 % of the share noise;
+    the reduction-ratio step removes a known unbalance with a few points of
+    margin over the claimed URR. Evaluated by the service.
     """
-    try:
-        from shopapp.reports import certificate as report
-        from shopapp.services import certificates as cert_service
-    except ImportError:
-        return 0
+    claim = machine.claimed_emar_gmm_per_kg * rotor.mass_kg
+    share = claim / 2.0  # two planes (traceability's rule)
+    mass = round(15.0 * share / rotor.radius_1_mm, 3)
+    t_gmm = mass * rotor.radius_1_mm
+    pos = tr.equally_spaced_deg(rotor.positions)
+    amps: list[list[float]] = []
+    angs: list[list[float]] = []
+    for _plane in (1, 2):
+        residual = _rect(share * rng.uniform(0.2, 0.6), rng.uniform(0, 360))
+        row_a, row_g = [], []
+        for p in pos:
+            z = (residual + _rect(t_gmm, p)) * (1.0 + rng.gauss(0, 0.004))
+            z += complex(rng.gauss(0, 0.01 * share), rng.gauss(0, 0.01 * share))
+            a, g = amplitude_angle(z)
+            row_a.append(round(a, 2))
+            row_g.append(round(g, 1) % 360.0)
+        amps.append(row_a)
+        angs.append(row_g)
+    before = [round(20.0 * share * rng.uniform(0.8, 1.2), 1) for _ in range(2)]
+    urr = [min(99.5, (machine.claimed_urr_pct or 90.0) + rng.uniform(1.0, 6.0))
+           for _ in range(2)]
+    after = [round(b * (1.0 - r / 100.0), 2) for b, r in zip(before, urr, strict=True)]
+    return {"test_mass_g": mass, "test_radius_mm": rotor.radius_1_mm, "indicated_gmm": amps,
+            "indicated_angles_deg": angs, "urr_before_gmm": before, "urr_after_gmm": after}
+
+
+def _register(session: Session, gen: _Generator, quality: User, admin: User) -> None:
+    """Proving rotors and tests, the arbor's error history, key conventions (the services)."""
+    t_setup = _at(gen.start - dt.timedelta(days=30), 9 * 60)
+    rng = gen.register_rng
+    for mm in gen.machines.values():
+        spec = mm.spec
+        machine = session.get(Machine, mm.id)
+        assert machine is not None
+        radius = sc.PROVING_RADIUS_MM.get(spec.key, 100.0)
+        rotor = tr.create_proving_rotor(
+            session, by=quality, name=spec.proving_rotor + gen.tag,
+            mass_kg=spec.proving_rotor_mass_kg, planes=2, radius_1_mm=radius,
+            radius_2_mm=radius, positions=8, notes="The shop's own proving rotor (demo).")
+        rotor.created_at = t_setup
+        _date_new_audits(session, t_setup)
+        for day in gen.verification_dates[spec.key]:
+            row = tr.record_proving_test(
+                session, machine, by=quality, performed_on=day, proving_rotor=rotor,
+                notes="demo proving-rotor test", **_proving_readings(rng, machine, rotor))
+            if not row.passed:
+                raise DemoRefused(f"demo: the proving test of {machine.name} on {day} failed "
+                                  f"({'; '.join(row.readings.get('reasons', []))})")
+            row.created_at = _at(day, 15 * 60)
+            _date_new_audits(session, row.created_at)
+    if gen.arbor_plan:
+        spec = next(t for t in sc.ROTOR_TYPES if t.part_number == sc.ARBOR_ROTOR_TYPE)
+        operator = session.get(User, gen.users[0])
+        assert operator is not None
+        gen.arbor_row = tr.create_arbor(session, by=quality, name=sc.ARBOR_NAME + gen.tag,
+                                        description=sc.ARBOR_DESCRIPTION, mass_kg=6.5)
+        gen.arbor_row.created_at = t_setup
+        _date_new_audits(session, t_setup)
+        for day, first, second, _meas in gen.arbor_plan:
+            m = tr.record_arbor_error(
+                session, gen.arbor_row, by=operator, measured_on=day, first_run=first,
+                second_run=second, planes=2, rotor_mass_kg=spec.mass_kg,
+                notes="Index runs with the reference impeller (0° and 180° on the arbor).")
+            m.created_at = _at(day, 8 * 60)
+            _date_new_audits(session, m.created_at)
+            gen.arbor_rows.append(m)
+    for tm in gen.types:
+        key = sc.KEY_CONVENTIONS.get(tm.spec.part_number)
+        if key is not None:
+            rt = session.get(RotorType, tm.id)
+            assert rt is not None
+            tr.set_key_convention(session, rt, by=admin, **key)  # type: ignore[arg-type]
+            _date_new_audits(session, t_setup)
+    session.flush()
+
+
+def _replay(session: Session, gen: _Generator, steps: Steps | None) -> int:
+    """Write the traceability records and certificates through their services, dated then.
+
+    In the order things happened: each job is put in the state it had at that
+    moment (from the transitions written for it) so the services judge it as
+    they would have, then given back its final state. Certificates:
+    :func:`shopapp.services.certificates.issue` (which marks the job certified
+    and writes that transition), ``reissue`` (a few, for an order reference
+    the first revision carried mistyped) and ``void`` (a certified job
+    reopened), each with its historical time; the PDFs are rendered as they
+    are issued (most of the time, ~0.05 s each). Returns how many certificate
+    revisions were issued.
+    """
     quality = session.get(User, gen.quality_id)
-    assert quality is not None
-    events = sorted(gen.cert_events, key=lambda e: (e[0], e[1]))
-    reissued = {job_id for _at, job_id, what, _d in events if what == "reissue"}
-    n_ops = len(events) + sum(1 for e in events if e[2] == "reissue")
-    year_seq: dict[int, int] = {}
-    numbers: dict[int, str] = {}
-    revision: dict[int, int] = {}
-    # 1. the certified data of every revision, in the order things happened
-    ops: list[tuple[str, dt.datetime, int, Any]] = []
-    for at, job_id, what, data in events:
-        job = session.get(Job, job_id)
+    admin = session.get(User, gen.admin_id)
+    assert quality is not None and admin is not None
+    users = {uid: session.get(User, uid) for uid in gen.users}
+    # Held here: the session keeps rows only weakly, and every certificate reads these.
+    keep = [get_settings(session), *session.scalars(select(Machine))]
+    _register(session, gen, quality, admin)
+    ops = sorted(gen.ops, key=lambda o: (o[0], o[1]))
+    touched: dict[int, Job] = {}
+    issued = 0
+    with session.no_autoflush:  # the services flush what they write
+        issued = _replay_ops(session, gen, ops, users, quality, touched, steps)
+    for job_id, job in touched.items():
+        job.state, job.updated_at = gen.final[job_id]
+    session.flush()
+    del keep
+    return issued
+
+
+def _replay_ops(session: Session, gen: _Generator,
+                ops: list[tuple[dt.datetime, int, int, str, dict[str, Any]]],
+                users: dict[int, User | None], quality: User, touched: dict[int, Job],
+                steps: Steps | None) -> int:
+    from shopapp.services import certificates as cert_service
+    from shopapp.services.errors import ServiceError as _ServiceError
+
+    reissued = {job_id for _at, _o, job_id, kind, d in ops
+                if kind == "cert" and d["what"] == "reissue"}
+    issued = 0
+    for n, (at, _order, job_id, kind, data) in enumerate(ops, start=1):
+        job = touched.get(job_id) or session.get(Job, job_id)
         assert job is not None
-        if what == "void":
-            ops.append(("void", at, job_id, f"job reopened: {data['reason']}"))
-            continue
-        if job_id not in numbers:
-            year = at.year
-            if year not in year_seq:
-                nxt = cert_service.next_number(session, year)
-                year_seq[year] = int(nxt.rsplit("-", 1)[1]) - 1
-            year_seq[year] += 1
-            numbers[job_id] = f"{cert_service.NUMBER_PREFIX}-{year:04d}-{year_seq[year]:05d}"
-            revision[job_id], reason = 1, ""
-        else:
-            revision[job_id] += 1
-            reason = data["reason"] if what == "reissue" else (
-                f"issued again after the job was reopened; revision {revision[job_id] - 1} "
-                "was voided")
-        ev = _evidence_at(session, cert_service, job, at)
-        built = cert_service.build_data(session, ev, number=numbers[job_id],
-                                        revision=revision[job_id], reason=reason, issued_at=at,
-                                        issued_by=quality)
-        if revision[job_id] == 1 and job_id in reissued:
-            # The first copy carried the customer's order reference mistyped.
-            built = report.normalized(dataclasses.replace(
-                built, customer_order_ref=built.customer_order_ref[:-1] + "0"))
-        if what == "reissue":
-            ops.append(("void", at, job_id, f"superseded by revision {revision[job_id]}"))
-        ops.append((what, at, job_id, built))
-        if steps is not None and len(ops) % 25 == 0:
-            steps(len(ops), 2 * n_ops)
-    # 2. the PDFs (most of the time: ~0.2 s each; worker processes were tried, but a spawned
-    # worker re-imports the caller's main script, which is not safe for every caller)
-    pdfs = []
-    for n, op in enumerate(ops, start=1):
-        if op[0] != "void":
-            pdfs.append(report.render(op[3]))
-        if steps is not None and n % 25 == 0:
-            steps(n_ops + n, 2 * n_ops)
-    # 3. the rows, voiding as they happened (the only change the database allows)
-    latest: dict[int, Certificate] = {}
-    k = 0
-    for what, at, job_id, payload in ops:
-        if what == "void":
-            prev = latest.get(job_id)
-            if prev is not None and prev.state == "issued":
-                _void_certificate(session, gen, prev, at, quality.id, payload)
-            continue
-        cert = _store_certificate(session, report, payload, pdfs[k], job_id, quality.id, at)
-        k += 1
-        latest[job_id] = cert
-        gen._audit(at, quality.id, "certificate", cert.id, what, after=_cert_summary(cert),
-                   job_id=job_id)
-    if steps is not None:
-        steps(2 * n_ops, 2 * n_ops)
-    gen.flush_rows()
-    _move_sequences(session)
-    return k
-
-
-def _evidence_at(session: Session, cert_service: Any, job: Job, at: dt.datetime) -> Any:
-    """The service's evidence for ``job`` from the runs and corrections made up to ``at``.
-
-    The same checks as :func:`shopapp.services.certificates.evidence`, on the
-    job as it stood when the certificate was issued (a later reopening added
-    runs that the earlier revision did not certify).
-    """
-    runs = [r for r in session.scalars(
-        select(Run).where(Run.job_id == job.id, Run.taken_at <= at)
-        .options(selectinload(Run.readings)).order_by(Run.seq))]
-    corrections = list(session.scalars(
-        select(Correction).where(Correction.job_id == job.id, Correction.applied_at <= at)
-        .order_by(Correction.id)))
-    calc = job_calc.evaluate(job, runs=runs, corrections=corrections,
-                             influence_sets=_sets_of(session, job))
-    final = calc.last_check
-    if final is None or not final.judged or not final.passed:
-        raise DemoRefused(f"demo job {job.number}: no passing check run before {at}")
-    by_id = {r.id: r for r in runs}
-    final_run = by_id[final.run_id]
-    initial_run = next((r for r in runs if r.purpose == "initial"), None)
-    initial = calc.verdicts.get(initial_run.id) if initial_run is not None else None
-    assert job.machine is not None
-    status = cert_service.machine_status(session, job.machine,
-                                         final_run.taken_at.astimezone(dt.UTC).date())
-    if not status.allows_certificate:
-        raise DemoRefused(f"demo job {job.number}: {status.refusal()}")
-    return cert_service.JobEvidence(job, calc, tuple(runs), tuple(corrections), final_run, final,
-                                    initial_run, initial, job.machine, status)
-
-
-def _sets_of(session: Session, job: Job) -> list[InfluenceSet]:
-    return list(session.scalars(select(InfluenceSet).where(
-        InfluenceSet.rotor_type_id == job.rotor.rotor_type_id,
-        InfluenceSet.machine_id == job.machine_id)))
-
-
-def _store_certificate(session: Session, report: Any, data: Any, pdf: bytes, job_id: int,
-                       by_id: int, at: dt.datetime) -> Certificate:
-    """The row the certificates service stores, with the historical issue time."""
-    canonical = report.canonical_json(data)
-    cert = Certificate(number=data.number, revision=data.revision, job_id=job_id,
-                       state="issued", issued_by_id=by_id, issued_at=at,
-                       reason=data.revision_reason, pdf=pdf,
-                       pdf_sha256=hashlib.sha256(pdf).hexdigest(), data_json=canonical,
-                       data_sha256=hashlib.sha256(canonical.encode("utf-8")).hexdigest())
-    session.add(cert)
-    session.flush()
-    return cert
-
-
-def _void_certificate(session: Session, gen: _Generator, cert: Certificate, at: dt.datetime,
-                      by_id: int, reason: str) -> None:
-    before = _cert_summary(cert)
-    cert.state = "void"
-    cert.voided_at = at
-    cert.voided_by_id = by_id
-    cert.void_reason = reason
-    session.flush()
-    gen._audit(at, by_id, "certificate", cert.id, "void", before=before,
-               after=_cert_summary(cert), job_id=cert.job_id)
-
-
-def _cert_summary(cert: Certificate) -> dict[str, Any]:
-    return {"number": cert.number, "revision": cert.revision, "state": cert.state,
-            "pdf_sha256": cert.pdf_sha256, "data_sha256": cert.data_sha256,
-            "reason": cert.reason, "void_reason": cert.void_reason}
+        touched[job_id] = job
+        job.state = gen.state_before(job_id, at)
+        try:
+            if kind == "arbor":
+                by = users[data["by"]]
+                jt.set_job_arbor(session, job, by=by, arbor=gen.arbor_row)
+                if data["measurement"] is not None:
+                    jt.set_arbor_subtraction(session, job, by=by,
+                                             measurement=gen.arbor_rows[data["measurement"]])
+                _date_new_audits(session, at)
+            elif kind == "rtest":
+                fields = {k: v for k, v in data.items() if k != "by"}
+                jt.record_residual_test(session, job, by=users[data["by"]], performed_at=at,
+                                        **fields)
+            elif data["what"] == "issue":
+                order_ref = job.customer_order_ref
+                first = job_id in reissued and not cert_service.job_certificates(session, job)
+                if first:
+                    # The first copy carried the customer's order reference mistyped.
+                    job.customer_order_ref = order_ref[:-1] + "0"
+                cert_service.issue(session, job, by=quality, issued_at=at)
+                job.customer_order_ref = order_ref
+                issued += 1
+            else:
+                cert = cert_service.current_certificate(session, job)
+                if cert is None:
+                    continue
+                if data["what"] == "reissue":
+                    cert_service.reissue(session, cert, by=quality, reason=data["reason"],
+                                         issued_at=at)
+                    issued += 1
+                else:
+                    cert_service.void(session, cert, by=quality,
+                                      reason=f"job reopened: {data['reason']}", voided_at=at)
+        except _ServiceError as exc:
+            raise DemoRefused(f"demo job {job.number} ({kind} at {at.isoformat()}): "
+                              f"{exc.message}") from None
+        if steps is not None and (n % 25 == 0 or n == len(ops)):
+            steps(n, len(ops))
+    return issued

@@ -270,3 +270,28 @@ JOB_NOTES: tuple[str, ...] = (
     "Deliver with the shaft ends greased and capped.",
 )
 REISSUE_REASON = "Customer's order reference corrected on request."
+
+# Proving rotors: test-mass radius per machine key (mm), 8 holes per plane (invented).
+PROVING_RADIUS_MM = {"hb2": 140.0, "hb03": 50.0, "sb5": 230.0}
+
+# The shop arbor for impellers without their own shaft (invented). Its error (g·mm per
+# plane, arbor frame) drifts slowly as the seat wears: from ``ARBOR_ERROR_GMM`` at the
+# start to ``ARBOR_DRIFT`` times that, turned by ``ARBOR_TURN_DEG``, at the end.
+ARBOR_NAME = "Arbor A-30 (impeller mandrel, 30 mm seat)"
+ARBOR_DESCRIPTION = "Ground mandrel for the extraction-fan impellers"
+ARBOR_ROTOR_TYPE = "CKB-EXF-450"
+ARBOR_ERROR_GMM = ((14.0, 40.0), (9.0, 215.0))
+ARBOR_DRIFT = 1.6
+ARBOR_TURN_DEG = 25.0
+ARBOR_MEASURE_EVERY_DAYS = 61
+
+# Key conventions on rotor types with a keyed shaft end (part number → convention and
+# key size in mm; invented sizes of the usual kind).
+KEY_CONVENTIONS: dict[str, dict[str, float | str]] = {
+    "BMR-75K": {"convention": "half_key", "key_width_mm": 14.0, "key_height_mm": 9.0,
+                "key_length_mm": 100.0, "hub_length_mm": 90.0, "key_radius_mm": 27.0,
+                "key_angle_deg": 0.0},
+    "BMR-15K": {"convention": "half_key", "key_width_mm": 8.0, "key_height_mm": 7.0,
+                "key_length_mm": 50.0, "hub_length_mm": 50.0, "key_radius_mm": 14.0,
+                "key_angle_deg": 0.0},
+}

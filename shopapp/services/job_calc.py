@@ -21,6 +21,10 @@ Conventions
   set exists for the same rotor type, machine, number of planes and reading
   unit at a speed within ±5 % of the run's speed (our rule: the nearest speed
   wins, then the most recently learned).
+- The choice is stable over time (our rule): a job that recorded the set its
+  corrections came from (``Job.influence_set_id``) is always judged with that
+  set; otherwise only sets learned *before* the job's initial run count, so a
+  set learned later never re-judges an older job.
 """
 
 from __future__ import annotations
@@ -361,14 +365,48 @@ def stored_matrix(s: InfluenceSet) -> np.ndarray:
 
 
 def nearest_influence_set(
-    sets: Sequence[InfluenceSet], *, speed_rpm: float, planes: int, unit: str
+    sets: Sequence[InfluenceSet], *, speed_rpm: float, planes: int, unit: str,
+    learned_before: dt.datetime | None = None,
 ) -> InfluenceSet | None:
-    """The stored set to use: same planes and unit, speed within ±5 %, nearest speed, newest."""
+    """The stored set to use: same planes and unit, speed within ±5 %, nearest speed, newest.
+
+    ``learned_before``: only sets learned strictly before this moment (the job's
+    initial run) count.
+    """
     fits = [s for s in sets if s.planes == planes and s.reading_unit == unit
-            and _same_speed(s.speed_rpm, speed_rpm)]
+            and _same_speed(s.speed_rpm, speed_rpm)
+            and (learned_before is None or s.learned_at < learned_before)]
     if not fits:
         return None
-    return min(fits, key=lambda s: (abs(s.speed_rpm - speed_rpm), -s.learned_at.timestamp()))
+    return min(fits, key=lambda s: (abs(s.speed_rpm - speed_rpm), -s.learned_at.timestamp(),
+                                    -s.id))
+
+
+def initial_run_at(runs: Sequence[Run]) -> dt.datetime | None:
+    """When the job's first initial run was taken (its first run when none is marked initial)."""
+    ordered = sorted(runs, key=lambda r: r.seq)
+    first = next((r for r in ordered if r.purpose == "initial"), ordered[0] if ordered else None)
+    return first.taken_at if first is not None else None
+
+
+def job_influence_set(
+    job: Job, sets: Sequence[InfluenceSet], runs: Sequence[Run], *, speed_rpm: float,
+    planes: int, unit: str,
+) -> InfluenceSet | None:
+    """The stored set a job is judged with (module docstring: stable over time).
+
+    The set recorded on the job when it is among ``sets``; else the nearest set
+    learned before the job's initial run.
+    """
+    if job.influence_set_id is not None:
+        recorded = next((s for s in sets if s.id == job.influence_set_id), None)
+        if recorded is not None:
+            return recorded
+    before = initial_run_at(runs)
+    if before is None:
+        return None
+    return nearest_influence_set(sets, speed_rpm=speed_rpm, planes=planes, unit=unit,
+                                 learned_before=before)
 
 
 def _trial_group(runs: Sequence[RunData], planes: int) -> tuple[RunData | None, list[RunData]]:
@@ -696,8 +734,8 @@ def evaluate(
     judged_runs = [r for r in data if r.purpose in JUDGED_PURPOSES]
     current = judged_runs[-1] if judged_runs else None
     if coeffs is None and not note and current is not None:
-        stored = nearest_influence_set(influence_sets, speed_rpm=current.speed_rpm,
-                                       planes=rt.planes, unit=current.unit)
+        stored = job_influence_set(job, influence_sets, runs, speed_rpm=current.speed_rpm,
+                                   planes=rt.planes, unit=current.unit)
         if stored is not None:
             try:
                 m = stored_matrix(stored)

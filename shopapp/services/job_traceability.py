@@ -255,10 +255,13 @@ def record_residual_test(
     test_radius_mm: Any = None,
     first_position_deg: float = 0.0,
     unit: str = CALIBRATED_UNIT,
+    performed_at: dt.datetime | None = None,
 ) -> ResidualTest:
     """Store a residual test of one plane, valid or invalid (with the reason).
 
     Needs ``work_jobs``; the job must be on the machine or in tolerance.
+    ``performed_at``: a past moment for historical records (the demo shop);
+    default now.
     """
     require(by, "work_jobs")
     if job.state not in TEST_STATES:
@@ -302,19 +305,26 @@ def record_residual_test(
         warnings=list(out.warnings),
         performed_by_id=by.id,
     )
+    if performed_at is not None:
+        if performed_at.tzinfo is None or performed_at > dt.datetime.now(dt.UTC):
+            raise ValidationFailed("performed_at", "must be a past moment with its time zone")
+        row.performed_at = performed_at
     session.add(row)
     session.flush()
-    audit.record(session, by=by, entity="residual_test", entity_id=row.id, action="record",
-                 after=audit.snapshot(row), job_id=job.id)
+    event = audit.record(session, by=by, entity="residual_test", entity_id=row.id,
+                         action="record", after=audit.snapshot(row), job_id=job.id)
+    if performed_at is not None:
+        event.at = performed_at
     return row
 
 
-def residual_tests_of(session: Session, job: Job) -> list[ResidualTest]:
-    """All residual tests of the job, oldest first."""
-    return list(session.scalars(
-        select(ResidualTest).where(ResidualTest.job_id == job.id)
-        .order_by(ResidualTest.performed_at, ResidualTest.id)
-    ))
+def residual_tests_of(session: Session, job: Job, *, as_of: dt.datetime | None = None
+                      ) -> list[ResidualTest]:
+    """The residual tests of the job (made up to ``as_of`` when given), oldest first."""
+    q = select(ResidualTest).where(ResidualTest.job_id == job.id)
+    if as_of is not None:
+        q = q.where(ResidualTest.performed_at <= as_of)
+    return list(session.scalars(q.order_by(ResidualTest.performed_at, ResidualTest.id)))
 
 
 @dataclass(frozen=True)
@@ -351,9 +361,15 @@ def residual_test_state(job: Job, tests: Sequence[ResidualTest]) -> ResidualTest
     return ResidualTestState(job.residual_test_required, planes, latest, tuple(problems))
 
 
-def require_residual_test_ok(session: Session, job: Job) -> ResidualTestState:
-    """Raise TransitionRefused when the job requires a residual test it lacks (or failed)."""
-    state = residual_test_state(job, residual_tests_of(session, job))
+def require_residual_test_ok(session: Session, job: Job, *, as_of: dt.datetime | None = None
+                             ) -> ResidualTestState:
+    """Raise TransitionRefused when the job requires a residual test it lacks (or failed).
+
+    ``as_of``: only the tests made up to that moment count (a historical certificate).
+    """
+    if not job.residual_test_required:
+        return residual_test_state(job, ())  # nothing to check: no query
+    state = residual_test_state(job, residual_tests_of(session, job, as_of=as_of))
     if not state.ok:
         raise TransitionRefused(
             f"Job {job.number} requires a residual-unbalance verification test: "
@@ -464,6 +480,20 @@ def arbor_error_gmm(session: Session, job: Job) -> tuple[complex, ...] | None:
     if sub is None:
         return None
     return traceability.arbor_error_vector(sub.measurement)
+
+
+def arbor_errors_for(session: Session, jobs: Sequence[Job]) -> dict[int, tuple[complex, ...]]:
+    """:func:`arbor_error_gmm` of many jobs at once (job id → error; one query at most)."""
+    ids = [j.id for j in jobs if j.arbor_id is not None]
+    if not ids:
+        return {}
+    rows = session.execute(
+        select(ArborErrorSubtraction.job_id, ArborErrorMeasurement)
+        .join(ArborErrorMeasurement,
+              ArborErrorMeasurement.id == ArborErrorSubtraction.measurement_id)
+        .where(ArborErrorSubtraction.job_id.in_(ids))
+    ).all()
+    return {job_id: traceability.arbor_error_vector(m) for job_id, m in rows}
 
 
 def corrected_readings(readings: tuple[complex, ...], unit: str,
@@ -697,17 +727,23 @@ def job_traceability(session: Session, job: Job, calc: job_calc.JobCalc | None =
 # --------------------------------------------------------------------------- certificate
 
 
-def check_certifiable(session: Session, job: Job, final_run_on: dt.date) -> None:
+def check_certifiable(session: Session, job: Job, final_run_on: dt.date, *,
+                      as_of: dt.datetime | None = None
+                      ) -> traceability.VerificationStatus | None:
     """The traceability conditions of a certificate (raise with the reason).
 
     - the job's machine was not overdue or failed on the final run's date
       (:func:`shopapp.services.traceability.require_machine_current`);
     - a job that requires it has a valid residual test within the limit in every
-      plane (:func:`require_residual_test_ok`).
+      plane (:func:`require_residual_test_ok`; with ``as_of`` the tests made by then).
+
+    Returns the machine's standing on that date (None without a machine).
     """
+    standing = None
     if job.machine is not None:
-        traceability.require_machine_current(session, job.machine, final_run_on)
-    require_residual_test_ok(session, job)
+        standing = traceability.require_machine_current(session, job.machine, final_run_on)
+    require_residual_test_ok(session, job, as_of=as_of)
+    return standing
 
 
 def outcome_figure(
@@ -740,6 +776,7 @@ def certificate_fields(
     *,
     to_shop: Callable[[float], float],
     to_display_deg: Callable[[float], float],
+    as_of: dt.datetime | None = None,
 ) -> dict[str, Any]:
     """The traceability fields of :class:`shopapp.reports.certificate.CertificateData`.
 
@@ -747,7 +784,7 @@ def certificate_fields(
     and its subtracted error, each plane's latest valid residual test with its
     readings for the plot, and the balance errors with the verdict rule used.
     ``to_shop`` converts g·mm to the shop's unit; ``to_display_deg`` internal
-    angles to the shop's convention.
+    angles to the shop's convention; ``as_of`` keeps to the tests made by then.
     """
     rt = job.rotor.rotor_type
     out: dict[str, Any] = {}
@@ -777,7 +814,7 @@ def certificate_fields(
             else:
                 out["arbor"] = (f"Balanced on shop arbor {arbor.name}; its error was not "
                                 "subtracted.")
-    tests = residual_tests_of(session, job)
+    tests = residual_tests_of(session, job, as_of=as_of)
     state = residual_test_state(job, tests)
     lines = []
     for t in state.latest.values():

@@ -236,8 +236,12 @@ def _refuse(job: Job, to_state: str, why: str = "") -> TransitionRefused:
 
 
 def _move(session: Session, job: Job, to_state: str, *, by: User, reason: str = "",
-          action: str, extra: Mapping[str, Any] | None = None) -> JobTransition:
-    """Change the state, write the transition and the audit event (no checks here)."""
+          action: str, extra: Mapping[str, Any] | None = None,
+          at: dt.datetime | None = None) -> JobTransition:
+    """Change the state, write the transition and the audit event (no checks here).
+
+    ``at``: a historical moment for both (loading past records); now when omitted.
+    """
     names = ["state", *(extra or {})]
     before = audit.snapshot(job, names)
     from_state = job.state
@@ -246,13 +250,17 @@ def _move(session: Session, job: Job, to_state: str, *, by: User, reason: str = 
         setattr(job, k, v)
     tr = JobTransition(job=job, from_state=from_state, to_state=to_state, reason=reason,
                        by_id=by.id)
+    if at is not None:
+        tr.at = at
     session.add(tr)
     session.flush()
     after = audit.snapshot(job, names)
     if reason:
         after["reason"] = reason
-    audit.record(session, by=by, entity="job", entity_id=job.id, action=action,
-                 before=before, after=after, job_id=job.id)
+    event = audit.record(session, by=by, entity="job", entity_id=job.id, action=action,
+                         before=before, after=after, job_id=job.id)
+    if at is not None:
+        event.at = at
     return tr
 
 
@@ -338,11 +346,15 @@ def mark_in_tolerance(session: Session, job: Job, *, by: User) -> Job:
     return job
 
 
-def mark_certified(session: Session, job: Job, *, by: User) -> Job:
-    """in_tolerance → certified. Called only by the certificates service (quality role)."""
+def mark_certified(session: Session, job: Job, *, by: User, at: dt.datetime | None = None
+                   ) -> Job:
+    """in_tolerance → certified. Called only by the certificates service (quality role).
+
+    ``at``: the certificate's issue time when it is a historical one (default now).
+    """
     require(by, "issue_certificates")
     _check_allowed(job, "certified")
-    _move(session, job, "certified", by=by, action="certified")
+    _move(session, job, "certified", by=by, action="certified", at=at)
     return job
 
 
@@ -952,6 +964,7 @@ def record_correction(
             cols[f] = normalize_deg(cols[f])
     parts = _parse_split(e, split, rt, plane) if plane in (1, 2) else None
     e.raise_if_any()
+    _record_influence_set(session, job, run_id, by=by)
     corr = Correction(job=job, run_id=run_id, plane=plane, action=action, split=parts,
                       applied_by_id=by.id, **cols)
     session.add(corr)
@@ -959,6 +972,30 @@ def record_correction(
     audit.record(session, by=by, entity="correction", entity_id=corr.id,
                  action="record_correction", after=audit.snapshot(corr), job_id=job.id)
     return corr
+
+
+def _record_influence_set(session: Session, job: Job, run_id: int | None, *, by: User) -> None:
+    """Fix the stored set on the job when its first correction follows that set's advice.
+
+    From then on the job is judged with this set whatever is learned later
+    (:func:`shopapp.services.job_calc.job_influence_set`). Jobs with trial runs
+    of their own, or already fixed, cost no evaluation.
+    """
+    if job.influence_set_id is not None or job.machine_id is None:
+        return
+    if any(r.purpose == "trial" for r in job.runs):
+        return
+    calc = evaluate(session, job)
+    c = calc.coefficients
+    if c is None or c.source != "stored" or c.stored is None:
+        return
+    if run_id is not None and calc.advice is not None and calc.advice.run_id != run_id:
+        return
+    job.influence_set_id = c.stored.id
+    session.flush()
+    audit.record(session, by=by, entity="job", entity_id=job.id, action="use_influence_set",
+                 before={"influence_set_id": None}, after={"influence_set_id": c.stored.id},
+                 job_id=job.id)
 
 
 # --------------------------------------------------------------------------- learning
@@ -1015,10 +1052,10 @@ def _score_stored_set(session: Session, job: Job, run: Run, *, by: User) -> None
     answering = [c for c in job.corrections if c.run_id == before_run.run_id]
     if not answering:
         return
-    stored = job_calc.nearest_influence_set(influence_sets_for(session, job),
-                                            speed_rpm=before_run.speed_rpm,
-                                            planes=job.rotor.rotor_type.planes,
-                                            unit=before_run.unit)
+    stored = job_calc.job_influence_set(job, influence_sets_for(session, job), job.runs,
+                                        speed_rpm=before_run.speed_rpm,
+                                        planes=job.rotor.rotor_type.planes,
+                                        unit=before_run.unit)
     if stored is None:
         return
     current = job_calc.run_data(run)

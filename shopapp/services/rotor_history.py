@@ -37,7 +37,7 @@ from shopapp.reports.rotor_history import (
     SerialSummary,
     Visit,
 )
-from shopapp.services import job_calc
+from shopapp.services import job_calc, job_traceability
 from shopapp.services.errors import NotFound, ValidationFailed
 from shopapp.services.settings import get_settings
 
@@ -115,9 +115,11 @@ def _certificates(session: Session, job_ids: Sequence[int]) -> dict[int, str]:
     return out
 
 
-def _visit(job: Job, sets: Sequence[InfluenceSet], certificate: str) -> Visit:
+def _visit(job: Job, sets: Sequence[InfluenceSet], certificate: str,
+           arbor_error_gmm: tuple[complex, ...] | None = None) -> Visit:
+    # The arbor error the job subtracts, as on its page (jobs.evaluate).
     calc = job_calc.evaluate(job, runs=job.runs, corrections=job.corrections,
-                             influence_sets=sets)
+                             influence_sets=sets, arbor_error_gmm=arbor_error_gmm)
     planes = calc.planes
     limits = calc.tolerance.plane_limits_gmm if calc.tolerance is not None else ()
     initial_gmm: list[float | None] = [None] * planes
@@ -195,8 +197,9 @@ def build(session: Session, rotor: Rotor) -> RotorHistoryData:
     jobs = _jobs(session, Job.rotor_id == rotor.id)
     sets = _sets_by_machine(session, rt.id)
     certs = _certificates(session, [j.id for j in jobs])
-    visits = tuple(_visit(j, sets.get(j.machine_id or -1, []), certs.get(j.id, ""))
-                   for j in jobs)
+    arbor = job_traceability.arbor_errors_for(session, jobs)
+    visits = tuple(_visit(j, sets.get(j.machine_id or -1, []), certs.get(j.id, ""),
+                          arbor.get(j.id)) for j in jobs)
     settings = get_settings(session)
     return RotorHistoryData(
         shop_name=settings.shop_name,
@@ -248,8 +251,10 @@ def build_for_type(session: Session, rotor_type: RotorType) -> RotorTypeHistoryD
     jobs = _jobs(session, Job.rotor.has(Rotor.rotor_type_id == rotor_type.id))
     sets = _sets_by_machine(session, rotor_type.id)
     by_serial: dict[str, list[Visit]] = defaultdict(list)
+    arbor = job_traceability.arbor_errors_for(session, jobs)
     for j in jobs:
-        by_serial[j.rotor.serial_number].append(_visit(j, sets.get(j.machine_id or -1, []), ""))
+        by_serial[j.rotor.serial_number].append(
+            _visit(j, sets.get(j.machine_id or -1, []), "", arbor.get(j.id)))
     planes = rotor_type.planes
     all_visits = [v for vs in by_serial.values() for v in vs]
     pct_bins = []

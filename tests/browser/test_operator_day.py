@@ -46,8 +46,9 @@ def _log_run(page, purpose: str, v: tuple[complex, complex], trial: int | None =
         form.get_by_label(f"Plane {plane} amplitude").fill(amp)
         form.get_by_label(f"Plane {plane} angle (°)").fill(ang)
     if trial is None:
-        # The form prefills the trial radius; a non-trial run must not carry trial fields.
-        form.get_by_label("Trial mass radius (mm)").fill("")
+        # The form prefills the trial radius from the rotor type; left there, it does not
+        # make an initial or check run a trial run.
+        assert form.get_by_label("Trial mass radius (mm)").input_value() != ""
     else:
         form.get_by_label("Trial mass in plane").select_option(str(trial))
         form.get_by_label("Trial mass (g)").fill(f"{TRIAL_G:g}")
@@ -70,10 +71,12 @@ def test_operator_books_in_balances_and_reaches_tolerance(live_shop: LiveShop, p
     # Book the rotor in.
     page.goto(shop.url + "/jobs/new")
     intake = page.locator("form").filter(has=page.get_by_role("button", name="Book in"))
-    # The look-up form above repeats the ids customer_id / serial_number, so their labels
-    # point there: these two are found by name inside the intake form.
-    intake.locator("select[name=customer_id]").select_option(label=shop.customer)
-    intake.locator("input[name=serial_number]").fill("FFW-0001")
+    # The look-up form above has its own ids (prefix "lookup-"), so labels point at the
+    # intake form's own inputs; no id on the page is used twice.
+    ids = page.eval_on_selector_all("[id]", "els => els.map(e => e.id)")
+    assert len(ids) == len(set(ids)), sorted({i for i in ids if ids.count(i) > 1})
+    intake.get_by_label("Customer", exact=True).select_option(label=shop.customer)
+    intake.get_by_label("Serial number", exact=True).fill("FFW-0001")
     intake.get_by_label("Rotor type (customer · part number)").select_option(
         str(shop.rotor_type_id))
     intake.get_by_label("Balancing speed (rpm)").fill("600")

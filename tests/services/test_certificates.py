@@ -122,8 +122,11 @@ def test_overdue_machine_verification_is_refused_with_since_and_who(db, shop, pe
     with pytest.raises(TransitionRefused) as exc:
         certificates.issue(db, job, by=quality)
     msg = exc.value.message
-    assert "'Bay 7' was overdue for verification since 2020-01-31" in msg
-    assert "last verified 2020-01-01" in msg and "quality manager" in msg
+    # The one register rule (traceability): verified 2020-01-01 + 30 days = due 2020-01-31,
+    # overdue from the day after; the message names the machine, the date and who clears it.
+    assert 'Machine "Bay 7" is overdue for its proving test since 2020-02-01' in msg
+    assert "due 2020-01-31, last passed test 2020-01-01" in msg
+    assert "Only a quality manager can clear it" in msg
     assert job.state == "in_tolerance"
 
 
@@ -133,7 +136,7 @@ def test_failed_machine_verification_is_refused(db, shop, people) -> None:
     today = dt.datetime.now(dt.UTC).date()
     _verify_on(db, machine, today - dt.timedelta(days=3), passed=False)
     job = job_ready_for_certificate(db, shop, operator, machine=machine)
-    with pytest.raises(TransitionRefused, match="'Bay 8' failed its verification on"):
+    with pytest.raises(TransitionRefused, match='"Bay 8" failed its proving test on'):
         certificates.issue(db, job, by=quality)
 
 
@@ -323,3 +326,69 @@ def test_stored_data_round_trips(db, shop, people) -> None:
     assert report.canonical_json(data) == cert.data_json
     assert data.machine_verification == "no verification on file"
     assert data.corrections[1].details.startswith("split: 12.0 g at position 1")
+
+
+# --------------------------------------------------------------------------- historical issue
+
+
+def _date_back(job, days: float) -> dt.datetime:  # type: ignore[no-untyped-def]
+    """Move the job's runs and corrections ``days`` into the past; returns that moment."""
+    at = (dt.datetime.now(dt.UTC) - dt.timedelta(days=days)).replace(microsecond=0)
+    for r in job.runs:
+        r.taken_at = at
+    for c in job.corrections:
+        c.applied_at = at
+    return at
+
+
+def test_a_historical_issue_judges_the_job_as_it_stood_then(db, shop, people) -> None:
+    """issued_at: the runs made later do not count, and the transition carries that time."""
+    from shopapp.models import Run, RunReading
+
+    operator, quality = people
+    job = job_ready_for_certificate(db, shop, operator)
+    balanced = _date_back(job, 3)
+    # A later check run far out of tolerance (the rotor was disturbed afterwards).
+    late = Run(job=job, seq=3, purpose="check", speed_rpm=600.0, by_id=operator.id,
+               taken_at=balanced + dt.timedelta(days=2))
+    late.readings = [RunReading(plane=p, amplitude=5000.0, angle_deg=10.0, unit="g·mm")
+                     for p in (1, 2)]
+    db.add(late)
+    db.flush()
+    db.expire(job, ["runs"])
+    with pytest.raises(TransitionRefused, match="out of tolerance"):
+        certificates.issue(db, job, by=quality)  # judged now: the late run decides
+    issued_at = balanced + dt.timedelta(hours=4)
+    cert = certificates.issue(db, job, by=quality, issued_at=issued_at)
+    assert cert.issued_at == issued_at and job.state == "certified"
+    data = certificates.certificate_data(cert)
+    assert data.final_run == 2 and data.issued_at == issued_at.isoformat()
+    assert job.transitions[-1].to_state == "certified" and job.transitions[-1].at == issued_at
+    event = db.query(AuditEvent).filter_by(entity="certificate", entity_id=cert.id).one()
+    assert event.at == issued_at
+    # Voided later, at a historical moment too; not before it was issued.
+    with pytest.raises(ValidationFailed, match="voided_at"):
+        certificates.void(db, cert, by=quality, reason="customer order cancelled",
+                          voided_at=issued_at - dt.timedelta(hours=1))
+    certificates.void(db, cert, by=quality, reason="customer order cancelled",
+                      voided_at=issued_at + dt.timedelta(days=1))
+    assert cert.voided_at == issued_at + dt.timedelta(days=1)
+
+
+def test_a_future_or_naive_issue_time_is_refused(db, shop, people) -> None:
+    operator, quality = people
+    job = job_ready_for_certificate(db, shop, operator)
+    with pytest.raises(ValidationFailed, match="issued_at"):
+        certificates.issue(db, job, by=quality,
+                           issued_at=dt.datetime.now(dt.UTC) + dt.timedelta(days=1))
+    with pytest.raises(ValidationFailed, match="issued_at"):
+        certificates.issue(db, job, by=quality, issued_at=dt.datetime(2026, 1, 1))
+    assert job.state == "in_tolerance"
+
+
+def test_a_historical_issue_is_refused_before_the_job_was_balanced(db, shop, people) -> None:
+    operator, quality = people
+    job = job_ready_for_certificate(db, shop, operator)
+    balanced = _date_back(job, 3)
+    with pytest.raises(TransitionRefused, match="no check or final run"):
+        certificates.issue(db, job, by=quality, issued_at=balanced - dt.timedelta(days=1))

@@ -265,3 +265,21 @@ def test_the_jobs_calculation_uses_the_subtracted_arbor_error(db, job, quality, 
     assert v0.residual_gmm[0] == pytest.approx(40 + 0j)
     assert v1.residual_gmm[0] == pytest.approx(25 + 0j)
     assert v1.residual_gmm[1] == pytest.approx(23j)
+
+
+def test_the_rotor_history_uses_the_subtracted_arbor_error_too(db, job, quality, operator) -> None:  # type: ignore[no-untyped-def]
+    """The rotor's trend history shows the same initial unbalance as the job page."""
+    from shopapp.services import jobs, rotor_history
+
+    arbor = tr.create_arbor(db, by=quality, name="Arbor H")
+    jt.set_job_arbor(db, job, by=operator, arbor=arbor)
+    m = tr.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 2),
+                              first_run=[(20.0, 0.0), (10.0, 90.0)],
+                              second_run=[(10.0, 0.0), (4.0, 90.0)])
+    jobs.record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
+                    readings=[(1, 40.0, 0.0, "g·mm"), (2, 30.0, 90.0, "g·mm")])
+    jt.set_arbor_subtraction(db, job, by=operator, measurement=m)
+    (visit,) = rotor_history.build(db, job.rotor).visits
+    # Hand computation: arbor 15∠0 and 7∠90 off 40∠0 and 30∠90 → 25 and 23 g·mm.
+    assert visit.initial_gmm[0] == pytest.approx(25.0)
+    assert visit.initial_gmm[1] == pytest.approx(23.0)

@@ -558,6 +558,62 @@ def test_next_job_uses_stored_coefficients_and_scores_the_prediction(db, op, rty
     assert s.last_used_at is not None
 
 
+def _stored_set(db: Session, rtype: RotorType, machine: Any, matrix: np.ndarray,
+                learned_at: dt.datetime) -> InfluenceSet:
+    s = InfluenceSet(rotor_type_id=rtype.id, machine_id=machine.id, speed_rpm=600.0, planes=2,
+                     reading_unit="um", coefficients=[[z.real, z.imag] for z in matrix.ravel()],
+                     learned_at=learned_at)
+    db.add(s)
+    db.flush()
+    return s
+
+
+def test_a_set_learned_later_never_re_judges_a_job(db, op, rtype, machine) -> None:
+    """The job keeps the set its corrections came from; later sets are not used for it."""
+    now = dt.datetime.now(dt.UTC)
+    used = _stored_set(db, rtype, machine, A_TRUE, now - dt.timedelta(days=30))
+    job = book(db, op, rtype, machine)
+    jobs.record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+                    readings=readings_for(U_TRUE_G))
+    calc = apply_advice(db, op, job)
+    assert calc.coefficients is not None and calc.coefficients.source == "stored"
+    assert job.influence_set_id == used.id  # fixed by the first correction from its advice
+    check = passing_check(db, op, job)
+    before = jobs.evaluate(db, job).verdicts[check.id]
+    assert before.passed
+    # Other sets with other coefficients (a quarter of the gain: the same readings would
+    # mean four times the unbalance), one even dated just before the job's initial run,
+    # must not change the verdict: the job keeps the set it used.
+    initial_at = job.runs[0].taken_at
+    _stored_set(db, rtype, machine, A_TRUE / 4.0, initial_at - dt.timedelta(minutes=1))
+    _stored_set(db, rtype, machine, A_TRUE / 4.0, now + dt.timedelta(seconds=1))
+    after = jobs.evaluate(db, job)
+    assert after.coefficients is not None and after.coefficients.stored is not None
+    assert after.coefficients.stored.id == used.id
+    assert after.verdicts[check.id].rows == before.rows
+    # Without the recorded set the newest set before the initial run would judge it.
+    job.influence_set_id = None
+    unfixed = jobs.evaluate(db, job).verdicts[check.id]
+    assert [r.residual_gmm for r in unfixed.rows] != [r.residual_gmm for r in before.rows]
+    job.influence_set_id = used.id
+    audit = db.scalars(select(AuditEvent).where(AuditEvent.action == "use_influence_set")).one()
+    assert audit.after == {"influence_set_id": used.id}
+
+
+def test_without_a_recorded_set_only_sets_learned_before_the_initial_run_count(
+        db, op, rtype, machine) -> None:  # type: ignore[no-untyped-def]
+    job = book(db, op, rtype, machine)
+    initial = jobs.record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+                              readings=readings_for(U_TRUE_G))
+    assert jobs.evaluate(db, job).coefficients is None  # µm readings and no set yet
+    _stored_set(db, rtype, machine, A_TRUE, initial.taken_at + dt.timedelta(minutes=5))
+    assert jobs.evaluate(db, job).coefficients is None  # learned after its initial run
+    old = _stored_set(db, rtype, machine, A_TRUE, initial.taken_at - dt.timedelta(days=1))
+    calc = jobs.evaluate(db, job)
+    assert calc.coefficients is not None and calc.coefficients.stored is not None
+    assert calc.coefficients.stored.id == old.id
+
+
 def test_a_stored_set_only_serves_speeds_within_five_percent(db, op, rtype, machine) -> None:
     db.add(InfluenceSet(rotor_type_id=rtype.id, machine_id=machine.id, speed_rpm=600.0,
                         planes=2, reading_unit="um",

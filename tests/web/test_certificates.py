@@ -61,7 +61,7 @@ def test_refusal_shows_its_message_and_saves_nothing(client, login_as, ready, db
     login_as("quality")
     resp = _issue(client, ready)
     assert resp.status_code == 409
-    assert "overdue for verification since" in resp.get_data(as_text=True)
+    assert "is overdue for its proving test since" in resp.get_data(as_text=True)
     assert db.query(Certificate).filter_by(job_id=ready.id).count() == 0
 
 

@@ -190,7 +190,8 @@ def test_known_serial_lookup_shows_last_job_and_residual_without_writing(
     job.state = "dispatched"
     db.commit()
     n_audit = count(db, AuditEvent)
-    resp = client.get(f"/jobs/new?customer_id={rtype.customer_id}&serial_number=known-1")
+    lookup = f"/jobs/new?lookup-customer_id={rtype.customer_id}&lookup-serial_number="
+    resp = client.get(lookup + "known-1")
     body = text(resp)
     assert resp.status_code == 200
     assert job.number in body and "Last residual (run 4)" in body and "in tolerance" in body
@@ -199,11 +200,11 @@ def test_known_serial_lookup_shows_last_job_and_residual_without_writing(
                      raw), "the known rotor's type is preselected"
 
     assert count(db, AuditEvent) == n_audit
-    unknown = text(client.get(f"/jobs/new?customer_id={rtype.customer_id}&serial_number=X9"))
+    unknown = text(client.get(lookup + "X9"))
     assert "No rotor with serial" in unknown
-    assert client.get("/jobs/new?customer_id=abc&serial_number=%00").status_code == 200
-    assert client.get(f"/jobs/new?customer_id={rtype.customer_id}&serial_number=A%00B"
-                      ).status_code == 200
+    junk = "/jobs/new?lookup-customer_id=abc&lookup-serial_number=%00"
+    assert client.get(junk).status_code == 200
+    assert client.get(lookup + "A%00B").status_code == 200
 
 
 # --------------------------------------------------------------------------- job page
@@ -288,6 +289,23 @@ def test_bad_runs_get_messages_and_422_and_nothing_saved(client, login_as, db, r
     assert resp.status_code == 422
     assert message in text(resp)
     assert (count(db, Run), count(db, AuditEvent)) == before
+
+
+def test_an_initial_run_with_the_prefilled_trial_radius_is_logged(client, login_as, db, rtype,
+                                                                   machine) -> None:
+    """The page prefills the trial radius; alone it is not a trial mass (UI bug found)."""
+    user = login_as("operator")
+    job = booked(db, user, rtype, machine)
+    page = client.get(f"/jobs/{job.id}").get_data(as_text=True)
+    assert re.search(r'id="run-trial_radius_mm"[^>]*value="300', page) or re.search(
+        r'value="300[^"]*"[^>]*id="run-trial_radius_mm"', page), "the radius is prefilled"
+    resp = client.post(f"/jobs/{job.id}/runs", data={
+        "run-purpose": "initial", "run-speed_rpm": "600", "run-unit": "um",
+        "run-amplitude_1": "4.2", "run-angle_1_deg": "10", "run-amplitude_2": "3",
+        "run-angle_2_deg": "350", "run-trial_radius_mm": "300"})
+    assert resp.status_code == 302
+    run = db.scalars(select(Run).where(Run.job_id == job.id)).one()
+    assert run.purpose == "initial" and run.trial_radius_mm is None
 
 
 def test_recording_the_applied_correction_and_a_passing_check(client, login_as, db, rtype,

@@ -174,9 +174,13 @@ class RunForm(FlaskForm):
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
 
     def trial_given(self) -> bool:
+        """True when a trial mass is entered (or its plane or angle).
+
+        The radius alone does not count: the page prefills it from the rotor type,
+        and an initial or check run leaves it there.
+        """
         return any(f.data not in (None, "") for f in (self.trial_plane, self.trial_mass_g,
-                                                      self.trial_angle_deg,
-                                                      self.trial_radius_mm))
+                                                      self.trial_angle_deg))
 
 
 class CorrectionForm(FlaskForm):

@@ -210,6 +210,9 @@ def _intake_mapping(form: IntakeForm) -> dict[str, Any]:
     return mapping
 
 
+LOOKUP_PREFIX = "lookup"
+
+
 @bp.route("/new", methods=["GET", "POST"])
 @requires("work_jobs")
 def new():  # type: ignore[no-untyped-def]
@@ -217,14 +220,15 @@ def new():  # type: ignore[no-untyped-def]
     disp = Display(get_settings(sess))
     form = IntakeForm()
     _intake_choices(sess, form)
-    lookup = LookupForm(request.args)
+    # Its own prefix: both forms have a customer and a serial, and ids must be unique.
+    lookup = LookupForm(request.args, prefix=LOOKUP_PREFIX)
     lookup.customer_id.choices = form.customer_id.choices
     history = None
     status = 200
     loose: list[str] = []
     if request.method == "GET":
-        cid = request.args.get("customer_id", "")
-        serial = (request.args.get("serial_number") or "").strip()[:100]
+        cid = request.args.get(lookup.customer_id.name, "")
+        serial = (request.args.get(lookup.serial_number.name) or "").strip()[:100]
         if cid.isdigit() and len(cid) < 12 and serial:
             history = jobs.rotor_history(sess, int(cid), serial)
             form.customer_id.data = int(cid)
