@@ -22,7 +22,7 @@ from shopapp.charts.primitives import Figure, Line, Rect, Text
 from shopapp.charts.trend import nice_step
 
 BAR_STYLES: tuple[str, ...] = ("bar2", "bar", "bar_bad")
-_CHAR_W = 0.52  # average glyph width / font size, for fitting labels
+_CHAR_W = 0.62  # average glyph width / font size (a wide sans such as DejaVu), for fitting labels
 
 
 @dataclass(frozen=True)

@@ -62,9 +62,11 @@ from shopapp.models import (
 )
 from shopapp.reports.traceability_section import ErrorLine, ResidualTestLine
 from shopapp.services import audit, job_calc, traceability
+from shopapp.services.checks import Errors as _Errors
+from shopapp.services.checks import number as _num
+from shopapp.services.checks import text as _text
 from shopapp.services.errors import TransitionRefused, ValidationFailed
 from shopapp.services.permissions import can, require
-from shopapp.services.traceability import _Errors, _num, _text
 
 TEST_FACTORS = (1.0, 2.0)
 SUGGESTED_FACTOR = 2.0

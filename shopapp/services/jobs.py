@@ -60,6 +60,9 @@ from shopapp.services import (
     registry,
     traceability,
 )
+from shopapp.services.checks import Errors as _Errors
+from shopapp.services.checks import number as _num
+from shopapp.services.checks import text as _text
 from shopapp.services.errors import NotFound, TransitionRefused, ValidationFailed
 from shopapp.services.permissions import require
 from shopapp.services.settings import get_settings
@@ -77,62 +80,10 @@ REOPEN_FROM = frozenset({"in_tolerance", "certified", "dispatched"})
 OPEN_STATES = ("booked_in", "on_machine", "in_tolerance", "certified")
 RUN_STATES = frozenset({"booked_in", "on_machine"})
 MAX_SPEED_RPM = 500_000.0
-MAX_TEXT = 5000
 NUMBER_RETRIES = 5
 
 
 # --------------------------------------------------------------------------- small checks
-
-
-class _Errors(dict[str, str]):
-    def add(self, field: str, message: str) -> None:
-        self.setdefault(field, message)
-
-    def raise_if_any(self) -> None:
-        if self:
-            first = next(iter(self))
-            raise ValidationFailed(first, self[first], errors=dict(self))
-
-
-def _num(e: _Errors, field: str, value: Any, *, required: bool = True,
-         above: float | None = None, minimum: float | None = None, maximum: float | None = None,
-         unit: str = "") -> float | None:
-    if value is None or (isinstance(value, str) and not value.strip()):
-        if required:
-            e.add(field, "is required")
-        return None
-    if isinstance(value, bool):
-        e.add(field, f"must be a number, got {value!r}")
-        return None
-    try:
-        out = float(value)
-    except (TypeError, ValueError, OverflowError):
-        e.add(field, f"must be a number, got {str(value)[:40]!r}")
-        return None
-    suffix = f" {unit}" if unit else ""
-    if not math.isfinite(out):
-        e.add(field, f"must be a finite number, got {str(value)[:40]!r}")
-    elif above is not None and out <= above:
-        e.add(field, f"must be greater than {above:g}{suffix}, got {out:g}")
-    elif minimum is not None and out < minimum:
-        e.add(field, f"must not be below {minimum:g}{suffix}, got {out:g}")
-    elif maximum is not None and out > maximum:
-        e.add(field, f"must be at most {maximum:g}{suffix}, got {out:g}")
-    else:
-        return out
-    return None
-
-
-def _text(e: _Errors, field: str, value: Any, *, max_len: int = MAX_TEXT,
-          required: bool = False) -> str:
-    text = "" if value is None else str(value).strip()
-    if required and not text:
-        e.add(field, "is required")
-    elif len(text) > max_len:
-        e.add(field, f"is too long: {len(text)} characters, at most {max_len}")
-    elif any(ord(ch) < 32 and ch not in "\n\r\t" for ch in text):
-        e.add(field, "contains control characters; type plain text")
-    return text
 
 
 def _today() -> dt.date:

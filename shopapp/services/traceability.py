@@ -23,7 +23,6 @@ Machine verification rules (ours; the test's idea is ISO 21940-21's, from memory
 from __future__ import annotations
 
 import datetime as dt
-import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -55,6 +54,10 @@ from shopapp.models import (
     utcnow,
 )
 from shopapp.services import audit
+from shopapp.services.checks import Errors as _Errors
+from shopapp.services.checks import date as _date
+from shopapp.services.checks import number as _num
+from shopapp.services.checks import text as _text
 from shopapp.services.errors import ServiceError, ValidationFailed
 from shopapp.services.permissions import require
 from shopapp.services.settings import get_settings
@@ -70,7 +73,6 @@ CLEARED_BY = (
 TEST_UNBALANCE_FACTORS = (10.0, 20.0)
 # Judgement: a two-plane proving rotor splits the claimed U_mar equally between its
 # planes, as the standard allocates U_per to the planes of a symmetric rotor.
-MAX_TEXT = 5000
 # Judgement: a stored arbor error holds for rotors within ±20 % of the mass it was
 # measured with (its seat-eccentricity part scales with the rotor's mass).
 ARBOR_MASS_TOLERANCE = 0.20
@@ -87,67 +89,6 @@ class MachineNotCurrent(ServiceError):
 
 
 # --------------------------------------------------------------------------- small checks
-
-
-class _Errors(dict[str, str]):
-    def add(self, field: str, message: str) -> None:
-        self.setdefault(field, message)
-
-    def raise_if_any(self) -> None:
-        if self:
-            first = next(iter(self))
-            raise ValidationFailed(first, self[first], errors=dict(self))
-
-
-def _num(e: _Errors, field: str, value: Any, *, required: bool = True,
-         above: float | None = None, minimum: float | None = None,
-         maximum: float | None = None) -> float | None:
-    if value is None or (isinstance(value, str) and not value.strip()):
-        if required:
-            e.add(field, "is required")
-        return None
-    if isinstance(value, bool):
-        e.add(field, f"must be a number, got {value!r}")
-        return None
-    try:
-        out = float(value)
-    except (TypeError, ValueError, OverflowError):
-        e.add(field, f"must be a number, got {str(value)[:40]!r}")
-        return None
-    if not math.isfinite(out):
-        e.add(field, f"must be a finite number, got {str(value)[:40]!r}")
-    elif above is not None and out <= above:
-        e.add(field, f"must be greater than {above:g}, got {out:g}")
-    elif minimum is not None and out < minimum:
-        e.add(field, f"must not be below {minimum:g}, got {out:g}")
-    elif maximum is not None and out > maximum:
-        e.add(field, f"must be at most {maximum:g}, got {out:g}")
-    else:
-        return out
-    return None
-
-
-def _text(e: _Errors, field: str, value: Any, *, max_len: int = MAX_TEXT,
-          required: bool = False) -> str:
-    text = "" if value is None else str(value).strip()
-    if required and not text:
-        e.add(field, "is required")
-    elif len(text) > max_len:
-        e.add(field, f"is too long: {len(text)} characters, at most {max_len}")
-    elif any(ord(ch) < 32 and ch not in "\n\r\t" for ch in text):
-        e.add(field, "contains control characters; type plain text")
-    return text
-
-
-def _date(e: _Errors, field: str, value: Any, *, not_after: dt.date | None = None
-          ) -> dt.date | None:
-    if not isinstance(value, dt.date) or isinstance(value, dt.datetime):
-        e.add(field, "is required (a date)")
-        return None
-    if not_after is not None and value > not_after:
-        e.add(field, f"{value.isoformat()} is in the future")
-        return None
-    return value
 
 
 def _today() -> dt.date:

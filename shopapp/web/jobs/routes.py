@@ -80,7 +80,9 @@ class Display:
         """``12.3 g·mm`` in the shop's unit."""
         if gmm is None or not math.isfinite(gmm):
             return "—"
-        return f"{self.unb(gmm):.3g} {self.unit}"
+        v = self.unb(gmm)
+        # Three significant digits, but never scientific notation on a shop page.
+        return f"{v:.0f} {self.unit}" if abs(v) >= 1000 else f"{v:.3g} {self.unit}"
 
     def a(self, internal_deg: float | None) -> str:
         d = self.angle(internal_deg)
