@@ -14,7 +14,13 @@ from shopapp.services.errors import ValidationFailed
 from shopapp.services.pagination import page_number, paginate
 from shopapp.web.customers.forms import ConfirmForm, CustomerForm
 from shopapp.web.helpers import requires
-from shopapp.web.rotors.common import apply_errors, get_or_404, job_url, page_size
+from shopapp.web.rotors.common import (
+    apply_errors,
+    get_or_404,
+    job_url,
+    page_size,
+    toggle_archive,
+)
 
 bp = Blueprint("customers", __name__, url_prefix="/customers")
 
@@ -140,14 +146,12 @@ def archive(customer_id: int):  # type: ignore[no-untyped-def]
     form = ConfirmForm()
     if not form.validate_on_submit():
         return _detail(customer, status=400, archive_error="The form expired; try again.")
-    unarchive = request.form.get("unarchive") == "1"
-    try:
-        change = registry.unarchive_customer if unarchive else registry.archive_customer
-        change(sess, customer, by=current_user._get_current_object())
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return _detail(get_or_404(sess, Customer, customer_id), status=422,
-                       archive_error=exc.errors.get("archived", exc.message))
-    flash(f"{customer.name} {'restored' if unarchive else 'archived'}.", "success")
+    refused = toggle_archive(
+        sess, customer, archive=registry.archive_customer, unarchive=registry.unarchive_customer,
+        on_refused=lambda msg: _detail(get_or_404(sess, Customer, customer_id), status=422,
+                                       archive_error=msg),
+        done=lambda restored: f"{customer.name} {'restored' if restored else 'archived'}.",
+    )
+    if refused is not None:
+        return refused
     return redirect(url_for("customers.detail", customer_id=customer_id))

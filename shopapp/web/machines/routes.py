@@ -14,7 +14,7 @@ from shopapp.services.pagination import page_number, paginate
 from shopapp.web.customers.forms import ConfirmForm
 from shopapp.web.helpers import requires
 from shopapp.web.machines.forms import MachineForm
-from shopapp.web.rotors.common import apply_errors, get_or_404, page_size
+from shopapp.web.rotors.common import apply_errors, get_or_404, page_size, toggle_archive
 
 bp = Blueprint("machines", __name__, url_prefix="/machines")
 
@@ -114,13 +114,11 @@ def detail(machine_id: int, status: int = 200, archive_error: str | None = None)
 def archive(machine_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
     machine = get_or_404(sess, Machine, machine_id)
-    unarchive = request.form.get("unarchive") == "1"
-    try:
-        change = registry.unarchive_machine if unarchive else registry.archive_machine
-        change(sess, machine, by=current_user._get_current_object())
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return detail(machine_id, status=422, archive_error=exc.message)
-    flash(f"{machine.name} {'back in service' if unarchive else 'retired'}.", "success")
+    refused = toggle_archive(
+        sess, machine, archive=registry.archive_machine, unarchive=registry.unarchive_machine,
+        on_refused=lambda msg: detail(machine_id, status=422, archive_error=msg),
+        done=lambda restored: f"{machine.name} {'back in service' if restored else 'retired'}.",
+    )
+    if refused is not None:
+        return refused
     return redirect(url_for("machines.detail", machine_id=machine_id))

@@ -7,9 +7,11 @@ not, so :class:`NumberField` refuses them with a message a person understands.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from typing import Any, TypeVar
 
-from flask import abort, current_app, url_for
+from flask import abort, current_app, flash, request, url_for
+from flask_login import current_user
 from flask_wtf import FlaskForm
 from sqlalchemy.orm import Session
 from werkzeug.routing import BuildError
@@ -152,4 +154,30 @@ def job_url(job: Any) -> str | None:
             return url_for("jobs.detail", **kwargs)
         except BuildError:
             continue
+    return None
+
+
+def toggle_archive(
+    session: Session,
+    obj: Any,
+    *,
+    archive: Callable[..., Any],
+    unarchive: Callable[..., Any],
+    on_refused: Callable[[str], Any],
+    done: Callable[[bool], str],
+) -> Any | None:
+    """Body of every registry area's archive button (form field ``unarchive=1`` restores).
+
+    One transaction through the service; a refusal rolls back and returns
+    ``on_refused(message)``; success flashes ``done(restored)`` and returns None so
+    the view redirects where it likes.
+    """
+    restore = request.form.get("unarchive") == "1"
+    try:
+        (unarchive if restore else archive)(session, obj, by=current_user._get_current_object())
+        session.commit()
+    except ValidationFailed as exc:
+        session.rollback()
+        return on_refused(exc.errors.get(exc.field, exc.message))
+    flash(done(restore), "success")
     return None

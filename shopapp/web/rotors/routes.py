@@ -21,7 +21,13 @@ from shopapp.services.pagination import page_number, paginate
 from shopapp.services.settings import get_settings
 from shopapp.web.customers.forms import ConfirmForm
 from shopapp.web.helpers import requires
-from shopapp.web.rotors.common import apply_errors, get_or_404, job_url, page_size
+from shopapp.web.rotors.common import (
+    apply_errors,
+    get_or_404,
+    job_url,
+    page_size,
+    toggle_archive,
+)
 from shopapp.web.rotors.forms import OneOffRotorForm, RotorForm, RotorTypeForm
 
 bp = Blueprint("rotors", __name__)
@@ -207,15 +213,15 @@ def type_detail(rotor_type_id: int, status: int = 200, archive_error: str | None
 def type_archive(rotor_type_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
     rotor_type = get_or_404(sess, RotorType, rotor_type_id)
-    unarchive = request.form.get("unarchive") == "1"
-    try:
-        change = registry.unarchive_rotor_type if unarchive else registry.archive_rotor_type
-        change(sess, rotor_type, by=current_user._get_current_object())
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return type_detail(rotor_type_id, status=422, archive_error=exc.message)
-    flash(f"{rotor_type.part_number} {'restored' if unarchive else 'archived'}.", "success")
+    refused = toggle_archive(
+        sess, rotor_type, archive=registry.archive_rotor_type,
+        unarchive=registry.unarchive_rotor_type,
+        on_refused=lambda msg: type_detail(rotor_type_id, status=422, archive_error=msg),
+        done=lambda restored: f"{rotor_type.part_number} "
+        f"{'restored' if restored else 'archived'}.",
+    )
+    if refused is not None:
+        return refused
     return redirect(url_for("rotors.type_detail", rotor_type_id=rotor_type_id))
 
 
@@ -429,13 +435,12 @@ def detail(rotor_id: int, status: int = 200, archive_error: str | None = None): 
 def archive(rotor_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
     rotor = get_or_404(sess, Rotor, rotor_id)
-    unarchive = request.form.get("unarchive") == "1"
-    try:
-        change = registry.unarchive_rotor if unarchive else registry.archive_rotor
-        change(sess, rotor, by=current_user._get_current_object())
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return detail(rotor_id, status=422, archive_error=exc.message)
-    flash(f"Rotor {rotor.serial_number} {'restored' if unarchive else 'archived'}.", "success")
+    refused = toggle_archive(
+        sess, rotor, archive=registry.archive_rotor, unarchive=registry.unarchive_rotor,
+        on_refused=lambda msg: detail(rotor_id, status=422, archive_error=msg),
+        done=lambda restored: f"Rotor {rotor.serial_number} "
+        f"{'restored' if restored else 'archived'}.",
+    )
+    if refused is not None:
+        return refused
     return redirect(url_for("rotors.detail", rotor_id=rotor_id))
