@@ -13,10 +13,10 @@ from typing import Any
 
 from flask import Flask
 
-from shopapp.config import check_config, load_config
-from shopapp.database import Database
-from shopapp.extensions import close_db_session, csrf, login_manager
-from shopapp.logging_setup import configure_logging
+from shopapp.core.config import check_config, load_config
+from shopapp.core.database import Database
+from shopapp.core.extensions import close_db_session, csrf, login_manager
+from shopapp.core.logging_setup import configure_logging
 
 __version__ = "0.1.0"
 
@@ -38,6 +38,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
         static_folder="web/static",
     )
     app.config.update(cfg)
+    app.config["SHOPAPP_VERSION"] = __version__
     app.config["PERMANENT_SESSION_LIFETIME"] = dt.timedelta(
         minutes=int(cfg["SESSION_LIFETIME_MINUTES"])
     )
@@ -104,6 +105,6 @@ def register_commands(app: Flask) -> None:
 
 
 def register_template_helpers(app: Flask) -> None:
-    from shopapp.web.helpers import register_helpers
+    from shopapp.web.templating import register_helpers
 
     register_helpers(app)

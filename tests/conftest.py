@@ -26,7 +26,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session
 
 from shopapp import create_app
-from shopapp.database import make_engine
+from shopapp.core.database import make_engine
 from shopapp.models import Base
 from tests import factories
 

@@ -8,8 +8,8 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
+from shopapp.accounts import users
 from shopapp.models import Customer, Job, Machine, Rotor, RotorType, User
-from shopapp.services import users
 
 _seq = itertools.count(1)
 

@@ -6,8 +6,9 @@ from pathlib import Path
 
 import pytest
 
-from shopapp import create_app, schema
-from shopapp.config import ConfigError, load_config
+from shopapp import create_app
+from shopapp.core import schema
+from shopapp.core.config import ConfigError, load_config
 
 
 def test_config_precedence_defaults_toml_env_overrides(tmp_path: Path) -> None:

@@ -15,10 +15,10 @@ import pytest
 from click.testing import CliRunner
 from sqlalchemy.orm import Session
 
+from shopapp.certificates import services as certificates
 from shopapp.cli import main
-from shopapp.database import make_engine
+from shopapp.core.database import make_engine
 from shopapp.models import Base
-from shopapp.services import certificates
 from tests import factories
 from tests.reports.samples import job_ready_for_certificate
 

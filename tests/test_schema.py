@@ -11,8 +11,8 @@ from alembic.runtime.migration import MigrationContext
 from sqlalchemy import delete, inspect, text, update
 from sqlalchemy.exc import DBAPIError, IntegrityError
 
-from shopapp import schema
-from shopapp.database import make_engine
+from shopapp.core import schema
+from shopapp.core.database import make_engine
 from shopapp.models import Base, Certificate, Customer, Job, Rotor, RotorType, Run, RunReading
 
 

@@ -42,8 +42,13 @@ def non_negative(field: str, value: float) -> float:
     return out
 
 
-def finite_array(field: str, values: Iterable[float] | np.ndarray) -> np.ndarray:
-    """Return ``values`` as a float or complex ndarray, refusing NaN and infinity."""
+# What the numerics accept as an array: a number, nested sequences of numbers, or an ndarray.
+ArrayInput = complex | Iterable[complex] | Iterable[Iterable[complex]] | np.ndarray
+
+
+def finite_array(field: str, values: ArrayInput) -> np.ndarray:
+    """Return ``values`` (a number, a sequence or an array, real or complex) as a float or
+    complex ndarray, refusing NaN and infinity."""
     try:
         arr = np.asarray(values)
     except (TypeError, ValueError):

@@ -155,6 +155,7 @@ def drill_mass(
     if depth_full_diameter_mm is not None:
         h = non_negative("depth_full_diameter_mm", depth_full_diameter_mm)
         return rho * (area * h + area * c / 3.0) / 1000.0
+    assert depth_to_tip_mm is not None  # exactly one of the two was checked above
     t = non_negative("depth_to_tip_mm", depth_to_tip_mm)
     if t >= c:
         return rho * (area * (t - c) + area * c / 3.0) / 1000.0

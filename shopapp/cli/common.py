@@ -12,8 +12,8 @@ from flask import Flask, current_app, has_app_context
 from sqlalchemy.exc import IntegrityError, SQLAlchemyError
 
 from shopapp.balancing.errors import BalancingInputError
-from shopapp.config import ConfigError
-from shopapp.services.errors import ServiceError
+from shopapp.core.config import ConfigError
+from shopapp.core.errors import ServiceError
 
 F = TypeVar("F", bound=Callable[..., Any])
 

@@ -5,8 +5,8 @@ from __future__ import annotations
 import click
 from flask.cli import with_appcontext
 
-from shopapp import schema
 from shopapp.cli.common import app_db, one_line_errors
+from shopapp.core import schema
 
 
 @click.group("db", help="Bring the database schema up or down, or show where it stands.")

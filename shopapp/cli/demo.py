@@ -9,7 +9,7 @@ import click
 from flask.cli import with_appcontext
 
 from shopapp.cli.common import app_db, one_line_errors
-from shopapp.services import demo
+from shopapp.demo import simulator as demo
 
 
 class _Bars:

@@ -14,8 +14,9 @@ import click
 from flask import current_app
 from flask.cli import with_appcontext
 
+from shopapp.accounts import users
 from shopapp.cli.common import app_db, one_line_errors
-from shopapp.services import demo, users
+from shopapp.demo import simulator as demo
 
 LOGINS_FILE = "first-logins.txt"
 

@@ -15,10 +15,11 @@ from pathlib import Path
 import click
 from flask.cli import with_appcontext
 
+from shopapp.certificates import services as certificates
 from shopapp.cli.common import app_db, one_line_errors
 from shopapp.cli.report_shop import shop_command
+from shopapp.jobs import rotor_history
 from shopapp.reports import rotor_history as history_report
-from shopapp.services import certificates, rotor_history
 
 EXIT_NOT_VALID = 1
 

@@ -1,7 +1,7 @@
 """``shopapp report shop --month 2026-10 --output FILE.pdf`` / ``--json``: the monthly report.
 
 The PDF is the same two-page report as the dashboard's button; ``--json`` prints the
-same figures keyed by the measure names (see ``shopapp.services.measures``), so they
+same figures keyed by the measure names (see ``shopapp.measures.services``), so they
 can be checked and scripted.
 """
 
@@ -15,8 +15,8 @@ import click
 from flask.cli import with_appcontext
 
 from shopapp.cli.common import app_db, one_line_errors
+from shopapp.measures import services as measures
 from shopapp.reports import shop_month
-from shopapp.services import measures
 
 
 @click.command("shop")

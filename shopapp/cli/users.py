@@ -7,9 +7,9 @@ import sys
 import click
 from flask.cli import with_appcontext
 
+from shopapp.accounts import users
 from shopapp.cli.common import app_db, one_line_errors
 from shopapp.models import ROLES
-from shopapp.services import users
 
 
 @click.group("user", help="Manage user accounts.")

@@ -36,7 +36,7 @@ from shopapp.reports.common import (
 from shopapp.reports.drawing import to_drawing
 
 if TYPE_CHECKING:  # typing only: reports never import the services at run time
-    from shopapp.services.measures import Figures, ShopReport, SliceRow
+    from shopapp.measures.services import Figures, ShopReport, SliceRow
 
 LIST_ROWS = 6  # rows of each list on paper
 BAR_ROWS = 8  # categories per bar chart on paper

@@ -1,34 +1,39 @@
-"""Server-rendered pages: one blueprint per area (``shopapp/web/<area>/routes.py``)."""
+"""App-wide web wiring: every feature's blueprints are registered here, by name.
+
+Each feature package owns its routes (``shopapp/<feature>/*routes.py``) and its
+templates (``shopapp/<feature>/templates/<blueprint>/``); this package keeps only
+what is app-wide: blueprint registration, error pages, health, base templates.
+"""
 
 from __future__ import annotations
 
-import importlib
+from flask import Blueprint, Flask
 
-from flask import Flask
+from shopapp.accounts import admin_routes, auth_routes
+from shopapp.certificates import routes as certificate_routes
+from shopapp.jobs import evidence_routes
+from shopapp.jobs import routes as job_routes
+from shopapp.measures import routes as measure_routes
+from shopapp.registry import customer_routes, machine_routes, rotor_routes
+from shopapp.traceability import routes as traceability_routes
+from shopapp.web import health
 
-# Every area's blueprint, as (module, attribute).
-BLUEPRINTS: tuple[str, ...] = (
-    "shopapp.web.health",
-    "shopapp.web.auth.routes",
-    "shopapp.web.customers.routes",
-    "shopapp.web.rotors.routes",
-    "shopapp.web.machines.routes",
-    "shopapp.web.admin.routes",
-    "shopapp.web.jobs.routes",
-    "shopapp.web.certificates.routes",
-    "shopapp.web.dashboard.routes",
-    "shopapp.web.traceability.routes",
-    "shopapp.api.routes",
+BLUEPRINTS: tuple[Blueprint, ...] = (
+    health.bp,
+    auth_routes.bp,
+    customer_routes.bp,
+    rotor_routes.bp,
+    machine_routes.bp,
+    admin_routes.bp,
+    job_routes.bp,
+    evidence_routes.bp,
+    certificate_routes.bp,
+    measure_routes.bp,
+    traceability_routes.bp,
 )
 
 
 def register_web(app: Flask) -> None:
-    """Register every blueprint of the web layer (areas not yet written are skipped)."""
-    for module_name in BLUEPRINTS:
-        try:
-            module = importlib.import_module(module_name)
-        except ModuleNotFoundError as exc:
-            if exc.name is not None and module_name.startswith(exc.name):
-                continue
-            raise
-        app.register_blueprint(module.bp)
+    """Register every feature's blueprint."""
+    for blueprint in BLUEPRINTS:
+        app.register_blueprint(blueprint)

@@ -8,7 +8,7 @@ from flask import Flask, render_template, request
 from flask_wtf.csrf import CSRFError
 from werkzeug.exceptions import HTTPException
 
-from shopapp.services.errors import ServiceError
+from shopapp.core.errors import ServiceError
 
 log = logging.getLogger("shopapp.web")
 

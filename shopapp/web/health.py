@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import logging
 
-from flask import Blueprint, jsonify
+from flask import Blueprint, current_app, jsonify
 from sqlalchemy.exc import SQLAlchemyError
 
-from shopapp import schema
-from shopapp.extensions import get_database
+from shopapp.core import schema
+from shopapp.core.extensions import get_database
 
 bp = Blueprint("health", __name__)
 log = logging.getLogger("shopapp.health")
@@ -16,10 +16,10 @@ log = logging.getLogger("shopapp.health")
 
 @bp.get("/healthz")
 def healthz():  # type: ignore[no-untyped-def]
-    from shopapp import __version__
+    version = current_app.config["SHOPAPP_VERSION"]
 
     db = get_database()
-    body: dict[str, object] = {"version": __version__, "database": db.backend}
+    body: dict[str, object] = {"version": version, "database": db.backend}
     try:
         current = schema.current_revision(db.engine)
         head = schema.head_revision(db.url)

@@ -23,7 +23,7 @@ from sqlalchemy.orm import Session
 from werkzeug.serving import make_server
 
 from shopapp import create_app
-from shopapp.database import make_engine
+from shopapp.core.database import make_engine
 from shopapp.models import Base
 from tests import factories
 

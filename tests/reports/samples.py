@@ -87,7 +87,7 @@ def job_ready_for_certificate(  # type: ignore[no-untyped-def]
     residual is the reading itself. Uses the jobs service, as the shop floor would;
     ``mark=False`` leaves the job on the machine.
     """
-    from shopapp.services import jobs
+    from shopapp.jobs import services as jobs
 
     machine = machine or shop.machine()
     rt = shop.rotor_type(positions_2=8, first_position_2_deg=0.0)

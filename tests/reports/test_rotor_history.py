@@ -7,10 +7,12 @@ import io
 import pypdf
 import pytest
 
+from shopapp.certificates import services as certificates
+from shopapp.core.errors import NotFound, ValidationFailed
+from shopapp.jobs import rotor_history
+from shopapp.jobs import services as jobs
 from shopapp.reports import rotor_history as report
 from shopapp.reports.rotor_history import Visit
-from shopapp.services import certificates, jobs, rotor_history
-from shopapp.services.errors import NotFound, ValidationFailed
 from tests.reports.samples import job_ready_for_certificate
 
 

@@ -17,9 +17,10 @@ import pytest
 from flask import Flask
 from sqlalchemy.orm import Session
 
+from shopapp.certificates import services as certificates
+from shopapp.core.permissions import PERMISSIONS
+from shopapp.jobs import services as jobs
 from shopapp.models import Arbor
-from shopapp.services import certificates, jobs
-from shopapp.services.permissions import PERMISSIONS
 
 ROLES = ("operator", "quality", "owner", "admin")
 
@@ -99,12 +100,12 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "traceability.arbor": ("read", None),
     "traceability.add_arbor_measurement": (None, "work_jobs"),
     "traceability.key": ("read", "edit_registry"),
-    "traceability.residual_required": (None, "work_jobs"),
-    "traceability.residual_test": ("work_jobs", "work_jobs"),
-    "traceability.job_arbor": (None, "work_jobs"),
-    "traceability.job_index_runs": (None, "work_jobs"),
-    "traceability.job_subtraction": (None, "work_jobs"),
-    "traceability.repeat_runs": ("work_jobs", "work_jobs"),
+    "evidence.residual_required": (None, "work_jobs"),
+    "evidence.residual_test": ("work_jobs", "work_jobs"),
+    "evidence.job_arbor": (None, "work_jobs"),
+    "evidence.job_index_runs": (None, "work_jobs"),
+    "evidence.job_subtraction": (None, "work_jobs"),
+    "evidence.repeat_runs": ("work_jobs", "work_jobs"),
     # admin
     "admin.users": ("manage_users", "manage_users"),
     "admin.user_role": (None, "manage_users"),

@@ -1,0 +1,67 @@
+"""User administration and shop settings forms."""
+
+from __future__ import annotations
+
+from flask_wtf import FlaskForm
+from wtforms import PasswordField, StringField, TextAreaField
+from wtforms.validators import EqualTo, InputRequired, Length
+
+from shopapp.accounts.users import MIN_PASSWORD_LENGTH
+from shopapp.core.forms import ChoiceField, NumberField, WholeNumberField
+from shopapp.models import ANGLE_SENSES, ROLES, UNBALANCE_DISPLAY_UNITS
+
+_PASSWORD = [
+    InputRequired("Type a password."),
+    Length(min=MIN_PASSWORD_LENGTH, max=200, message=f"{MIN_PASSWORD_LENGTH} to 200 characters."),
+]
+_SAME = EqualTo("password", message="The two passwords differ; type the same password twice.")
+ROLE_CHOICES = [(r, r) for r in ROLES]
+SENSE_LABELS = {
+    "with_rotation": "in the direction of rotation",
+    "against_rotation": "against the direction of rotation",
+}
+
+
+class AddUserForm(FlaskForm):
+    username = StringField(
+        "Username", validators=[InputRequired("Give a username."), Length(max=64)]
+    )
+    full_name = StringField("Full name", validators=[Length(max=200)])
+    role = ChoiceField("Role", choices=ROLE_CHOICES, default="operator")
+    password = PasswordField("Password", validators=_PASSWORD)
+    password_again = PasswordField(
+        "Password again", validators=[InputRequired("Type it again."), _SAME]
+    )
+
+
+class RoleForm(FlaskForm):
+    role = ChoiceField("Role", choices=ROLE_CHOICES)
+
+
+class PasswordForm(FlaskForm):
+    password = PasswordField("New password", validators=_PASSWORD)
+    password_again = PasswordField(
+        "New password again", validators=[InputRequired("Type it again."), _SAME]
+    )
+
+
+class SettingsForm(FlaskForm):
+    shop_name = StringField(
+        "Shop name", validators=[InputRequired("Give the shop's name."), Length(max=200)]
+    )
+    shop_address = TextAreaField("Shop address", validators=[Length(max=2000)])
+    angle_sense = ChoiceField(
+        "Angles are counted", choices=[(s, SENSE_LABELS[s]) for s in ANGLE_SENSES]
+    )
+    angle_zero_deg = NumberField(
+        "Zero reference (°)", validators=[InputRequired("Required: 0 to 359.9.")]
+    )
+    unbalance_unit = ChoiceField(
+        "Unbalance unit", choices=[(u, u) for u in UNBALANCE_DISPLAY_UNITS]
+    )
+    job_number_pattern = StringField(
+        "Job-number pattern", validators=[InputRequired("Required."), Length(max=64)]
+    )
+    due_soon_days = WholeNumberField(
+        "'Due soon' warning (days)", validators=[InputRequired("Required: 0 or more days.")]
+    )

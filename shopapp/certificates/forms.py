@@ -1,0 +1,81 @@
+"""Forms of the certificates area."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+from flask_wtf import FlaskForm
+from wtforms import DateField, SelectField, StringField, TextAreaField
+from wtforms.fields.choices import SelectChoice
+from wtforms.validators import DataRequired, Length, Optional, ValidationError
+
+from shopapp.certificates.services import MAX_REASON_LENGTH, MIN_REASON_LENGTH, RegisterFilter
+
+
+class IssueForm(FlaskForm):
+    """Only the CSRF token: issuing takes no input, the job is in the URL."""
+
+
+class ReasonForm(FlaskForm):
+    """Why a certificate is reissued or voided (required)."""
+
+    reason = TextAreaField(
+        "Reason",
+        validators=[DataRequired(message="is required: say why"),
+                    Length(min=MIN_REASON_LENGTH, max=MAX_REASON_LENGTH,
+                           message=f"must be {MIN_REASON_LENGTH}–{MAX_REASON_LENGTH} characters")],
+    )
+
+
+class _GetForm(FlaskForm):
+    """A read-only search form sent by GET: no CSRF token (nothing is changed)."""
+
+    class Meta:
+        csrf = False
+
+
+class RegisterSearchForm(_GetForm):
+    number = StringField("Number", validators=[Optional(), Length(max=40)])
+    customer = StringField("Customer", validators=[Optional(), Length(max=100)])
+    serial = StringField("Serial", validators=[Optional(), Length(max=100)])
+    rotor_type = StringField("Rotor type", validators=[Optional(), Length(max=100)])
+    date_from = DateField("Issued from", validators=[Optional()])
+    date_to = DateField("to", validators=[Optional()])
+    state = SelectField("State", choices=[SelectChoice("", "any"),
+                                          SelectChoice("issued", "valid (issued)"),
+                                          SelectChoice("void", "void")],
+                        validators=[Optional()])
+
+    def validate_date_to(self, field: DateField) -> None:
+        if field.data and self.date_from.data and field.data < self.date_from.data:
+            raise ValidationError("must not be before the from date")
+
+    def filter(self) -> RegisterFilter:
+        return RegisterFilter(
+            number=(self.number.data or "").strip(),
+            customer=(self.customer.data or "").strip(),
+            serial=(self.serial.data or "").strip(),
+            rotor_type=(self.rotor_type.data or "").strip(),
+            date_from=self.date_from.data,
+            date_to=self.date_to.data,
+            state=self.state.data or "",
+        )
+
+
+class ZipForm(_GetForm):
+    date_from = DateField("Issued from", validators=[DataRequired(message="is required")])
+    date_to = DateField("to", validators=[DataRequired(message="is required")])
+
+    def validate_date_to(self, field: DateField) -> None:
+        if field.data and self.date_from.data and field.data < self.date_from.data:
+            raise ValidationError("must not be before the from date")
+
+    def range(self) -> tuple[dt.date, dt.date]:
+        assert self.date_from.data is not None and self.date_to.data is not None
+        return self.date_from.data, self.date_to.data
+
+
+class VerifyForm(_GetForm):
+    q = StringField("Certificate number or SHA-256 hash",
+                    validators=[DataRequired(message="enter a number or a hash"),
+                                Length(max=100)])

@@ -1,0 +1,159 @@
+"""How numbers reach people: the one formatter for pages, CSV, PDFs and messages.
+
+Every number a person reads goes through :func:`number` (or a helper here that
+calls it): never scientific notation, significant figures chosen by the unit,
+an en dash for "nothing to show" (None, NaN, infinity). Pages reach these as
+Jinja filters (``shopapp.web.templating``), reports and CSV call them directly.
+
+:class:`ShopDisplay` adds the shop's display convention on top: the unit
+unbalance is shown in and the angle sense and zero (docs/architecture.md,
+"Conventions": inside shopapp angles are degrees in the direction of rotation
+from the reference mark, unbalance is g·mm; conversion happens at the edges).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from typing import Any
+
+from shopapp.balancing.phasors import from_display_deg, to_display_deg
+from shopapp.balancing.units import convert_unbalance
+
+NOTHING = "–"
+
+# Significant figures by unit: what a balancing shop reads off its instruments.
+SIGNIFICANT_FIGURES: dict[str, int] = {
+    "g·mm": 3, "g·cm": 3, "kg·m": 3, "g·in": 3, "oz·in": 3, "g": 3, "kg": 3, "oz": 3,
+    "mm": 3, "µm": 3, "mm/s": 3, "mils": 3, "in/s": 3, "%": 2, "Hz": 3,
+}
+# Units shown with a fixed number of decimals instead (angles to the degree, speeds to the rpm).
+FIXED_DECIMALS: dict[str, int] = {"°": 0, "rpm": 0, "d": 1, "days": 1}
+
+
+def _finite(value: Any) -> float | None:
+    if value is None or isinstance(value, bool):
+        return None
+    try:
+        out = float(value)
+    except (TypeError, ValueError):
+        return None
+    return out if math.isfinite(out) else None
+
+
+def number(value: Any, sig: int = 3) -> str:
+    """``value`` with ``sig`` significant figures and never an exponent.
+
+    Numbers of ``sig`` digits or more before the point print as whole numbers
+    (18 900 g·mm is ``18900``, not ``1.89e+04``); smaller ones get the decimals
+    the figures need (``12.3``, ``0.00123``). None, NaN and infinity print as an
+    en dash.
+    """
+    v = _finite(value)
+    if v is None:
+        return NOTHING
+    if v == 0:
+        return "0"
+    mag = abs(v)
+    if mag >= 10 ** (sig - 1):
+        return f"{v:.0f}"
+    decimals = max(0, sig - 1 - math.floor(math.log10(mag)))
+    return f"{v:.{decimals}f}"
+
+
+def fixed(value: Any, decimals: int) -> str:
+    """``value`` with a fixed number of decimals (an en dash when there is none)."""
+    v = _finite(value)
+    return NOTHING if v is None else f"{v:.{decimals}f}"
+
+
+def plain(value: Any) -> str:
+    """A number as typed back into a form field: up to 6 significant figures, no exponent."""
+    v = _finite(value)
+    if v is None:
+        return ""
+    text = number(v, 6)
+    return text.rstrip("0").rstrip(".") if "." in text else text
+
+
+def quantity(value: Any, unit: str) -> str:
+    """``value unit`` with the figures the unit calls for (``12.3 g·mm``, ``1480 rpm``, ``45°``)."""
+    if unit in FIXED_DECIMALS:
+        text = fixed(value, FIXED_DECIMALS[unit])
+    else:
+        text = number(value, SIGNIFICANT_FIGURES.get(unit, 3))
+    if text == NOTHING:
+        return NOTHING
+    return f"{text}°" if unit == "°" else f"{text} {unit}"
+
+
+def percent(rate: Any, decimals: int = 0) -> str:
+    """A rate 0..1 as a percentage (``0.183`` → ``18 %``)."""
+    v = _finite(rate)
+    return NOTHING if v is None else f"{v * 100:.{decimals}f} %"
+
+
+def date(value: str | dt.date | dt.datetime | None) -> str:
+    """An ISO date (``YYYY-MM-DD``); datetimes print their UTC date."""
+    if value is None or value == "":
+        return NOTHING
+    if isinstance(value, str):
+        return value[:10]
+    if isinstance(value, dt.datetime):
+        return value.astimezone(dt.UTC).date().isoformat()
+    return value.isoformat()
+
+
+def csv_number(value: Any) -> str:
+    """A number for a machine-readable CSV cell: up to 4 decimals, no exponent, empty for none."""
+    v = _finite(value)
+    if v is None:
+        return ""
+    if v % 1 == 0:
+        return f"{v:.0f}"
+    return f"{v:.4f}".rstrip("0").rstrip(".")
+
+
+class ShopDisplay:
+    """The shop's display convention: the unbalance unit and the angle sense and zero.
+
+    ``settings`` is the shop's settings row (``unbalance_unit``, ``angle_sense``,
+    ``angle_zero_deg``). Internal values are g·mm and degrees in the direction of
+    rotation from the reference mark.
+    """
+
+    def __init__(self, settings: Any) -> None:
+        self.sense: str = settings.angle_sense
+        self.zero: float = settings.angle_zero_deg
+        self.unit: str = settings.unbalance_unit
+
+    def angle(self, internal_deg: float | None) -> float | None:
+        """An internal angle as the shop reads it (degrees), or None."""
+        if internal_deg is None:
+            return None
+        return to_display_deg(internal_deg, sense=self.sense, zero_deg=self.zero)
+
+    def internal(self, display_deg: float | None) -> float | None:
+        """A shop-convention angle as internal degrees, or None."""
+        if display_deg is None:
+            return None
+        return from_display_deg(display_deg, sense=self.sense, zero_deg=self.zero)
+
+    def unb(self, gmm: float) -> float:
+        """g·mm in the shop's unit."""
+        return convert_unbalance(gmm, "g·mm", self.unit)
+
+    def to_gmm(self, value: float | None) -> float | None:
+        """A value in the shop's unit as g·mm, or None."""
+        if value is None:
+            return None
+        return convert_unbalance(value, self.unit, "g·mm")
+
+    def u(self, gmm: float | None) -> str:
+        """An unbalance in the shop's unit, e.g. ``12.3 g·mm``."""
+        v = _finite(gmm)
+        return NOTHING if v is None else quantity(self.unb(v), self.unit)
+
+    def a(self, internal_deg: float | None) -> str:
+        """An angle in the shop's convention, e.g. ``135°``."""
+        return quantity(self.angle(internal_deg), "°")

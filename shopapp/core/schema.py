@@ -1,0 +1,45 @@
+"""Alembic, driven from code: upgrade, downgrade, current and "is the schema at head"."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from alembic import command
+from alembic.config import Config
+from alembic.runtime.migration import MigrationContext
+from alembic.script import ScriptDirectory
+from sqlalchemy import Engine
+
+# shopapp/migrations, shipped inside the wheel.
+MIGRATIONS_DIR = Path(__file__).resolve().parent.parent / "migrations"
+
+
+def alembic_config(url: str) -> Config:
+    """An Alembic config pointing at ``migrations/`` and the given database URL."""
+    cfg = Config()
+    cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
+    # '%' must be doubled for configparser interpolation.
+    cfg.set_main_option("sqlalchemy.url", url.replace("%", "%%"))
+    return cfg
+
+
+def upgrade(url: str, revision: str = "head") -> None:
+    command.upgrade(alembic_config(url), revision)
+
+
+def downgrade(url: str, revision: str = "base") -> None:
+    command.downgrade(alembic_config(url), revision)
+
+
+def head_revision(url: str) -> str | None:
+    return ScriptDirectory.from_config(alembic_config(url)).get_current_head()
+
+
+def current_revision(engine: Engine) -> str | None:
+    with engine.connect() as conn:
+        return MigrationContext.configure(conn).get_current_revision()
+
+
+def is_at_head(engine: Engine, url: str) -> bool:
+    """True when the database's revision is the newest migration."""
+    return current_revision(engine) == head_revision(url)

@@ -1,0 +1,486 @@
+"""Job pages: list with filters, intake, the job page with runs, corrections and states.
+
+Thin: parse the form, convert display angles and units at the edge, call
+:mod:`shopapp.jobs.services`, commit once, or roll back and show the messages
+beside the fields (422). Nothing is written on a GET.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from typing import Any
+
+from flask import Blueprint, abort, current_app, flash, redirect, render_template, request, url_for
+from flask_login import current_user
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from shopapp.balancing.errors import BalancingInputError
+from shopapp.charts.svg import to_svg
+from shopapp.core.display import ShopDisplay
+from shopapp.core.errors import ServiceError, TransitionRefused, ValidationFailed
+from shopapp.core.extensions import db_session
+from shopapp.core.forms import apply_errors
+from shopapp.core.pagination import page_number, paginate
+from shopapp.core.settings import get_settings
+from shopapp.core.web import acting_user, requires
+from shopapp.jobs import calc as job_calc
+from shopapp.jobs import services as jobs
+from shopapp.jobs.forms import (
+    CorrectionForm,
+    IntakeForm,
+    LookupForm,
+    ReturnForm,
+    RunForm,
+    StateForm,
+    options,
+    parse_split,
+)
+from shopapp.models import (
+    JOB_KINDS,
+    JOB_STATES,
+    Customer,
+    Job,
+    Machine,
+    RotorType,
+    User,
+)
+
+bp = Blueprint("jobs", __name__, url_prefix="/jobs", template_folder="templates")
+
+
+# --------------------------------------------------------------------------- list
+
+
+def _choice_lists(sess: Session) -> dict[str, Any]:
+    return {
+        "machines": sess.execute(select(Machine.id, Machine.name).order_by(Machine.name)).all(),
+        "operators": sess.execute(select(User.id, User.full_name)
+                                  .where(User.role.in_(("operator", "quality")))
+                                  .order_by(User.full_name)).all(),
+        "rotor_types": sess.execute(select(RotorType.id, RotorType.part_number)
+                                    .where(RotorType.one_off.is_(False))
+                                    .order_by(RotorType.part_number)).all(),
+        "customers": sess.execute(select(Customer.id, Customer.name)
+                                  .order_by(Customer.name)).all(),
+    }
+
+
+@bp.get("")
+@requires("read")
+def index():  # type: ignore[no-untyped-def]
+    sess = db_session()
+    f, messages = jobs.JobFilter.from_args(request.args)
+    page = paginate(sess, jobs.filtered_jobs_stmt(f), page=page_number(request.args.get("page")),
+                    per_page=int(current_app.config.get("PAGE_SIZE", 25)), args=f.to_args())
+    return render_template("jobs/index.html", page=page, f=f, messages=messages,
+                           states=JOB_STATES, kinds=JOB_KINDS, **_choice_lists(sess))
+
+
+# --------------------------------------------------------------------------- intake
+
+
+def _intake_choices(sess: Session, form: IntakeForm) -> None:
+    customers = sess.execute(select(Customer.id, Customer.name)
+                             .where(Customer.archived.is_(False)).order_by(Customer.name)).all()
+    form.customer_id.choices = options([(0, "— new customer (fill in below) —")] + [
+        (c.id, c.name) for c in customers])
+    types = sess.execute(
+        select(RotorType.id, RotorType.part_number, RotorType.description, Customer.name)
+        .join(Customer, Customer.id == RotorType.customer_id)
+        .where(RotorType.archived.is_(False), RotorType.one_off.is_(False))
+        .order_by(Customer.name, RotorType.part_number)).all()
+    form.rotor_type_id.choices = options(
+        [(0, "— none: known serial, or one-off geometry below —")]
+        + [(t.id, f"{t.name} · {t.part_number} {t.description}".strip()) for t in types])
+    machines = sess.execute(select(Machine.id, Machine.name, Machine.min_mass_kg,
+                                   Machine.max_mass_kg, Machine.max_speed_rpm)
+                            .where(Machine.archived.is_(False)).order_by(Machine.name)).all()
+    form.machine_id.choices = options([(0, "— choose —")] + [
+        (m.id, f"{m.name} ({m.min_mass_kg:g}–{m.max_mass_kg:g} kg, ≤ {m.max_speed_rpm:g} rpm)")
+        for m in machines])
+
+
+def _intake_kwargs(form: IntakeForm, disp: ShopDisplay) -> dict[str, Any]:
+    customer: int | dict[str, Any] = form.customer_id.data or 0
+    if not customer:
+        customer = {"name": form.new_customer_name.data or "",
+                    "contact": form.new_customer_contact.data or "",
+                    "phone": form.new_customer_phone.data or ""}
+    method = form.tolerance_method.data or ""
+    spec = None
+    if method:
+        grade = form.tolerance_grade.data
+        spec = jobs.ToleranceSpec(
+            method, grade=float(grade) if grade else None,
+            journal_load_a_kg=form.journal_load_a_kg.data,
+            journal_load_b_kg=form.journal_load_b_kg.data,
+            plane_1_gmm=disp.to_gmm(form.explicit_limit_1.data),
+            plane_2_gmm=disp.to_gmm(form.explicit_limit_2.data))
+    one_off = None
+    sub = form.one_off.form
+    if not form.rotor_type_id.data and sub.used():
+        one_off = sub.values()
+        one_off["service_speed_rpm"] = form.service_speed_rpm.data
+    return {
+        "customer": customer,
+        "serial_number": form.serial_number.data or "",
+        "rotor_type_id": form.rotor_type_id.data or None,
+        "one_off": one_off,
+        "tolerance": spec,
+        "service_speed_rpm": form.service_speed_rpm.data,
+        "balancing_speed_rpm": form.balancing_speed_rpm.data,
+        "machine_id": form.machine_id.data or None,
+        "received_on": form.received_on.data,
+        "promised_on": form.promised_on.data,
+        "customer_order_ref": form.customer_order_ref.data or "",
+        "notes": form.notes.data or "",
+    }
+
+
+def _intake_mapping(form: IntakeForm) -> dict[str, Any]:
+    sub = form.one_off.form
+    mapping: dict[str, Any] = {name: getattr(sub, name) for name in sub.GEOMETRY}
+    mapping.update({
+        "explicit_limit_1_gmm": form.explicit_limit_1,
+        "explicit_limit_2_gmm": form.explicit_limit_2,
+        "new_customer_contact": form.new_customer_contact,
+        "new_customer_phone": form.new_customer_phone,
+        "one_off": sub.mass_kg,
+    })
+    return mapping
+
+
+LOOKUP_PREFIX = "lookup"
+
+
+@bp.route("/new", methods=["GET", "POST"])
+@requires("work_jobs")
+def new():  # type: ignore[no-untyped-def]
+    sess = db_session()
+    disp = ShopDisplay(get_settings(sess))
+    form = IntakeForm()
+    _intake_choices(sess, form)
+    # Its own prefix: both forms have a customer and a serial, and ids must be unique.
+    lookup = LookupForm(request.args, prefix=LOOKUP_PREFIX)
+    lookup.customer_id.choices = form.customer_id.choices
+    history = None
+    status = 200
+    loose: list[str] = []
+    if request.method == "GET":
+        cid = request.args.get(lookup.customer_id.name, "")
+        serial = (request.args.get(lookup.serial_number.name) or "").strip()[:100]
+        if cid.isdigit() and len(cid) < 12 and serial:
+            history = jobs.rotor_history(sess, int(cid), serial)
+            form.customer_id.data = int(cid)
+            form.serial_number.data = serial
+            if history is not None:
+                last = history.last_job
+                form.rotor_type_id.data = history.rotor.rotor_type_id
+                if last is not None:
+                    form.balancing_speed_rpm.data = last.balancing_speed_rpm
+                    form.service_speed_rpm.data = last.service_speed_rpm
+                    form.machine_id.data = last.machine_id or 0
+        form.received_on.data = form.received_on.data or dt.date.today()
+        return render_template("jobs/new.html", form=form, lookup=lookup, history=history,
+                               disp=disp, loose=loose)
+    if form.validate_on_submit():
+        try:
+            job = jobs.book_in(sess, by=acting_user(), **_intake_kwargs(form, disp))
+            sess.commit()
+            flash(f"Job {job.number} booked in.", "success")
+            return redirect(url_for("jobs.detail", job_id=job.id))
+        except ValidationFailed as exc:
+            sess.rollback()
+            loose = apply_errors(form, exc, _intake_mapping(form))
+        except ServiceError as exc:
+            sess.rollback()
+            loose = [exc.message]
+        except BalancingInputError as exc:
+            sess.rollback()
+            loose = [str(exc)]
+    status = 422
+    return render_template("jobs/new.html", form=form, lookup=lookup, history=history,
+                           disp=disp, loose=loose), status
+
+
+def jobs_can_work() -> bool:
+    from shopapp.core.permissions import can
+
+    return can(current_user, "work_jobs")
+
+
+# --------------------------------------------------------------------------- job page
+
+
+def _drill_diameter() -> float | None:
+    raw = (request.args.get("drill_mm") or "").strip()
+    try:
+        value = float(raw[:20])
+    except ValueError:
+        return None
+    return value if math.isfinite(value) and 0.5 <= value <= 100.0 else None
+
+
+def _correction_forms(job: Job, calc: job_calc.JobCalc, disp: ShopDisplay
+                      ) -> dict[int, CorrectionForm]:
+    """One record form per plane, prefilled with the advice (or the plane's radius)."""
+    rt = job.rotor.rotor_type
+    radii = job_calc.plane_radii_mm(rt)
+    forms = {}
+    advice = {a.plane: a for a in calc.advice.planes} if calc.advice else {}
+    for plane in range(1, rt.planes + 1):
+        f = CorrectionForm(prefix=f"c{plane}", formdata=None)
+        a = advice.get(plane)
+        f.radius_mm.data = radii[plane - 1]
+        if a is not None:
+            f.run_id.data = str(calc.advice.run_id) if calc.advice else ""
+            f.action.data = a.action
+            f.mass_g.data = round(a.mass_g, 2)
+            f.angle_deg.data = round(disp.angle(a.angle_deg) or 0.0, 1)
+            f.split.data = a.split_text()
+            f.advised_mass_g.data = f"{a.mass_g:.4f}"
+            f.advised_angle_deg.data = f"{disp.angle(a.angle_deg):.2f}"
+            if a.drill:
+                f.drill_diameter_mm.data = a.drill_diameter_mm
+                f.drill_depth_mm.data = round(a.drill[0].depth_to_tip_mm, 2)
+                f.drill_holes.data = len(a.drill)
+        forms[plane] = f
+    return forms
+
+
+def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None = None,
+                   corr_forms: dict[int, CorrectionForm] | None = None,
+                   state_form: StateForm | None = None, state_action: str = "",
+                   return_form: ReturnForm | None = None, page_error: str = "",
+                   loose: list[str] | None = None):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = jobs.load_job(sess, job_id)
+    settings = get_settings(sess)
+    disp = ShopDisplay(settings)
+    calc = jobs.evaluate(sess, job, drill_diameter_mm=_drill_diameter())
+    figures = job_calc.polar_figures(calc, to_unit=disp.unb, unit_label=disp.unit,
+                                     angle_sense=disp.sense, angle_zero_deg=disp.zero)
+    rt = job.rotor.rotor_type
+    if run_form is None:
+        run_form = RunForm(prefix="run", formdata=None)
+        run_form.speed_rpm.data = job.balancing_speed_rpm
+        last = job.runs[-1] if job.runs else None
+        run_form.purpose.data = "check" if job.corrections else ("trial" if last else "initial")
+        if last is not None and last.readings:
+            run_form.unit.data = last.readings[0].unit
+        run_form.trial_radius_mm.data = rt.radius_1_mm
+    forms = _correction_forms(job, calc, disp)
+    forms.update(corr_forms or {})
+    state_forms = {a: StateForm(prefix=f"s-{a}", formdata=None) for a in jobs.allowed_actions(job)}
+    if state_form is not None and state_action in state_forms:
+        state_forms[state_action] = state_form
+    if return_form is None:
+        return_form = ReturnForm(prefix="ret", formdata=None)
+    trail = jobs.job_audit_trail(sess, job.id)
+    returns = jobs.return_jobs_of(sess, job.id)
+    now = dt.datetime.now(dt.UTC)
+    return render_template(
+        "jobs/detail.html", job=job, rt=rt, calc=calc, disp=disp,
+        svgs=[to_svg(fig, css_class="chart polar") for fig in figures],
+        run_form=run_form, corr_forms=forms, state_forms=state_forms, return_form=return_form,
+        actions=jobs.allowed_actions(job), trail=trail, returns=returns, now=now,
+        page_error=page_error, loose=loose or [], can_work=jobs_can_work(),
+        drill_mm=_drill_diameter() or job_calc.DEFAULT_DRILL_DIAMETER_MM,
+    ), status
+
+
+@bp.get("/<int:job_id>")
+@requires("read")
+def detail(job_id: int):  # type: ignore[no-untyped-def]
+    return _render_detail(job_id)
+
+
+def _job_or_404(sess: Session, job_id: int) -> Job:
+    job = sess.get(Job, job_id)
+    if job is None:
+        abort(404, description=f"No job with id {job_id}.")
+    return job
+
+
+def _failed(job_id: int, exc: ServiceError, **forms: Any):  # type: ignore[no-untyped-def]
+    db_session().rollback()
+    if isinstance(exc, TransitionRefused):
+        return _render_detail(job_id, status=409, page_error=exc.message, **forms)
+    if isinstance(exc, ValidationFailed):
+        return None
+    return _render_detail(job_id, status=exc.status, page_error=exc.message, **forms)
+
+
+@bp.post("/<int:job_id>/runs")
+@requires("work_jobs")
+def add_run(job_id: int):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = _job_or_404(sess, job_id)
+    disp = ShopDisplay(get_settings(sess))
+    form = RunForm(prefix="run")
+    planes = job.rotor.rotor_type.planes
+    if form.validate_on_submit():
+        extra_errors = False
+        if planes == 1 and (form.amplitude_2.data is not None or form.angle_2_deg.data is not None):
+            form.amplitude_2.errors = ["This rotor has one correction plane: leave plane 2 empty."]
+            extra_errors = True
+        if planes == 2:
+            for f in (form.amplitude_2, form.angle_2_deg):
+                if f.data is None:
+                    f.errors = ["Required for a two-plane rotor: type a number."]
+                    extra_errors = True
+        if not extra_errors:
+            readings = [(1, form.amplitude_1.data, disp.internal(form.angle_1_deg.data),
+                         form.unit.data)]
+            if planes == 2:
+                readings.append((2, form.amplitude_2.data, disp.internal(form.angle_2_deg.data),
+                                 form.unit.data))
+            trial = None
+            if form.trial_given():
+                plane = int(form.trial_plane.data) if form.trial_plane.data else None
+                trial = (plane, form.trial_mass_g.data, disp.internal(form.trial_angle_deg.data),
+                         form.trial_radius_mm.data)
+            try:
+                run = jobs.record_run(
+                    sess, job, by=acting_user(), purpose=form.purpose.data,
+                    speed_rpm=form.speed_rpm.data,
+                    readings=readings, trial=trial,
+                    earlier_trial_left_on=bool(form.earlier_trial_left_on.data),
+                    notes=form.notes.data or "")
+                sess.commit()
+                flash(f"Run {run.seq} ({run.purpose}) logged.", "success")
+                return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
+            except ServiceError as exc:
+                page = _failed(job_id, exc, run_form=form)
+                if page is not None:
+                    return page
+                assert isinstance(exc, ValidationFailed)
+                loose = apply_errors(form, exc, {"readings": form.amplitude_1,
+                                                  "trial_plane": form.trial_plane})
+                return _render_detail(job_id, status=422, run_form=form, loose=loose)
+    return _render_detail(job_id, status=422, run_form=form)
+
+
+@bp.post("/<int:job_id>/corrections/<int:plane>")
+@requires("work_jobs")
+def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = _job_or_404(sess, job_id)
+    if plane not in (1, 2):
+        abort(404, description="No such plane.")
+    disp = ShopDisplay(get_settings(sess))
+    form = CorrectionForm(prefix=f"c{plane}")
+    if form.validate_on_submit():
+        try:
+            split = parse_split(form.split.data)
+        except ValueError as exc:
+            form.split.errors = [str(exc)]
+            return _render_detail(job_id, status=422, corr_forms={plane: form})
+        run_id = int(form.run_id.data) if (form.run_id.data or "").isdigit() else None
+        try:
+            corr = jobs.record_correction(
+                sess, job, by=acting_user(), run_id=run_id, plane=plane, action=form.action.data,
+                mass_g=form.mass_g.data, angle_deg=disp.internal(form.angle_deg.data),
+                radius_mm=form.radius_mm.data, advised_mass_g=_float(form.advised_mass_g.data),
+                advised_angle_deg=disp.internal(_float(form.advised_angle_deg.data)),
+                split=split, drill_diameter_mm=form.drill_diameter_mm.data,
+                drill_depth_mm=form.drill_depth_mm.data, drill_holes=form.drill_holes.data)
+            sess.commit()
+            flash(f"Plane {corr.plane}: {corr.mass_g:g} g {corr.action}ed — log a check run.",
+                  "success")
+            return redirect(url_for("jobs.detail", job_id=job_id) + "#correction")
+        except ServiceError as exc:
+            page = _failed(job_id, exc, corr_forms={plane: form})
+            if page is not None:
+                return page
+            assert isinstance(exc, ValidationFailed)
+            loose = apply_errors(form, exc)
+            return _render_detail(job_id, status=422, corr_forms={plane: form}, loose=loose)
+    return _render_detail(job_id, status=422, corr_forms={plane: form})
+
+
+def _float(raw: str | None) -> float | None:
+    try:
+        value = float((raw or "")[:40])
+    except ValueError:
+        return None
+    return value if math.isfinite(value) else None
+
+
+STATE_ACTIONS = ("start", "in_tolerance", "dispatch", "reject", "reopen")
+
+
+@bp.post("/<int:job_id>/state")
+@requires("work_jobs")
+def change_state(job_id: int):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = _job_or_404(sess, job_id)
+    action = (request.form.get("action") or "")[:20]
+    if action not in STATE_ACTIONS:
+        return _render_detail(job_id, status=422, page_error=f"{action!r} is not a state action;"
+                              " use the buttons on the page")
+    form = StateForm(prefix=f"s-{action}")
+    if not form.validate_on_submit():
+        return _render_detail(job_id, status=422, state_form=form, state_action=action)
+    by = acting_user()
+    reason = form.reason.data or ""
+    try:
+        if action == "start":
+            jobs.start(sess, job, by=by)
+        elif action == "in_tolerance":
+            jobs.mark_in_tolerance(sess, job, by=by)
+        elif action == "dispatch":
+            jobs.dispatch(sess, job, by=by, on=form.dispatched_on.data)
+        elif action == "reject":
+            jobs.reject(sess, job, by=by, reason=reason)
+        else:
+            jobs.reopen(sess, job, by=by, reason=reason)
+        sess.commit()
+    except ServiceError as exc:
+        page = _failed(job_id, exc, state_form=form, state_action=action)
+        if page is not None:
+            return page
+        assert isinstance(exc, ValidationFailed)
+        loose = apply_errors(form, exc)
+        return _render_detail(job_id, status=422, state_form=form, state_action=action,
+                              loose=loose)
+    flash(f"Job {job.number} is now {job.state.replace('_', ' ')}.", "success")
+    return redirect(url_for("jobs.detail", job_id=job_id))
+
+
+@bp.post("/<int:job_id>/return")
+@requires("work_jobs")
+def open_return(job_id: int):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = _job_or_404(sess, job_id)
+    form = ReturnForm(prefix="ret")
+    if not form.validate_on_submit():
+        return _render_detail(job_id, status=422, return_form=form)
+    try:
+        new_job = jobs.open_return(sess, by=acting_user(), earlier_job=job,
+                                   received_on=form.received_on.data, notes=form.notes.data or "")
+        sess.commit()
+    except ServiceError as exc:
+        page = _failed(job_id, exc, return_form=form)
+        if page is not None:
+            return page
+        assert isinstance(exc, ValidationFailed)
+        loose = apply_errors(form, exc)
+        return _render_detail(job_id, status=422, return_form=form, loose=loose)
+    flash(f"Return job {new_job.number} opened for rotor {job.rotor.serial_number}.", "success")
+    return redirect(url_for("jobs.detail", job_id=new_job.id))
+
+
+# --------------------------------------------------------------------------- start page
+
+
+@bp.app_context_processor
+def _home_panel() -> dict[str, Any]:
+    def jobs_home() -> jobs.HomePanel | None:
+        if not current_user.is_authenticated:
+            return None
+        return jobs.home_panel(db_session(), acting_user())
+
+    return {"jobs_home": jobs_home}

@@ -1,0 +1,322 @@
+"""The owner's dashboard: period figures, trend, rework by slice, drill-down, CSV and PDF.
+
+``GET /dashboard`` shows one period (week, month, quarter, year or a range) against
+the one before; every bar, point and number links to the job list with the same
+filters (``jobs.index`` query parameters of ``JobFilter``). ``GET /dashboard.csv
+?table=…`` gives any table with the same filters, ``GET /dashboard/report.pdf
+?month=YYYY-MM`` the monthly report. Nothing here writes to the database.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import io
+import re
+from collections.abc import Iterable, Sequence
+from typing import Any
+from urllib.parse import urlencode
+
+from flask import Blueprint, Response, current_app, render_template, request, url_for
+from flask_login import current_user
+
+from shopapp.charts.svg import to_svg
+from shopapp.core.errors import ValidationFailed
+from shopapp.core.extensions import db_session
+from shopapp.core.permissions import can
+from shopapp.core.web import requires
+from shopapp.measures import services as measures
+from shopapp.measures.forms import SCOPE_FIELDS, PeriodForm, period_args
+from shopapp.measures.services import DIMENSION_LABELS, DIMENSIONS, Period, Scope, SliceRow
+from shopapp.reports import shop_month
+
+bp = Blueprint("dashboard", __name__, template_folder="templates")
+
+# Slice → the JobFilter parameter of the job list.
+FILTER_PARAM = {"operator": "operator_id", "machine": "machine_id",
+                "rotor_type": "rotor_type_id", "customer": "customer_id"}
+SLICE_TABLES = {f"by_{dim}": dim for dim in DIMENSIONS}
+TABLES: tuple[str, ...] = (
+    "headline", *SLICE_TABLES, "trend", "rework_reasons", "rejection_reasons",
+    "rotors_getting_worse", "machines",
+)
+# Columns of every slice table (page and CSV): measure name and heading.
+SLICE_COLUMNS: tuple[tuple[str, str], ...] = (
+    ("jobs_received", "received"),
+    ("jobs_dispatched", "dispatched"),
+    ("wip_jobs", "WIP"),
+    ("wip_age_max_wd", "oldest WIP (wd)"),
+    ("turnaround_median_wd", "turnaround median (wd)"),
+    ("turnaround_p90_wd", "turnaround p90 (wd)"),
+    ("promised_hit_rate", "on time"),
+    ("reached_in_tolerance", "reached tolerance"),
+    ("first_pass_rate", "first pass"),
+    ("correction_cycles_mean", "cycles"),
+    ("reworked_jobs", "reworked"),
+    ("rework_rate", "rework rate"),
+    ("rejected_jobs", "rejected"),
+)
+
+
+def fmt(name: str, value: Any) -> str:
+    """How the page and the CSV print a measure (CSV rates stay fractions, see csv_value)."""
+    if value is None:
+        return "–"
+    if name.endswith("_rate"):
+        return shop_month.fmt_rate(value)
+    if name == "correction_cycles_mean":
+        return shop_month.fmt_mean(value)
+    if isinstance(value, float):
+        return shop_month.fmt_days(value)
+    return str(value)
+
+
+def csv_value(value: Any) -> str:
+    """Plain machine-readable text: rates as fractions to 4 places, empty for none."""
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return f"{value:.4f}".rstrip("0").rstrip(".") if value % 1 else f"{value:.0f}"
+    if isinstance(value, dt.date):
+        return value.isoformat()
+    return str(value)
+
+
+# --------------------------------------------------------------------------- links
+def jobs_url(args: dict[str, Any]) -> str:
+    """The job list filtered by ``args`` (``/jobs?...`` until the jobs area exists)."""
+    clean = {k: str(v) for k, v in args.items() if v is not None and v != ""}
+    if "jobs.index" in current_app.view_functions:
+        return url_for("jobs.index", **clean)
+    return "/jobs" + ("?" + urlencode(clean) if clean else "")
+
+
+def _month_range(key: str) -> tuple[str, str]:
+    start = dt.date(int(key[:4]), int(key[5:7]), 1)
+    return start.isoformat(), measures.Period.month(start.year, start.month).end.isoformat()
+
+
+class Links:
+    """Drill-down links for one period and scope (JobFilter query parameters)."""
+
+    def __init__(self, period: Period, scope: Scope) -> None:
+        self.period = period
+        self.scope = scope.as_args()
+
+    def _base(self, row: SliceRow | None) -> dict[str, Any] | None:
+        args: dict[str, Any] = dict(self.scope)
+        if row is None:
+            return args
+        if row.dimension == "month":
+            return args
+        if row.key is None:
+            return None  # "not assigned" cannot be filtered in the job list
+        args[FILTER_PARAM[row.dimension]] = row.key
+        return args
+
+    def _dates(self, row: SliceRow | None, field: str) -> dict[str, str]:
+        if row is not None and row.dimension == "month" and row.key:
+            start, end = _month_range(row.key)
+        else:
+            start, end = self.period.start.isoformat(), self.period.end.isoformat()
+        return {f"{field}_from": start, f"{field}_to": end}
+
+    def measure(self, row: SliceRow | None, name: str) -> str | None:
+        """The jobs behind ``name`` for ``row`` (None: the whole period)."""
+        args = self._base(row)
+        if args is None:
+            return None
+        if name in ("jobs_dispatched", "turnaround_median_wd", "turnaround_p90_wd",
+                    "promised_hit_rate"):
+            return jobs_url({**args, **self._dates(row, "dispatched")})
+        if name in ("reworked_jobs", "rework_rate", "rework"):
+            return jobs_url({**args, **self._dates(row, "received"), "reworked": "1"})
+        if name in ("rejected_jobs",):
+            return jobs_url({**args, **self._dates(row, "received"), "state": "rejected"})
+        if name in ("wip_jobs", "wip_age_median_wd", "wip_age_max_wd"):
+            return None  # work in progress spans states; no single filter shows it
+        return jobs_url({**args, **self._dates(row, "received")})
+
+    def rotor(self, rotor_id: int) -> str:
+        """Every job of one rotor (its visits)."""
+        return jobs_url({"rotor_id": rotor_id})
+
+    def chart(self, row: SliceRow, what: str) -> str | None:
+        return self.measure(row, "rework" if what == "rework" else "reached_in_tolerance")
+
+    def focus(self, row: SliceRow) -> str | None:
+        """The dashboard narrowed to this operator / machine / rotor type / customer."""
+        if row.dimension == "month":
+            if not row.key:
+                return None
+            start, _end = _month_range(row.key)
+            return url_for("dashboard.index", period="month", on=start,
+                           **{k: str(v) for k, v in self.scope.items()})
+        if row.key is None:
+            return None
+        args = period_args(self.period, Scope(**{**self.scope,
+                                                 FILTER_PARAM[row.dimension]: int(row.key)}))
+        return url_for("dashboard.index", **args)
+
+
+# --------------------------------------------------------------------------- request parsing
+def _today() -> dt.date:
+    """Today's date (one place, so tests can fix the calendar)."""
+    return dt.date.today()
+
+
+def _parse() -> tuple[PeriodForm, Period, Scope, list[str], bool]:
+    form = PeriodForm(formdata=request.args)
+    today = _today()
+    ok = form.validate() if request.args else True
+    if not request.args:
+        form.period.data = "year"
+    period = form.period_value(today) if ok else Period.containing("year", today)
+    scope, notes = form.scope_value()
+    return form, period, scope, notes, ok
+
+
+def _report(period: Period, scope: Scope) -> measures.ShopReport:
+    return measures.shop_report(db_session(), period, scope=scope, today=_today(),
+                                by=current_user._get_current_object())
+
+
+def _scope_labels(report: measures.ShopReport) -> list[tuple[str, str, str]]:
+    """(what, label, dashboard URL without it) for each active focus."""
+    out = []
+    wanted = report.scope.as_args()
+    for dim, param in FILTER_PARAM.items():
+        if param not in wanted:
+            continue
+        rows = {r.key: r.label for r in report.slices.get(dim, [])}
+        label = rows.get(str(wanted[param]), f"#{wanted[param]}")
+        rest = {k: v for k, v in wanted.items() if k != param}
+        out.append((DIMENSION_LABELS[dim], label,
+                    url_for("dashboard.index", **period_args(report.period, Scope(**rest)))))
+    return out
+
+
+@bp.get("/dashboard")
+@requires("view_dashboard")
+def index():  # type: ignore[no-untyped-def]
+    form, period, scope, notes, ok = _parse()
+    report = _report(period, scope)
+    links = Links(period, scope)
+    args = period_args(period, scope)
+    charts = {
+        "trend": to_svg(shop_month.trend_chart(
+            report.trend,
+            link=lambda r, what: Links(report.trend_period or period, scope).measure(
+                r, "rework" if what == "rework" else "reached_in_tolerance"),
+        )),
+    }
+    for dim in ("rotor_type", "operator", "machine", "customer"):
+        charts[dim] = to_svg(shop_month.rework_bars(
+            report.slices.get(dim, []), by_label=DIMENSION_LABELS[dim], link=links.chart))
+    prev_args = period_args(period.previous(), scope)
+    next_start = period.end + dt.timedelta(days=1)
+    if period.kind == "custom":
+        nxt = Period(next_start, next_start + dt.timedelta(days=period.days - 1), "custom")
+    else:
+        nxt = Period.containing(period.kind, next_start)
+    status = 200 if ok else 422
+    return render_template(
+        "dashboard/index.html",
+        form=form, report=report, links=links, charts=charts, args=args, notes=notes,
+        headline=shop_month.headline_rows(report.figures, report.previous),
+        slice_columns=SLICE_COLUMNS, dimension_labels=DIMENSION_LABELS, fmt=fmt,
+        prev_url=url_for("dashboard.index", **prev_args),
+        next_url=url_for("dashboard.index", **period_args(nxt, scope)),
+        report_month=f"{min(period.end, _today()):%Y-%m}",
+        focus=_scope_labels(report),
+    ), status
+
+
+# --------------------------------------------------------------------------- CSV
+def table_rows(report: measures.ShopReport, table: str) -> tuple[list[str], list[list[Any]]]:
+    """Header and rows of one dashboard table (the page shows the same numbers)."""
+    if table == "headline":
+        header = ["measure", report.period.label, report.previous_period.label]
+        now, before = report.figures.as_dict(), report.previous.as_dict()
+        return header, [[name, now[name], before[name]] for name in measures.FIGURE_NAMES]
+    if table in SLICE_TABLES or table == "trend":
+        dim = SLICE_TABLES.get(table, "month")
+        rows = report.trend if table == "trend" else report.slices.get(dim, [])
+        header = [dim, f"{dim}_id" if dim != "month" else "month_key",
+                  *measures.FIGURE_NAMES]
+        return header, [[r.label, r.key, *r.figures.as_dict().values()] for r in rows]
+    if table == "rework_reasons":
+        return ["reason", "jobs"], [[r.reason, r.count] for r in report.rework_reasons]
+    if table == "rejection_reasons":
+        return ["reason", "jobs"], [[r.reason, r.count] for r in report.rejection_reasons]
+    if table == "rotors_getting_worse":
+        return (["serial_number", "customer", "rotor_type", "latest_job", "received_on",
+                 "unit", "initial_amplitudes_oldest_first"],
+                [[w.serial_number, w.customer, w.rotor_type, w.job_number, w.received_on,
+                  w.unit, " ".join(f"{a:g}" for a in w.initial_amplitudes)]
+                 for w in report.rotors_getting_worse])
+    return (["machine", "jobs", "runs", "last_verified_on", "due_on", "status"],
+            [[m.name, m.jobs, m.runs, m.last_verified_on, m.due_on, m.status]
+             for m in report.machines])
+
+
+def _csv(header: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\r\n")
+    w.writerow(header)
+    for row in rows:
+        w.writerow([_safe_cell(csv_value(v)) for v in row])
+    return buf.getvalue()
+
+
+def _safe_cell(text: str) -> str:
+    # A cell starting with = + - @ would run as a formula in a spreadsheet (CSV injection);
+    # numbers (including negative ones) are left alone.
+    if text and text[0] in "=+-@\t\r" and not re.fullmatch(r"-?\d+(\.\d+)?", text):
+        return "'" + text
+    return text
+
+
+@bp.get("/dashboard.csv", endpoint="csv")
+@requires("view_dashboard")
+def csv_download():  # type: ignore[no-untyped-def]
+    table = request.args.get("table", "headline")
+    if table not in TABLES:
+        raise ValidationFailed("table", f"'{table[:40]}' is not one of {', '.join(TABLES)}")
+    form, period, scope, _notes, ok = _parse()
+    if not ok:
+        field_name, errors = next(iter(form.errors.items()))
+        raise ValidationFailed(field_name, "; ".join(str(e) for e in errors))
+    report = _report(period, scope)
+    header, rows = table_rows(report, table)
+    name = f"shop-{table}-{period.start.isoformat()}-{period.end.isoformat()}.csv"
+    return Response(_csv(header, rows), mimetype="text/csv",
+                    headers={"Content-Disposition": f'attachment; filename="{name}"'})
+
+
+# --------------------------------------------------------------------------- monthly PDF
+@bp.get("/dashboard/report.pdf")
+@requires("view_dashboard")
+def monthly_pdf():  # type: ignore[no-untyped-def]
+    month = measures.parse_month(request.args.get("month") or f"{_today():%Y-%m}")
+    report = measures.shop_report(db_session(), month, today=_today(),
+                                  by=current_user._get_current_object())
+    pdf = shop_month.render(report)
+    name = f"shop-report-{month.start:%Y-%m}.pdf"
+    return Response(pdf, mimetype="application/pdf",
+                    headers={"Content-Disposition": f'inline; filename="{name}"'})
+
+
+# --------------------------------------------------------------------------- start page
+@bp.app_context_processor
+def _home_helpers() -> dict[str, Any]:
+    def dashboard_headline() -> measures.Headline | None:
+        user = current_user
+        if not getattr(user, "is_authenticated", False) or not can(user, "view_dashboard"):
+            return None
+        return measures.headline(db_session(), by=user._get_current_object(), today=_today())
+
+    return {"dashboard_headline": dashboard_headline, "dashboard_fmt": fmt}
+
+
+__all__ = ["SCOPE_FIELDS", "bp", "table_rows"]

@@ -1,0 +1,172 @@
+"""Forms of the traceability area.
+
+Readings are typed as text and checked by the services (which name the field
+and the rule); the forms only carry them. Angles are typed in the shop's
+display convention; the routes convert them. Every form is a FlaskForm (CSRF on).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+from flask_wtf import FlaskForm
+from wtforms import (
+    BooleanField,
+    DateField,
+    FieldList,
+    Form,
+    FormField,
+    HiddenField,
+    SelectField,
+    StringField,
+    SubmitField,
+    TextAreaField,
+)
+from wtforms.fields.choices import SelectChoice
+from wtforms.validators import InputRequired, Length, Optional
+
+from shopapp.balancing.arbor import FRAMES
+from shopapp.models import KEY_CONVENTIONS, READING_UNITS, RESIDUAL_TEST_POSITIONS
+
+KEY_LABELS = {"none": "none (no keyway)", "half_key": "half-key (ISO 21940-32)",
+              "full_key": "full-key (ISO 21940-32)"}
+FRAME_LABELS = {"arbor": "from the arbor's mark (machine reference on the spindle)",
+                "rotor": "from the rotor's own mark"}
+
+
+def options(pairs: list[tuple[Any, str]]) -> list[SelectChoice]:
+    return [SelectChoice(value, label) for value, label in pairs]
+
+
+def sized(field_list: Any, n: int) -> None:
+    """Give a FieldList exactly ``n`` entries (keeps the typed ones)."""
+    while len(field_list.entries) < n:
+        field_list.append_entry()
+    while len(field_list.entries) > n:
+        field_list.pop_entry()
+
+
+class ProvingTestForm(FlaskForm):
+    performed_on = DateField("Test date", validators=[InputRequired("Required: a date.")])
+    proving_rotor_id = SelectField("Proving rotor", coerce=int)
+    test_mass_g = StringField("Test mass, g")
+    test_radius_mm = StringField("Test-mass radius, mm")
+    first_position_deg = StringField("Position 1 at, °", default="0")
+    claimed_umar = StringField("Claimed U_mar for this rotor, g·mm")
+    p1_amp = FieldList(StringField("indicated"), min_entries=0)
+    p1_ang = FieldList(StringField("angle"), min_entries=0)
+    p2_amp = FieldList(StringField("indicated"), min_entries=0)
+    p2_ang = FieldList(StringField("angle"), min_entries=0)
+    urr_before_1 = StringField("URR: unbalance added, plane 1, g·mm")
+    urr_after_1 = StringField("URR: left after one step, plane 1, g·mm")
+    urr_before_2 = StringField("URR: unbalance added, plane 2, g·mm")
+    urr_after_2 = StringField("URR: left after one step, plane 2, g·mm")
+    claimed_urr_pct = StringField("Claimed URR, %")
+    notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
+    compute = SubmitField("Compute")
+    save = SubmitField("Save the test")
+
+
+class ProvingRotorForm(FlaskForm):
+    name = StringField("Name", validators=[InputRequired("Required."), Length(max=100)])
+    mass_kg = StringField("Mass, kg")
+    planes = SelectField("Planes", choices=options([("2", "2"), ("1", "1")]))
+    radius_1_mm = StringField("Radius plane 1, mm")
+    radius_2_mm = StringField("Radius plane 2, mm")
+    positions = StringField("Test-mass positions", default="8")
+    notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
+
+
+class ArborForm(FlaskForm):
+    name = StringField("Name", validators=[InputRequired("Required."), Length(max=100)])
+    description = StringField("Description", validators=[Optional(), Length(max=200)])
+    mass_kg = StringField("Mass, kg")
+    notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
+
+
+class PlaneReading(Form):
+    """One reading per plane (subform: no CSRF of its own)."""
+
+    amp_1 = StringField("plane 1 amplitude")
+    ang_1 = StringField("plane 1 angle")
+    amp_2 = StringField("plane 2 amplitude")
+    ang_2 = StringField("plane 2 angle")
+
+
+class IndexRunsForm(FlaskForm):
+    measured_on = DateField("Date", validators=[InputRequired("Required: a date.")])
+    index_deg = StringField("Rotor turned on the arbor by, °", default="180")
+    second_frame = SelectField("Angle of the second run read",
+                               choices=options([(f, FRAME_LABELS[f]) for f in FRAMES]))
+    first = FormField(PlaneReading, label="Run 1 (rotor's mark at the arbor's mark), g·mm")
+    second = FormField(PlaneReading, label="Run 2 (rotor turned on the arbor), g·mm")
+    rotor_mass_kg = StringField("Rotor mass, kg")
+    notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
+
+
+class JobArborForm(FlaskForm):
+    arbor_id = SelectField("Arbor", coerce=int)
+
+
+class SubtractForm(FlaskForm):
+    measurement_id = SelectField("Subtract the arbor error", coerce=int)
+
+
+class RequiredForm(FlaskForm):
+    required = HiddenField()
+
+
+class ResidualTestForm(FlaskForm):
+    plane = HiddenField()
+    positions = SelectField("Positions", coerce=int,
+                            choices=options([(n, str(n)) for n in RESIDUAL_TEST_POSITIONS]))
+    test_mass_g = StringField("Test mass, g")
+    test_radius_mm = StringField("Test-mass radius, mm")
+    unit = SelectField("Reading unit", choices=options([(u, u) for u in READING_UNITS]))
+    amp = FieldList(StringField("amplitude"), min_entries=0)
+    ang = FieldList(StringField("phase"), min_entries=0)
+    repeat_amplitude = StringField("Repeat of position 1: amplitude")
+    repeat_angle_deg = StringField("Repeat of position 1: phase, °")
+    compute = SubmitField("Compute")
+    save = SubmitField("Save the test")
+
+
+class ErrorRunsForm(FlaskForm):
+    runs = FieldList(FormField(PlaneReading), min_entries=3, max_entries=8)
+    key_compensation_applied = BooleanField("The key compensation was applied to the rotor")
+    notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
+
+
+class KeyForm(FlaskForm):
+    key_convention = SelectField("Key convention",
+                                 choices=options([(k, KEY_LABELS[k]) for k in KEY_CONVENTIONS]))
+    key_width_mm = StringField("Key width b, mm")
+    key_height_mm = StringField("Key height h, mm")
+    key_length_mm = StringField("Key length, mm")
+    hub_length_mm = StringField("Hub length, mm")
+    key_radius_mm = StringField("Radius of the key's centre, mm")
+    key_angle_deg = StringField("Keyway angle, °")
+
+
+def index_runs_from(form: IndexRunsForm, planes: int,
+                    internal: Callable[[Any], Any]) -> tuple[list[Any], list[Any]]:
+    """The two index runs typed on ``form`` as (amplitude, internal angle) per plane."""
+    def run(sub: Any) -> list[Any]:
+        out = [(sub.amp_1.data, internal(sub.ang_1.data))]
+        if planes == 2:
+            out.append((sub.amp_2.data, internal(sub.ang_2.data)))
+        return out
+
+    return run(form.first), run(form.second)
+
+
+def index_error_fields(form: IndexRunsForm) -> dict[str, Any]:
+    """Which field of ``form`` shows each of the index-run use-case's error names."""
+    m: dict[str, Any] = {"index_deg": form.index_deg, "rotor_mass_kg": form.rotor_mass_kg,
+                         "measured_on": form.measured_on}
+    for name, sub in (("first_run", form.first), ("second_run", form.second)):
+        for p in (1, 2):
+            m[f"{name}.plane_{p}.amplitude"] = getattr(sub, f"amp_{p}")
+            m[f"{name}.plane_{p}.angle_deg"] = getattr(sub, f"ang_{p}")
+    return m

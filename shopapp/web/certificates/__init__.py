@@ -1,1 +1,0 @@
-"""Certificates: register, issue, reissue, void, downloads and the public verification page."""

@@ -1,0 +1,32 @@
+"""App-wide template helpers: the role check for menus and the display formatter as filters.
+
+Pages print every number through :mod:`shopapp.core.display` (``|num``,
+``|qty(unit)``, ``|pct``, ``|isodate``), so a page, a CSV and a PDF show the same
+figures and never scientific notation.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from flask import Flask
+from flask_login import current_user
+
+from shopapp.core import display
+from shopapp.core.permissions import can
+
+
+def register_helpers(app: Flask) -> None:
+    """Install the template globals and filters."""
+    app.add_template_filter(display.number, "num")
+    app.add_template_filter(display.quantity, "qty")
+    app.add_template_filter(display.percent, "pct")
+    app.add_template_filter(display.date, "isodate")
+    app.add_template_filter(display.plain, "plain")
+
+    @app.context_processor
+    def _inject() -> dict[str, Any]:
+        return {
+            "can": lambda action: can(current_user, action) if current_user else False,
+            "endpoints": app.view_functions,
+        }

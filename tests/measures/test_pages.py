@@ -1,0 +1,264 @@
+"""The owner's dashboard: figures, drill-down links, CSV = page, PDF, query count, roles.
+
+Numbers come from the hand-counted shop of tests/measures_shop.py (see its
+docstring for the counts); the page must show what the measures service computed.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import io
+import re
+from html import unescape
+from urllib.parse import parse_qs, urlsplit
+
+import pytest
+from pypdf import PdfReader
+
+from shopapp.measures import routes
+from shopapp.models import Correction, JobTransition, Run, RunReading
+from tests import measures_shop
+from tests.measures_shop import TODAY
+
+OCT = "/dashboard?period=month&on=2026-10-01"
+
+
+@pytest.fixture(autouse=True)
+def _fixed_today(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(routes, "_today", lambda: TODAY)
+
+
+@pytest.fixture()
+def hand(db, shop, make_user):  # type: ignore[no-untyped-def]
+    return measures_shop.build(db, shop, make_user)
+
+
+def _page(client, url: str) -> str:  # type: ignore[no-untyped-def]
+    resp = client.get(url)
+    assert resp.status_code == 200, resp.get_data(as_text=True)[:800]
+    return resp.get_data(as_text=True)
+
+
+def _headline_cells(html: str, measure: str) -> list[str]:
+    row = re.search(rf'<tr data-measure="{measure}">(.*?)</tr>', html, re.S)
+    assert row, measure
+    return [re.sub(r"<[^>]+>", "", c).strip() for c in re.findall(r"<td[^>]*>(.*?)</td>",
+                                                                  row.group(1), re.S)]
+
+
+def _table(html: str, name: str) -> dict[str, dict[str, str]]:
+    """Rows of a slice table: key → {measure: cell text}."""
+    body = re.search(rf'<table class="measures" data-table="{name}">(.*?)</table>', html, re.S)
+    assert body, name
+    rows: dict[str, dict[str, str]] = {}
+    for key, cells in re.findall(r'<tr data-key="([^"]*)">(.*?)</tr>', body.group(1), re.S):
+        rows[key] = {m: unescape(re.sub(r"<[^>]+>", "", v)).strip()
+                     for m, v in re.findall(r'data-measure="(\w+)">(.*?)</td>', cells, re.S)}
+    return rows
+
+
+def _links(html: str) -> list[str]:
+    return [unescape(h) for h in re.findall(r'<a href="([^"]+)"', html)]
+
+
+def test_owner_sees_the_period_against_the_previous_one(client, login_as, hand) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    html = _page(client, OCT)
+    assert "Shop measures · October 2026" in html
+    assert _headline_cells(html, "jobs_received")[1:3] == ["11", "1"]  # Oct 11, Sep 1 (J5)
+    assert _headline_cells(html, "rework_rate")[1:3] == ["50 %", "0 %"]  # 3/6 and 0/1
+    assert _headline_cells(html, "first_pass_rate")[1:3] == ["80 %", "0 %"]  # 4/5 and 0/1
+    assert "worse" in _headline_cells(html, "rework_rate")[3]  # rework went up
+    assert _headline_cells(html, "turnaround_p90_wd")[1] == "5.5"
+    assert "<svg" in html and "Rework by rotor type" in html and "Rework by operator" in html
+    assert "cracked hub" in html and "HS-R1" in html and "due soon" in html
+
+
+@pytest.mark.parametrize("role, status", [("operator", 403), ("quality", 200), ("admin", 200)])
+def test_only_dashboard_roles_see_it(client, login_as, role, status) -> None:  # type: ignore[no-untyped-def]
+    login_as(role)
+    assert client.get("/dashboard").status_code == status
+    assert client.get("/dashboard.csv?table=headline").status_code == status
+
+
+def test_bars_and_points_link_to_the_filtered_job_list(client, login_as, hand) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    html = _page(client, OCT)
+    svg_links = []
+    for svg in re.findall(r"<svg.*?</svg>", html, re.S):
+        svg_links += _links(svg)
+    t1 = str(hand.rotor_types["T1"].id)
+    wanted = {"rotor_type_id": [t1], "reworked": ["1"], "received_from": ["2026-10-01"],
+              "received_to": ["2026-10-31"]}
+    parsed = [(urlsplit(u).path, parse_qs(urlsplit(u).query)) for u in svg_links]
+    assert ("/jobs", wanted) in parsed  # the reworked bar of rotor type T1
+    op_a = str(hand.users["A"].id)
+    assert any(q.get("operator_id") == [op_a] and q.get("reworked") == ["1"] for _, q in parsed)
+    # trend points: one month each, e.g. the rework point of October
+    assert ("/jobs", {"received_from": ["2026-10-01"], "received_to": ["2026-10-31"],
+                      "reworked": ["1"]}) in parsed
+    # the headline's dispatched count opens the jobs dispatched in the period
+    disp = _headline_cells(html, "jobs_dispatched")
+    assert disp[1] == "6"
+    assert any(q == {"dispatched_from": ["2026-10-01"], "dispatched_to": ["2026-10-31"]}
+               for _, q in (
+                   (urlsplit(u).path, parse_qs(urlsplit(u).query)) for u in _links(html)))
+
+
+def test_every_csv_matches_the_page(client, login_as, hand) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    html = _page(client, OCT)
+    for dim in ("operator", "machine", "rotor_type", "customer", "month"):
+        page_rows = _table(html, f"by_{dim}")
+        resp = client.get(f"/dashboard.csv?table=by_{dim}&period=month&on=2026-10-01")
+        assert resp.status_code == 200 and resp.mimetype == "text/csv"
+        rows = list(csv.DictReader(io.StringIO(resp.get_data(as_text=True))))
+        key_col = "month_key" if dim == "month" else f"{dim}_id"
+        assert {r[key_col] for r in rows} == set(page_rows), dim
+        for r in rows:
+            for name, text in page_rows[r[key_col]].items():
+                raw = r[name]
+                value = None if raw == "" else float(raw)
+                if value is not None and (name.endswith(("_jobs", "_received", "_dispatched",
+                                                         "_tolerance")) or name ==
+                                          "wip_age_max_wd"):
+                    value = int(value)
+                assert routes.fmt(name, value) == text, (dim, r[key_col], name)
+    reasons = client.get("/dashboard.csv?table=rework_reasons&period=month&on=2026-10-01")
+    rows = list(csv.reader(io.StringIO(reasons.get_data(as_text=True))))
+    assert rows == [["reason", "jobs"], ["customer return", "1"], ["key fitted wrong", "1"],
+                    ["wrong balancing speed", "1"]]
+    machines = client.get("/dashboard.csv?table=machines&period=month&on=2026-10-01")
+    text = machines.get_data(as_text=True)
+    assert "Hand shop M1,3,10,2025-11-20,2026-11-20,due soon" in text
+
+
+def test_three_clicks_answer_which_rotor_types_and_operator_drive_rework(
+    client, login_as, hand
+) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    # click 1: Dashboard in the nav → this year (2026), rework by rotor type and operator,
+    # and the monthly trend.
+    home = _page(client, "/")
+    assert 'href="/dashboard"' in home
+    html = _page(client, "/dashboard")
+    assert "Shop measures · 2026" in html and "Is it getting better?" in html
+    by_rt = _table(html, "by_rotor_type")
+    t1 = str(hand.rotor_types["T1"].id)
+    assert by_rt[t1]["reworked_jobs"] == "2"  # J6, J10
+    # click 2: the rotor type's name narrows the whole dashboard to it
+    focus = re.search(rf'<tr data-key="{t1}">\s*<td><a href="([^"]+)"', html.split(
+        'data-table="by_rotor_type"')[1])
+    assert focus
+    narrowed = _page(client, unescape(focus.group(1)))
+    assert "Showing only" in narrowed and "HS-T1 fan" in narrowed
+    ops = _table(narrowed, "by_operator")
+    # T1 rework: J6 (A, return) and J10 (B, reopened)
+    assert {k: v["reworked_jobs"] for k, v in ops.items()} == {
+        str(hand.users["A"].id): "1", str(hand.users["B"].id): "1"}
+    assert "First-pass and rework rate by month" in narrowed
+
+
+def test_query_count_does_not_grow_with_the_jobs(
+    client, login_as, db, shop, make_user, count_queries
+) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    ops = [make_user("operator") for _ in range(3)]
+    machines = [shop.machine(), shop.machine()]
+    rtypes = [shop.rotor_type() for _ in range(3)]
+
+    def add_jobs(n: int, offset: int) -> None:
+        for i in range(offset, offset + n):
+            rotor = shop.rotor(rtypes[i % 3])
+            received = dt.date(2026, 1, 5) + dt.timedelta(days=i % 300)
+            reached = dt.datetime.combine(received + dt.timedelta(days=1), dt.time(12),
+                                          tzinfo=dt.UTC)
+            job = shop.job(rotor, operator_id=ops[i % 3].id, machine_id=machines[i % 2].id,
+                           received_on=received, state="dispatched",
+                           dispatched_on=received + dt.timedelta(days=3),
+                           promised_on=received + dt.timedelta(days=2 + i % 3),
+                           first_in_tolerance_at=reached, reopen_count=i % 5 == 0)
+            r1 = Run(job_id=job.id, seq=1, purpose="initial", speed_rpm=600.0, taken_at=reached)
+            r2 = Run(job_id=job.id, seq=2, purpose="check", speed_rpm=600.0, taken_at=reached,
+                     within_tolerance=i % 4 != 0)
+            db.add_all([r1, r2])
+            db.flush()
+            db.add(RunReading(run_id=r1.id, plane=1, amplitude=5.0 + i % 7, angle_deg=0.0))
+            db.add(Correction(job_id=job.id, run_id=r1.id, plane=1, mass_g=3.0, angle_deg=0.0,
+                              radius_mm=100.0, applied_at=reached))
+            if i % 5 == 0:
+                db.add(JobTransition(job_id=job.id, from_state="dispatched",
+                                     to_state="on_machine", at=reached, reason=f"reason {i % 3}"))
+        db.commit()
+
+    add_jobs(10, 0)
+    with count_queries() as small:
+        _page(client, "/dashboard?period=year&on=2026-06-01")
+    add_jobs(190, 10)
+    with count_queries() as large:
+        html = _page(client, "/dashboard?period=year&on=2026-06-01")
+    assert _headline_cells(html, "jobs_received")[1] == "200"
+    assert small.count == large.count, (small.count, large.count)
+    assert large.count < 40
+
+
+@pytest.mark.parametrize("query, field", [
+    ("period=custom&start=2026-10-05&end=2026-10-01", "before the first day"),
+    ("period=custom&start=2026-10-05", "last day"),
+    ("period=fortnight", "Not a valid choice"),
+    ("period=month&on=not-a-date", "Not a valid date"),
+])
+def test_bad_period_input_is_explained_not_a_500(client, login_as, query, field) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    resp = client.get(f"/dashboard?{query}")
+    assert resp.status_code == 422
+    assert field in resp.get_data(as_text=True)
+    assert client.get(f"/dashboard.csv?table=headline&{query}").status_code == 422
+
+
+def test_bad_csv_table_and_junk_focus(client, login_as) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    resp = client.get("/dashboard.csv?table=passwords")
+    assert resp.status_code == 422 and "not one of" in resp.get_data(as_text=True)
+    page = client.get("/dashboard?operator_id=abc")
+    assert page.status_code == 200 and "not an id; ignored" in page.get_data(as_text=True)
+
+
+def test_custom_range_and_csv_formula_cells_are_neutralised(
+    client, login_as, db, shop
+) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    job = shop.job(received_on=dt.date(2026, 10, 2), state="rejected")
+    db.add(JobTransition(job_id=job.id, from_state="booked_in", to_state="rejected",
+                         at=measures_shop.at("2026-10-02"), reason="=HYPERLINK(\"x\")"))
+    db.commit()
+    url = "/dashboard.csv?table=rejection_reasons&period=custom&start=2026-10-01&end=2026-10-15"
+    text = client.get(url).get_data(as_text=True)
+    assert "'=HYPERLINK" in text
+
+
+def test_monthly_report_button_gives_a_two_page_pdf(client, login_as, hand) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    html = _page(client, OCT)
+    assert "/dashboard/report.pdf?month=2026-10" in html
+    resp = client.get("/dashboard/report.pdf?month=2026-10")
+    assert resp.status_code == 200 and resp.mimetype == "application/pdf"
+    pdf = PdfReader(io.BytesIO(resp.data))
+    assert len(pdf.pages) == 2
+    text = "".join(p.extract_text() for p in pdf.pages)
+    assert "October 2026" in text and "Rework rate" in text and "cracked hub" in text
+    assert client.get("/dashboard/report.pdf?month=2026-13").status_code == 422
+
+
+def test_start_page_panel_for_the_owner_only(client, login_as, hand, make_user) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    html = _page(client, "/")
+    assert 'id="dashboard-headline"' in html
+    assert "November 2026 so far" in html  # TODAY is 2026-11-15
+    # last month (October): 11 received, rework 50 %
+    row = re.search(r"<td>Jobs received</td>(.*?)</tr>", html, re.S)
+    assert row and re.findall(r">(\d+)<", row.group(1)) == ["0", "11"]
+    client.post("/logout")
+    login_as("operator")
+    assert 'id="dashboard-headline"' not in _page(client, "/")
