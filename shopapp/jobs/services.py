@@ -215,7 +215,8 @@ def _move(session: Session, job: Job, to_state: str, *, by: User, reason: str = 
 
 def transition(session: Session, job: Job, to_state: str, *, by: User, reason: str = "",
                on: dt.date | None = None) -> Job:
-    """Move ``job`` to ``to_state`` if the job state rules (docs/architecture.md, "Job states") allow it.
+    """Move ``job`` to ``to_state`` if the job state rules allow it
+    (docs/architecture.md, "Job states").
 
     ``reason`` is required for ``rejected`` and for a reopen (back to
     ``on_machine`` from in_tolerance, certified or dispatched); ``on`` is the

@@ -78,7 +78,8 @@ def test_grade_series_steps_by_about_2_5() -> None:
     ],
 )
 def test_grade_examples(value, example) -> None:
-    # Typical rotors per grade: from memory of the ISO 21940-11 table (docs/architecture.md, "Computations").
+    # Typical rotors per grade: from memory of the ISO 21940-11 table
+    # (docs/architecture.md, "Computations").
     assert any(example in text for text in tol.balance_grade(value).examples)
 
 

@@ -18,7 +18,8 @@ from shopapp.traceability import services as tr
 
 LOAD_KG = 60.0
 SPEED_RPM = 1480.0
-# 4W/N per plane (API-style, 6350·W/N g·mm; docs/architecture.md, "Computations") for the factory's rotor.
+# 4W/N per plane (API-style, 6350·W/N g·mm; docs/architecture.md, "Computations")
+# for the factory's rotor.
 LIMIT = 6350.0 * LOAD_KG / SPEED_RPM
 
 

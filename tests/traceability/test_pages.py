@@ -181,7 +181,8 @@ def test_residual_test_walk_compute_then_save(client, login_as, wn_job, db) -> N
     login_as("operator")
     url = f"/traceability/jobs/{wn_job.id}/residual-test?plane=1&positions=8"
     page = _text(client.get(url))
-    limit = 6350.0 * 60.0 / 1480.0  # API-style 4W/N per plane in g·mm (docs/architecture.md, "Computations")
+    # API-style 4W/N per plane in g·mm (docs/architecture.md, "Computations")
+    limit = 6350.0 * 60.0 / 1480.0
     assert f"{2 * limit / 300.0:.3g} g" in page
     # Simulation: a machine reading g·mm exactly; residual 80 g·mm at 0°, T = 514.9 g·mm.
     t = 2 * limit
