@@ -42,6 +42,7 @@ from sqlalchemy.orm import Session, defer, joinedload, selectinload
 
 from shopapp.balancing.phasors import amplitude_angle, to_display_deg
 from shopapp.balancing.units import convert_unbalance
+from shopapp.core import locks
 from shopapp.core.errors import NotFound, TransitionRefused, ValidationFailed
 from shopapp.core.pagination import Page, paginate
 from shopapp.core.permissions import require
@@ -345,6 +346,7 @@ def build_data(
 def next_number(session: Session, year: int) -> str:
     """``BC-<year>-<n>`` with n one more than the largest used this year."""
     prefix = f"{NUMBER_PREFIX}-{year:04d}-"
+    locks.hold_sequence(session, f"certificate_number:{year:04d}")
     # The running number is zero-padded, so the longest, then largest, numbers come first;
     # a few are read in case a malformed number sorts before the real largest.
     numbers = session.scalars(
@@ -475,6 +477,7 @@ def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None
     transition is dated then. Default: now.
     """
     require(by, "issue_certificates")
+    locks.hold_row(session, job)  # two quality users issuing at once: the second sees the first
     historical = issued_at is not None
     issued_at = _moment(issued_at, "issued_at")
     if job.state not in CERTIFIABLE_STATES:
@@ -520,6 +523,8 @@ def reissue(session: Session, certificate: Certificate, *, by: User, reason: str
     historical = issued_at is not None
     issued_at = _moment(issued_at, "issued_at")
     job = certificate.job
+    locks.hold_row(session, job)
+    session.refresh(certificate)
     latest = by_number(session, certificate.number)
     if latest.id != certificate.id:
         raise TransitionRefused(
@@ -553,6 +558,8 @@ def void(session: Session, certificate: Certificate, *, by: User, reason: str,
     """
     require(by, "issue_certificates")
     text = _reason(reason)
+    locks.hold_row(session, certificate.job)
+    session.refresh(certificate)
     at = None
     if voided_at is not None:
         at = _moment(voided_at, "voided_at")

@@ -2,6 +2,15 @@
 
 One :class:`Database` per application. Requests and CLI commands open a session,
 call services (which flush), and commit once at the end; any error rolls back.
+
+Writes take their lock up front. SQLite's default deferred ``BEGIN`` reads first
+and upgrades to the write lock later; when another writer got in between, SQLite
+refuses the upgrade at once ("database is locked", ``busy_timeout`` cannot help an
+upgrade). A session that will write therefore starts with ``BEGIN IMMEDIATE``
+(:meth:`Database.write_session`, and every unsafe-method request through
+:func:`shopapp.core.extensions.db_session`), which waits up to ``busy_timeout``
+for the lock and then holds it. PostgreSQL needs no such thing: its row locks
+(``number_lock``, ``SELECT … FOR UPDATE`` on the job) serialise what must be.
 """
 
 from __future__ import annotations
@@ -23,12 +32,21 @@ def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
     cur = dbapi_connection.cursor()
     cur.execute("PRAGMA foreign_keys=ON")
     cur.execute("PRAGMA journal_mode=WAL")
-    cur.execute("PRAGMA busy_timeout=5000")
+    cur.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
     cur.close()
 
 
+# How long a writer waits for another writer's transaction to end (SQLite).
+SQLITE_BUSY_TIMEOUT_MS = 20_000
+# Execution option that marks a connection whose transaction will write.
+WRITE_OPTION = "shopapp_write"
+
+
 def _sqlite_begin(conn: Any) -> None:
-    conn.exec_driver_sql("BEGIN")
+    if conn.get_execution_options().get(WRITE_OPTION):
+        conn.exec_driver_sql("BEGIN IMMEDIATE")
+    else:
+        conn.exec_driver_sql("BEGIN")
 
 
 def make_engine(url: str, *, echo: bool = False) -> Engine:
@@ -74,6 +92,21 @@ class Database:
             raise
         finally:
             sess.close()
+
+    def begin_write(self, sess: Session) -> None:
+        """Start ``sess``'s transaction as a writer (``BEGIN IMMEDIATE`` on SQLite).
+
+        Must be called before the session's first statement; later it is a no-op
+        for the transaction already open.
+        """
+        sess.connection(execution_options={WRITE_OPTION: True})
+
+    @contextmanager
+    def write_session(self) -> Iterator[Session]:
+        """Like :meth:`session`, with the write lock taken up front (CLI commands that write)."""
+        with self.session() as sess:
+            self.begin_write(sess)
+            yield sess
 
     def dispose(self) -> None:
         self.engine.dispose()

@@ -7,7 +7,7 @@ commit once, after the service call succeeded.
 
 from __future__ import annotations
 
-from flask import current_app, g
+from flask import current_app, g, has_request_context, request
 from flask_login import LoginManager
 from flask_wtf.csrf import CSRFProtect
 from sqlalchemy.orm import Session
@@ -23,10 +23,21 @@ def get_database() -> Database:
     return current_app.extensions["shopapp.db"]
 
 
+UNSAFE_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
+
+
 def db_session() -> Session:
-    """The session of the current request (or app context)."""
+    """The session of the current request (or app context).
+
+    A request that may write (POST, PUT, PATCH, DELETE) takes the write lock up
+    front (see :mod:`shopapp.core.database`); a GET only reads.
+    """
     if "db_session" not in g:
-        g.db_session = get_database().sessionmaker()
+        database = get_database()
+        sess = database.sessionmaker()
+        if has_request_context() and request.method in UNSAFE_METHODS:
+            database.begin_write(sess)
+        g.db_session = sess
     return g.db_session
 
 
@@ -34,4 +45,21 @@ def close_db_session(_exc: BaseException | None = None) -> None:
     sess = g.pop("db_session", None)
     if sess is not None:
         sess.rollback()
+        sess.close()
+
+
+def discard_db_session() -> None:
+    """Throw away the request's session after an error: roll back and close it.
+
+    Objects already loaded (the logged-in user) are detached first so that the
+    rollback does not expire them; nothing after this touches the database
+    through them.
+    """
+    sess = g.pop("db_session", None)
+    if sess is None:
+        return
+    try:
+        sess.expunge_all()
+        sess.rollback()
+    finally:
         sess.close()

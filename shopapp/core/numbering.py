@@ -9,10 +9,15 @@ The running number restarts every year when the pattern contains ``{year}`` or
 ``{yy}`` (``J2026-00001``, ``J2027-00001``, ...), and runs on for ever otherwise
 (``J-000123``). It is the largest number already used for the same year plus one
 (found by matching the pattern against existing numbers, so numbers typed into
-the pattern by hand or imported keep counting). Two people booking in at the
-same moment may compute the same number: the unique constraint on
-``job.number`` catches that and the caller retries with the next one
-(:func:`shopapp.jobs.services.book_in` does, inside a savepoint).
+the pattern by hand or imported keep counting).
+
+Two people booking in (or issuing certificates) at the same moment must not get
+the same number, and an auditor expects no gaps. Before computing a number the
+use-case calls :func:`shopapp.core.locks.hold_sequence`, which updates the sequence's row in
+``number_lock`` inside the same transaction: a second transaction waits there
+until the first commits (PostgreSQL row lock; on SQLite the write lock the
+request took up front), then sees the first one's number. A rollback releases the
+lock and takes nothing, so numbers stay gapless.
 """
 
 from __future__ import annotations
@@ -110,3 +115,4 @@ def next_job_number(session: Session, pattern: str, *, on: dt.date, skip: int = 
     """The next job number; ``skip`` moves past numbers taken by a concurrent booking."""
     validate_pattern(pattern)
     return format_number(pattern, on=on, seq=next_seq(session, pattern, on=on) + skip)
+

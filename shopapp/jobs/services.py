@@ -25,14 +25,13 @@ from dataclasses import dataclass, fields
 from typing import Any
 
 from sqlalchemy import Select, and_, func, or_, select
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, joinedload, selectinload
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.phasors import normalize_deg
 from shopapp.balancing.positions import position_angles_deg
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
-from shopapp.core import audit, numbering
+from shopapp.core import audit, locks, numbering
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import text as _text
@@ -78,7 +77,6 @@ REOPEN_FROM = frozenset({"in_tolerance", "certified", "dispatched"})
 OPEN_STATES = ("booked_in", "on_machine", "in_tolerance", "certified")
 RUN_STATES = frozenset({"booked_in", "on_machine"})
 MAX_SPEED_RPM = 500_000.0
-NUMBER_RETRIES = 5
 
 
 # --------------------------------------------------------------------------- small checks
@@ -93,11 +91,6 @@ def _prefixed(exc: ValidationFailed, prefix: str, keep: Sequence[str] = ()) -> V
     errors = {(k if k in keep else prefix + k): v for k, v in exc.errors.items()}
     first = next(iter(errors))
     return ValidationFailed(first, errors[first], errors=errors)
-
-
-def _is_unique_violation(exc: IntegrityError) -> bool:
-    orig = exc.orig
-    return getattr(orig, "sqlstate", None) == "23505" or "UNIQUE" in str(orig).upper()
 
 
 # --------------------------------------------------------------------------- loading
@@ -617,20 +610,12 @@ def _book_in_rows(
 
 
 def _insert_numbered(session: Session, job: Job) -> None:
-    """Give ``job`` the next number and insert it; retry when another booking took it."""
+    """Give ``job`` the next job number and insert it (gapless, race-free: core.locks)."""
     pattern = get_settings(session).job_number_pattern
-    for attempt in range(NUMBER_RETRIES):
-        job.number = numbering.next_job_number(session, pattern, on=job.received_on,
-                                               skip=attempt)
-        try:
-            with session.begin_nested():
-                session.add(job)
-                session.flush()
-            return
-        except IntegrityError as exc:
-            if not _is_unique_violation(exc):
-                raise
-    raise ValidationFailed("number", "could not find a free job number; try again")
+    locks.hold_sequence(session, "job_number")
+    job.number = numbering.next_job_number(session, pattern, on=job.received_on)
+    session.add(job)
+    session.flush()
 
 
 def open_return(session: Session, *, by: User, earlier_job: Job, received_on: dt.date | None
@@ -783,6 +768,7 @@ def record_run(
     assert speed is not None
     if job.state == "booked_in":
         start(session, job, by=by, reason=f"first run logged ({purpose})")
+    locks.hold_row(session, job)  # the next run number is decided on the committed runs
     seq = (session.scalar(select(func.max(Run.seq)).where(Run.job_id == job.id)) or 0) + 1
     run = Run(job=job, seq=seq, purpose=purpose, speed_rpm=speed, notes=note_text, by_id=by.id,
               earlier_trial_left_on=bool(earlier_trial_left_on and purpose == "trial"),

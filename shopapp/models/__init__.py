@@ -29,6 +29,7 @@ from shopapp.models.registry import (
     Rotor,
     RotorType,
 )
+from shopapp.models.system import NumberLock, SubmissionToken
 from shopapp.models.traceability import (
     RESIDUAL_TEST_POSITIONS,
     Arbor,
@@ -70,6 +71,7 @@ __all__ = [
     "JobTransition",
     "Machine",
     "MachineVerification",
+    "NumberLock",
     "ProvingRotor",
     "ResidualTest",
     "Rotor",
@@ -77,6 +79,7 @@ __all__ = [
     "Run",
     "RunReading",
     "ShopSettings",
+    "SubmissionToken",
     "User",
     "utcnow",
 ]

@@ -1,4 +1,10 @@
-"""Error pages: a person sees a plain page, never a traceback."""
+"""Error pages: a person sees a plain page, never a traceback.
+
+A server error may come from a failed database session (a lock wait that ran
+out, a broken connection): the handler first throws that session away and then
+renders a page that touches neither the database nor the logged-in user, so the
+error page itself cannot fail and still carries the security headers.
+"""
 
 from __future__ import annotations
 
@@ -6,21 +12,34 @@ import logging
 
 from flask import Flask, render_template, request
 from flask_wtf.csrf import CSRFError
+from sqlalchemy.exc import DBAPIError, OperationalError
 from werkzeug.exceptions import HTTPException
 
 from shopapp.core.errors import ServiceError
+from shopapp.core.extensions import discard_db_session
 
 log = logging.getLogger("shopapp.web")
+
+BUSY_MESSAGE = ("The shop's database was busy with another save for too long. Nothing was "
+                "saved; send the form again in a moment.")
 
 
 def _wants_json() -> bool:
     return request.path.startswith("/api/") or request.accept_mimetypes.best == "application/json"
 
 
-def _page(status: int, title: str, message: str):  # type: ignore[no-untyped-def]
+def _page(status: int, title: str, message: str, *, plain: bool = False):  # type: ignore[no-untyped-def]
     if _wants_json():
-        return {"error": title, "message": message}, status
-    return render_template("error.html", status=status, title=title, message=message), status
+        return {"error": {"code": status, "title": title, "message": message}}, status
+    template = "error_plain.html" if plain else "error.html"
+    return render_template(template, status=status, title=title, message=message), status
+
+
+def _is_busy(exc: DBAPIError) -> bool:
+    """A lock wait that ran out (SQLite) or a serialization failure/deadlock (PostgreSQL)."""
+    if isinstance(exc, OperationalError) and "locked" in str(exc.orig).lower():
+        return True
+    return getattr(exc.orig, "sqlstate", "") in ("40001", "40P01")
 
 
 def register_error_pages(app: Flask) -> None:
@@ -38,7 +57,20 @@ def register_error_pages(app: Flask) -> None:
     def _http(exc: HTTPException):  # type: ignore[no-untyped-def]
         return _page(exc.code or 500, exc.name, exc.description or "")
 
+    @app.errorhandler(DBAPIError)
+    def _database(exc: DBAPIError):  # type: ignore[no-untyped-def]
+        discard_db_session()
+        if _is_busy(exc):
+            log.warning("busy database on %s %s: %s", request.method, request.path, exc.orig)
+            response, status = _page(503, "Busy, nothing saved", BUSY_MESSAGE, plain=True)
+            return response, status, {"Retry-After": "2"}
+        log.exception("database error on %s %s", request.method, request.path)
+        return _page(500, "Something went wrong", "The error was logged; nothing was saved.",
+                     plain=True)
+
     @app.errorhandler(Exception)
     def _unexpected(exc: Exception):  # type: ignore[no-untyped-def]
+        discard_db_session()
         log.exception("unhandled error on %s %s", request.method, request.path)
-        return _page(500, "Something went wrong", "The error was logged; nothing was saved.")
+        return _page(500, "Something went wrong", "The error was logged; nothing was saved.",
+                     plain=True)
