@@ -32,6 +32,7 @@ import math
 import operator
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from types import MappingProxyType
 from typing import Any, Literal
 
 import numpy as np
@@ -81,13 +82,15 @@ CAUTION = (
 #: that :func:`compare_rates` needs). Keys are the rate names of
 #: ``shopapp.services.measures``; ``rejection_rate`` and ``late_rate`` are the
 #: shares of jobs rejected and dispatched after their promised date.
-HIGHER_IS_BETTER: Mapping[str, bool] = {
-    "first_pass_rate": True,
-    "promised_hit_rate": True,
-    "rework_rate": False,
-    "rejection_rate": False,
-    "late_rate": False,
-}
+HIGHER_IS_BETTER: Mapping[str, bool] = MappingProxyType(
+    {
+        "first_pass_rate": True,
+        "promised_hit_rate": True,
+        "rework_rate": False,
+        "rejection_rate": False,
+        "late_rate": False,
+    }
+)
 
 #: Fewest jobs on each side before :func:`compare_rates` calls any change.
 MIN_JOBS_TO_COMPARE = 5
@@ -254,7 +257,11 @@ def wilson_interval(
     z2n = z * z / n
     centre = (p + z2n / 2.0) / (1.0 + z2n)
     half = z / (1.0 + z2n) * math.sqrt(p * (1.0 - p) / n + z2n / (4.0 * n))
-    return max(0.0, centre - half), min(1.0, centre + half)
+    # Exact ends at x = 0 and x = n (centre − half is 0 there in exact arithmetic),
+    # and never an end on the wrong side of p̂ through rounding.
+    low = 0.0 if x == 0 else min(p, max(0.0, centre - half))
+    high = 1.0 if x == n else max(p, min(1.0, centre + half))
+    return low, high
 
 
 @dataclass(frozen=True)
@@ -645,7 +652,10 @@ class Funnel:
     flag_level: float = FLAG_LEVEL
 
     def as_json(self) -> dict[str, Any]:
-        """JSON-ready dict; see the package report for the shape."""
+        """``{"overall": Rate, "target", "flag_level", "min_jobs", "caution", "units": [...]}``.
+
+        Each unit is :meth:`FunnelUnit.as_json`; ``overall`` is :meth:`Rate.as_json`.
+        """
         return {
             "overall": self.overall.as_json(),
             "target": self.target,
@@ -1063,15 +1073,18 @@ def trend(xs: Sequence[float], ys: Sequence[float]) -> Trend:
     n = int(x.size)
     if n < 3:
         raise StatisticsInputError("xs", f"need at least 3 points for a trend, got {n}")
-    dx = x - x.mean()
-    sxx = float(dx @ dx)
-    if sxx == 0.0:
-        raise StatisticsInputError("xs", "all x values are equal; no slope can be fitted")
-    slope = float(dx @ (y - y.mean())) / sxx
-    intercept = float(y.mean()) - slope * float(x.mean())
-    residuals = y - (intercept + slope * x)
-    s2 = float(residuals @ residuals) / (n - 2)
-    stderr = math.sqrt(s2 / sxx)
+    with np.errstate(all="ignore"):  # overflow is caught below, as a field error
+        dx = x - x.mean()
+        sxx = float(dx @ dx)
+        if sxx == 0.0:
+            raise StatisticsInputError("xs", "all x values are equal; no slope can be fitted")
+        if not math.isfinite(sxx):
+            raise StatisticsInputError("xs", "values too large to fit a line")
+        slope = float(dx @ (y - y.mean())) / sxx
+        intercept = float(y.mean()) - slope * float(x.mean())
+        residuals = y - (intercept + slope * x)
+        s2 = float(residuals @ residuals) / (n - 2)
+        stderr = math.sqrt(s2 / sxx) if math.isfinite(s2) else math.inf
     if not (math.isfinite(slope) and math.isfinite(intercept) and math.isfinite(stderr)):
         raise StatisticsInputError("ys", "values too large to fit a line")
     if stderr > 0.0:
