@@ -40,6 +40,46 @@ def test_production_start_without_secret_key_is_refused(tmp_path: Path, monkeypa
         create_app({"INSTANCE_PATH": str(tmp_path), "DATABASE_URL": f"sqlite:///{tmp_path}/a.db"})
 
 
+def test_the_callers_instance_folder_is_the_one_read(tmp_path: Path, monkeypatch) -> None:
+    # Before: create_app({"INSTANCE_PATH": ...}) read ./instance/shopapp.toml, so after
+    # scripts/serve had written a secret key there, a start without a key was not refused.
+    checkout = tmp_path / "checkout"
+    (checkout / "instance").mkdir(parents=True)
+    (checkout / "instance" / "shopapp.toml").write_text('secret_key = "from-the-checkout"\n')
+    monkeypatch.chdir(checkout)
+    monkeypatch.delenv("SHOPAPP_SECRET_KEY", raising=False)
+    monkeypatch.delenv("SHOPAPP_INSTANCE_PATH", raising=False)
+    mine = tmp_path / "mine"
+    mine.mkdir()
+    with pytest.raises(ConfigError, match="SECRET_KEY is not set"):
+        create_app({"INSTANCE_PATH": str(mine), "DATABASE_URL": f"sqlite:///{mine}/a.db"})
+    (mine / "shopapp.toml").write_text('secret_key = "mine"\npage_size = 33\n')
+    app = create_app({"INSTANCE_PATH": str(mine), "DATABASE_URL": f"sqlite:///{mine}/a.db"})
+    assert app.config["SECRET_KEY"] == "mine" and app.config["PAGE_SIZE"] == 33
+    assert Path(app.instance_path) == mine.resolve()
+
+
+def test_a_numeric_secret_key_stays_a_string(tmp_path: Path) -> None:
+    # Before: SHOPAPP_SECRET_KEY=12345 became the int 12345 and every page with a session
+    # answered 500. Environment values take their key's type; a secret is always text.
+    cfg = load_config(instance_path=tmp_path, environ={"SHOPAPP_SECRET_KEY": "12345",
+                                                       "SHOPAPP_PAGE_SIZE": "40"})
+    assert cfg["SECRET_KEY"] == "12345" and cfg["PAGE_SIZE"] == 40
+    (tmp_path / "shopapp.toml").write_text("secret_key = 987654\n")
+    assert load_config(instance_path=tmp_path, environ={})["SECRET_KEY"] == "987654"
+    with pytest.raises(ConfigError, match="SHOPAPP_PAGE_SIZE"):
+        load_config(instance_path=tmp_path, environ={"SHOPAPP_PAGE_SIZE": "many"})
+
+
+def test_a_numeric_secret_key_serves_pages(tmp_path: Path, monkeypatch) -> None:
+    monkeypatch.setenv("SHOPAPP_SECRET_KEY", "12345")
+    url = f"sqlite:///{tmp_path}/a.db"
+    schema.upgrade(url)
+    app = create_app({"INSTANCE_PATH": str(tmp_path), "DATABASE_URL": url})
+    resp = app.test_client().get("/login")
+    assert resp.status_code == 200 and "session" in resp.headers.get("Set-Cookie", "")
+
+
 def test_testing_start_without_secret_key_is_allowed(tmp_path: Path) -> None:
     app = create_app(
         {"TESTING": True, "INSTANCE_PATH": str(tmp_path), "DATABASE_URL": f"sqlite:///{tmp_path}/a.db"}

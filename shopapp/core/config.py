@@ -21,11 +21,6 @@ class ConfigError(RuntimeError):
     """The configuration cannot start the application."""
 
 
-def default_instance_path() -> Path:
-    """The ``instance/`` folder: ``SHOPAPP_INSTANCE_PATH`` or ``./instance``."""
-    return Path(os.environ.get("SHOPAPP_INSTANCE_PATH", Path.cwd() / "instance")).resolve()
-
-
 def defaults(instance_path: Path) -> dict[str, Any]:
     """The built-in defaults. The database is an SQLite file in ``instance/``."""
     return {
@@ -42,19 +37,42 @@ def defaults(instance_path: Path) -> dict[str, Any]:
     }
 
 
-def _coerce(raw: str) -> Any:
-    """Turn an environment string into bool/int/float where it plainly is one."""
+# The type of every setting shopapp knows. Environment values are strings; each is
+# turned into its key's type here (a secret is always a string, even "12345").
+KEY_TYPES: dict[str, type] = {
+    "DATABASE_URL": str,
+    "SECRET_KEY": str,
+    "DEBUG": bool,
+    "TESTING": bool,
+    "SESSION_LIFETIME_MINUTES": int,
+    "SESSION_COOKIE_SECURE": bool,
+    "LOG_LEVEL": str,
+    "PAGE_SIZE": int,
+    "WTF_CSRF_ENABLED": bool,
+    "SQL_ECHO": bool,
+    "REQUIRE_SECRET_KEY": bool,
+    "BASE_URL": str,
+}
+_TRUE = {"1", "true", "yes", "on"}
+_FALSE = {"0", "false", "no", "off", ""}
+
+
+def _typed(key: str, raw: str, source: str) -> Any:
+    """``raw`` as the type of setting ``key``; unknown keys stay strings."""
+    kind = KEY_TYPES.get(key, str)
+    if kind is str:
+        return raw
     low = raw.strip().lower()
-    if low in {"true", "yes", "on"}:
-        return True
-    if low in {"false", "no", "off"}:
-        return False
-    for kind in (int, float):
-        try:
-            return kind(raw)
-        except ValueError:
-            pass
-    return raw
+    if kind is bool:
+        if low in _TRUE:
+            return True
+        if low in _FALSE:
+            return False
+        raise ConfigError(f"{source}: {raw!r} is not a yes/no value (use true or false)")
+    try:
+        return kind(raw.strip())
+    except ValueError:
+        raise ConfigError(f"{source}: {raw!r} is not a whole number") from None
 
 
 def load_config(
@@ -65,10 +83,21 @@ def load_config(
 ) -> dict[str, Any]:
     """Build the configuration in precedence order (later wins).
 
-    defaults → ``instance/shopapp.toml`` → ``SHOPAPP_*`` environment → ``overrides``.
+    defaults → ``<instance>/shopapp.toml`` → ``SHOPAPP_*`` environment → ``overrides``.
+    The instance folder is ``overrides["INSTANCE_PATH"]`` when the caller gives one
+    (that folder's ``shopapp.toml`` is the one read), else ``instance_path``, else
+    ``SHOPAPP_INSTANCE_PATH`` or ``./instance``.
     """
-    inst = instance_path or default_instance_path()
     env = os.environ if environ is None else environ
+    given = (overrides or {}).get("INSTANCE_PATH")
+    if given:
+        inst = Path(given).resolve()
+    elif instance_path is not None:
+        inst = instance_path
+    elif env.get("SHOPAPP_INSTANCE_PATH"):
+        inst = Path(env["SHOPAPP_INSTANCE_PATH"]).resolve()
+    else:
+        inst = (Path.cwd() / "instance").resolve()
     cfg = defaults(inst)
     toml_file = inst / "shopapp.toml"
     if toml_file.is_file():
@@ -77,10 +106,13 @@ def load_config(
                 data = tomllib.load(fh)
         except tomllib.TOMLDecodeError as exc:
             raise ConfigError(f"{toml_file}: not valid TOML ({exc})") from None
-        cfg.update({k.upper(): v for k, v in data.items()})
+        for key, value in data.items():
+            name = key.upper()
+            cfg[name] = str(value) if KEY_TYPES.get(name) is str else value
     for key, value in env.items():
         if key.startswith(ENV_PREFIX) and key != "SHOPAPP_INSTANCE_PATH":
-            cfg[key[len(ENV_PREFIX):]] = _coerce(value)
+            name = key[len(ENV_PREFIX):]
+            cfg[name] = _typed(name, value, key)
     if overrides:
         cfg.update(overrides)
     cfg["INSTANCE_PATH"] = str(inst)
