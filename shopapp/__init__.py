@@ -11,7 +11,7 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
-from flask import Flask
+from flask import Flask, request
 
 from shopapp.core.config import check_config, load_config
 from shopapp.core.database import Database
@@ -42,11 +42,16 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.config["PERMANENT_SESSION_LIFETIME"] = dt.timedelta(
         minutes=int(cfg["SESSION_LIFETIME_MINUTES"])
     )
-    app.config.setdefault("SESSION_COOKIE_HTTPONLY", True)
-    app.config.setdefault("SESSION_COOKIE_SAMESITE", "Lax")
+    # Flask's defaults already hold these keys, so setdefault would never apply them.
+    app.config["SESSION_COOKIE_HTTPONLY"] = True
+    app.config["SESSION_COOKIE_SAMESITE"] = cfg.get("SESSION_COOKIE_SAMESITE") or "Lax"
+    if str(cfg.get("BASE_URL") or "").startswith("https://"):
+        app.config["SESSION_COOKIE_SECURE"] = True
+        app.config["REMEMBER_COOKIE_SECURE"] = True
     configure_logging(str(cfg.get("LOG_LEVEL", "INFO")))
     register_database(app)
     register_extensions(app)
+    register_request_guards(app)
     register_blueprints(app)
     register_errorhandlers(app)
     register_security_headers(app)
@@ -71,6 +76,12 @@ def register_extensions(app: Flask) -> None:
     login_manager.session_protection = "strong"
 
 
+def register_request_guards(app: Flask) -> None:
+    from shopapp.web.guards import register_guards
+
+    register_guards(app)
+
+
 def register_blueprints(app: Flask) -> None:
     from shopapp.web import register_web
 
@@ -84,6 +95,8 @@ def register_errorhandlers(app: Flask) -> None:
 
 
 def register_security_headers(app: Flask) -> None:
+    https = str(app.config.get("BASE_URL") or "").startswith("https://")
+
     @app.after_request
     def _headers(response):  # type: ignore[no-untyped-def]
         response.headers.setdefault("X-Content-Type-Options", "nosniff")
@@ -95,6 +108,11 @@ def register_security_headers(app: Flask) -> None:
             "script-src 'self'; frame-ancestors 'none'; form-action 'self'",
         )
         response.headers.setdefault("Permissions-Policy", "camera=(), microphone=()")
+        if https:
+            response.headers.setdefault("Strict-Transport-Security", "max-age=31536000")
+        if request.endpoint != "static":
+            # Pages and files carry shop data: no shared or back-button caches keep them.
+            response.headers.setdefault("Cache-Control", "no-store")
         return response
 
 

@@ -1,0 +1,59 @@
+"""Hostile input and safe defaults that hold for every route (shopapp.web.guards)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from shopapp import create_app
+
+
+@pytest.mark.parametrize("url", ["/jobs/99999999999999999999", "/jobs/9223372036854775808",
+                                 "/jobs/2147483648", "/jobs/0", "/customers/18446744073709551616",
+                                 "/certificates/99999999999999999999/pdf"])
+def test_ids_out_of_range_are_404(client, login_as, url: str) -> None:
+    # Before: 500 from an integer overflow in the database driver (2^63 SQLite, 2^31 PG).
+    login_as("quality")
+    assert client.get(url).status_code == 404
+
+
+def test_a_nul_in_the_login_form_is_refused_not_a_crash(client) -> None:
+    # Before: 500 on PostgreSQL, unauthenticated (psycopg refuses NUL in a string).
+    resp = client.post("/login", data={"username": "ad\x00min", "password": "x"})
+    assert resp.status_code == 400
+    assert "control character" in resp.get_data(as_text=True)
+
+
+@pytest.mark.parametrize("url", ["/verify?q=a%00b", "/jobs/?q=%00", "/customers/?q=x%01y"])
+def test_control_characters_in_queries_are_refused(client, login_as, url: str) -> None:
+    login_as("operator")
+    resp = client.get(url)
+    assert resp.status_code == 400
+    assert "control character" in resp.get_data(as_text=True)
+
+
+def test_newlines_and_tabs_in_form_text_are_allowed(client, login_as) -> None:
+    login_as("operator")
+    resp = client.post("/customers/new", data={"name": "Invented Fans", "address": "1 Road\r\n\tX"})
+    assert resp.status_code in (200, 302)
+
+
+def test_session_cookie_is_samesite_lax_and_pages_are_not_cached(client, login_as) -> None:
+    # Before: Flask's default config holds SESSION_COOKIE_SAMESITE=None, so the app's
+    # setdefault("…", "Lax") never applied and the cookie went out without SameSite.
+    cookie = client.get("/login").headers.get("Set-Cookie", "")
+    assert cookie.startswith("session=") and "SameSite=Lax" in cookie and "HttpOnly" in cookie
+    login_as("operator")
+    resp = client.get("/")
+    assert resp.headers["Cache-Control"] == "no-store"
+
+
+def test_https_base_url_makes_cookies_secure_and_sends_hsts(tmp_path: Path) -> None:
+    app = create_app({"TESTING": True, "SECRET_KEY": "k", "INSTANCE_PATH": str(tmp_path),
+                      "DATABASE_URL": f"sqlite:///{tmp_path}/a.db",
+                      "BASE_URL": "https://balancing.example.test"})
+    assert app.config["SESSION_COOKIE_SECURE"] is True
+    assert app.config["SESSION_COOKIE_SAMESITE"] == "Lax"
+    resp = app.test_client().get("/healthz")
+    assert resp.headers["Strict-Transport-Security"].startswith("max-age=")
