@@ -7,7 +7,7 @@ import sys
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-PARTS = ("calc", "certificate", "dashboard")
+PARTS = ("calc", "certificate", "dashboard", "load")
 
 
 def _run(part: str) -> None:

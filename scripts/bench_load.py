@@ -1,0 +1,295 @@
+"""``scripts/bench load``: a busy shop against a real server, side by side with its floor.
+
+Starts ``shopapp serve`` (waitress, 4 threads) on a free loopback port over a
+fresh database — SQLite in a temp folder, and PostgreSQL too when
+``SHOPAPP_BENCH_POSTGRES_URL`` names an empty database — with the invented demo
+shop (a short history, no certificates). Then USERS operators, each logged in on
+its own cookie jar, run a fixed mix for a bounded time: job page, job list,
+dashboard (as owner), start page, and a run posted on their own open job. The
+same mix by one user gives the single-user median; ``/healthz`` under the same
+load settings is the floor.
+
+Prints one JSON object per backend: requests, errors (any status other than
+200/302), req/s, p50/p95/p99 in ms, runs posted vs stored (lost rows), whether
+each job's run numbers are gapless, peak RSS of the server, and the ratio
+p95(load) / median(single user) with its goal (≤ 4) and whether it is met.
+Only loopback addresses are used; every loop is bounded in count and time.
+"""
+
+from __future__ import annotations
+
+import http.cookiejar
+import json
+import os
+import re
+import secrets
+import socket
+import statistics
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+import urllib.error
+import urllib.parse
+import urllib.request
+from pathlib import Path
+from typing import Any
+
+ROOT = Path(__file__).resolve().parent.parent
+SHOPAPP = str(ROOT / ".venv" / "bin" / "shopapp")
+USERS = int(os.environ.get("SHOPAPP_BENCH_USERS", "8"))
+SECONDS = float(os.environ.get("SHOPAPP_BENCH_SECONDS", "20"))
+MAX_REQUESTS_PER_USER = 2000
+PASSWORD = "bench-" + secrets.token_hex(8)
+GOAL_P95_RATIO = 4.0
+_CSRF = re.compile(r'name="csrf_token"[^>]*value="([^"]+)"')
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def _env(instance: Path, url: str) -> dict[str, str]:
+    env = dict(os.environ)
+    env.update({"SHOPAPP_INSTANCE_PATH": str(instance), "SHOPAPP_DATABASE_URL": url,
+                "SHOPAPP_SECRET_KEY": secrets.token_hex(16), "SHOPAPP_LOG_LEVEL": "WARNING"})
+    return env
+
+
+def _prepare(env: dict[str, str]) -> None:
+    def run(*args: str, stdin: str | None = None) -> None:
+        subprocess.run([SHOPAPP, *args], env=env, check=True, input=stdin, text=True,
+                       capture_output=True, timeout=600)
+
+    run("db", "upgrade")
+    run("demo", "load", "--years", "0.1", "--no-certificates")
+    for i in range(USERS):
+        run("user", "add", f"bench{i}", "--role", "operator", "--full-name", f"Bench {i}",
+            "--password-stdin", stdin=PASSWORD + "\n")
+    run("user", "add", "benchowner", "--role", "owner", "--password-stdin", stdin=PASSWORD + "\n")
+
+
+class Client:
+    """One person's browser: a cookie jar and the CSRF token of the last page."""
+
+    def __init__(self, base: str) -> None:
+        self.base = base
+        self.opener = urllib.request.build_opener(
+            urllib.request.HTTPCookieProcessor(http.cookiejar.CookieJar()),
+            _NoRedirect())
+        self.csrf = ""
+
+    def get(self, path: str) -> tuple[int, str]:
+        return self._open(urllib.request.Request(self.base + path))
+
+    def post(self, path: str, data: dict[str, str]) -> tuple[int, str]:
+        body = urllib.parse.urlencode({**data, "csrf_token": self.csrf}).encode()
+        return self._open(urllib.request.Request(self.base + path, data=body, method="POST"))
+
+    def _open(self, req: urllib.request.Request) -> tuple[int, str]:
+        try:
+            with self.opener.open(req, timeout=60) as resp:
+                text = resp.read().decode("utf-8", "replace")
+                status = resp.status
+        except urllib.error.HTTPError as exc:
+            text = exc.read().decode("utf-8", "replace")
+            status = exc.code
+        m = _CSRF.search(text)
+        if m:
+            self.csrf = m.group(1)
+        return status, text
+
+    def login(self, username: str) -> None:
+        self.get("/login")
+        status, _ = self.post("/login", {"username": username, "password": PASSWORD})
+        if status != 302:
+            raise RuntimeError(f"login of {username} answered {status}")
+        self.get("/")
+
+
+class _NoRedirect(urllib.request.HTTPRedirectHandler):
+    def redirect_request(self, *_a: Any, **_k: Any) -> None:
+        return None
+
+
+def _open_job_ids(base: str, client: Client, count: int) -> list[int]:
+    _, page = client.get("/jobs/?state=on_machine")
+    ids = sorted({int(x) for x in re.findall(r'href="/jobs/(\d+)"', page)})
+    if len(ids) < count:
+        _, page = client.get("/jobs/")
+        ids = sorted({int(x) for x in re.findall(r'href="/jobs/(\d+)"', page)})
+    return ids[:count]
+
+
+def _mix(client: Client, job_id: int, owner: Client, step: int) -> tuple[str, int]:
+    kind = step % 5
+    if kind == 0:
+        return "job", client.get(f"/jobs/{job_id}")[0]
+    if kind == 1:
+        return "list", client.get("/jobs/?q=a")[0]
+    if kind == 2:
+        return "dashboard", owner.get("/dashboard")[0]
+    if kind == 3:
+        return "home", client.get("/")[0]
+    _, page = client.get(f"/jobs/{job_id}")
+    speed = re.search(r'name="run-speed_rpm"[^>]*value="([^"]*)"', page)
+    unit = re.search(r'name="run-unit".*?<option[^>]*value="([^"]+)"[^>]*selected', page, re.S)
+    status, _ = client.post(f"/jobs/{job_id}/runs", {
+        "run-purpose": "check", "run-speed_rpm": speed.group(1) if speed else "600",
+        "run-unit": unit.group(1) if unit else "um",
+        "run-amplitude_1": "1.5", "run-angle_1_deg": "10",
+        "run-amplitude_2": "1.2", "run-angle_2_deg": "200"})
+    return "post", status
+
+
+def _measure(base: str, users: int, seconds: float, jobs: list[int]) -> dict[str, Any]:
+    clients = []
+    for i in range(users):
+        c = Client(base)
+        c.login(f"bench{i}")
+        clients.append(c)
+    owners = []
+    for _ in range(users):
+        o = Client(base)
+        o.login("benchowner")
+        owners.append(o)
+    times: list[float] = []
+    statuses: list[int] = []
+    posted: list[int] = [0]
+    lock = threading.Lock()
+    stop_at = time.monotonic() + seconds
+
+    def work(i: int) -> None:
+        step = i
+        for _ in range(MAX_REQUESTS_PER_USER):
+            if time.monotonic() > stop_at:
+                break
+            t0 = time.perf_counter()
+            kind, status = _mix(clients[i], jobs[i % len(jobs)], owners[i], step)
+            dt = time.perf_counter() - t0
+            with lock:
+                times.append(dt)
+                statuses.append(status)
+                if kind == "post" and status == 302:
+                    posted[0] += 1
+            step += 1
+
+    threads = [threading.Thread(target=work, args=(i,)) for i in range(users)]
+    t_start = time.perf_counter()
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(timeout=seconds + 120)
+    elapsed = time.perf_counter() - t_start
+    ms = sorted(x * 1000 for x in times)
+
+    def pct(p: float) -> float:
+        return round(ms[min(len(ms) - 1, int(p / 100 * len(ms)))], 1) if ms else 0.0
+
+    errors = sum(1 for s in statuses if s not in (200, 302))
+    return {"requests": len(ms), "errors": errors, "req_per_s": round(len(ms) / elapsed, 1),
+            "p50_ms": pct(50), "p95_ms": pct(95), "p99_ms": pct(99),
+            "median_ms": round(statistics.median(ms), 1) if ms else 0.0,
+            "runs_posted": posted[0]}
+
+
+def _floor(base: str, seconds: float) -> float:
+    c = Client(base)
+    ms = []
+    stop_at = time.monotonic() + seconds
+    for _ in range(MAX_REQUESTS_PER_USER):
+        if time.monotonic() > stop_at:
+            break
+        t0 = time.perf_counter()
+        c.get("/healthz")
+        ms.append((time.perf_counter() - t0) * 1000)
+    return round(statistics.median(ms), 2)
+
+
+def _stored_runs(url: str, job_ids: list[int]) -> tuple[int, bool]:
+    from sqlalchemy import create_engine, text
+
+    eng = create_engine(url.replace("postgresql://", "postgresql+psycopg://", 1))
+    total, gapless = 0, True
+    with eng.connect() as conn:
+        for job_id in job_ids:
+            seqs = [r[0] for r in conn.execute(
+                text("SELECT seq FROM run WHERE job_id = :j ORDER BY seq"), {"j": job_id})]
+            total += len(seqs)
+            gapless = gapless and seqs == list(range(1, len(seqs) + 1))
+    eng.dispose()
+    return total, gapless
+
+
+def _rss_kb(pid: int) -> int:
+    try:
+        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1])
+    except OSError:
+        pass
+    return 0
+
+
+def bench(backend: str, url: str) -> dict[str, Any]:
+    with tempfile.TemporaryDirectory(prefix="shopapp-bench-load-") as tmp:
+        instance = Path(tmp)
+        env = _env(instance, url)
+        _prepare(env)
+        port = _free_port()
+        server = subprocess.Popen([SHOPAPP, "serve", "--host", "127.0.0.1", "--port", str(port),
+                                   "--threads", "4"], env=env, stdout=subprocess.DEVNULL,
+                                  stderr=subprocess.DEVNULL)
+        base = f"http://127.0.0.1:{port}"
+        try:
+            for _ in range(200):
+                try:
+                    urllib.request.urlopen(base + "/healthz", timeout=2)
+                    break
+                except (urllib.error.URLError, ConnectionError):
+                    time.sleep(0.1)
+            probe = Client(base)
+            probe.login("bench0")
+            jobs = _open_job_ids(base, probe, USERS)
+            if not jobs:
+                raise RuntimeError("the demo shop has no job to post runs to")
+            before, _ = _stored_runs(url, jobs)
+            single = _measure(base, 1, min(SECONDS / 2, 10.0), jobs)
+            load = _measure(base, USERS, SECONDS, jobs)
+            floor_ms = _floor(base, 3.0)
+            after, gapless = _stored_runs(url, jobs)
+            rss = _rss_kb(server.pid)
+        finally:
+            server.terminate()
+            server.wait(timeout=30)
+    posted = single["runs_posted"] + load["runs_posted"]
+    ratio = round(load["p95_ms"] / single["median_ms"], 2) if single["median_ms"] else None
+    return {"load": {
+        "backend": backend, "server": "waitress, 4 threads", "users": USERS,
+        "seconds": SECONDS, "single_user": single, "under_load": load,
+        "floor_healthz_median_ms": floor_ms,
+        "runs_posted": posted, "runs_stored": after - before, "lost_rows": posted - (after - before),
+        "run_numbers_gapless": gapless, "server_peak_rss_mb": round(rss / 1024, 1),
+        "p95_over_single_median": ratio, "goal": f"<= {GOAL_P95_RATIO}, 0 errors, 0 lost rows",
+        "met": bool(ratio is not None and ratio <= GOAL_P95_RATIO and load["errors"] == 0
+                    and single["errors"] == 0 and posted == after - before and gapless),
+    }}
+
+
+def main() -> None:
+    with tempfile.TemporaryDirectory(prefix="shopapp-bench-db-") as tmp:
+        print(json.dumps(bench("sqlite", f"sqlite:///{tmp}/bench.sqlite3")))
+    pg = os.environ.get("SHOPAPP_BENCH_POSTGRES_URL")
+    if pg:
+        print(json.dumps(bench("postgresql", pg)))
+    else:
+        print(json.dumps({"load": {"backend": "postgresql",
+                                   "skipped": "set SHOPAPP_BENCH_POSTGRES_URL to an empty "
+                                              "database to measure it"}}))
+
+
+if __name__ == "__main__":
+    sys.exit(main())
