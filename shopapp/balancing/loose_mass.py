@@ -43,7 +43,7 @@ from scipy.integrate import solve_ivp
 from scipy.linalg import null_space
 
 from shopapp.balancing.checks import finite_array, positive
-from shopapp.balancing.dynamics import SPEED_CAUTION, jeffcott_response
+from shopapp.balancing.dynamics import jeffcott_response
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.loose_mass_model import (
     LooseMassBalancer,
@@ -86,11 +86,14 @@ STABLE_EPS = 1e-9  # largest real part (per unit ω_n time) still counted as dec
 SAMPLES = 1200
 
 LOOSE_MASS_CAUTIONS = (
-    "A loose-mass balancer only works above the support's resonance: below and while "
-    "passing through it the masses add to the unbalance. Pass through the resonance briskly.",
-    "The masses are loose parts: check the race, its cover and its fixing before every run; "
-    "keep clear of the plane of rotation.",
-    SPEED_CAUTION,
+    "A loose-mass balancer only works above the support's resonance: below it and while "
+    "passing through it the masses add to the unbalance. Pass through the resonance briskly "
+    "and never dwell near it.",
+    "The masses are loose parts: check the race, its cover and its fixing before every run and "
+    "keep clear of the plane of rotation; a failed race throws them out.",
+    "Never run above the rotor's permitted speed or its machine maker's limits (over-speed). "
+    "Local codes, the machine maker's instructions and licensed practice take precedence over "
+    "this advice.",
 )
 
 
@@ -251,8 +254,8 @@ def simulate_run_up(
 ) -> RunUpSimulation:
     """Integrate a linear run-up from rest to ``speed_rpm`` and a hold there.
 
-    The full nonlinear equations of the module docstring, in the rotor frame,
-    are integrated with :func:`scipy.integrate.solve_ivp` (RK45; LSODA when
+    The full nonlinear equations of :mod:`shopapp.balancing.loose_mass_model`,
+    in the rotor frame, are integrated with :func:`scipy.integrate.solve_ivp` (RK45; LSODA when
     there is rolling resistance, which makes them stiff). Speed
     ``Ω(t) = Ω_op·min(t / t_ramp, 1)``.
 
@@ -266,7 +269,8 @@ def simulate_run_up(
         Duration of the run-up, > 0; default 50 natural periods.
     hold_time_s : float, optional
         Time at speed after the run-up, > 0; default from the settling estimate
-        of the linearised equations, 50 … 600 natural periods.
+        of the linearised equations (3 × the time for a small upset to shrink
+        a hundredfold), 100 … 600 natural periods.
     initial_ball_angles_deg : sequence of float, optional
         Where the masses start; default evenly spaced about the light side.
     locked : bool
@@ -312,7 +316,8 @@ def simulate_run_up(
     tol = {"rtol": 1e-5, "atol": 1e-7}  # state scaled: whirl in units of U/M_t, angles in rad
 
     t_all = np.linspace(0.0, tau_ramp + tau_hold, SAMPLES)
-    t1 = t_all[t_all <= tau_ramp]
+    # The ramp's samples end exactly at its end: the hold starts from that state.
+    t1 = np.append(t_all[t_all < tau_ramp], tau_ramp)
     t2 = t_all[t_all > tau_ramp]
     sol1 = solve_ivp(
         lambda t, y: rhs(y, acc * t, acc, p), (0.0, tau_ramp), y0, t_eval=t1, method=method, **tol
@@ -329,9 +334,6 @@ def simulate_run_up(
         raise BalancingInputError("speed_rpm", "the simulation did not converge at these inputs")
     ys = np.hstack([sol1.y, sol2.y])
     ts = np.concatenate([sol1.t, sol2.t])
-    if ts.size and ts[-1] < tau_ramp + tau_hold:  # t_eval may end short of the end point
-        ys = np.hstack([ys, sol2.y[:, -1:]])
-        ts = np.append(ts, sol2.t[-1])
     whirl = np.hypot(ys[0], ys[1]) * b.whirl_scale_um
     time_s = ts / wn
     profile = np.minimum(ts * acc, spd_op) * wn * 30.0 / math.pi

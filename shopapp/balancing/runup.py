@@ -44,9 +44,12 @@ Definitions of this module:
 Rules of this module (judgement, no source): at least :data:`MIN_POINTS`
 readings; peaks are local maxima of the runout-corrected amplitude standing out
 by :data:`PEAK_PROMINENCE` of the largest amplitude (at most :data:`MAX_PEAKS`,
-the most prominent); the fit residual is the RMS
-misfit of the vectors in percent of the peak amplitude, "loose" above
-:data:`FIT_WARN_PCT` and "poor, unreliable" above :data:`FIT_POOR_PCT`.
+the most prominent); the fit residual is the RMS misfit of the vectors in
+percent of the peak amplitude, "loose" above :data:`FIT_WARN_PCT` and "poor,
+unreliable" above :data:`FIT_POOR_PCT`.
+
+Safety: a run-up passes through resonances and may approach the permitted
+speed; every result carries :data:`RUNUP_CAUTIONS`.
 """
 
 from __future__ import annotations
@@ -61,7 +64,6 @@ from scipy.optimize import least_squares
 from scipy.signal import find_peaks
 
 from shopapp.balancing.checks import finite_array, positive
-from shopapp.balancing.dynamics import SPEED_CAUTION
 from shopapp.balancing.errors import BalancingInputError
 
 MIN_POINTS = 5
@@ -78,8 +80,13 @@ MEASURED_QUANTITIES = {"displacement": 0, "velocity": 1, "acceleration": 2}
 
 RUNUP_CAUTIONS = (
     "Pass through a resonance briskly and never dwell at it: vibration there can damage "
-    "bearings, seals and the rotor, and can loosen or throw correction masses.",
-    SPEED_CAUTION,
+    "bearings, seals and the rotor, and can loosen and throw correction masses; keep clear of "
+    "the plane of rotation.",
+    "Never run above the rotor's permitted speed or the machine maker's limits (over-speed), "
+    "also not to complete a run-up record.",
+    "The separation-margin rule here is an API-style rule quoted from memory: where a "
+    "standard, a contract or the machine maker sets the margin, theirs applies. Local codes "
+    "and licensed practice take precedence over this advice.",
 )
 
 
