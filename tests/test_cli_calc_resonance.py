@@ -143,6 +143,11 @@ def test_loose_mass_with_stiffness_and_below_resonance() -> None:
     assert any("not stable" in w for w in out["warnings"])
 
 
+def test_loose_mass_from_eccentricity() -> None:
+    req = dict(BENCH, unbalance_gmm=None, eccentricity_um=150.0, hold_time_s=1.0)
+    assert _ok("loose-mass", req)["unbalance_gmm"] == pytest.approx(1500.0)  # U = M·ε
+
+
 def test_loose_mass_capacity_too_small() -> None:
     out = _ok("loose-mass", dict(BENCH, ball_mass_g=5.0, hold_time_s=1.0))
     assert out["capacity_ok"] is False
@@ -186,6 +191,7 @@ BAD = [
         "points",
     ),
     ("loose-mass", dict(BENCH, rotor_mass_kg=0), "rotor_mass_kg"),
+    ("loose-mass", dict(BENCH, unbalance_gmm=None), "unbalance_gmm"),
     ("loose-mass", dict(BENCH, rotor_mass_kg=-5), "rotor_mass_kg"),
     ("loose-mass", dict(BENCH, race_radius_mm=-50), "race_radius_mm"),
     ("loose-mass", dict(BENCH, ball_mass_g=0), "ball_mass_g"),

@@ -98,8 +98,9 @@ class LooseMassBalancer:
 
 def loose_mass_balancer(
     rotor_mass_kg: float,
-    unbalance_gmm: float,
+    unbalance_gmm: float | None = None,
     *,
+    eccentricity_um: float | None = None,
     damping_ratio: float,
     ball_count: int,
     ball_mass_g: float,
@@ -119,7 +120,10 @@ def loose_mass_balancer(
     rotor_mass_kg : float
         Mass M of the rotor without the loose masses, > 0.
     unbalance_gmm : float
-        Unbalance U = M·ε of the rotor, > 0.
+        Unbalance U = M·ε of the rotor, > 0; or
+    eccentricity_um : float
+        ε, the distance of the rotor's centre of mass from the shaft axis, > 0
+        (U in g·mm = M in kg × ε in µm).
     damping_ratio : float
         Support damping ratio ζ = c / (2·√(k·M_t)), > 0.
     ball_count : int
@@ -136,7 +140,14 @@ def loose_mass_balancer(
         c_rr, resistance to rolling as a fraction of the centrifugal force, >= 0.
     """
     mass = positive("rotor_mass_kg", rotor_mass_kg)
-    u = positive("unbalance_gmm", unbalance_gmm)
+    if (unbalance_gmm is None) == (eccentricity_um is None):
+        raise BalancingInputError(
+            "unbalance_gmm", "give the unbalance or the eccentricity (one of them)"
+        )
+    if unbalance_gmm is not None:
+        u = positive("unbalance_gmm", unbalance_gmm)
+    else:
+        u = mass * positive("eccentricity_um", eccentricity_um)  # type: ignore[arg-type]
     zeta = positive("damping_ratio", damping_ratio)
     n = whole("ball_count", ball_count, 1)
     if n > MAX_BALLS:

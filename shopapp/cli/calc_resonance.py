@@ -134,7 +134,8 @@ def calc_loose_mass(req: Request) -> Response:
 
     balancer = loose_mass.loose_mass_balancer(
         number(req, "rotor_mass_kg"),
-        number(req, "unbalance_gmm"),
+        opt_number(req, "unbalance_gmm"),
+        eccentricity_um=opt_number(req, "eccentricity_um"),
         damping_ratio=number(req, "damping_ratio"),
         ball_count=integer(req, "ball_count"),
         ball_mass_g=number(req, "ball_mass_g"),
@@ -156,6 +157,7 @@ def calc_loose_mass(req: Request) -> Response:
         "capacity_ok": res.capacity_ok,
         "capacity_gmm": balancer.capacity_gmm,
         "capacity_ratio": balancer.capacity_ratio,
+        "unbalance_gmm": balancer.unbalance_gmm,
         "ball_angles_deg": list(res.ball_angles_deg),
         "balanced_state_stable": res.balanced_state_stable,
         "stable_band_rpm": [list(band) for band in res.stable_band_rpm],

@@ -77,6 +77,13 @@ def test_many_balls_balance_and_move_least(n) -> None:
     assert np.sum(moved**2) <= np.sum((shrunk - ring) ** 2) + 1e-9
 
 
+def test_eccentricity_or_unbalance() -> None:
+    # U = M·ε: 10 kg × 200 µm = 2000 g·mm (unit identity g·mm = kg·µm).
+    b = _bench(u=None, eccentricity_um=200.0)
+    assert b.unbalance_gmm == pytest.approx(2000.0)
+    assert b.eccentricity_um == pytest.approx(200.0)
+
+
 def test_capacity_too_small() -> None:
     b = _bench(ball_mass_g=5.0)  # n·m·R = 500 g·mm < 2000 g·mm
     assert lm.balanced_ball_angles_deg(b) is None
@@ -352,6 +359,9 @@ BAD = [
     ({"stiffness_n_per_m": 1e5}, "natural_frequency_hz"),
     ({"natural_frequency_hz": None}, "natural_frequency_hz"),
     ({"rolling_resistance": -0.01}, "rolling_resistance"),
+    ({"u": None}, "unbalance_gmm"),
+    ({"eccentricity_um": 200.0}, "unbalance_gmm"),
+    ({"u": None, "eccentricity_um": 0.0}, "eccentricity_um"),
     ({"u": 1e6, "race_radius_mm": 50.0}, "unbalance_gmm"),  # ε = 100 mm > R/2
 ]
 
