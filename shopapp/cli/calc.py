@@ -14,7 +14,6 @@ import json
 import math
 import sys
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager
 from typing import Any
 
 import click
@@ -30,124 +29,26 @@ from shopapp.balancing import (
     verification,
 )
 from shopapp.balancing.errors import BalancingInputError
-from shopapp.balancing.phasors import amplitude_angle, phasor
+from shopapp.balancing.phasors import amplitude_angle
+from shopapp.cli.calc_input import Request, Response
+from shopapp.cli.calc_input import as_list as _list
+from shopapp.cli.calc_input import as_number as _as_number
+from shopapp.cli.calc_input import as_object as _object
+from shopapp.cli.calc_input import integer as _integer
+from shopapp.cli.calc_input import number as _number
+from shopapp.cli.calc_input import number_or as _number_or
+from shopapp.cli.calc_input import opt_number as _opt_number
+from shopapp.cli.calc_input import path as _path
+from shopapp.cli.calc_input import reading as _reading
+from shopapp.cli.calc_input import readings as _readings
+from shopapp.cli.calc_input import renamed_fields as _fields
+from shopapp.cli.calc_input import require as _require
+from shopapp.cli.calc_input import text as _text
+from shopapp.cli.calc_input import unbalance as _unbalance
+from shopapp.cli.calc_resonance import RESONANCE_KINDS
 
 EXIT_BAD_INPUT = 2
 EXIT_FAILED = 1
-
-Request = dict[str, Any]
-Response = dict[str, Any]
-
-
-# --------------------------------------------------------------------------- request reading
-
-
-def _path(parent: str, key: str | int) -> str:
-    if isinstance(key, int):
-        return f"{parent}[{key}]"
-    return f"{parent}.{key}" if parent else key
-
-
-def _require(obj: Request, key: str, parent: str = "") -> Any:
-    if key not in obj or obj[key] is None:
-        raise BalancingInputError(_path(parent, key), "is required")
-    return obj[key]
-
-
-def _object(value: Any, field: str) -> Request:
-    if not isinstance(value, dict):
-        raise BalancingInputError(field, "must be a JSON object")
-    return value
-
-
-def _list(value: Any, field: str) -> list[Any]:
-    if not isinstance(value, list):
-        raise BalancingInputError(field, "must be a JSON list")
-    return value
-
-
-def _as_number(value: Any, field: str) -> float:
-    # JSON booleans are ints to Python; a number typed as text is refused, not guessed.
-    if isinstance(value, bool) or not isinstance(value, int | float):
-        raise BalancingInputError(field, f"must be a number, got {json.dumps(value)}")
-    out = float(value)
-    if not math.isfinite(out):
-        raise BalancingInputError(field, f"must be a finite number, got {value!r}")
-    return out
-
-
-def _number(obj: Request, key: str, parent: str = "") -> float:
-    return _as_number(_require(obj, key, parent), _path(parent, key))
-
-
-def _opt_number(obj: Request, key: str, parent: str = "") -> float | None:
-    if obj.get(key) is None:
-        return None
-    return _as_number(obj[key], _path(parent, key))
-
-
-def _number_or(obj: Request, key: str, default: float) -> float:
-    value = _opt_number(obj, key)
-    return default if value is None else value
-
-
-def _integer(obj: Request, key: str, parent: str = "") -> int:
-    value = _number(obj, key, parent)
-    if value != int(value):
-        raise BalancingInputError(_path(parent, key), f"must be a whole number, got {value:g}")
-    return int(value)
-
-
-def _text(obj: Request, key: str, default: str, parent: str = "") -> str:
-    value = obj.get(key, default)
-    if not isinstance(value, str):
-        raise BalancingInputError(_path(parent, key), "must be text")
-    return value
-
-
-def _reading(value: Any, field: str) -> complex:
-    """``{"amplitude", "angle_deg"}`` → complex phasor."""
-    obj = _object(value, field)
-    return phasor(_number(obj, "amplitude", field), _number(obj, "angle_deg", field), field=field)
-
-
-def _readings(value: Any, field: str) -> list[complex]:
-    items = _list(value, field)
-    if not items:
-        raise BalancingInputError(field, "must list at least one reading")
-    return [_reading(item, _path(field, k)) for k, item in enumerate(items)]
-
-
-def _unbalance(value: Any, field: str) -> complex:
-    """``{"unbalance_gmm", "angle_deg"}`` or ``{"mass_g", "radius_mm", "angle_deg"}`` → g·mm."""
-    obj = _object(value, field)
-    angle = _number(obj, "angle_deg", field)
-    if "unbalance_gmm" in obj:
-        amount = _number(obj, "unbalance_gmm", field)
-        name = "unbalance_gmm"
-    elif "mass_g" in obj:
-        mass = _number(obj, "mass_g", field)
-        radius = _number(obj, "radius_mm", field)
-        if radius <= 0.0:
-            raise BalancingInputError(_path(field, "radius_mm"), "must be greater than zero")
-        amount, name = mass * radius, "mass_g"
-    else:
-        raise BalancingInputError(
-            _path(field, "unbalance_gmm"), "is required (or mass_g with radius_mm)"
-        )
-    if amount < 0.0:
-        raise BalancingInputError(_path(field, name), "must not be negative")
-    return phasor(amount, angle, field=field)
-
-
-@contextmanager
-def _fields(mapping: dict[str, str] | None = None, prefix: str = "") -> Iterator[None]:
-    """Rename the core's field names to the request's (``grade_mm_s`` → ``grade``)."""
-    try:
-        yield
-    except BalancingInputError as exc:
-        field = (mapping or {}).get(exc.field, prefix + exc.field)
-        raise BalancingInputError(field, exc.message) from None
 
 
 # --------------------------------------------------------------------------- response building
@@ -770,6 +671,7 @@ KINDS: dict[str, Callable[[Request], Response]] = {
     "combine": calc_combine,
     "machine-proving": calc_machine_proving,
     "rigid-flexible": calc_rigid_flexible,
+    **RESONANCE_KINDS,  # run-up, loose-mass (shopapp/cli/calc_resonance.py)
 }
 
 
