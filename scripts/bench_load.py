@@ -271,7 +271,8 @@ def bench(backend: str, url: str) -> dict[str, Any]:
         "backend": backend, "server": "waitress, 4 threads", "users": USERS,
         "seconds": SECONDS, "single_user": single, "under_load": load,
         "floor_healthz_median_ms": floor_ms,
-        "runs_posted": posted, "runs_stored": after - before, "lost_rows": posted - (after - before),
+        "runs_posted": posted, "runs_stored": after - before,
+        "lost_rows": posted - (after - before),
         "run_numbers_gapless": gapless, "server_peak_rss_mb": round(rss / 1024, 1),
         "p95_over_single_median": ratio, "goal": f"<= {GOAL_P95_RATIO}, 0 errors, 0 lost rows",
         "met": bool(ratio is not None and ratio <= GOAL_P95_RATIO and load["errors"] == 0

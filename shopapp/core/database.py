@@ -99,7 +99,7 @@ class Database:
         Must be called before the session's first statement; later it is a no-op
         for the transaction already open.
         """
-        sess.connection(execution_options={WRITE_OPTION: True})
+        sess.connection(execution_options={"shopapp_write": True})  # WRITE_OPTION
 
     @contextmanager
     def write_session(self) -> Iterator[Session]:
