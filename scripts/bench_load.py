@@ -115,13 +115,35 @@ class _NoRedirect(urllib.request.HTTPRedirectHandler):
         return None
 
 
-def _open_job_ids(base: str, client: Client, count: int) -> list[int]:
-    _, page = client.get("/jobs/?state=on_machine")
-    ids = sorted({int(x) for x in re.findall(r'href="/jobs/(\d+)"', page)})
-    if len(ids) < count:
-        _, page = client.get("/jobs/")
-        ids = sorted({int(x) for x in re.findall(r'href="/jobs/(\d+)"', page)})
-    return ids[:count]
+def _book_jobs(url: str, client: Client, count: int) -> list[int]:
+    """Book ``count`` fresh jobs through the intake form (one per bench operator)."""
+    from sqlalchemy import create_engine, text
+
+    eng = create_engine(url.replace("postgresql://", "postgresql+psycopg://", 1))
+    with eng.connect() as conn:
+        rt = conn.execute(text(
+            "SELECT id, customer_id, mass_kg, service_speed_rpm FROM rotor_type "
+            "WHERE one_off = :f ORDER BY id"), {"f": False}).first()
+        m = conn.execute(text(
+            "SELECT id, min_speed_rpm, max_speed_rpm FROM machine WHERE min_mass_kg <= :kg "
+            "AND max_mass_kg >= :kg ORDER BY id"), {"kg": rt.mass_kg}).first()
+    eng.dispose()
+    speed = max(m.min_speed_rpm, min(rt.service_speed_rpm, m.max_speed_rpm) * 0.5)
+    ids = []
+    for i in range(count):
+        client.get("/jobs/new")
+        status, _ = client.post("/jobs/new", {
+            "customer_id": str(rt.customer_id),
+            "serial_number": f"BENCH-{i}-{secrets.token_hex(2)}",
+            "rotor_type_id": str(rt.id), "machine_id": str(m.id),
+            "balancing_speed_rpm": f"{speed:.0f}", "tolerance_method": "grade",
+            "tolerance_grade": "6.3", "received_on": time.strftime("%Y-%m-%d"),
+            "one_off-kind": "other", "one_off-method_1": "add"})
+        if status != 302:
+            raise RuntimeError(f"booking a bench job answered {status}")
+        _, page = client.get("/jobs")
+        ids.append(max(int(x) for x in re.findall(r'href="/jobs/(\d+)"', page)))
+    return ids
 
 
 def _mix(client: Client, job_id: int, owner: Client, step: int) -> tuple[str, int]:
@@ -129,7 +151,7 @@ def _mix(client: Client, job_id: int, owner: Client, step: int) -> tuple[str, in
     if kind == 0:
         return "job", client.get(f"/jobs/{job_id}")[0]
     if kind == 1:
-        return "list", client.get("/jobs/?q=a")[0]
+        return "list", client.get("/jobs?q=a")[0]
     if kind == 2:
         return "dashboard", owner.get("/dashboard")[0]
     if kind == 3:
@@ -253,9 +275,7 @@ def bench(backend: str, url: str) -> dict[str, Any]:
                     time.sleep(0.1)
             probe = Client(base)
             probe.login("bench0")
-            jobs = _open_job_ids(base, probe, USERS)
-            if not jobs:
-                raise RuntimeError("the demo shop has no job to post runs to")
+            jobs = _book_jobs(url, probe, USERS)
             before, _ = _stored_runs(url, jobs)
             single = _measure(base, 1, min(SECONDS / 2, 10.0), jobs)
             load = _measure(base, USERS, SECONDS, jobs)
