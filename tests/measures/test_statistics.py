@@ -30,7 +30,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from statsmodels.stats.proportion import proportion_confint, proportions_ztest
 
-from shopapp.measures.statistics import (
+from shopapp.measures.stats import (
     CAUTION,
     FLAG_LEVEL,
     HIGHER_IS_BETTER,
