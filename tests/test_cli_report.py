@@ -15,7 +15,7 @@ import pytest
 from click.testing import CliRunner
 from sqlalchemy.orm import Session
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as certificates
 from shopapp.cli import main
 from shopapp.core.database import make_engine
 from shopapp.models import Base

@@ -9,7 +9,8 @@ from wtforms import DateField, SelectField, StringField, TextAreaField
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import DataRequired, Length, Optional, ValidationError
 
-from shopapp.certificates.services import MAX_REASON_LENGTH, MIN_REASON_LENGTH, RegisterFilter
+from shopapp.certificates.issue import MAX_REASON_LENGTH, MIN_REASON_LENGTH
+from shopapp.certificates.register import RegisterFilter
 
 
 class IssueForm(FlaskForm):

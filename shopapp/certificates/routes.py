@@ -3,6 +3,7 @@ void, rotor history PDFs, and the public verification page ``/verify`` (no login
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 from flask import (
@@ -17,11 +18,10 @@ from flask import (
     url_for,
 )
 from flask_login import current_user
-from sqlalchemy import select
-from sqlalchemy.orm import joinedload
 from werkzeug.routing import BuildError
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as issuing
+from shopapp.certificates import queries, register
 from shopapp.certificates.forms import (
     IssueForm,
     ReasonForm,
@@ -32,17 +32,16 @@ from shopapp.certificates.forms import (
 from shopapp.charts.svg import to_svg
 from shopapp.core.errors import NotFound, ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
+from shopapp.core.forms import apply_errors
 from shopapp.core.pagination import page_number
 from shopapp.core.permissions import can
-from shopapp.core.web import acting_user, requires
+from shopapp.core.web import acting_user, get_or_404, page_size, requires
 from shopapp.jobs import rotor_history
-from shopapp.models import Certificate, Job, Rotor, RotorType
+from shopapp.models import Certificate, Job, Rotor, RotorType, User
 from shopapp.reports import certificate as certificate_report
 from shopapp.reports import rotor_history as history_report
 
 bp = Blueprint("certificates", __name__, template_folder="templates")
-
-PER_PAGE = 25
 
 
 def _pdf(data: bytes, filename: str, *, inline: bool = False) -> Response:
@@ -51,18 +50,6 @@ def _pdf(data: bytes, filename: str, *, inline: bool = False) -> Response:
         "Content-Disposition": f'{disposition}; filename="{filename}"',
         "Cache-Control": "private, no-store",
     })
-
-
-def _cert_or_404(cert_id: int) -> Certificate:
-    sess = db_session()
-    cert = sess.scalars(
-        select(Certificate).where(Certificate.id == cert_id)
-        .options(joinedload(Certificate.job).joinedload(Job.customer),
-                 joinedload(Certificate.job).joinedload(Job.rotor).joinedload(Rotor.rotor_type))
-    ).first()
-    if cert is None:
-        abort(404, description=f"No certificate with id {cert_id}.")
-    return cert
 
 
 def job_link(job: Job) -> str | None:
@@ -89,13 +76,11 @@ def index():  # type: ignore[no-untyped-def]
         status = 422
     else:
         try:
-            page = certificates.search(sess, form.filter(),
+            page = register.search(sess, form.filter(),
                                        page=page_number(request.args.get("page")),
-                                       per_page=PER_PAGE)
+                                       per_page=page_size())
         except ValidationFailed as exc:
-            for name, message in exc.errors.items():
-                if name in form:
-                    form[name].errors = [message]
+            apply_errors(form, exc)
             status = 422
     zip_form = ZipForm(request.args if "date_from" in request.args else None)
     return render_template("certificates/index.html", form=form, page=page,
@@ -105,15 +90,15 @@ def index():  # type: ignore[no-untyped-def]
 @bp.get("/certificates/<int:cert_id>")
 @requires("read")
 def detail(cert_id: int):  # type: ignore[no-untyped-def]
-    cert = _cert_or_404(cert_id)
     sess = db_session()
-    data = certificates.certificate_data(cert)
+    cert = get_or_404(sess, Certificate, cert_id)
+    data = issuing.certificate_data(cert)
     plots = [to_svg(f) for f in certificate_report.polar_figures(data)]
     return render_template(
         "certificates/detail.html", cert=cert, data=data, plots=plots,
         lines=certificate_report.first_lines(data),
-        revisions=certificates.revisions(sess, cert.number),
-        verification=certificates.verify(sess, cert.pdf_sha256),
+        revisions=queries.revisions(sess, cert.number),
+        verification=register.verify(sess, cert.pdf_sha256),
         issue_form=IssueForm(), job_link=job_link(cert.job),
     )
 
@@ -121,8 +106,8 @@ def detail(cert_id: int):  # type: ignore[no-untyped-def]
 @bp.get("/certificates/<int:cert_id>/pdf")
 @requires("read")
 def download(cert_id: int):  # type: ignore[no-untyped-def]
-    cert = _cert_or_404(cert_id)
-    return _pdf(cert.pdf, certificates.file_name(cert), inline=request.args.get("inline") == "1")
+    cert = get_or_404(db_session(), Certificate, cert_id)
+    return _pdf(cert.pdf, register.file_name(cert), inline=request.args.get("inline") == "1")
 
 
 @bp.get("/certificates/audit.zip", endpoint="zip")
@@ -133,11 +118,9 @@ def audit_zip():  # type: ignore[no-untyped-def]
     if form.validate():
         start, end = form.range()
         try:
-            data = certificates.audit_zip(sess, start, end)
+            data = register.audit_zip(sess, start, end)
         except ValidationFailed as exc:
-            for name, message in exc.errors.items():
-                if name in form:
-                    form[name].errors = [message]
+            apply_errors(form, exc)
         else:
             name = f"certificates-{start.isoformat()}-to-{end.isoformat()}.zip"
             return Response(data, mimetype="application/zip", headers={
@@ -155,18 +138,12 @@ def audit_zip():  # type: ignore[no-untyped-def]
 @requires("issue_certificates")
 def issue(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = sess.scalars(
-        select(Job).where(Job.id == job_id)
-        .options(joinedload(Job.customer), joinedload(Job.machine),
-                 joinedload(Job.rotor).joinedload(Rotor.rotor_type))
-    ).first()
-    if job is None:
-        abort(404, description=f"No job with id {job_id}.")
+    job = get_or_404(sess, Job, job_id)
     form = IssueForm()
     if not form.validate_on_submit():
         abort(400, description="The form expired; reload the page and try again.")
     try:
-        cert = certificates.issue(sess, job, by=acting_user())
+        cert = issuing.issue(sess, job, by=acting_user())
         sess.commit()
     except ServiceError as exc:
         sess.rollback()
@@ -181,55 +158,54 @@ def _reason_page(cert: Certificate, form: ReasonForm, action: str, status: int =
     return render_template("certificates/reason.html", cert=cert, form=form, action=action), status
 
 
-@bp.route("/certificates/<int:cert_id>/reissue", methods=["GET", "POST"])
-@requires("issue_certificates")
-def reissue(cert_id: int):  # type: ignore[no-untyped-def]
-    cert = _cert_or_404(cert_id)
+def _with_reason(cert_id: int, action: str,
+                 change: Callable[[Certificate, User, str], Certificate],
+                 done: Callable[[Certificate, Certificate], str]):  # type: ignore[no-untyped-def]
+    """The reason form of a reissue or a void: show it, or ``change`` and show the result.
+
+    ``change(cert, by, reason)`` is the one use-case; ``done(old, result)`` the flash text.
+    """
+    sess = db_session()
+    cert = get_or_404(sess, Certificate, cert_id)
     form = ReasonForm()
     if request.method == "GET":
-        return _reason_page(cert, form, "reissue")
+        return _reason_page(cert, form, action)
     if not form.validate_on_submit():
-        return _reason_page(cert, form, "reissue", 422)
-    sess = db_session()
+        return _reason_page(cert, form, action, 422)
     try:
-        new = certificates.reissue(sess, cert, by=acting_user(), reason=form.reason.data or "")
+        result = change(cert, acting_user(), form.reason.data or "")
         sess.commit()
     except ValidationFailed as exc:
         sess.rollback()
         form.reason.errors = [exc.errors.get("reason", exc.message)]
-        return _reason_page(cert, form, "reissue", 422)
+        return _reason_page(cert, form, action, 422)
     except ServiceError as exc:
         sess.rollback()
         form.reason.errors = [exc.message]
-        return _reason_page(cert, form, "reissue", exc.status)
-    flash(f"Revision {new.revision} of {new.number} issued; revision {cert.revision} is void.",
-          "success")
-    return redirect(url_for("certificates.detail", cert_id=new.id))
+        return _reason_page(cert, form, action, exc.status)
+    flash(done(cert, result), "success")
+    return redirect(url_for("certificates.detail", cert_id=result.id))
+
+
+@bp.route("/certificates/<int:cert_id>/reissue", methods=["GET", "POST"])
+@requires("issue_certificates")
+def reissue(cert_id: int):  # type: ignore[no-untyped-def]
+    return _with_reason(
+        cert_id, "reissue",
+        lambda cert, by, reason: issuing.reissue(db_session(), cert, by=by, reason=reason),
+        lambda old, new: (f"Revision {new.revision} of {new.number} issued; revision "
+                          f"{old.revision} is void."),
+    )
 
 
 @bp.route("/certificates/<int:cert_id>/void", methods=["GET", "POST"])
 @requires("issue_certificates")
 def void(cert_id: int):  # type: ignore[no-untyped-def]
-    cert = _cert_or_404(cert_id)
-    form = ReasonForm()
-    if request.method == "GET":
-        return _reason_page(cert, form, "void")
-    if not form.validate_on_submit():
-        return _reason_page(cert, form, "void", 422)
-    sess = db_session()
-    try:
-        certificates.void(sess, cert, by=acting_user(), reason=form.reason.data or "")
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        form.reason.errors = [exc.errors.get("reason", exc.message)]
-        return _reason_page(cert, form, "void", 422)
-    except ServiceError as exc:
-        sess.rollback()
-        form.reason.errors = [exc.message]
-        return _reason_page(cert, form, "void", exc.status)
-    flash(f"{cert.number} revision {cert.revision} is void.", "success")
-    return redirect(url_for("certificates.detail", cert_id=cert.id))
+    return _with_reason(
+        cert_id, "void",
+        lambda cert, by, reason: issuing.void(db_session(), cert, by=by, reason=reason),
+        lambda old, _void: f"{old.number} revision {old.revision} is void.",
+    )
 
 
 # --------------------------------------------------------------------------- rotor history
@@ -239,9 +215,7 @@ def void(cert_id: int):  # type: ignore[no-untyped-def]
 @requires("read")
 def rotor_history_pdf(rotor_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    rotor = sess.get(Rotor, rotor_id)
-    if rotor is None:
-        abort(404, description=f"No rotor with id {rotor_id}.")
+    rotor = get_or_404(sess, Rotor, rotor_id)
     try:
         data = rotor_history.build(sess, rotor)
     except NotFound as exc:
@@ -253,9 +227,7 @@ def rotor_history_pdf(rotor_id: int):  # type: ignore[no-untyped-def]
 @requires("read")
 def rotor_type_history_pdf(rotor_type_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    rt = sess.get(RotorType, rotor_type_id)
-    if rt is None:
-        abort(404, description=f"No rotor type with id {rotor_type_id}.")
+    rt = get_or_404(sess, RotorType, rotor_type_id)
     data = rotor_history.build_for_type(sess, rt)
     return _pdf(history_report.render_type(data), f"rotor-type-history-{rt.part_number}.pdf")
 
@@ -272,7 +244,7 @@ def verify():  # type: ignore[no-untyped-def]
     if "q" in request.args:
         if form.validate():
             try:
-                result = certificates.verify(db_session(), form.q.data or "")
+                result = register.verify(db_session(), form.q.data or "")
             except ValidationFailed as exc:
                 form.q.errors = [exc.errors.get("q", exc.message)]
                 status = 422
@@ -289,10 +261,10 @@ def _panels() -> dict[str, Any]:
     """Helpers for the panels other areas include (start page, job page)."""
 
     def certificate_queue(limit: int = 8) -> tuple[list[Job], int]:
-        return certificates.certification_queue(db_session(), limit=limit)
+        return queries.certification_queue(db_session(), limit=limit)
 
     def job_certificates(job: Job) -> list[Certificate]:
-        return certificates.job_certificates(db_session(), job)
+        return queries.job_certificates(db_session(), job)
 
     def may_issue() -> bool:
         return can(current_user, "issue_certificates") if current_user else False

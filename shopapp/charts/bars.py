@@ -20,6 +20,7 @@ from dataclasses import dataclass
 
 from shopapp.charts.primitives import Figure, Line, Rect, Text
 from shopapp.charts.trend import nice_step
+from shopapp.core.display import number
 
 BAR_STYLES: tuple[str, ...] = ("bar2", "bar", "bar_bad")
 _CHAR_W = 0.62  # average glyph width / font size (a wide sans such as DejaVu), for fitting labels
@@ -51,7 +52,7 @@ def bar_figure(
     series: Sequence[str],
     title: str = "",
     x_max: float | None = None,
-    value_format: Callable[[float], str] = lambda v: f"{v:g}",
+    value_format: Callable[[float], str] = lambda v: number(v, trim=True),
     styles: Sequence[str] = BAR_STYLES,
     width: float = 520.0,
     bar_h: float = 10.0,
@@ -69,7 +70,8 @@ def bar_figure(
     x_max : float, optional
         Fixed right end of the value axis; otherwise the largest value rounded up.
     value_format : callable
-        Text of a value (ticks and bar-end labels).
+        Text of a value (ticks and bar-end labels); default three significant figures
+        without trailing zeros (:func:`shopapp.core.display.number`).
 
     Returns
     -------

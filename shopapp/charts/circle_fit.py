@@ -23,6 +23,7 @@ from dataclasses import dataclass
 from shopapp.balancing.phasors import to_display_deg
 from shopapp.charts.polar import nice_ceiling, point
 from shopapp.charts.primitives import Circle, Figure, Line, Polyline, Text
+from shopapp.core.display import number, quantity
 
 _MARGIN = 22.0
 _LEGEND_ROW = 13.0
@@ -36,10 +37,6 @@ class ReadingPoint:
     position_deg: float
     amplitude: float
     angle_deg: float | None = None
-
-
-def _fmt(v: float) -> str:
-    return f"{v:.3g}"
 
 
 def circle_fit_figure(
@@ -111,13 +108,13 @@ def circle_fit_figure(
 
     for i in range(1, 5):
         fig.add(Circle(cx, cy, plot_r * i / 4.0, style="grid"))
-    fig.add(Text(cx + 3.0, cy + plot_r + 2.0, _fmt(outer), style="small"))
+    fig.add(Text(cx + 3.0, cy + plot_r + 2.0, number(outer, trim=True), style="small"))
     for i in range(12):
         d = i * 30.0
         x2, y2 = point(cx, cy, plot_r, d)
         fig.add(Line(cx, cy, x2, y2, style="grid"))
         lx, ly = point(cx, cy, plot_r + 10.0, d)
-        fig.add(Text(lx, ly - 3.0, f"{d:.0f}°", style="small", anchor="middle"))
+        fig.add(Text(lx, ly - 3.0, quantity(d, "°"), style="small", anchor="middle"))
 
     if has_fit and phase and centre_amplitude is not None and centre_angle_deg is not None:
         assert circle_radius is not None
@@ -133,13 +130,13 @@ def circle_fit_figure(
     for n, p in enumerate(pts, start=1):
         ang = p.angle_deg if phase and p.angle_deg is not None else p.position_deg
         px, py = point(cx, cy, p.amplitude * k, disp(ang))
-        fig.add(Circle(px, py, 2.5, style="point",
-                       title=f"position {n}: {_fmt(p.amplitude)} {unit_label}".strip()))
+        text = f"position {n}: {number(p.amplitude, trim=True)} {unit_label}".strip()
+        fig.add(Circle(px, py, 2.5, style="point", title=text))
         tx, ty = point(cx, cy, p.amplitude * k + 9.0, disp(ang))
         fig.add(Text(tx, ty - 3.0, str(n), style="small", anchor="middle"))
 
     y = legend_h - _LEGEND_ROW
-    fig.add(Text(6.0, y, f"{title}  (outer ring {_fmt(outer)} {unit_label})".strip(),
+    fig.add(Text(6.0, y, f"{title}  (outer ring {number(outer, trim=True)} {unit_label})".strip(),
                  style="label"))
     y -= _LEGEND_ROW
     fig.add(Circle(18.0, y + 3.0, 2.5, style="point"))

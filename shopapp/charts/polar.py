@@ -23,6 +23,7 @@ from dataclasses import dataclass
 
 from shopapp.balancing.phasors import to_display_deg
 from shopapp.charts.primitives import Circle, Figure, Line, Text
+from shopapp.core.display import number, quantity
 
 VECTOR_STYLES = ("initial", "check", "residual", "trial")
 _NICE = (1.0, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 6.0, 8.0, 10.0)
@@ -50,10 +51,6 @@ def nice_ceiling(value: float) -> float:
         if step * base >= value * (1 - 1e-12):
             return step * base
     return 10.0 * base
-
-
-def _fmt(v: float) -> str:
-    return f"{v:.0f}" if abs(v) >= 1000 else f"{v:.3g}"
 
 
 def point(cx: float, cy: float, radius: float, display_deg: float) -> tuple[float, float]:
@@ -102,7 +99,8 @@ def polar_figure(
                              f"{unit_label}, 0° at the top, angles growing clockwise")
     cx, cy = size / 2.0, legend_h + size / 2.0
     plot_r = size / 2.0 - _MARGIN
-    biggest = max([v.magnitude for v in usable] + ([limit] if has_limit else []) + [0.0])
+    biggest = max([v.magnitude for v in usable]
+                  + ([limit] if has_limit and limit is not None else []) + [0.0])
     outer = nice_ceiling(biggest)
     k = plot_r / outer
 
@@ -112,17 +110,18 @@ def polar_figure(
     # Ring values along the 15° direction, clear of the 0° label.
     for frac in (0.5, 1.0):
         lx, ly = point(cx, cy, plot_r * frac - 6.0, 15.0)
-        fig.add(Text(lx + 2.0, ly, _fmt(outer * frac), style="small"))
+        fig.add(Text(lx + 2.0, ly, number(outer * frac, trim=True), style="small"))
     n_spokes = max(1, round(360.0 / spoke_deg))
     for i in range(n_spokes):
         d = i * 360.0 / n_spokes
         x2, y2 = point(cx, cy, plot_r, d)
         fig.add(Line(cx, cy, x2, y2, style="grid"))
         lx, ly = point(cx, cy, plot_r + 10.0, d)
-        fig.add(Text(lx, ly - 3.0, f"{d:.0f}°", style="small", anchor="middle"))
+        fig.add(Text(lx, ly - 3.0, quantity(d, "°"), style="small", anchor="middle"))
     if has_limit:
         assert limit is not None
-        fig.add(Circle(cx, cy, limit * k, style="limit", title=f"limit {_fmt(limit)} {unit_label}"))
+        fig.add(Circle(cx, cy, limit * k, style="limit",
+                       title=f"limit {number(limit, trim=True)} {unit_label}"))
 
     for v in usable:
         d = to_display_deg(v.angle_deg, sense=angle_sense, zero_deg=angle_zero_deg)
@@ -137,20 +136,21 @@ def polar_figure(
 
     # Legend: a line sample in the series' style, the label, magnitude and display angle.
     y = legend_h - _LEGEND_ROW
-    fig.add(Text(6.0, y, f"{title}  (outer ring {_fmt(outer)} {unit_label})".strip(),
+    fig.add(Text(6.0, y, f"{title}  (outer ring {number(outer, trim=True)} {unit_label})".strip(),
                  style="label"))
     for v in usable:
         y -= _LEGEND_ROW
         d = to_display_deg(v.angle_deg, sense=angle_sense, zero_deg=angle_zero_deg)
         style = v.style if v.style in VECTOR_STYLES else "check"
         fig.add(Line(6.0, y + 3.0, 30.0, y + 3.0, style=style))
-        fig.add(Text(36.0, y, f"{_short(v.label)} {v.label}: {_fmt(v.magnitude)} {unit_label} "
-                              f"at {d:.0f}°", style="small"))
+        fig.add(Text(36.0, y, f"{_short(v.label)} {v.label}: "
+                              f"{number(v.magnitude, trim=True)} {unit_label} "
+                              f"at {quantity(d, '°')}", style="small"))
     if has_limit:
         assert limit is not None
         y -= _LEGEND_ROW
         fig.add(Line(6.0, y + 3.0, 30.0, y + 3.0, style="limit"))
-        fig.add(Text(36.0, y, f"tolerance {_fmt(limit)} {unit_label}", style="small"))
+        fig.add(Text(36.0, y, f"tolerance {number(limit, trim=True)} {unit_label}", style="small"))
     return fig
 
 

@@ -23,6 +23,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 from shopapp.charts.primitives import Circle, Figure, Line, Polyline, Rect, Text
+from shopapp.core.display import number
 
 MARKERS: tuple[str, ...] = ("circle", "square", "triangle", "diamond")
 SERIES_STYLES: tuple[str, ...] = ("series", "series2", "series3")
@@ -106,7 +107,7 @@ def trend_figure(
     y_max: float | None = None,
     limit: float | None = None,
     limit_label: str = "limit",
-    y_format: Callable[[float], str] = lambda v: f"{v:g}",
+    y_format: Callable[[float], str] = lambda v: number(v, trim=True),
     x_format: Callable[[str | dt.date], str] | None = None,
     width: float = 520.0,
     height: float = 240.0,
@@ -159,12 +160,12 @@ def trend_figure(
     # y ticks and grid
     k = 0
     while True:
-        v = y0 + k * step
-        if v > y1 + step * 1e-6:
+        tick = y0 + k * step
+        if tick > y1 + step * 1e-6:
             break
-        yy = ypos(v)
+        yy = ypos(tick)
         fig.add(Line(left, yy, left + plot_w, yy, style="grid" if k else "axis"))
-        fig.add(Text(left - 4.0, yy - 3.0, y_format(v), style="small", anchor="end"))
+        fig.add(Text(left - 4.0, yy - 3.0, y_format(tick), style="small", anchor="end"))
         k += 1
     fig.add(Line(left, bottom, left, bottom + plot_h, style="axis"))
     # x labels
@@ -207,16 +208,12 @@ def trend_figure(
     if limit is not None:
         entries.append((limit_label, "limit", None))
     col_w = plot_w / 3
-    for i, (label, line_style, shape) in enumerate(entries):
+    for i, (label, line_style, legend_shape) in enumerate(entries):
         lx = left + (i % 3) * col_w
         ly = bottom - 28.0 - (i // 3) * _LEGEND_ROW
         fig.add(Line(lx, ly + 3.0, lx + 22.0, ly + 3.0, style=line_style))
-        if shape:
-            fig.add(_marker(shape, lx + 11.0, ly + 3.0, "point", None, None))
+        if legend_shape:
+            fig.add(_marker(legend_shape, lx + 11.0, ly + 3.0, "point", None, None))
         fig.add(Text(lx + 27.0, ly, label, style="small"))
     return fig
 
-
-def percent(v: float) -> str:
-    """Tick text for a rate 0..1 as a whole percentage."""
-    return f"{v * 100:.0f} %"

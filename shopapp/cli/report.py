@@ -15,7 +15,8 @@ from pathlib import Path
 import click
 from flask.cli import with_appcontext
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import queries as certificates
+from shopapp.certificates import register
 from shopapp.cli.common import app_db, one_line_errors
 from shopapp.cli.report_shop import shop_command
 from shopapp.jobs import rotor_history
@@ -60,7 +61,7 @@ def verify_command(file: Path) -> None:
     """Check a certificate PDF: hash its bytes and look them up (exit 0 only when valid)."""
     pdf = file.read_bytes()
     with app_db().session() as sess:
-        result, remark = certificates.verify_file(sess, pdf)
+        result, remark = register.verify_file(sess, pdf)
     click.echo(f"{result.status}: {result.message}")
     for label, value in result.lines:
         click.echo(f"  {label}: {value}")

@@ -15,8 +15,9 @@ import click
 from flask.cli import with_appcontext
 
 from shopapp.cli.common import app_db, one_line_errors
+from shopapp.measures import monthly
 from shopapp.measures import services as measures
-from shopapp.reports import shop_month
+from shopapp.measures.periods import parse_month
 
 
 @click.command("shop")
@@ -34,13 +35,13 @@ def shop_command(month: str, output: Path | None, as_json: bool,
     """The month's shop measures as a two-page PDF (--output) and/or JSON (--json)."""
     if output is None and not as_json:
         raise click.UsageError("give --output FILE.pdf, --json, or both")
-    period = measures.parse_month(month)
+    period = parse_month(month)
     today = as_of.date() if as_of else dt.date.today()
     with app_db().session() as sess:
         report = measures.shop_report(sess, period, by=None, today=today)
     if output is not None:
         output.parent.mkdir(parents=True, exist_ok=True)
-        output.write_bytes(shop_month.render(report))
+        output.write_bytes(monthly.render(report))
         if not as_json:
             click.echo(f"wrote {output}: shop report {period.label}")
     if as_json:

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
-from typing import Any
+from typing import Any, overload
 
 from shopapp.balancing.phasors import from_display_deg, to_display_deg
 from shopapp.balancing.units import convert_unbalance
@@ -41,13 +41,15 @@ def _finite(value: Any) -> float | None:
     return out if math.isfinite(out) else None
 
 
-def number(value: Any, sig: int = 3) -> str:
+def number(value: Any, sig: int = 3, *, trim: bool = False) -> str:
     """``value`` with ``sig`` significant figures and never an exponent.
 
     Numbers of ``sig`` digits or more before the point print as whole numbers
     (18 900 g·mm is ``18900``, not ``1.89e+04``); smaller ones get the decimals
     the figures need (``12.3``, ``0.00123``). None, NaN and infinity print as an
-    en dash.
+    en dash. ``trim`` drops trailing zeros after the point (``10`` rather than
+    ``10.0``): chart ticks and labels, where ``format(v, ".3g")`` was used, without
+    its exponent.
     """
     v = _finite(value)
     if v is None:
@@ -58,7 +60,8 @@ def number(value: Any, sig: int = 3) -> str:
     if mag >= 10 ** (sig - 1):
         return f"{v:.0f}"
     decimals = max(0, sig - 1 - math.floor(math.log10(mag)))
-    return f"{v:.{decimals}f}"
+    text = f"{v:.{decimals}f}"
+    return text.rstrip("0").rstrip(".") if trim and "." in text else text
 
 
 def fixed(value: Any, decimals: int) -> str:
@@ -70,10 +73,7 @@ def fixed(value: Any, decimals: int) -> str:
 def plain(value: Any) -> str:
     """A number as typed back into a form field: up to 6 significant figures, no exponent."""
     v = _finite(value)
-    if v is None:
-        return ""
-    text = number(v, 6)
-    return text.rstrip("0").rstrip(".") if "." in text else text
+    return "" if v is None else number(v, 6, trim=True)
 
 
 def quantity(value: Any, unit: str) -> str:
@@ -126,6 +126,12 @@ class ShopDisplay:
         self.sense: str = settings.angle_sense
         self.zero: float = settings.angle_zero_deg
         self.unit: str = settings.unbalance_unit
+
+    @overload
+    def angle(self, internal_deg: float) -> float: ...
+
+    @overload
+    def angle(self, internal_deg: None) -> None: ...
 
     def angle(self, internal_deg: float | None) -> float | None:
         """An internal angle as the shop reads it (degrees), or None."""

@@ -40,7 +40,7 @@ balanced on it (which subtract its latest measured error, and whose
 simulated readings carry the true error), key conventions on two rotor
 types, residual-unbalance tests of the jobs that require one (4W/N and the
 customer who asks), made before certifying, and every certificate through
-:func:`shopapp.certificates.services.issue` / ``reissue`` / ``void`` with
+:func:`shopapp.certificates.issue.issue` / ``reissue`` / ``void`` with
 their historical times.
 
 :func:`generate_bulk` builds a much larger history (e.g. 100 000 jobs and
@@ -1945,7 +1945,7 @@ def _replay(session: Session, gen: _Generator, steps: Steps | None) -> int:
     In the order things happened: each job is put in the state it had at that
     moment (from the transitions written for it) so the services judge it as
     they would have, then given back its final state. Certificates:
-    :func:`shopapp.certificates.services.issue` (which marks the job certified
+    :func:`shopapp.certificates.issue.issue` (which marks the job certified
     and writes that transition), ``reissue`` (a few, for an order reference
     the first revision carried mistyped) and ``void`` (a certified job
     reopened), each with its historical time; the PDFs are rendered as they
@@ -1975,7 +1975,8 @@ def _replay_ops(session: Session, gen: _Generator,
                 ops: list[tuple[dt.datetime, int, int, str, dict[str, Any]]],
                 users: dict[int, User | None], quality: User, touched: dict[int, Job],
                 steps: Steps | None) -> int:
-    from shopapp.certificates import services as cert_service
+    from shopapp.certificates import issue as cert_service
+    from shopapp.certificates import queries as cert_queries
     from shopapp.core.errors import ServiceError as _ServiceError
     from shopapp.jobs import certificate_link
 
@@ -2001,7 +2002,7 @@ def _replay_ops(session: Session, gen: _Generator,
                                         **fields)
             elif data["what"] == "issue":
                 order_ref = job.customer_order_ref
-                first = job_id in reissued and not cert_service.job_certificates(session, job)
+                first = job_id in reissued and not cert_queries.job_certificates(session, job)
                 if first:
                     # The first copy carried the customer's order reference mistyped.
                     job.customer_order_ref = order_ref[:-1] + "0"

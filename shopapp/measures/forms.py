@@ -10,7 +10,7 @@ from wtforms import DateField, HiddenField, SelectField
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import Optional
 
-from shopapp.measures.services import Period, Scope
+from shopapp.measures.periods import Period, Scope
 
 # Longest custom range, so one request cannot ask for decades of work.
 MAX_CUSTOM_DAYS = 3 * 366

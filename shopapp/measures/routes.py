@@ -21,14 +21,18 @@ from flask import Blueprint, Response, current_app, render_template, request, ur
 from flask_login import current_user
 
 from shopapp.charts.svg import to_svg
+from shopapp.core import display
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.permissions import can
-from shopapp.core.web import requires
+from shopapp.core.web import acting_user, requires
+from shopapp.measures import monthly
 from shopapp.measures import services as measures
+from shopapp.measures.charts import rework_bars, trend_chart
+from shopapp.measures.figures import DIMENSION_LABELS, DIMENSIONS, FIGURE_NAMES, SliceRow
 from shopapp.measures.forms import SCOPE_FIELDS, PeriodForm, period_args
-from shopapp.measures.services import DIMENSION_LABELS, DIMENSIONS, Period, Scope, SliceRow
-from shopapp.reports import shop_month
+from shopapp.measures.periods import Period, Scope, parse_month
+from shopapp.measures.texts import headline_rows, measure_text
 
 bp = Blueprint("dashboard", __name__, template_folder="templates")
 
@@ -58,28 +62,14 @@ SLICE_COLUMNS: tuple[tuple[str, str], ...] = (
 )
 
 
-def fmt(name: str, value: Any) -> str:
-    """How the page and the CSV print a measure (CSV rates stay fractions, see csv_value)."""
-    if value is None:
-        return "–"
-    if name.endswith("_rate"):
-        return shop_month.fmt_rate(value)
-    if name == "correction_cycles_mean":
-        return shop_month.fmt_mean(value)
-    if isinstance(value, float):
-        return shop_month.fmt_days(value)
-    return str(value)
-
-
 def csv_value(value: Any) -> str:
-    """Plain machine-readable text: rates as fractions to 4 places, empty for none."""
-    if value is None:
-        return ""
-    if isinstance(value, float):
-        return f"{value:.4f}".rstrip("0").rstrip(".") if value % 1 else f"{value:.0f}"
+    """A CSV cell: text as it is, dates as ISO dates, numbers machine-readable (rates as
+    fractions to 4 places, empty for none)."""
+    if isinstance(value, str):
+        return value
     if isinstance(value, dt.date):
-        return value.isoformat()
-    return str(value)
+        return display.date(value)
+    return display.csv_number(value)
 
 
 # --------------------------------------------------------------------------- links
@@ -93,7 +83,7 @@ def jobs_url(args: dict[str, Any]) -> str:
 
 def _month_range(key: str) -> tuple[str, str]:
     start = dt.date(int(key[:4]), int(key[5:7]), 1)
-    return start.isoformat(), measures.Period.month(start.year, start.month).end.isoformat()
+    return start.isoformat(), Period.month(start.year, start.month).end.isoformat()
 
 
 class Links:
@@ -178,7 +168,7 @@ def _parse() -> tuple[PeriodForm, Period, Scope, list[str], bool]:
 
 def _report(period: Period, scope: Scope) -> measures.ShopReport:
     return measures.shop_report(db_session(), period, scope=scope, today=_today(),
-                                by=current_user._get_current_object())
+                                by=acting_user())
 
 
 def _scope_labels(report: measures.ShopReport) -> list[tuple[str, str, str]]:
@@ -204,14 +194,14 @@ def index():  # type: ignore[no-untyped-def]
     links = Links(period, scope)
     args = period_args(period, scope)
     charts = {
-        "trend": to_svg(shop_month.trend_chart(
+        "trend": to_svg(trend_chart(
             report.trend,
             link=lambda r, what: Links(report.trend_period or period, scope).measure(
                 r, "rework" if what == "rework" else "reached_in_tolerance"),
         )),
     }
     for dim in ("rotor_type", "operator", "machine", "customer"):
-        charts[dim] = to_svg(shop_month.rework_bars(
+        charts[dim] = to_svg(rework_bars(
             report.slices.get(dim, []), by_label=DIMENSION_LABELS[dim], link=links.chart))
     prev_args = period_args(period.previous(), scope)
     next_start = period.end + dt.timedelta(days=1)
@@ -223,8 +213,8 @@ def index():  # type: ignore[no-untyped-def]
     return render_template(
         "dashboard/index.html",
         form=form, report=report, links=links, charts=charts, args=args, notes=notes,
-        headline=shop_month.headline_rows(report.figures, report.previous),
-        slice_columns=SLICE_COLUMNS, dimension_labels=DIMENSION_LABELS, fmt=fmt,
+        headline=headline_rows(report.figures, report.previous),
+        slice_columns=SLICE_COLUMNS, dimension_labels=DIMENSION_LABELS, fmt=measure_text,
         prev_url=url_for("dashboard.index", **prev_args),
         next_url=url_for("dashboard.index", **period_args(nxt, scope)),
         report_month=f"{min(period.end, _today()):%Y-%m}",
@@ -238,12 +228,12 @@ def table_rows(report: measures.ShopReport, table: str) -> tuple[list[str], list
     if table == "headline":
         header = ["measure", report.period.label, report.previous_period.label]
         now, before = report.figures.as_dict(), report.previous.as_dict()
-        return header, [[name, now[name], before[name]] for name in measures.FIGURE_NAMES]
+        return header, [[name, now[name], before[name]] for name in FIGURE_NAMES]
     if table in SLICE_TABLES or table == "trend":
         dim = SLICE_TABLES.get(table, "month")
         rows = report.trend if table == "trend" else report.slices.get(dim, [])
         header = [dim, f"{dim}_id" if dim != "month" else "month_key",
-                  *measures.FIGURE_NAMES]
+                  *FIGURE_NAMES]
         return header, [[r.label, r.key, *r.figures.as_dict().values()] for r in rows]
     if table == "rework_reasons":
         return ["reason", "jobs"], [[r.reason, r.count] for r in report.rework_reasons]
@@ -253,7 +243,7 @@ def table_rows(report: measures.ShopReport, table: str) -> tuple[list[str], list
         return (["serial_number", "customer", "rotor_type", "latest_job", "received_on",
                  "unit", "initial_amplitudes_oldest_first"],
                 [[w.serial_number, w.customer, w.rotor_type, w.job_number, w.received_on,
-                  w.unit, " ".join(f"{a:g}" for a in w.initial_amplitudes)]
+                  w.unit, " ".join(display.csv_number(a) for a in w.initial_amplitudes)]
                  for w in report.rotors_getting_worse])
     return (["machine", "jobs", "runs", "last_verified_on", "due_on", "status"],
             [[m.name, m.jobs, m.runs, m.last_verified_on, m.due_on, m.status]
@@ -298,10 +288,9 @@ def csv_download():  # type: ignore[no-untyped-def]
 @bp.get("/dashboard/report.pdf")
 @requires("view_dashboard")
 def monthly_pdf():  # type: ignore[no-untyped-def]
-    month = measures.parse_month(request.args.get("month") or f"{_today():%Y-%m}")
-    report = measures.shop_report(db_session(), month, today=_today(),
-                                  by=current_user._get_current_object())
-    pdf = shop_month.render(report)
+    month = parse_month(request.args.get("month") or f"{_today():%Y-%m}")
+    report = measures.shop_report(db_session(), month, today=_today(), by=acting_user())
+    pdf = monthly.render(report)
     name = f"shop-report-{month.start:%Y-%m}.pdf"
     return Response(pdf, mimetype="application/pdf",
                     headers={"Content-Disposition": f'inline; filename="{name}"'})
@@ -311,12 +300,11 @@ def monthly_pdf():  # type: ignore[no-untyped-def]
 @bp.app_context_processor
 def _home_helpers() -> dict[str, Any]:
     def dashboard_headline() -> measures.Headline | None:
-        user = current_user
-        if not getattr(user, "is_authenticated", False) or not can(user, "view_dashboard"):
+        if not current_user.is_authenticated or not can(current_user, "view_dashboard"):
             return None
-        return measures.headline(db_session(), by=user._get_current_object(), today=_today())
+        return measures.headline(db_session(), by=acting_user(), today=_today())
 
-    return {"dashboard_headline": dashboard_headline, "dashboard_fmt": fmt}
+    return {"dashboard_headline": dashboard_headline, "dashboard_fmt": measure_text}
 
 
 __all__ = ["SCOPE_FIELDS", "bp", "table_rows"]

@@ -28,6 +28,7 @@ from reportlab.platypus import Flowable, Paragraph, Spacer, Table, TableStyle
 
 from shopapp.charts import Figure
 from shopapp.charts.polar import PolarVector, polar_figure
+from shopapp.core import display
 from shopapp.reports import traceability_section
 from shopapp.reports.common import (
     FONT_BOLD,
@@ -38,8 +39,6 @@ from shopapp.reports.common import (
     DocumentMeta,
     build_pdf,
     esc,
-    fmt_date,
-    fmt_num,
     grid_table,
     keep,
     styles,
@@ -236,7 +235,7 @@ _CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
 
 
 def _u(value: float | None, unit: str) -> str:
-    return "–" if value is None else f"{fmt_num(value)} {unit}"
+    return "–" if value is None else f"{display.number(value)} {unit}"
 
 
 def _ang(value: float) -> str:
@@ -258,7 +257,7 @@ def _unit_heads(what: str, unit: str) -> list[str]:
 
 
 def _unit_values(shop: float, gmm: float, unit: str) -> list[str]:
-    return [fmt_num(shop)] if unit == "g·mm" else [fmt_num(shop), fmt_num(gmm)]
+    return [display.number(shop)] if unit == "g·mm" else [display.number(shop), display.number(gmm)]
 
 
 def _unit_widths(unit: str) -> list[float]:
@@ -281,7 +280,7 @@ def first_lines(data: CertificateData) -> list[tuple[str, str]]:
     """The identification block printed first on the certificate (also shown by /verify)."""
     return [
         ("Certificate", f"{data.number} revision {data.revision}"),
-        ("Issued", fmt_date(data.issued_at)),
+        ("Issued", display.date(data.issued_at)),
         ("Customer", data.customer_name),
         ("Rotor", f"{data.rotor_part_number} {data.rotor_description}".strip()),
         ("Serial number", data.serial_number),
@@ -349,15 +348,15 @@ def _rotor_section(data: CertificateData) -> list[Flowable]:
     st = styles()
     two = data.planes == 2
     rows = [
-        ["Mass", f"{fmt_num(data.mass_kg)} kg",
+        ["Mass", f"{display.number(data.mass_kg)} kg",
          "Service speed", _rpm(data.service_speed_rpm)],
-        ["Correction radius, plane 1", f"{fmt_num(data.radius_1_mm)} mm",
-         "Correction radius, plane 2", f"{fmt_num(data.radius_2_mm)} mm" if two else "–"],
-        ["Bearing A / bearing B at", f"{fmt_num(data.bearing_a_mm)} / "
-         f"{fmt_num(data.bearing_b_mm)} mm", "Centre of mass at",
-         f"{fmt_num(data.centre_of_mass_mm)} mm"],
-        ["Plane 1 at", f"{fmt_num(data.plane_1_mm)} mm",
-         "Plane 2 at", f"{fmt_num(data.plane_2_mm)} mm" if two else "single plane"],
+        ["Correction radius, plane 1", f"{display.number(data.radius_1_mm)} mm",
+         "Correction radius, plane 2", f"{display.number(data.radius_2_mm)} mm" if two else "–"],
+        ["Bearing A / bearing B at", f"{display.number(data.bearing_a_mm)} / "
+         f"{display.number(data.bearing_b_mm)} mm", "Centre of mass at",
+         f"{display.number(data.centre_of_mass_mm)} mm"],
+        ["Plane 1 at", f"{display.number(data.plane_1_mm)} mm",
+         "Plane 2 at", f"{display.number(data.plane_2_mm)} mm" if two else "single plane"],
     ]
     w = _CONTENT_WIDTH / 4
     return [
@@ -372,14 +371,14 @@ def _tolerance_section(data: CertificateData) -> list[Flowable]:
     lines = [f"Basis: {data.tolerance_basis}."]
     if data.tolerance_method == "grade":
         lines.append(
-            f"Permissible residual unbalance U_per = {fmt_num(data.u_per_gmm)} g·mm "
-            f"(e_per = {fmt_num(data.e_per_um)} g·mm/kg) at the service speed "
+            f"Permissible residual unbalance U_per = {display.number(data.u_per_gmm)} g·mm "
+            f"(e_per = {display.number(data.e_per_um)} g·mm/kg) at the service speed "
             f"{_rpm(data.service_speed_rpm)}, allocated to the bearing planes."
         )
     elif data.tolerance_method == "4w/n":
-        loads = f"{fmt_num(data.journal_load_a_kg)} kg"
+        loads = f"{display.number(data.journal_load_a_kg)} kg"
         if data.journal_load_b_kg is not None:
-            loads += f" and {fmt_num(data.journal_load_b_kg)} kg"
+            loads += f" and {display.number(data.journal_load_b_kg)} kg"
         lines.append(f"4W/N per correction plane with static journal loads of {loads} at "
                      f"{_rpm(data.service_speed_rpm)}.")
     else:
@@ -422,7 +421,8 @@ def _balancing_section(data: CertificateData) -> list[Flowable]:
         crow = [["Plane", "Action", "Mass", "Angle", "Radius", "How"]]
         for c in data.corrections:
             crow.append([f"plane {c.plane}", "added" if c.action == "add" else "removed",
-                         f"{fmt_num(c.mass_g)} g", _ang(c.angle_deg), f"{fmt_num(c.radius_mm)} mm",
+                         f"{display.number(c.mass_g)} g", _ang(c.angle_deg),
+                         f"{display.number(c.radius_mm)} mm",
                          c.details or "single mass"])
         out.append(grid_table(crow, [w * 0.1, w * 0.11, w * 0.12, w * 0.1, w * 0.12, w * 0.45]))
     else:
@@ -438,7 +438,7 @@ def _result_section(data: CertificateData) -> list[Flowable]:
         verdict = "within" if lim.passed else "OUT"
         if not lim.deciding:
             verdict += " (information)"
-        rows.append([lim.name, fmt_num(lim.residual_shop), fmt_num(lim.limit_shop),
+        rows.append([lim.name, display.number(lim.residual_shop), display.number(lim.limit_shop),
                      f"{lim.percent_of_limit:.0f} %", verdict])
     w = _CONTENT_WIDTH
     out: list[Flowable] = [
@@ -504,7 +504,7 @@ def _closing_section(data: CertificateData, content_hash: str) -> list[Flowable]
     sign = grid_table(
         [["", "Name", "Date"],
          ["Balanced by (operator)", data.operator_name or "–", data.balanced_on],
-         ["Issued by (quality)", data.issued_by_name, fmt_date(data.issued_at)]],
+         ["Issued by (quality)", data.issued_by_name, display.date(data.issued_at)]],
         [50 * mm, 70 * mm, _CONTENT_WIDTH - 120 * mm], label_column=True,
     )
     out: list[Flowable] = [

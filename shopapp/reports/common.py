@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
-import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from io import BytesIO
@@ -276,34 +275,3 @@ def build_pdf(
 
     doc.build(story, onFirstPage=_page, onLaterPages=_page, canvasmaker=_canvas_class(meta))
     return buf.getvalue()
-
-
-def fmt_num(value: float | None, digits: int = 3) -> str:
-    """A measured number for print: ``digits`` significant figures, no exponent for shop sizes.
-
-    ``None`` prints as an en dash (nothing to show).
-    """
-    if value is None:
-        return "–"
-    if value == 0:
-        return "0"
-    mag = abs(value)
-    if mag >= 10 ** digits:
-        return f"{value:.0f}"
-    decimals = max(0, digits - 1 - int(_floor_log10(mag)))
-    return f"{value:.{decimals}f}"
-
-
-def _floor_log10(x: float) -> int:
-    return math.floor(math.log10(x))
-
-
-def fmt_date(value: str | dt.date | dt.datetime | None) -> str:
-    """An ISO date (``YYYY-MM-DD``) for print; datetimes print their UTC date."""
-    if value is None or value == "":
-        return "–"
-    if isinstance(value, str):
-        return value[:10]
-    if isinstance(value, dt.datetime):
-        return value.astimezone(dt.UTC).date().isoformat()
-    return value.isoformat()

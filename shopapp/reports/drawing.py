@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 from reportlab.graphics.shapes import Circle as RLCircle
 from reportlab.graphics.shapes import Drawing, Polygon, PolyLine, String
 from reportlab.graphics.shapes import Line as RLLine
@@ -14,7 +16,7 @@ from shopapp.charts.styles import Style, style
 _ANCHOR = {"start": "start", "middle": "middle", "end": "end"}
 
 
-def _apply(shape, s: Style) -> None:  # type: ignore[no-untyped-def]
+def _apply(shape: Any, s: Style) -> None:
     shape.strokeColor = HexColor(s.stroke) if s.stroke else None
     shape.strokeWidth = s.width
     shape.strokeDashArray = list(s.dash) if s.dash else None

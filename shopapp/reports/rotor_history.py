@@ -17,13 +17,13 @@ from reportlab.platypus import Flowable, Paragraph, Spacer
 
 from shopapp.charts import Figure
 from shopapp.charts.trend import TrendSeries, trend_figure
+from shopapp.core import display
 from shopapp.reports.common import (
     MARGIN,
     PAGE_SIZE,
     DocumentMeta,
     build_pdf,
     esc,
-    fmt_num,
     grid_table,
     keep,
     styles,
@@ -135,7 +135,7 @@ def trend_figures(data: RotorHistoryData, width: float = _WIDTH) -> list[Figure]
 
     def label(x: str | dt.date) -> str:
         text = x.isoformat() if isinstance(x, dt.date) else str(x)
-        return f"{text} {marks[x]}" if x in marks else text
+        return f"{text} {marks[x]}" if isinstance(x, dt.date) and x in marks else text
 
     initial = [TrendSeries(f"initial, plane {k + 1}",
                            tuple(v.initial_gmm[k] for v in data.visits))
@@ -190,7 +190,7 @@ def render(data: RotorHistoryData) -> bytes:
             if v.passed is False:
                 mark.append("last check out")
             rows.append([str(i), v.job_number, v.received_on, v.finished_on or v.state,
-                         *[fmt_num(u) for u in v.initial_gmm],
+                         *[display.number(u) for u in v.initial_gmm],
                          *[_pct(p) for p in v.residual_pct],
                          str(v.correction_steps), "; ".join(mark), v.certificate or "–"])
         n = len(head)
@@ -219,8 +219,10 @@ def render_type(data: RotorTypeHistoryData) -> bytes:
     if data.initial_pct_bins:
         for i, b in enumerate(data.initial_pct_bins[0]):
             rows.append([b.label, *[str(bins[i].count) for bins in data.initial_pct_bins]])
-    rows.append(["median initial (g·mm)", *[fmt_num(u) for u in data.initial_median_gmm]])
-    rows.append(["90th percentile initial (g·mm)", *[fmt_num(u) for u in data.initial_p90_gmm]])
+    rows.append(["median initial (g·mm)",
+                 *[display.number(u) for u in data.initial_median_gmm]])
+    rows.append(["90th percentile initial (g·mm)",
+                 *[display.number(u) for u in data.initial_p90_gmm]])
     w = [_WIDTH * 0.5] + [_WIDTH * 0.5 / max(data.planes, 1)] * data.planes
     story.append(keep(Paragraph("Distribution of initial unbalance", st.heading),
                       grid_table(rows, w, align_right_from=1)))
@@ -232,7 +234,7 @@ def render_type(data: RotorTypeHistoryData) -> bytes:
              *[f"Last initial P{k + 1} (g·mm)" for k in range(data.planes)], "Growing"]]
     for s in data.serials:
         srow.append([s.serial_number, str(s.visits), s.last_received_on, str(s.reworked),
-                     *[fmt_num(u) for u in s.last_initial_gmm], "yes" if s.growing else ""])
+                     *[display.number(u) for u in s.last_initial_gmm], "yes" if s.growing else ""])
     story.append(keep(Paragraph("Serials", st.heading), grid_table(srow)))
     story.append(Paragraph(esc(data.growth_rule), st.small))
     meta = _meta(f"Rotor type history {data.rotor_part_number}", data, data.generated_at,

@@ -19,7 +19,8 @@ from reportlab.platypus import Flowable, Paragraph, Spacer, Table, TableStyle
 
 from shopapp.charts import Figure
 from shopapp.charts.circle_fit import ReadingPoint, circle_fit_figure
-from shopapp.reports.common import MARGIN, PAGE_SIZE, esc, fmt_num, grid_table, keep, styles
+from shopapp.core import display
+from shopapp.reports.common import MARGIN, PAGE_SIZE, esc, grid_table, keep, styles
 from shopapp.reports.drawing import to_drawing
 
 _CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
@@ -126,9 +127,10 @@ def section(data: Any, number: str = "4a") -> list[Flowable]:
         for t in data.residual_tests:
             ang = "" if t.residual_angle_deg is None else f" at {t.residual_angle_deg:.0f}°"
             rows.append([f"plane {t.plane}",
-                         f"{fmt_num(t.test_mass_g)} g at {fmt_num(t.test_radius_mm)} mm",
-                         str(t.positions), f"{fmt_num(t.residual_shop)}{ang}",
-                         fmt_num(t.limit_shop), f"{t.fit_rms_pct:.1f} %",
+                         f"{display.number(t.test_mass_g)} g at "
+                         f"{display.number(t.test_radius_mm)} mm",
+                         str(t.positions), f"{display.number(t.residual_shop)}{ang}",
+                         display.number(t.limit_shop), f"{t.fit_rms_pct:.1f} %",
                          "within" if t.passed else "OUT"])
         figs = [to_drawing(f) for f in residual_test_figures(data)]
         plot = Table([figs], colWidths=[w / len(figs)] * len(figs))
@@ -147,9 +149,10 @@ def section(data: Any, number: str = "4a") -> list[Flowable]:
         rows = [["Plane", f"dU ({data.unit})", "of which random", "systematic",
                  f"Limit used ({data.unit})", "Verdict"]]
         for e in data.balance_errors:
-            rows.append([f"plane {e.plane}", fmt_num(e.delta_u_shop), fmt_num(e.random_shop),
+            rows.append([f"plane {e.plane}", display.number(e.delta_u_shop),
+                         display.number(e.random_shop),
                          e.systematic or "none",
-                         fmt_num(e.effective_limit_shop), "within" if e.passed else "OUT"])
+                         display.number(e.effective_limit_shop), "within" if e.passed else "OUT"])
         notes = [f"Verdict rule: {data.error_rule}."]
         if any(e.negligible for e in data.balance_errors):
             notes.append("Where ΔU is at most 10 % of the limit it is neglected (common "

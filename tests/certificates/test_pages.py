@@ -9,7 +9,7 @@ import zipfile
 
 import pytest
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as certificates
 from shopapp.models import Certificate, MachineVerification
 from tests.reports.samples import job_ready_for_certificate
 

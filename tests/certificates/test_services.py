@@ -16,7 +16,8 @@ from sqlalchemy.exc import DBAPIError
 
 from shopapp.balancing import tolerance
 from shopapp.balancing.phasors import phasor
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as certificates
+from shopapp.certificates import queries, register
 from shopapp.core.errors import PermissionDenied, TransitionRefused, ValidationFailed
 from shopapp.jobs import services as jobs
 from shopapp.models import AuditEvent, Certificate, MachineVerification
@@ -82,7 +83,7 @@ def test_limits_and_residuals_on_the_certificate_equal_the_core(db, shop, people
         assert lim.passed is expected[name].passed
     # Symmetric rotor (centre of mass mid-span): half of U_per per bearing (ISO allocation).
     assert printed["bearing A"].limit_gmm == pytest.approx(u_per / 2, rel=1e-5)
-    text = _pdf_text(certificates.rerender(certificates.by_number(db, data.number)))
+    text = _pdf_text(certificates.rerender(queries.by_number(db, data.number)))
     assert f"{printed['bearing A'].limit_gmm:.0f}" in text
     assert f"{printed['bearing A'].residual_gmm:.0f}" in text
 
@@ -210,7 +211,7 @@ def test_reopen_voids_and_a_new_issue_is_the_next_revision(db, shop, people) -> 
     jobs.mark_in_tolerance(db, job, by=operator)
     again = certificates.issue(db, job, by=quality)
     assert (again.number, again.revision) == (first.number, 2)
-    assert certificates.verify(db, first.data_sha256).status == "superseded"
+    assert register.verify(db, first.data_sha256).status == "superseded"
 
 
 def test_issue_twice_is_refused(db, shop, people) -> None:
@@ -232,29 +233,29 @@ def test_numbers_count_up_within_the_year(db, shop, people) -> None:
 def test_verify_valid_void_superseded_unknown(db, shop, people) -> None:
     operator, quality = people
     first = certificates.issue(db, job_ready_for_certificate(db, shop, operator), by=quality)
-    v = certificates.verify(db, first.number.lower())
+    v = register.verify(db, first.number.lower())
     assert v.status == "valid" and v.revision == 1
     assert dict(v.lines)["Certificate"] == f"{first.number} revision 1"
     second = certificates.reissue(db, first, by=quality, reason="serial number typo fixed")
-    assert certificates.verify(db, first.pdf_sha256).status == "superseded"
-    assert "superseded by revision 2" in certificates.verify(db, first.pdf_sha256).message
-    assert certificates.verify(db, first.number).revision == 2  # number → latest revision
+    assert register.verify(db, first.pdf_sha256).status == "superseded"
+    assert "superseded by revision 2" in register.verify(db, first.pdf_sha256).message
+    assert register.verify(db, first.number).revision == 2  # number → latest revision
     certificates.void(db, second, by=quality, reason="rotor scrapped by the customer")
-    v = certificates.verify(db, second.data_sha256.upper())
+    v = register.verify(db, second.data_sha256.upper())
     assert v.status == "void" and v.void_reason == "rotor scrapped by the customer"
     assert "void since" in v.message
-    assert certificates.verify(db, "BC-1999-99999").status == "unknown"
-    assert certificates.verify(db, "0" * 64).status == "unknown"
+    assert register.verify(db, "BC-1999-99999").status == "unknown"
+    assert register.verify(db, "0" * 64).status == "unknown"
     with pytest.raises(ValidationFailed, match="q: enter a certificate number"):
-        certificates.verify(db, "  ")
+        register.verify(db, "  ")
 
 
 def test_verify_file_flags_an_altered_copy(db, shop, people) -> None:
     operator, quality = people
     cert = certificates.issue(db, job_ready_for_certificate(db, shop, operator), by=quality)
-    result, remark = certificates.verify_file(db, cert.pdf)
+    result, remark = register.verify_file(db, cert.pdf)
     assert result.status == "valid" and remark == ""
-    result, remark = certificates.verify_file(db, cert.pdf + b"\n% re-saved")
+    result, remark = register.verify_file(db, cert.pdf + b"\n% re-saved")
     assert result.status == "unknown"
     assert f"calls itself {cert.number} revision 1" in remark
 
@@ -265,8 +266,8 @@ def test_register_search_filters(db, shop, people) -> None:
     b_job = job_ready_for_certificate(db, shop, operator)
     b = certificates.issue(db, b_job, by=quality)
     certificates.void(db, b, by=quality, reason="issued against the wrong job")
-    f = certificates.RegisterFilter
-    numbers = lambda flt: {c.number for c in certificates.search(db, flt).items}  # noqa: E731
+    f = register.RegisterFilter
+    numbers = lambda flt: {c.number for c in register.search(db, flt).items}  # noqa: E731
     assert numbers(f(serial=b_job.rotor.serial_number.lower())) == {b.number}
     assert numbers(f(customer=b_job.customer.name.upper())) == {b.number}
     assert numbers(f(rotor_type=b_job.rotor.rotor_type.part_number)) == {b.number}
@@ -276,8 +277,8 @@ def test_register_search_filters(db, shop, people) -> None:
     assert {a.number, b.number} <= numbers(f(date_from=today, date_to=today))
     assert not numbers(f(date_to=today - dt.timedelta(days=1))) & {a.number, b.number}
     with pytest.raises(ValidationFailed, match="date_to"):
-        certificates.search(db, f(date_from=today, date_to=today - dt.timedelta(days=1)))
-    page = certificates.search(db, f(), per_page=1)
+        register.search(db, f(date_from=today, date_to=today - dt.timedelta(days=1)))
+    page = register.search(db, f(), per_page=1)
     assert page.total >= 2 and len(page.items) == 1
 
 
@@ -286,7 +287,7 @@ def test_audit_zip_index_matches_its_files(db, shop, people) -> None:
     a = certificates.issue(db, job_ready_for_certificate(db, shop, operator), by=quality)
     b = certificates.reissue(db, a, by=quality, reason="drawing number corrected")
     day = a.issued_at.date()
-    data = certificates.audit_zip(db, day, day)
+    data = register.audit_zip(db, day, day)
     with zipfile.ZipFile(io.BytesIO(data)) as zf:
         rows = list(csv.DictReader(io.StringIO(zf.read("index.csv").decode("utf-8"))))
         names = set(zf.namelist()) - {"index.csv"}
@@ -296,27 +297,27 @@ def test_audit_zip_index_matches_its_files(db, shop, people) -> None:
     by_rev = {(r["number"], r["revision"]): r for r in rows}
     assert by_rev[(a.number, "1")]["state"] == "void"
     assert by_rev[(b.number, "2")]["state"] == "issued"
-    assert list(rows[0]) == list(certificates.INDEX_COLUMNS)
-    assert certificates.audit_zip(db, day, day) == data  # same range, same bytes
+    assert list(rows[0]) == list(register.INDEX_COLUMNS)
+    assert register.audit_zip(db, day, day) == data  # same range, same bytes
 
 
 def test_audit_zip_refuses_more_than_the_cap(db, shop, people, monkeypatch) -> None:  # type: ignore[no-untyped-def]
     operator, quality = people
     a = certificates.issue(db, job_ready_for_certificate(db, shop, operator), by=quality)
     certificates.issue(db, job_ready_for_certificate(db, shop, operator), by=quality)
-    monkeypatch.setattr(certificates, "MAX_ZIP_CERTIFICATES", 1)
+    monkeypatch.setattr(register, "MAX_ZIP_CERTIFICATES", 1)
     day = a.issued_at.date()
     with pytest.raises(ValidationFailed, match="one ZIP holds at most 1"):
-        certificates.audit_zip(db, day, day)
+        register.audit_zip(db, day, day)
 
 
 def test_certification_queue_lists_jobs_waiting(db, shop, people) -> None:
     operator, quality = people
     job = job_ready_for_certificate(db, shop, operator)
-    queue, total = certificates.certification_queue(db)
+    queue, total = queries.certification_queue(db)
     assert job in queue and total >= 1
     certificates.issue(db, job, by=quality)
-    queue, _ = certificates.certification_queue(db)
+    queue, _ = queries.certification_queue(db)
     assert job not in queue
 
 

@@ -12,7 +12,8 @@ import pytest
 
 from shopapp.charts import Circle, Line, Polyline, Rect
 from shopapp.charts.svg import to_svg
-from shopapp.charts.trend import TrendSeries, percent, trend_figure, y_range
+from shopapp.charts.trend import TrendSeries, trend_figure, y_range
+from shopapp.core.display import percent
 
 
 def _points(fig, kind):  # type: ignore[no-untyped-def]

@@ -387,7 +387,7 @@ def test_four_w_over_n_jobs_carry_valid_residual_tests_before_their_certificates
                                                     Certificate.state == "issued")).one()
         assert all(t.performed_at < cert.issued_at for t in state.latest.values() if t)
         # Printed on the certificate with its readings.
-        from shopapp.certificates import services as cert_service
+        from shopapp.certificates import issue as cert_service
 
         data = cert_service.certificate_data(cert)
         assert {t.plane for t in data.residual_tests} == {1, 2}
@@ -431,7 +431,8 @@ def test_key_conventions_on_two_rotor_types(ds: Session) -> None:
 
 
 def test_certified_jobs_hold_one_valid_certificate_some_reissued_some_void(ds: Session) -> None:
-    from shopapp.certificates import services as cert_service
+    from shopapp.certificates import issue as cert_service
+    from shopapp.certificates import register
 
     certs = list(ds.scalars(select(Certificate)))
     for j in _jobs(ds):
@@ -443,7 +444,7 @@ def test_certified_jobs_hold_one_valid_certificate_some_reissued_some_void(ds: S
     sample = certs[0]
     assert hashlib.sha256(sample.pdf).hexdigest() == sample.pdf_sha256
     assert cert_service.rerender(sample) == sample.pdf
-    assert cert_service.verify(ds, sample.number).status in ("valid", "superseded", "void")
+    assert register.verify(ds, sample.number).status in ("valid", "superseded", "void")
 
 
 # --------------------------------------------------------------------------- refusals, seed

@@ -17,6 +17,7 @@ import pytest
 from pypdf import PdfReader
 
 from shopapp.measures import routes
+from shopapp.measures.texts import measure_text
 from shopapp.models import Correction, JobTransition, Run, RunReading
 from tests import measures_shop
 from tests.measures_shop import TODAY
@@ -124,7 +125,7 @@ def test_every_csv_matches_the_page(client, login_as, hand) -> None:  # type: ig
                                                          "_tolerance")) or name ==
                                           "wip_age_max_wd"):
                     value = int(value)
-                assert routes.fmt(name, value) == text, (dim, r[key_col], name)
+                assert measure_text(name, value) == text, (dim, r[key_col], name)
     reasons = client.get("/dashboard.csv?table=rework_reasons&period=month&on=2026-10-01")
     rows = list(csv.reader(io.StringIO(reasons.get_data(as_text=True))))
     assert rows == [["reason", "jobs"], ["customer return", "1"], ["key fitted wrong", "1"],

@@ -16,8 +16,11 @@ import pytest
 from sqlalchemy import select
 
 from shopapp.core.errors import PermissionDenied, ValidationFailed
+from shopapp.measures import lists
 from shopapp.measures import services as measures
-from shopapp.measures.services import Period, Scope
+from shopapp.measures.figures import DIMENSIONS
+from shopapp.measures.periods import Period, Scope, parse_month
+from shopapp.measures.sql import working_days
 from shopapp.models import Job
 from tests import measures_shop
 from tests.measures_shop import TODAY
@@ -47,7 +50,7 @@ def test_working_days_match_numpy_busday_count() -> None:
         a = dt.date(2020, 1, 1) + dt.timedelta(days=rng.randrange(0, 3000))
         b = a + dt.timedelta(days=rng.randrange(0, 60))
         one = dt.timedelta(days=1)
-        assert measures.working_days(a, b) == int(np.busday_count(a + one, b + one))
+        assert working_days(a, b) == int(np.busday_count(a + one, b + one))
 
 
 def test_sql_working_days_and_percentiles_match_numpy(db, shop, owner) -> None:  # type: ignore[no-untyped-def]
@@ -184,11 +187,11 @@ def test_rotors_getting_worse(db, hand, owner, report) -> None:  # type: ignore[
     assert [(w.serial_number, w.initial_amplitudes) for w in report.rotors_getting_worse] == [
         ("HS-R1", (10.0, 15.0, 25.0))
     ]
-    two = measures.rotors_getting_worse(db, OCT, visits=2)
+    two = lists.rotors_getting_worse(db, OCT, visits=2)
     # One rise: R5 (40 → 50, latest 10-13), R1 (15 → 25) and R2 (12 → 20), both 10-05
     assert [w.serial_number for w in two] == ["HS-R5", "HS-R1", "HS-R2"]
     with pytest.raises(ValidationFailed, match="visits"):
-        measures.rotors_getting_worse(db, OCT, visits=1)
+        lists.rotors_getting_worse(db, OCT, visits=1)
 
 
 def test_machine_utilisation_and_verification_status(report) -> None:  # type: ignore[no-untyped-def]
@@ -224,7 +227,7 @@ def test_json_is_keyed_by_the_measure_names(report) -> None:  # type: ignore[no-
                  "machine_utilisation", "machine_verification"):
         assert name in data, name
     assert data["jobs_received"] == 11
-    assert set(data["by"]) == set(measures.DIMENSIONS)
+    assert set(data["by"]) == set(DIMENSIONS)
 
 
 def test_periods_and_their_previous_ones() -> None:
@@ -233,9 +236,9 @@ def test_periods_and_their_previous_ones() -> None:
     assert Period.week(dt.date(2026, 10, 7)).start == dt.date(2026, 10, 5)  # a Monday
     custom = Period(dt.date(2026, 10, 10), dt.date(2026, 10, 19))
     assert custom.previous() == Period(dt.date(2026, 9, 30), dt.date(2026, 10, 9))
-    assert measures.parse_month("2026-10") == OCT
+    assert parse_month("2026-10") == OCT
     with pytest.raises(ValidationFailed, match="YYYY-MM"):
-        measures.parse_month("October")
+        parse_month("October")
     with pytest.raises(ValidationFailed, match="before it starts"):
         Period(dt.date(2026, 10, 2), dt.date(2026, 10, 1))
 

@@ -7,7 +7,7 @@ import io
 import pypdf
 import pytest
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as certificates
 from shopapp.core.errors import NotFound, ValidationFailed
 from shopapp.jobs import rotor_history
 from shopapp.jobs import services as jobs

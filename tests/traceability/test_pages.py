@@ -289,7 +289,7 @@ def test_booking_in_sets_the_residual_test_for_4wn(db, shop, make_user) -> None:
 
 def test_certificate_refused_on_a_machine_never_tested_past_its_interval(db, shop,  # type: ignore[no-untyped-def]
                                                                         make_user) -> None:
-    from shopapp.certificates import services as certificates
+    from shopapp.certificates import issue as certificates
     from tests.reports.samples import job_ready_for_certificate
 
     entered = dt.datetime(2025, 1, 1, tzinfo=dt.UTC)
@@ -306,7 +306,7 @@ def test_certificate_refused_on_a_machine_never_tested_past_its_interval(db, sho
 
 
 def test_certificate_refused_without_a_required_residual_test(db, shop, make_user) -> None:  # type: ignore[no-untyped-def]
-    from shopapp.certificates import services as certificates
+    from shopapp.certificates import issue as certificates
     from tests.reports.samples import job_ready_for_certificate
 
     job = job_ready_for_certificate(db, shop, make_user("operator"), residual_test_required=True)
@@ -321,7 +321,7 @@ def test_certificate_states_key_residual_test_and_balance_errors(db, shop, make_
 
     import pypdf
 
-    from shopapp.certificates import services as certificates
+    from shopapp.certificates import issue as certificates
     from shopapp.jobs import evidence as jt
     from tests.reports.samples import job_ready_for_certificate
 

@@ -17,7 +17,7 @@ import pytest
 from flask import Flask
 from sqlalchemy.orm import Session
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as certificates
 from shopapp.core.permissions import PERMISSIONS
 from shopapp.jobs import services as jobs
 from shopapp.models import Arbor

@@ -1,4 +1,4 @@
-"""Balance certificates: issue, reissue, void, verify, find and export.
+"""Balance certificates: issue, reissue and void, and the certified data they state.
 
 Rules (issue 5):
 
@@ -21,30 +21,25 @@ Rules (issue 5):
 
 The certified data is a :class:`~shopapp.reports.certificate.CertificateData`;
 its canonical JSON and the PDF rendered from it are stored with their SHA-256.
-Re-rendering the stored JSON gives the stored PDF bytes again.
+Re-rendering the stored JSON gives the stored PDF bytes again. Finding and
+verifying certificates is :mod:`shopapp.certificates.register`.
 """
 
 from __future__ import annotations
 
-import csv
-import dataclasses
 import datetime as dt
 import hashlib
-import io
 import re
-import zipfile
-from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
 
-from sqlalchemy import Select, and_, func, select
-from sqlalchemy.orm import Session, defer, joinedload, selectinload
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session, selectinload
 
-from shopapp.balancing.phasors import amplitude_angle, to_display_deg
-from shopapp.balancing.units import convert_unbalance
+from shopapp.balancing.phasors import amplitude_angle
+from shopapp.certificates.queries import CERTIFIABLE_STATES, by_number, job_certificates
 from shopapp.core import locks
-from shopapp.core.errors import NotFound, TransitionRefused, ValidationFailed
-from shopapp.core.pagination import Page, paginate
+from shopapp.core.display import ShopDisplay, fixed, plain, quantity
+from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
 from shopapp.jobs import calc as job_calc
@@ -63,12 +58,9 @@ from shopapp.jobs.certificate_link import void_certificate as _void
 from shopapp.models import (
     Certificate,
     Correction,
-    Customer,
     InfluenceSet,
     Job,
     Machine,
-    Rotor,
-    RotorType,
     Run,
     ShopSettings,
     User,
@@ -79,13 +71,11 @@ from shopapp.traceability import services as traceability
 
 NUMBER_PREFIX = "BC"
 NUMBER_RE = re.compile(r"^BC-(\d{4})-(\d{5,})$")
-HASH_RE = re.compile(r"^[0-9a-f]{64}$")
 MIN_REASON_LENGTH = 5
 MAX_REASON_LENGTH = 1000
-MAX_ZIP_CERTIFICATES = 2000  # one audit ZIP is built in memory: ~20 kB a certificate
-CERTIFIABLE_STATES = ("in_tolerance",)
 REISSUABLE_JOB_STATES = ("certified", "dispatched")
 KIND_WORDS = {"hard": "hard-bearing", "soft": "soft-bearing"}
+
 
 
 # --------------------------------------------------------------------------- reading a job
@@ -104,7 +94,7 @@ class JobEvidence:
     initial_run: Run | None
     initial: job_calc.RunVerdict | None
     machine: Machine
-    machine_status: traceability.VerificationStatus
+    machine_status: traceability.VerificationStatus | None
     as_of: dt.datetime | None = None
 
 
@@ -160,7 +150,8 @@ def evidence(session: Session, job: Job, *, as_of: dt.datetime | None = None) ->
             f"Job {job.number}: run {final.seq} cannot be judged ({final.message})."
         )
     if not final.passed:
-        out = [f"{r.label} at {r.pct:.0f} % of its limit" for r in final.rows if not r.passed]
+        out = [f"{r.label} at {fixed(r.pct, 0)} % of its limit"
+               for r in final.rows if not r.passed]
         raise TransitionRefused(
             f"Job {job.number}: the last {final.purpose} run (run {final.seq}) is out of "
             f"tolerance ({'; '.join(out)}). Only a job within every plane's limit is certified."
@@ -186,59 +177,46 @@ def evidence(session: Session, job: Job, *, as_of: dt.datetime | None = None) ->
 def _angle_words(settings: ShopSettings) -> str:
     sense = "in" if settings.angle_sense == "with_rotation" else "against"
     zero = ("from the reference mark" if not settings.angle_zero_deg
-            else f"from a zero {settings.angle_zero_deg:g}° from the reference mark")
+            else f"from a zero {plain(settings.angle_zero_deg)}° from the reference mark")
     return f"degrees {sense} the direction of rotation, {zero}"
 
 
-class _Display:
-    """Converts g·mm and internal angles to the shop's display convention."""
-
-    def __init__(self, settings: ShopSettings) -> None:
-        self.unit = settings.unbalance_unit
-        self.sense = settings.angle_sense
-        self.zero = settings.angle_zero_deg
-
-    def unbalance(self, value_gmm: float) -> float:
-        return convert_unbalance(value_gmm, "g·mm", self.unit)
-
-    def angle(self, internal_deg: float) -> float:
-        return to_display_deg(internal_deg, sense=self.sense, zero_deg=self.zero)
-
-    def vector(self, plane: int, value_gmm: complex) -> PlaneVector:
-        mag, ang = amplitude_angle(value_gmm)
-        return PlaneVector(plane, mag, self.unbalance(mag), self.angle(ang))
+def _vector(show: ShopDisplay, plane: int, value_gmm: complex) -> PlaneVector:
+    """One plane's unbalance as the certificate states it: g·mm, the shop's unit and angle."""
+    mag, ang = amplitude_angle(value_gmm)
+    return PlaneVector(plane, mag, show.unb(mag), show.angle(ang))
 
 
-def _correction_details(c: Correction, show: _Display) -> str:
+def _correction_details(c: Correction, show: ShopDisplay) -> str:
     parts = []
     if c.split:
         items = []
         for p in c.split:
             where = f"position {p['position']} " if p.get("position") is not None else ""
-            items.append(f"{float(p['mass_g']):.1f} g at {where}"
-                         f"({show.angle(float(p['angle_deg'])):.0f}°)")
+            items.append(f"{fixed(float(p['mass_g']), 1)} g at {where}"
+                         f"({quantity(show.angle(float(p['angle_deg'])), '°')})")
         parts.append("split: " + ", ".join(items))
     if c.drill_depth_mm is not None:
         holes = c.drill_holes or 1
-        dia = f" Ø{c.drill_diameter_mm:g} mm" if c.drill_diameter_mm else ""
+        dia = f" Ø{plain(c.drill_diameter_mm)} mm" if c.drill_diameter_mm else ""
         parts.append(f"drilled {holes} hole{'s' if holes > 1 else ''}{dia}, depth "
-                     f"{c.drill_depth_mm:.1f} mm")
+                     f"{fixed(c.drill_depth_mm, 1)} mm")
     return "; ".join(parts)
 
 
-def _limit_lines(v: job_calc.RunVerdict, show: _Display) -> tuple[LimitLine, ...]:
+def _limit_lines(v: job_calc.RunVerdict, show: ShopDisplay) -> tuple[LimitLine, ...]:
     out = []
     for rows, deciding in ((v.rows, True), (v.other_rows, False)):
         for r in rows:
-            out.append(LimitLine(r.label, r.limit_gmm, show.unbalance(r.limit_gmm),
-                                 r.residual_gmm, show.unbalance(r.residual_gmm), r.pct,
+            out.append(LimitLine(r.label, r.limit_gmm, show.unb(r.limit_gmm),
+                                 r.residual_gmm, show.unb(r.residual_gmm), r.pct,
                                  r.passed, deciding))
     return tuple(out)
 
 
 def _tolerance_words(job: Job, tol: job_calc.JobTolerance) -> str:
     if job.tolerance_method == "grade":
-        return f"ISO 21940-11 balance grade G {job.tolerance_grade:g}"
+        return f"ISO 21940-11 balance grade G {plain(job.tolerance_grade)}"
     if job.tolerance_method == "4w/n":
         return "4W/N (API-style), W the static journal load, N the service speed"
     return "customer-specified limits per correction plane"
@@ -258,18 +236,18 @@ def build_data(
     job = ev.job
     rt = job.rotor.rotor_type
     settings = get_settings(session)
-    show = _Display(settings)
+    show = ShopDisplay(settings)
     tol = ev.calc.tolerance
     assert tol is not None
     planes = rt.planes
-    initial = ()
+    initial: tuple[PlaneVector, ...] = ()
     notes: list[str] = []
     if ev.initial is not None and ev.initial.judged and ev.initial.residual_gmm:
-        initial = tuple(show.vector(k + 1, u) for k, u in enumerate(ev.initial.residual_gmm))
+        initial = tuple(_vector(show, k + 1, u) for k, u in enumerate(ev.initial.residual_gmm))
     else:
         notes.append("The initial unbalance could not be computed from the initial run's "
                      "readings; it is not shown.")
-    residual = tuple(show.vector(k + 1, u) for k, u in enumerate(ev.final.residual_gmm))
+    residual = tuple(_vector(show, k + 1, u) for k, u in enumerate(ev.final.residual_gmm))
     corrections = tuple(
         CorrectionLine(c.plane, c.action, c.mass_g, show.angle(c.angle_deg), c.radius_mm,
                        _correction_details(c, show))
@@ -329,12 +307,12 @@ def build_data(
         corrections=corrections,
         residual=residual,
         limits=_limit_lines(ev.final, show),
-        plot_limits_shop=tuple(show.unbalance(x) for x in tol.plane_limits_gmm),
+        plot_limits_shop=tuple(show.unb(x) for x in tol.plane_limits_gmm),
         passed=bool(ev.final.passed),
         operator_name=operator.full_name if operator is not None else "",
         issued_by_name=issued_by.full_name,
         notes=tuple(notes),
-        **job_traceability.certificate_fields(session, job, ev.calc, to_shop=show.unbalance,
+        **job_traceability.certificate_fields(session, job, ev.calc, to_shop=show.unb,
                                               to_display_deg=show.angle, as_of=ev.as_of),
     )
     return report.normalized(data)
@@ -411,43 +389,6 @@ def _reason(reason: str | None, field: str = "reason") -> str:
         raise ValidationFailed(field, f"is too long: {len(text)} characters, at most "
                                       f"{MAX_REASON_LENGTH}")
     return text
-
-
-def revisions(session: Session, number: str) -> list[Certificate]:
-    """All revisions of a certificate number, oldest first (PDF bytes not loaded)."""
-    return list(session.scalars(
-        select(Certificate).where(Certificate.number == number)
-        .options(defer(Certificate.pdf), defer(Certificate.data_json))
-        .order_by(Certificate.revision)
-    ))
-
-
-def job_certificates(session: Session, job: Job) -> list[Certificate]:
-    """The job's certificates, newest revision first (PDF bytes not loaded)."""
-    return list(session.scalars(
-        select(Certificate).where(Certificate.job_id == job.id)
-        .options(defer(Certificate.pdf), defer(Certificate.data_json))
-        .order_by(Certificate.revision.desc())
-    ))
-
-
-def get_certificate(session: Session, certificate_id: int) -> Certificate:
-    cert = session.get(Certificate, certificate_id)
-    if cert is None:
-        raise NotFound(f"no certificate with id {certificate_id}")
-    return cert
-
-
-def by_number(session: Session, number: str, revision: int | None = None) -> Certificate:
-    """A revision of a certificate (the latest when ``revision`` is None)."""
-    stmt = select(Certificate).where(Certificate.number == number.strip().upper())
-    if revision is not None:
-        stmt = stmt.where(Certificate.revision == revision)
-    cert = session.scalars(stmt.order_by(Certificate.revision.desc()).limit(1)).first()
-    if cert is None:
-        which = f"{number} revision {revision}" if revision is not None else number
-        raise NotFound(f"no certificate {which}")
-    return cert
 
 
 def certificate_data(cert: Certificate) -> CertificateData:
@@ -568,277 +509,3 @@ def void(session: Session, certificate: Certificate, *, by: User, reason: str,
                                    f"was issued ({certificate.issued_at.isoformat()})")
     _void(session, certificate, by=by, reason=text, at=at)
     return certificate
-
-
-# --------------------------------------------------------------------------- verification
-
-
-@dataclass(frozen=True)
-class Verification:
-    """The answer of the public verification page.
-
-    ``status``: ``"valid"``, ``"void"``, ``"superseded"`` or ``"unknown"``.
-    ``lines`` are the certificate's first printed lines (nothing more is shown).
-    """
-
-    query: str
-    status: str
-    matched_by: str = ""
-    number: str = ""
-    revision: int | None = None
-    latest_revision: int | None = None
-    voided_on: str | None = None
-    void_reason: str = ""
-    lines: tuple[tuple[str, str], ...] = ()
-
-    @property
-    def message(self) -> str:
-        if self.status == "unknown":
-            return ("No certificate matches this number or hash. The document was not issued "
-                    "by this shop, or it has been altered.")
-        head = f"{self.number} revision {self.revision}"
-        if self.status == "valid":
-            return f"{head} is valid."
-        if self.status == "superseded":
-            return (f"{head} is void: superseded by revision {self.latest_revision} "
-                    f"(voided {self.voided_on}). Ask for the current revision.")
-        return f"{head} is void since {self.voided_on}: {self.void_reason}"
-
-
-def _answer(session: Session, query: str, cert: Certificate, matched_by: str) -> Verification:
-    latest = session.scalar(
-        select(func.max(Certificate.revision)).where(Certificate.number == cert.number)
-    ) or cert.revision
-    if cert.state == "issued":
-        status = "valid"
-    elif latest > cert.revision:
-        status = "superseded"
-    else:
-        status = "void"
-    data = certificate_data(cert)
-    return Verification(
-        query=query,
-        status=status,
-        matched_by=matched_by,
-        number=cert.number,
-        revision=cert.revision,
-        latest_revision=latest,
-        voided_on=cert.voided_at.date().isoformat() if cert.voided_at else None,
-        void_reason=cert.void_reason,
-        lines=tuple(report.first_lines(data)),
-    )
-
-
-def verify(session: Session, query: str) -> Verification:
-    """Look a certificate up by number (its latest revision) or by a SHA-256.
-
-    A 64-hex-digit query is matched against the PDF hash and the data hash
-    (printed on the certificate); anything else is taken as a number.
-    """
-    q = (query or "").strip()
-    if not q:
-        raise ValidationFailed("q", "enter a certificate number or a SHA-256 hash")
-    if len(q) > 100:
-        raise ValidationFailed("q", "is too long for a number or a hash")
-    if HASH_RE.match(q.lower()):
-        h = q.lower()
-        cert = session.scalars(
-            select(Certificate)
-            .where((Certificate.pdf_sha256 == h) | (Certificate.data_sha256 == h))
-            .options(defer(Certificate.pdf)).order_by(Certificate.revision.desc()).limit(1)
-        ).first()
-        if cert is None:
-            return Verification(query=q, status="unknown")
-        return _answer(session, q, cert, "PDF hash" if cert.pdf_sha256 == h else "content hash")
-    number = q.upper()
-    cert = session.scalars(
-        select(Certificate).where(Certificate.number == number)
-        .options(defer(Certificate.pdf)).order_by(Certificate.revision.desc()).limit(1)
-    ).first()
-    if cert is None:
-        return Verification(query=q, status="unknown")
-    return _answer(session, q, cert, "number")
-
-
-_CLAIM_RE = re.compile(rb"shopapp-certificate (BC-\d{4}-\d+) rev (\d+) data-sha256 ([0-9a-f]{64})")
-
-
-def verify_file(session: Session, pdf: bytes) -> tuple[Verification, str]:
-    """Verify a PDF file by the SHA-256 of its bytes.
-
-    Returns the verification and a remark: when the bytes are unknown but the
-    file claims to be one of our certificates (its PDF keywords), the remark
-    says so — such a file is a copy that was changed, not a valid certificate.
-    """
-    digest = hashlib.sha256(pdf).hexdigest()
-    cert = session.scalars(
-        select(Certificate).where(Certificate.pdf_sha256 == digest)
-        .options(defer(Certificate.pdf)).limit(1)
-    ).first()
-    if cert is not None:
-        return _answer(session, digest, cert, "PDF hash"), ""
-    remark = ""
-    m = _CLAIM_RE.search(pdf)
-    if m:
-        remark = (f"The file calls itself {m.group(1).decode()} revision {m.group(2).decode()}, "
-                  "but its bytes differ from the stored certificate: it has been altered or "
-                  "re-saved. Ask the shop for the original or check the number on /verify.")
-    return Verification(query=digest, status="unknown"), remark
-
-
-# --------------------------------------------------------------------------- register
-
-
-@dataclass(frozen=True)
-class RegisterFilter:
-    """Search of the certificate register (every field optional)."""
-
-    number: str = ""
-    customer: str = ""
-    serial: str = ""
-    rotor_type: str = ""
-    date_from: dt.date | None = None
-    date_to: dt.date | None = None
-    state: str = ""
-
-    def args(self) -> dict[str, str]:
-        out = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
-        return {k: (v.isoformat() if isinstance(v, dt.date) else v) for k, v in out.items()
-                if v not in (None, "")}
-
-
-def _like(text: str) -> str:
-    escaped = text.strip().replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
-    return f"%{escaped}%"
-
-
-def _day_start(d: dt.date) -> dt.datetime:
-    return dt.datetime(d.year, d.month, d.day, tzinfo=dt.UTC)
-
-
-def register_select(f: RegisterFilter) -> Select[Any]:
-    """The register query: certificates matching ``f``, newest first, without PDF bytes."""
-    if f.state and f.state not in ("issued", "void"):
-        raise ValidationFailed("state", "choose issued or void")
-    if f.date_from and f.date_to and f.date_from > f.date_to:
-        raise ValidationFailed("date_to", "must not be before the from date")
-    stmt = (
-        select(Certificate)
-        .join(Job, Certificate.job_id == Job.id)
-        .join(Customer, Job.customer_id == Customer.id)
-        .join(Rotor, Job.rotor_id == Rotor.id)
-        .join(RotorType, Rotor.rotor_type_id == RotorType.id)
-        .options(
-            defer(Certificate.pdf), defer(Certificate.data_json),
-            joinedload(Certificate.job).joinedload(Job.customer),
-            joinedload(Certificate.job).joinedload(Job.rotor).joinedload(Rotor.rotor_type),
-        )
-    )
-    conds = []
-    if f.number.strip():
-        conds.append(Certificate.number.ilike(_like(f.number), escape="\\"))
-    if f.customer.strip():
-        conds.append(Customer.name.ilike(_like(f.customer), escape="\\"))
-    if f.serial.strip():
-        conds.append(Rotor.serial_number.ilike(_like(f.serial), escape="\\"))
-    if f.rotor_type.strip():
-        conds.append(RotorType.part_number.ilike(_like(f.rotor_type), escape="\\"))
-    if f.date_from:
-        conds.append(Certificate.issued_at >= _day_start(f.date_from))
-    if f.date_to:
-        conds.append(Certificate.issued_at < _day_start(f.date_to + dt.timedelta(days=1)))
-    if f.state:
-        conds.append(Certificate.state == f.state)
-    if conds:
-        stmt = stmt.where(and_(*conds))
-    return stmt.order_by(Certificate.issued_at.desc(), Certificate.id.desc())
-
-
-def search(session: Session, f: RegisterFilter, *, page: int = 1, per_page: int = 25) -> Page[Any]:
-    """One page of the register (two queries: count and page)."""
-    return paginate(session, register_select(f), page=page, per_page=per_page, args=f.args())
-
-
-def certification_queue(session: Session, *, limit: int = 10) -> tuple[list[Job], int]:
-    """Jobs in tolerance waiting for a certificate (oldest first) and how many there are."""
-    waiting = Job.state.in_(CERTIFIABLE_STATES)
-    total = session.scalar(select(func.count()).select_from(Job).where(waiting)) or 0
-    jobs = list(session.scalars(
-        select(Job).where(waiting)
-        .options(joinedload(Job.customer), joinedload(Job.rotor).joinedload(Rotor.rotor_type))
-        .order_by(Job.first_in_tolerance_at.asc().nulls_last(), Job.id).limit(limit)
-    ))
-    return jobs, total
-
-
-# --------------------------------------------------------------------------- audit export
-
-
-INDEX_COLUMNS = ("number", "revision", "state", "job", "customer", "serial", "issued_at",
-                 "pdf_sha256", "file_name")
-
-
-def file_name(cert: Certificate) -> str:
-    return f"{cert.number}-rev{cert.revision}.pdf"
-
-
-def audit_zip(session: Session, date_from: dt.date, date_to: dt.date) -> bytes:
-    """Every certificate issued in ``[date_from, date_to]`` as one ZIP with ``index.csv``.
-
-    Built in memory, at most :data:`MAX_ZIP_CERTIFICATES` certificates. File
-    dates inside the ZIP are the issue times, so the same range gives the same
-    ZIP bytes.
-    """
-    if date_from is None:
-        raise ValidationFailed("date_from", "is required for an audit export")
-    if date_to is None:
-        raise ValidationFailed("date_to", "is required for an audit export")
-    f = RegisterFilter(date_from=date_from, date_to=date_to)
-    base = register_select(f)
-    count = session.scalar(select(func.count()).select_from(base.order_by(None).subquery())) or 0
-    if count > MAX_ZIP_CERTIFICATES:
-        raise ValidationFailed(
-            "date_to", f"the range holds {count} certificates; one ZIP holds at most "
-                       f"{MAX_ZIP_CERTIFICATES}: choose a shorter range"
-        )
-    ids = list(session.scalars(
-        select(Certificate.id).where(Certificate.id.in_(base.with_only_columns(Certificate.id)))
-        .order_by(Certificate.issued_at, Certificate.number, Certificate.revision)
-    ))
-    buf = io.BytesIO()
-    index = io.StringIO()
-    writer = csv.writer(index, lineterminator="\n")
-    writer.writerow(INDEX_COLUMNS)
-    with zipfile.ZipFile(buf, "w") as zf:
-        for chunk in _chunks(ids, 50):
-            # Plain rows, not ORM objects: nothing piles up in the session's identity map.
-            rows = session.execute(
-                select(Certificate.number, Certificate.revision, Certificate.state,
-                       Certificate.issued_at, Certificate.pdf_sha256, Certificate.pdf,
-                       Job.number, Customer.name, Rotor.serial_number)
-                .join(Job, Certificate.job_id == Job.id)
-                .join(Customer, Job.customer_id == Customer.id)
-                .join(Rotor, Job.rotor_id == Rotor.id)
-                .where(Certificate.id.in_(chunk))
-                .order_by(Certificate.issued_at, Certificate.number, Certificate.revision)
-            ).all()
-            for number, rev, state, issued_at, pdf_sha, pdf, job_no, customer, serial in rows:
-                name = f"{number}-rev{rev}.pdf"
-                info = zipfile.ZipInfo(name, date_time=_zip_time(issued_at))
-                info.compress_type = zipfile.ZIP_STORED  # PDFs are compressed already
-                zf.writestr(info, pdf)
-                writer.writerow([number, rev, state, job_no, customer, serial,
-                                 issued_at.isoformat(timespec="seconds"), pdf_sha, name])
-        info = zipfile.ZipInfo("index.csv", date_time=_zip_time(_day_start(date_to)))
-        info.compress_type = zipfile.ZIP_DEFLATED
-        zf.writestr(info, index.getvalue().encode("utf-8"))
-    return buf.getvalue()
-
-
-def _chunks(items: Sequence[int], size: int) -> list[Sequence[int]]:
-    return [items[i:i + size] for i in range(0, len(items), size)]
-
-
-def _zip_time(moment: dt.datetime) -> tuple[int, int, int, int, int, int]:
-    u = moment.astimezone(dt.UTC)
-    return (max(u.year, 1980), u.month, u.day, u.hour, u.minute, u.second)

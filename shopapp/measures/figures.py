@@ -1,0 +1,341 @@
+"""The period figures: one :class:`Figures` per slice, from six families of queries.
+
+Each family (received, dispatched with turnaround and promised dates, work in
+progress, the tolerance cohort with cycles and first pass, rework, rejections)
+is one query that returns its aggregates for every slice at once; :func:`figures_for`
+runs the families asked for and merges them. The definitions are in the docstring of
+:mod:`shopapp.measures.services`.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, fields
+from typing import Any
+
+from sqlalchemy import (
+    Float,
+    case,
+    cast,
+    false,
+    func,
+    or_,
+    select,
+    true,
+    union_all,
+)
+from sqlalchemy.orm import Session, aliased
+
+from shopapp.measures.periods import Period, Scope
+from shopapp.measures.sql import (
+    Grouped,
+    base_select,
+    day_number,
+    days_cte,
+    from_days,
+    grouped,
+    histogram,
+    long_form,
+    pct_hist,
+    rejections,
+    reopenings,
+    scoped,
+    utc_start,
+    work_day_index_of_day,
+    work_day_index_py,
+)
+from shopapp.models import Correction, Customer, Job, JobTransition, Machine, RotorType, Run, User
+
+DIMENSIONS: tuple[str, ...] = ("operator", "machine", "rotor_type", "customer", "month")
+DIMENSION_LABELS: dict[str, str] = {
+    "operator": "operator",
+    "machine": "machine",
+    "rotor_type": "rotor type",
+    "customer": "customer",
+    "month": "month",
+}
+CHECK_PURPOSES: tuple[str, ...] = ("check", "final")
+UNASSIGNED = "(none)"
+
+
+@dataclass
+class Figures:
+    """The measures of one period, or of one slice of it (see :mod:`shopapp.measures.services`)."""
+
+    jobs_received: int = 0
+    jobs_dispatched: int = 0
+    wip_jobs: int = 0
+    wip_age_median_wd: float | None = None
+    wip_age_max_wd: int | None = None
+    turnaround_median_wd: float | None = None
+    turnaround_p90_wd: float | None = None
+    promised_jobs: int = 0
+    promised_hit: int = 0
+    reached_in_tolerance: int = 0
+    first_pass_judged: int = 0
+    first_pass_jobs: int = 0
+    correction_cycles_mean: float | None = None
+    reworked_jobs: int = 0
+    rejected_jobs: int = 0
+
+    @property
+    def promised_hit_rate(self) -> float | None:
+        return self.promised_hit / self.promised_jobs if self.promised_jobs else None
+
+    @property
+    def first_pass_rate(self) -> float | None:
+        return self.first_pass_jobs / self.first_pass_judged if self.first_pass_judged else None
+
+    @property
+    def rework_rate(self) -> float | None:
+        return self.reworked_jobs / self.reached_in_tolerance if self.reached_in_tolerance else None
+
+    def as_dict(self) -> dict[str, Any]:
+        out: dict[str, Any] = {f.name: getattr(self, f.name) for f in fields(self)}
+        out["promised_hit_rate"] = self.promised_hit_rate
+        out["first_pass_rate"] = self.first_pass_rate
+        out["rework_rate"] = self.rework_rate
+        return out
+
+
+FIGURE_NAMES: tuple[str, ...] = tuple(Figures().as_dict())
+
+
+@dataclass
+class SliceRow:
+    dimension: str
+    key: str | None  # the id (as text) or 'YYYY-MM'; None = not assigned
+    label: str
+    figures: Figures
+
+    @property
+    def key_id(self) -> int | None:
+        return int(self.key) if self.key is not None and self.dimension != "month" else None
+
+
+def _received(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
+    base = scoped(
+        base_select({"job_id": Job.id}, Job.received_on)
+        .where(Job.received_on.between(p.start, p.end)),
+        scope,
+    )
+    long = long_form(base, dims, ["job_id"])
+    return grouped(session, long, {"jobs_received": func.count(long.c.job_id)})
+
+
+def _dispatched(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
+    hit = case(
+        (Job.promised_on.is_(None), None),
+        (Job.dispatched_on <= Job.promised_on, 1),
+        else_=0,
+    )
+    days = days_cte(scoped(
+        base_select({"r": day_number(Job.received_on), "d": day_number(Job.dispatched_on),
+                     "hit": hit}, Job.dispatched_on)
+        .where(Job.dispatched_on.between(p.start, p.end)),
+        scope,
+    ))
+    turnaround = work_day_index_of_day(days.c.d) - work_day_index_of_day(days.c.r)
+    base = from_days(days, {"wd": turnaround, "hit": days.c.hit})
+    long = long_form(base, dims, ["wd", "hit"])
+    h = histogram(long, "wd", {"pj": func.count(long.c.hit),
+                                "ph": func.coalesce(func.sum(long.c.hit), 0)})
+    return grouped(
+        session,
+        h,
+        {
+            "jobs_dispatched": func.sum(h.c.c),
+            "promised_jobs": func.sum(h.c.pj),
+            "promised_hit": func.sum(h.c.ph),
+            "turnaround_median_wd": pct_hist(h, 1, 2),
+            "turnaround_p90_wd": pct_hist(h, 9, 10),
+        },
+    )
+
+
+def _wip(
+    session: Session, p: Period, scope: Scope, dims: Sequence[str], as_of: dt.date
+) -> Grouped:
+    day_after = utc_start(as_of + dt.timedelta(days=1))
+    # An uncorrelated NOT IN: one pass over the rejections, not one lookup per open job.
+    rejected_by_then = Job.id.in_(
+        select(JobTransition.job_id).where(
+            JobTransition.to_state == "rejected", JobTransition.at < day_after
+        )
+    )
+    days = days_cte(scoped(
+        base_select({"r": day_number(Job.received_on)}, Job.received_on).where(
+            Job.received_on <= as_of,
+            or_(Job.dispatched_on.is_(None), Job.dispatched_on > as_of),
+            ~rejected_by_then,
+        ),
+        scope,
+    ))
+    base = from_days(days, {"age": work_day_index_py(as_of) - work_day_index_of_day(days.c.r)})
+    h = histogram(long_form(base, dims, ["age"]), "age", {})
+    return grouped(
+        session,
+        h,
+        {
+            "wip_jobs": func.sum(h.c.c),
+            "wip_age_median_wd": pct_hist(h, 1, 2),
+            "wip_age_max_wd": func.max(h.c.v),
+        },
+    )
+
+
+def _tolerance_cohort(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
+    """Jobs that first reached in_tolerance in ``p``: count, cycles, first pass."""
+    reached = Job.first_in_tolerance_at
+    before_tol = Correction.applied_at <= reached
+    # Correction steps: distinct runs answered; a correction without a run stands alone.
+    cycles = (
+        select(func.count(func.distinct(func.coalesce(Correction.run_id, -Correction.id))))
+        .where(Correction.job_id == Job.id, before_tol)
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    answered = aliased(Run)
+    first_step_seq = (
+        select(func.min(answered.seq))
+        .select_from(Correction)
+        .join(answered, answered.id == Correction.run_id)
+        .where(Correction.job_id == Job.id, before_tol)
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    check = aliased(Run)
+    first_check_verdict = (
+        select(case((check.within_tolerance == true(), 1),
+                    (check.within_tolerance == false(), 0), else_=None))
+        .where(
+            check.job_id == Job.id,
+            check.seq > first_step_seq,
+            check.purpose.in_(CHECK_PURPOSES),
+        )
+        .order_by(check.seq)
+        .limit(1)
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    base = scoped(
+        base_select({"job_id": Job.id, "cycles": cycles, "fp": first_check_verdict}, reached).where(
+            reached >= utc_start(p.start), reached < utc_start(p.end + dt.timedelta(days=1))
+        ),
+        scope,
+    )
+    long = long_form(base, dims, ["job_id", "cycles", "fp"])
+    return grouped(
+        session,
+        long,
+        {
+            "reached_in_tolerance": func.count(long.c.job_id),
+            "correction_cycles_mean": cast(func.avg(cast(long.c.cycles, Float)), Float),
+            "first_pass_judged": func.count(long.c.fp),
+            "first_pass_jobs": func.coalesce(func.sum(long.c.fp), 0),
+        },
+    )
+
+
+def _rework(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
+    reopen = reopenings(p).subquery("reopen")
+    reopened = scoped(
+        base_select({"job_id": Job.id}, reopen.c.at).join(reopen, reopen.c.job_id == Job.id), scope
+    )
+    returned = scoped(
+        base_select({"job_id": Job.id}, Job.received_on).where(
+            Job.kind == "return", Job.received_on.between(p.start, p.end)
+        ),
+        scope,
+    )
+    base = union_all(reopened, returned).subquery("events")
+    flat = select(*base.c)
+    long = long_form(flat, dims, ["job_id"])
+    return grouped(
+        session, long, {"reworked_jobs": func.count(func.distinct(long.c.job_id))}
+    )
+
+
+def _rejected(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
+    rej = rejections(p).subquery("rej")
+    base = scoped(
+        base_select({"job_id": Job.id}, rej.c.at).join(rej, rej.c.job_id == Job.id), scope
+    )
+    long = long_form(base, dims, ["job_id"])
+    return grouped(
+        session, long, {"rejected_jobs": func.count(func.distinct(long.c.job_id))}
+    )
+
+
+_INT_FIELDS = frozenset(f.name for f in fields(Figures) if str(f.type).startswith("int"))
+
+
+def _merge(parts: Iterable[Grouped]) -> dict[tuple[str, str | None], Figures]:
+    """One :class:`Figures` per (dimension, key) from the families' grouped rows."""
+    merged: dict[tuple[str, str | None], Figures] = {}
+    for part in parts:
+        for key, values in part.items():
+            fig = merged.setdefault(key, Figures())
+            for name, value in values.items():
+                if value is not None:
+                    # PostgreSQL returns SUM as numeric: make every backend's types alike.
+                    value = int(value) if name in _INT_FIELDS else float(value)
+                setattr(fig, name, value)
+    return merged
+
+
+def figures_for(
+    session: Session,
+    p: Period,
+    scope: Scope,
+    dims: Sequence[str],
+    as_of: dt.date,
+    families: Sequence[str] = ("received", "dispatched", "wip", "tolerance", "rework", "rejected"),
+) -> dict[tuple[str, str | None], Figures]:
+    runners = {
+        "received": lambda: _received(session, p, scope, dims),
+        "dispatched": lambda: _dispatched(session, p, scope, dims),
+        "wip": lambda: _wip(session, p, scope, dims, as_of),
+        "tolerance": lambda: _tolerance_cohort(session, p, scope, dims),
+        "rework": lambda: _rework(session, p, scope, dims),
+        "rejected": lambda: _rejected(session, p, scope, dims),
+    }
+    return _merge(runners[f]() for f in families)
+
+
+def _labels(session: Session, dim: str, keys: set[str]) -> dict[str, str]:
+    ids = sorted(int(k) for k in keys if k is not None)
+    if not ids:
+        return {}
+    if dim == "operator":
+        rows = session.execute(select(User.id, User.full_name).where(User.id.in_(ids)))
+    elif dim == "machine":
+        rows = session.execute(select(Machine.id, Machine.name).where(Machine.id.in_(ids)))
+    elif dim == "rotor_type":
+        rows = session.execute(
+            select(RotorType.id, RotorType.part_number + " " + RotorType.description).where(
+                RotorType.id.in_(ids)
+            )
+        )
+    else:
+        rows = session.execute(select(Customer.id, Customer.name).where(Customer.id.in_(ids)))
+    return {str(i): (label or "").strip() for i, label in rows}
+
+
+def slice_rows(
+    session: Session, merged: dict[tuple[str, str | None], Figures], dim: str, p: Period
+) -> list[SliceRow]:
+    if dim == "month":
+        return [
+            SliceRow("month", m, m, merged.get(("month", m), Figures())) for m in p.months()
+        ]
+    keys = {k for (d, k) in merged if d == dim}
+    labels = _labels(session, dim, {k for k in keys if k is not None})
+    rows = [
+        SliceRow(dim, k, labels.get(k, f"#{k}") if k is not None else UNASSIGNED,
+                 merged[(dim, k)])
+        for k in keys
+    ]
+    rows.sort(key=lambda r: (r.key is None, r.label.lower(), r.key or ""))
+    return rows

@@ -1,0 +1,265 @@
+"""The shop measures' lists: rework and rejection reasons, rotors getting worse, machines.
+
+Each list is one query (definitions in :mod:`shopapp.measures.services`); its rows
+are the plain data of :mod:`shopapp.reports.shop_month`, which prints them.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+from sqlalchemy import (
+    String,
+    and_,
+    case,
+    false,
+    func,
+    literal_column,
+    or_,
+    select,
+    union_all,
+)
+from sqlalchemy.orm import Session
+from sqlalchemy.sql import ColumnElement
+
+from shopapp.core.errors import ValidationFailed
+from shopapp.measures.periods import EVERYTHING, Period, Scope
+from shopapp.measures.sql import day_number, rejections, reopenings, scoped, utc_start
+from shopapp.models import (
+    Customer,
+    Job,
+    Machine,
+    MachineVerification,
+    Rotor,
+    RotorType,
+    Run,
+    RunReading,
+)
+from shopapp.reports.shop_month import MachineStatus, ReasonCount, WorseningRotor
+
+RETURN_REASON = "customer return"
+
+
+def rework_reasons(
+    session: Session, p: Period, scope: Scope = EVERYTHING, *, limit: int = 20
+) -> list[ReasonCount]:
+    """Reopen reasons of the period (one per reopening) and returns, most frequent first."""
+    reopen = reopenings(p).subquery("reopen")
+    trimmed = func.trim(reopen.c.reason)
+    reason = case((trimmed == "", "(no reason given)"), else_=trimmed)
+    reopen_stmt = scoped(
+        select(reason.label("reason"), func.count().label("n"))
+        .select_from(Job)
+        .join(Rotor, Rotor.id == Job.rotor_id)
+        .join(reopen, reopen.c.job_id == Job.id),
+        scope,
+    ).group_by(reason)
+    returns_stmt = scoped(
+        select(literal_column(f"'{RETURN_REASON}'", String).label("reason"),
+               func.count().label("n"))
+        .select_from(Job)
+        .join(Rotor, Rotor.id == Job.rotor_id)
+        .where(Job.kind == "return", Job.received_on.between(p.start, p.end)),
+        scope,
+    )
+    both = union_all(reopen_stmt, returns_stmt).subquery("reasons")
+    stmt = (
+        select(both.c.reason, func.sum(both.c.n).label("n"))
+        .group_by(both.c.reason)
+        .having(func.sum(both.c.n) > 0)
+        .order_by(func.sum(both.c.n).desc(), both.c.reason)
+        .limit(limit)
+    )
+    return [ReasonCount(row["reason"], int(row["n"])) for row in session.execute(stmt).mappings()]
+
+
+def rejection_reasons(
+    session: Session, p: Period, scope: Scope = EVERYTHING, *, limit: int = 20
+) -> list[ReasonCount]:
+    """Reasons given when jobs were rejected in the period, most frequent first."""
+    rej = rejections(p).subquery("rej")
+    text = func.trim(case((func.trim(rej.c.reason) != "", rej.c.reason), else_=Job.reject_reason))
+    label = case((text == "", "(no reason given)"), else_=text)
+    stmt = (
+        scoped(
+            select(label.label("reason"), func.count(func.distinct(Job.id)).label("n"))
+            .select_from(Job)
+            .join(Rotor, Rotor.id == Job.rotor_id)
+            .join(rej, rej.c.job_id == Job.id),
+            scope,
+        )
+        .group_by(label)
+        .order_by(func.count(func.distinct(Job.id)).desc(), label)
+        .limit(limit)
+    )
+    return [ReasonCount(row["reason"], int(row["n"])) for row in session.execute(stmt).mappings()]
+
+
+def rotors_getting_worse(
+    session: Session, p: Period, scope: Scope = EVERYTHING, *, visits: int = 3, limit: int = 50
+) -> list[WorseningRotor]:
+    """Rotors whose initial unbalance rose over their last ``visits`` visits (see module doc).
+
+    ROW_NUMBER over each rotor's jobs (newest first) keeps its last ``visits`` visits;
+    only those visits' first initial runs are read, then one row per rotor holds the
+    amplitudes side by side (conditional aggregation) to compare them.
+    """
+    if visits < 2:
+        raise ValidationFailed("visits", f"{visits} visits cannot show a rise; use 2 or more")
+    # Only rotors with enough visits, the latest in the period, can qualify.
+    candidates = scoped(
+        select(Job.rotor_id)
+        .select_from(Job)
+        .join(Rotor, Rotor.id == Job.rotor_id)
+        .where(Job.received_on <= p.end)
+        .group_by(Job.rotor_id)
+        .having(func.count() >= visits, func.max(Job.received_on) >= p.start),
+        scope,
+    )
+    ranked = (
+        select(
+            Job.id.label("job_id"),
+            Job.rotor_id.label("rotor_id"),
+            Job.number.label("number"),
+            Job.received_on.label("received_on"),
+            func.row_number()
+            .over(partition_by=Job.rotor_id, order_by=(Job.received_on.desc(), Job.id.desc()))
+            .label("rn"),
+        )
+        .where(Job.received_on <= p.end, Job.rotor_id.in_(candidates))
+        .subquery("ranked_visits")
+    )
+    last = select(ranked).where(ranked.c.rn <= visits).cte("last_visits").prefix_with(
+        "MATERIALIZED"
+    )
+    # Each visit's first initial run: one index lookup per visit (run has (job_id, seq)).
+    first_initial = (
+        select(Run.id)
+        .where(Run.job_id == last.c.job_id, Run.purpose == "initial")
+        .order_by(Run.seq)
+        .limit(1)
+        .correlate(last)
+        .scalar_subquery()
+    )
+    visit_runs = (
+        select(last, first_initial.label("run_id"))
+        .cte("visit_runs")
+        .prefix_with("MATERIALIZED")
+    )
+    per_visit = (
+        select(
+            visit_runs.c.rotor_id, visit_runs.c.rn, visit_runs.c.number,
+            visit_runs.c.received_on,
+            func.max(RunReading.amplitude).label("amp"),
+            func.min(RunReading.unit).label("unit"),
+            func.count(func.distinct(RunReading.unit)).label("units"),
+        )
+        .select_from(visit_runs)
+        .join(RunReading, RunReading.run_id == visit_runs.c.run_id)
+        .group_by(visit_runs.c.rotor_id, visit_runs.c.rn, visit_runs.c.number,
+                  visit_runs.c.received_on)
+        .subquery("per_visit")
+    )
+    v = per_visit.c
+
+    def at(k: int, col: Any) -> ColumnElement[Any]:
+        return func.max(case((v.rn == k, col)))
+
+    amps = [at(k, v.amp) for k in range(1, visits + 1)]  # newest first
+    units = [at(k, v.unit) for k in range(1, visits + 1)]
+    cond = [func.count() == visits, func.max(v.units) == 1,
+            func.min(v.unit) == func.max(v.unit), at(1, v.received_on) >= p.start]
+    cond += [amps[k] > amps[k + 1] for k in range(visits - 1)]
+    pivot = (
+        select(
+            v.rotor_id.label("rotor_id"),
+            at(1, v.number).label("number"),
+            at(1, v.received_on).label("received_on"),
+            units[0].label("unit"),
+            *(a.label(f"amp{k}") for k, a in enumerate(amps)),
+        )
+        .group_by(v.rotor_id)
+        .having(and_(*cond))
+        .subquery("pivot")
+    )
+    w = pivot.c
+    stmt = (
+        select(
+            w.rotor_id, Rotor.serial_number, Customer.name.label("customer"),
+            RotorType.part_number.label("rotor_type"), w.number, w.received_on, w.unit,
+            *(w[f"amp{k}"] for k in range(visits)),
+        )
+        .join(Rotor, Rotor.id == w.rotor_id)
+        .join(Customer, Customer.id == Rotor.customer_id)
+        .join(RotorType, RotorType.id == Rotor.rotor_type_id)
+        .order_by(w.received_on.desc(), Rotor.serial_number)
+        .limit(limit)
+    )
+    out = []
+    for row in session.execute(stmt).mappings():
+        received = row["received_on"]
+        if isinstance(received, str):  # SQLite returns MAX() over a DATE as text
+            received = dt.date.fromisoformat(received)
+        oldest_first = tuple(float(row[f"amp{k}"]) for k in reversed(range(visits)))
+        out.append(WorseningRotor(row["rotor_id"], row["serial_number"], row["customer"],
+                                  row["rotor_type"], row["number"], received, row["unit"],
+                                  oldest_first))
+    return out
+
+
+def machine_status(
+    session: Session, p: Period, *, today: dt.date, due_soon_days: int
+) -> list[MachineStatus]:
+    """Utilisation in the period and verification status today, one row per machine."""
+    start, stop = utc_start(p.start), utc_start(p.end + dt.timedelta(days=1))
+    use = (
+        select(
+            Job.machine_id.label("machine_id"),
+            func.count(Run.id).label("runs"),
+            func.count(func.distinct(Run.job_id)).label("jobs"),
+        )
+        .select_from(Run)
+        .join(Job, Job.id == Run.job_id)
+        .where(Run.taken_at >= start, Run.taken_at < stop, Job.machine_id.is_not(None))
+        .group_by(Job.machine_id)
+        .subquery("use")
+    )
+    ranked = select(
+        MachineVerification.machine_id,
+        MachineVerification.performed_on,
+        MachineVerification.passed,
+        func.row_number()
+        .over(partition_by=MachineVerification.machine_id,
+              order_by=(MachineVerification.performed_on.desc(), MachineVerification.id.desc()))
+        .label("rn"),
+    ).subquery("ranked")
+    last = select(ranked).where(ranked.c.rn == 1).subquery("last")
+    due_day = day_number(last.c.performed_on) + Machine.verification_interval_days
+    today_n = (today - dt.date(1970, 1, 1)).days
+    status = case(
+        (last.c.performed_on.is_(None), "never verified"),
+        (last.c.passed == false(), "failed"),
+        (due_day < today_n, "overdue"),
+        (due_day - today_n <= due_soon_days, "due soon"),
+        else_="current",
+    )
+    stmt = (
+        select(
+            Machine.id, Machine.name, func.coalesce(use.c.jobs, 0).label("jobs"),
+            func.coalesce(use.c.runs, 0).label("runs"), last.c.performed_on,
+            Machine.verification_interval_days, status.label("status"),
+        )
+        .outerjoin(use, use.c.machine_id == Machine.id)
+        .outerjoin(last, last.c.machine_id == Machine.id)
+        .where(or_(Machine.archived == false(), use.c.runs.is_not(None)))
+        .order_by(Machine.name)
+    )
+    out = []
+    for row in session.execute(stmt).mappings():
+        last_on = row["performed_on"]
+        due = (last_on + dt.timedelta(days=int(row["verification_interval_days"]))
+               if last_on else None)
+        out.append(MachineStatus(row["id"], row["name"], int(row["jobs"]), int(row["runs"]),
+                                 last_on, due, row["status"]))
+    return out

@@ -1,0 +1,139 @@
+"""What the shop measures are taken over: a period of whole days and a scope.
+
+A period is a range of whole days, first and last day included (a week from
+Monday, a calendar month, quarter or year, or a custom range); timestamps belong
+to the period of their UTC date. A scope restricts every measure to one operator,
+machine, rotor type and/or customer.
+"""
+
+from __future__ import annotations
+
+import calendar
+import datetime as dt
+from dataclasses import asdict, dataclass
+
+from shopapp.core.errors import ValidationFailed
+
+PERIOD_KINDS: tuple[str, ...] = ("week", "month", "quarter", "year", "custom")
+
+
+@dataclass(frozen=True)
+class Period:
+    """Whole days from ``start`` to ``end``, both included."""
+
+    start: dt.date
+    end: dt.date
+    kind: str = "custom"
+
+    def __post_init__(self) -> None:
+        if self.end < self.start:
+            raise ValidationFailed(
+                "end", f"the period ends ({self.end}) before it starts ({self.start})"
+            )
+
+    @classmethod
+    def week(cls, day: dt.date) -> Period:
+        start = day - dt.timedelta(days=day.weekday())
+        return cls(start, start + dt.timedelta(days=6), "week")
+
+    @classmethod
+    def month(cls, year: int, month: int) -> Period:
+        last = calendar.monthrange(year, month)[1]
+        return cls(dt.date(year, month, 1), dt.date(year, month, last), "month")
+
+    @classmethod
+    def quarter(cls, year: int, quarter: int) -> Period:
+        first = 3 * (quarter - 1) + 1
+        last = calendar.monthrange(year, first + 2)[1]
+        return cls(dt.date(year, first, 1), dt.date(year, first + 2, last), "quarter")
+
+    @classmethod
+    def year(cls, year: int) -> Period:
+        return cls(dt.date(year, 1, 1), dt.date(year, 12, 31), "year")
+
+    @classmethod
+    def containing(cls, kind: str, day: dt.date) -> Period:
+        """The week, month, quarter or year that contains ``day``."""
+        if kind == "week":
+            return cls.week(day)
+        if kind == "month":
+            return cls.month(day.year, day.month)
+        if kind == "quarter":
+            return cls.quarter(day.year, (day.month - 1) // 3 + 1)
+        if kind == "year":
+            return cls.year(day.year)
+        raise ValidationFailed("period", f"'{kind}' is not one of {', '.join(PERIOD_KINDS)}")
+
+    @property
+    def days(self) -> int:
+        return (self.end - self.start).days + 1
+
+    @property
+    def label(self) -> str:
+        if self.kind == "month":
+            return self.start.strftime("%B %Y")
+        if self.kind == "year":
+            return str(self.start.year)
+        if self.kind == "quarter":
+            return f"Q{(self.start.month - 1) // 3 + 1} {self.start.year}"
+        if self.kind == "week":
+            iso = self.start.isocalendar()
+            return f"week {iso.week} of {iso.year}"
+        return f"{self.start.isoformat()} – {self.end.isoformat()}"
+
+    def previous(self) -> Period:
+        """The period of the same kind just before this one (custom: same length)."""
+        if self.kind in ("week", "month", "quarter", "year"):
+            return Period.containing(self.kind, self.start - dt.timedelta(days=1))
+        return Period(
+            self.start - dt.timedelta(days=self.days),
+            self.start - dt.timedelta(days=1),
+            "custom",
+        )
+
+    def months(self) -> list[str]:
+        """``'YYYY-MM'`` of every month the period touches, in order."""
+        out: list[str] = []
+        y, m = self.start.year, self.start.month
+        while (y, m) <= (self.end.year, self.end.month):
+            out.append(f"{y:04d}-{m:02d}")
+            y, m = (y + 1, 1) if m == 12 else (y, m + 1)
+        return out
+
+    def trailing_months(self, count: int = 12) -> Period:
+        """The ``count`` whole months ending with the month of ``end``."""
+        y, m = self.end.year, self.end.month - (count - 1)
+        while m < 1:
+            y, m = y - 1, m + 12
+        last = calendar.monthrange(self.end.year, self.end.month)[1]
+        return Period(dt.date(y, m, 1), dt.date(self.end.year, self.end.month, last), "custom")
+
+
+def parse_month(value: str) -> Period:
+    """``'2026-10'`` → the month of October 2026; a clear message otherwise."""
+    try:
+        year_s, month_s = value.strip().split("-")
+        year, month = int(year_s), int(month_s)
+        if not (1 <= month <= 12 and 1900 <= year <= 9999):
+            raise ValueError
+    except ValueError:
+        raise ValidationFailed(
+            "month", f"'{value}' is not a month; write it as YYYY-MM, e.g. 2026-10"
+        ) from None
+    return Period.month(year, month)
+
+
+@dataclass(frozen=True)
+class Scope:
+    """Restrict every measure to one operator, machine, rotor type and/or customer."""
+
+    operator_id: int | None = None
+    machine_id: int | None = None
+    rotor_type_id: int | None = None
+    customer_id: int | None = None
+
+    def as_args(self) -> dict[str, int]:
+        return {k: v for k, v in asdict(self).items() if v is not None}
+
+
+EVERYTHING = Scope()  # no restriction: the whole shop
