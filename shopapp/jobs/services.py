@@ -61,7 +61,7 @@ from shopapp.models import (
     User,
     utcnow,
 )
-from shopapp.registry import services as registry
+from shopapp.registry import customers, rotor_types, rotors
 from shopapp.traceability import services as traceability
 
 # The state machine: from-state → states it may move to.
@@ -435,7 +435,7 @@ def _customer_for(session: Session, e: _Errors, by: User,
                   customer: int | Mapping[str, Any]) -> Customer | None:
     if isinstance(customer, Mapping):
         try:
-            return registry.create_customer(session, by=by, **dict(customer))
+            return customers.create_customer(session, by=by, **dict(customer))
         except ValidationFailed as exc:
             for k, v in _prefixed(exc, "new_customer_").errors.items():
                 e.add(k, v)
@@ -478,10 +478,10 @@ def book_in(
     """Book a rotor in: a new job in ``booked_in`` with a number from the shop's pattern.
 
     ``customer`` is an existing customer id or the fields of a new customer
-    (:func:`shopapp.registry.services.create_customer`). The rotor is found by
-    serial for that customer (:func:`registry.find_rotor`) or registered with
+    (:func:`shopapp.registry.customers.create_customer`). The rotor is found by
+    serial for that customer (:func:`shopapp.registry.rotors.find_rotor`) or registered with
     ``rotor_type_id`` or, for a one-off rotor, ``one_off`` geometry
-    (:func:`registry.create_one_off_rotor_type`). ``tolerance`` defaults to the
+    (:func:`shopapp.registry.rotor_types.create_one_off_rotor_type`). ``tolerance`` defaults to the
     rotor type's. ``service_speed_rpm`` defaults to the rotor type's. The
     machine must take the rotor's mass and the balancing speed. A return job
     (``kind="return"``) names the earlier job (``return_of_job_id``).
@@ -543,7 +543,7 @@ def _book_in_rows(
     assert cust is not None
     if earlier is not None and earlier.customer_id != cust.id:
         e.add("return_of_job_id", f"job {earlier.number} belongs to another customer")
-    rotor = registry.find_rotor(session, cust.id, serial)
+    rotor = rotors.find_rotor(session, cust.id, serial)
     if rotor is not None:
         if rt_pick is not None and rotor.rotor_type_id != rt_pick.id:
             e.add("rotor_type_id", f"serial {rotor.serial_number} is already registered as "
@@ -563,13 +563,13 @@ def _book_in_rows(
     if rotor is None:
         try:
             if rt_pick is not None:
-                rotor = registry.create_rotor(session, by=by, customer=cust, rotor_type=rt_pick,
+                rotor = rotors.create_rotor(session, by=by, customer=cust, rotor_type=rt_pick,
                                               serial_number=serial)
             else:
                 assert one_off is not None
-                rt_new = registry.create_one_off_rotor_type(
+                rt_new = rotor_types.create_one_off_rotor_type(
                     session, by=by, customer=cust, serial_number=serial, **dict(one_off))
-                rotor = registry.create_rotor(session, by=by, customer=cust, rotor_type=rt_new,
+                rotor = rotors.create_rotor(session, by=by, customer=cust, rotor_type=rt_new,
                                               serial_number=serial)
         except TypeError as exc:
             raise ValidationFailed("one_off", f"unknown geometry field ({exc})") from None
@@ -659,7 +659,7 @@ class RotorHistory:
 def rotor_history(session: Session, customer_id: int, serial_number: str) -> RotorHistory | None:
     """History of a known serial for the intake page, or None for an unknown serial."""
     serial = "".join(ch for ch in serial_number if ord(ch) >= 32)
-    rotor = registry.find_rotor(session, customer_id, serial)
+    rotor = rotors.find_rotor(session, customer_id, serial)
     if rotor is None:
         return None
     count = session.scalar(select(func.count()).select_from(Job).where(Job.rotor_id == rotor.id))

@@ -47,7 +47,7 @@ from shopapp.models import (
     Run,
     User,
 )
-from shopapp.registry import services as registry
+from shopapp.registry import rotor_types
 from shopapp.traceability import services as tr
 
 END = dt.date(2026, 3, 27)  # a Friday
@@ -498,7 +498,7 @@ def test_scenario_rotor_types_pass_the_registry_rules() -> None:
             else None,
             "tolerance_gmm": spec.explicit_gmm,
         }
-        assert registry.validate_geometry(values) == {}, spec.part_number
+        assert rotor_types.validate_geometry(values) == {}, spec.part_number
 
 
 def test_working_days_skip_weekends_and_the_year_end_closure() -> None:
