@@ -12,7 +12,7 @@ The running number restarts every year when the pattern contains ``{year}`` or
 the pattern by hand or imported keep counting). Two people booking in at the
 same moment may compute the same number: the unique constraint on
 ``job.number`` catches that and the caller retries with the next one
-(:func:`shopapp.jobs.services.book_in` does, inside a savepoint).
+(:func:`shopapp.jobs.intake.book_in` does, inside a savepoint).
 """
 
 from __future__ import annotations
