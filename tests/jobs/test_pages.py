@@ -342,6 +342,25 @@ def test_recording_the_applied_correction_and_a_passing_check(client, login_as, 
     assert job.state == "in_tolerance"
 
 
+def test_a_large_unbalance_reads_as_a_plain_number_on_the_job_page(client, login_as, db, rtype,
+                                                                   machine) -> None:
+    user = login_as("operator")
+    job = booked(db, user, rtype, machine)
+    # A calibrated machine (g·mm readings): 18 900 g·mm in plane 1, nothing in plane 2.
+    for purpose in ("initial", "check"):
+        record_run(db, job, by=user, purpose=purpose, speed_rpm=600,
+                   readings=[(1, 18900.0, 0.0, "g·mm"), (2, 0.0, 0.0, "g·mm")])
+    db.commit()
+    body = text(client.get(f"/jobs/{job.id}"))
+    visible = re.sub(r"<svg.*?</svg>", "", body, flags=re.S)
+    # docs/architecture.md, "Numbers shown": never scientific notation (common practice on
+    # shop paperwork); %.4g would print 1.89e+04.
+    assert "18900 g·mm" in visible
+    assert "1.89e+04" not in visible and not re.search(r"\de[+-]\d", visible)
+    # First principles, U = m·r: 18 900 g·mm at the 300 mm radius is 63 g.
+    assert _advice_cells(body)[0][0] == pytest.approx(63.0)
+
+
 def test_verdict_percentages_match_the_iso_limits(client, login_as, db, rtype, machine) -> None:
     user = login_as("operator")
     job = booked(db, user, rtype, machine)
