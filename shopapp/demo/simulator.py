@@ -80,6 +80,13 @@ from shopapp.core.settings import get_settings
 from shopapp.demo import scenario as sc
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import evidence as jt
+from shopapp.jobs.advice import prediction_error_pct
+from shopapp.jobs.residual_tests import (
+    SUGGESTED_FACTOR,
+    ResidualOutcome,
+    evaluate_residual_test,
+    record_residual_test,
+)
 from shopapp.models import (
     AuditEvent,
     Certificate,
@@ -1451,7 +1458,7 @@ class _JobSim:
             else:
                 applied[r["plane"] - 1] += _rect(r["mass_g"], r["angle_deg"] + flip)
         a = np.array(self.a_est, dtype=complex).reshape(2, 2)
-        err = job_calc.prediction_error_pct(
+        err = prediction_error_pct(
             a, list(self.phasors(self.runs[answering]["reading"])), applied,
             list(self.phasors(reading)))
         self.events.append(_Event(self.clock, "score", {"set": self.stored["id"], "err": err}))
@@ -1539,7 +1546,7 @@ class _JobSim:
         at position 1; readings ``S·(U_res + T·e^{iθ_k})`` with ``S`` the machine's
         sensitivity in that plane and ``U_res`` the rotor's true residual, noisy and
         rounded like the display. Judged as the service will
-        (:func:`shopapp.jobs.evidence.evaluate_residual_test`): an
+        (:func:`shopapp.jobs.residual_tests.evaluate_residual_test`): an
         invalid test is repeated, one over the limit means another correction.
         One job of the history gets a repeat of position 1 that disagrees.
         """
@@ -1569,14 +1576,14 @@ class _JobSim:
         return u, False
 
     def one_residual_test(self, u: Pair, plane: int, spoil: bool
-                          ) -> tuple[dict[str, Any], jt.ResidualOutcome]:
+                          ) -> tuple[dict[str, Any], ResidualOutcome]:
         rng = self.rng
         tm = self.tm
         i = plane - 1
         radius = tm.radii[i]
         limit = tm.tolerance.plane_limits_gmm[i]
         step = tm.spec.stock_g
-        mass = round(max(step, math.floor(jt.SUGGESTED_FACTOR * limit / radius / step) * step), 6)
+        mass = round(max(step, math.floor(SUGGESTED_FACTOR * limit / radius / step) * step), 6)
         t_gmm = mass * radius
         a = self.p.rotor.a_true
         sens = (a[0] if plane == 1 else a[3]) / radius  # reading per g·mm in this plane
@@ -1599,7 +1606,7 @@ class _JobSim:
                "amplitudes": [x for x, _ in points], "angles_deg": [y for _, y in points],
                "repeat_amplitude": rep_amp, "repeat_angle_deg": rep_ang,
                "unit": tm.machine.spec.reading_unit, "by": self.op_id}
-        out = jt.evaluate_residual_test(
+        out = evaluate_residual_test(
             plane=plane, test_mass_g=mass, test_radius_mm=radius, positions=8,
             amplitudes=rec["amplitudes"], angles_deg=rec["angles_deg"],
             repeat_amplitude=rep_amp, repeat_angle_deg=rep_ang, permissible_gmm=limit)
@@ -1998,8 +2005,8 @@ def _replay_ops(session: Session, gen: _Generator,
                 _date_new_audits(session, at)
             elif kind == "rtest":
                 fields = {k: v for k, v in data.items() if k != "by"}
-                jt.record_residual_test(session, job, by=users[data["by"]], performed_at=at,
-                                        **fields)
+                record_residual_test(session, job, by=users[data["by"]], performed_at=at,
+                                     **fields)
             elif data["what"] == "issue":
                 order_ref = job.customer_order_ref
                 first = job_id in reissued and not cert_queries.job_certificates(session, job)

@@ -27,7 +27,9 @@ from shopapp.balancing.phasors import normalize_deg, phasor
 from shopapp.demo import scenario as demo_scenario
 from shopapp.demo import simulator as demo
 from shopapp.jobs import evidence as jt
-from shopapp.jobs import services as jobs_service
+from shopapp.jobs import residual_tests
+from shopapp.jobs.queries import evaluate
+from shopapp.jobs.states import ALLOWED, REOPEN_FROM
 from shopapp.models import (
     Arbor,
     ArborErrorMeasurement,
@@ -204,7 +206,7 @@ def test_rejected_and_reopened_jobs_carry_their_reasons(ds: Session) -> None:
             assert j.transitions[-1].to_state == "rejected"
             assert j.transitions[-1].reason == j.reject_reason
         reopens = [t for t in j.transitions
-                   if t.to_state == "on_machine" and t.from_state in jobs_service.REOPEN_FROM]
+                   if t.to_state == "on_machine" and t.from_state in REOPEN_FROM]
         assert len(reopens) == j.reopen_count
         assert all(len(t.reason) > 10 for t in reopens)
 
@@ -215,7 +217,7 @@ def test_every_state_change_is_a_transition_the_state_machine_allows(ds: Session
         assert trs[0].from_state is None and trs[0].to_state == "booked_in"
         for prev, nxt in itertools.pairwise(trs):
             assert nxt.from_state == prev.to_state, j.number
-            assert nxt.to_state in jobs_service.ALLOWED[prev.to_state], j.number
+            assert nxt.to_state in ALLOWED[prev.to_state], j.number
             assert nxt.at >= prev.at
         assert trs[-1].to_state == j.state
         if j.first_in_tolerance_at is not None:
@@ -285,7 +287,7 @@ def test_stored_verdicts_match_the_core_and_the_job_page(ds: Session) -> None:
                 assert r.within_tolerance is _passes(ds, j, a, r), (j.number, r.seq)
             else:
                 assert r.within_tolerance is None
-        calc = jobs_service.evaluate(ds, j)
+        calc = evaluate(ds, j)
         if j.state in ("in_tolerance", "certified", "dispatched"):
             assert calc.in_tolerance, j.number
 
@@ -380,8 +382,8 @@ def test_four_w_over_n_jobs_carry_valid_residual_tests_before_their_certificates
     assert len(certified) >= 3
     for j in certified:
         assert j.residual_test_required  # set for 4W/N jobs
-        tests = jt.residual_tests_of(ds, j)
-        state = jt.residual_test_state(j, tests)
+        tests = residual_tests.residual_tests_of(ds, j)
+        state = residual_tests.residual_test_state(j, tests)
         assert state.ok, (j.number, state.problems)
         cert = ds.scalars(select(Certificate).where(Certificate.job_id == j.id,
                                                     Certificate.state == "issued")).one()

@@ -13,7 +13,9 @@ import numpy as np
 import pytest
 from sqlalchemy import func, select
 
-from shopapp.jobs import services as jobs
+from shopapp.core.errors import ValidationFailed
+from shopapp.jobs.intake import ToleranceSpec, book_in
+from shopapp.jobs.states import mark_in_tolerance
 from shopapp.models import (
     Arbor,
     ArborErrorMeasurement,
@@ -247,7 +249,8 @@ def test_residual_test_walk_compute_then_save(client, login_as, wn_job, db) -> N
     row = db.scalar(select(ResidualTest).where(ResidualTest.job_id == wn_job.id))
     assert row.valid and row.residual_gmm == pytest.approx(80.0, rel=1e-6)
     page = _text(client.get(f"/jobs/{wn_job.id}"))
-    assert "Residual 80 g·mm" in page
+    # Shown with three significant figures (shopapp.core.display, the one formatter).
+    assert "Residual 80.0 g·mm" in page
 
 
 def test_job_arbor_subtraction_and_repeat_runs(client, login_as, wn_job, db) -> None:  # type: ignore[no-untyped-def]
@@ -305,9 +308,9 @@ def test_booking_in_on_an_overdue_machine_is_refused(db, shop, make_user) -> Non
     last = TODAY - dt.timedelta(days=45)
     _verified(db, m, last)
     rt = shop.rotor_type()
-    with pytest.raises(jobs.ValidationFailed) as exc:
-        jobs.book_in(db, by=make_user("operator"), customer=rt.customer_id, serial_number="X-1",
-                     rotor_type_id=rt.id, balancing_speed_rpm=600.0, machine_id=m.id)
+    with pytest.raises(ValidationFailed) as exc:
+        book_in(db, by=make_user("operator"), customer=rt.customer_id, serial_number="X-1",
+                rotor_type_id=rt.id, balancing_speed_rpm=600.0, machine_id=m.id)
     due = last + dt.timedelta(days=30)
     assert exc.value.field == "machine_id"
     assert exc.value.errors["machine_id"] == (
@@ -322,9 +325,9 @@ def test_booking_in_on_an_overdue_machine_is_refused(db, shop, make_user) -> Non
 def test_booking_in_sets_the_residual_test_for_4wn(db, shop, make_user) -> None:  # type: ignore[no-untyped-def]
     m = shop.machine()
     rt = shop.rotor_type()
-    job = jobs.book_in(db, by=make_user("operator"), customer=rt.customer_id, serial_number="X-2",
-                       rotor_type_id=rt.id, balancing_speed_rpm=600.0, machine_id=m.id,
-                       tolerance=jobs.ToleranceSpec("4w/n", journal_load_a_kg=60.0))
+    job = book_in(db, by=make_user("operator"), customer=rt.customer_id, serial_number="X-2",
+                  rotor_type_id=rt.id, balancing_speed_rpm=600.0, machine_id=m.id,
+                  tolerance=ToleranceSpec("4w/n", journal_load_a_kg=60.0))
     assert job.residual_test_required is True
 
 
@@ -364,6 +367,7 @@ def test_certificate_states_key_residual_test_and_balance_errors(db, shop, make_
 
     from shopapp.certificates import issue as certificates
     from shopapp.jobs import evidence as jt
+    from shopapp.jobs import residual_tests
     from tests.reports.samples import job_ready_for_certificate
 
     operator, quality = make_user("operator"), make_user("quality")
@@ -371,20 +375,20 @@ def test_certificate_states_key_residual_test_and_balance_errors(db, shop, make_
     keys.set_key_convention(db, job.rotor.rotor_type, by=operator, convention="half_key",
                             key_width_mm=8, key_height_mm=7, key_length_mm=50, hub_length_mm=40,
                             key_radius_mm=20, key_angle_deg=0)
-    for adv in jt.suggested_test_masses(job):
+    for adv in residual_tests.suggested_test_masses(job):
         # Simulation: a calibrated machine (g·mm), residual 5 % of the limit at 60°.
         t = adv.suggested_g * adv.radius_mm
         z = cmath.rect(0.05 * adv.limit_gmm, math.radians(60)) + t * np.exp(
             1j * np.radians(np.arange(8) * 45.0))
         amps = [abs(v) for v in z]
         angs = [math.degrees(cmath.phase(v)) % 360 for v in z]
-        jt.record_residual_test(db, job, by=operator, plane=adv.plane,
-                                test_mass_g=adv.suggested_g, positions=8, amplitudes=amps,
-                                angles_deg=angs, repeat_amplitude=amps[0],
-                                repeat_angle_deg=angs[0])
+        residual_tests.record_residual_test(db, job, by=operator, plane=adv.plane,
+                                            test_mass_g=adv.suggested_g, positions=8,
+                                            amplitudes=amps, angles_deg=angs,
+                                            repeat_amplitude=amps[0], repeat_angle_deg=angs[0])
     jt.record_error_estimate(db, job, by=operator, runs=[[(4.0, 0.0), (3.0, 0.0)]] * 2
                              + [[(4.2, 0.0), (3.0, 0.0)]])
-    jobs.mark_in_tolerance(db, job, by=operator)
+    mark_in_tolerance(db, job, by=operator)
     cert = certificates.issue(db, job, by=quality)
     text = " ".join("\n".join(p.extract_text() for p in
                               pypdf.PdfReader(io.BytesIO(cert.pdf)).pages).split())

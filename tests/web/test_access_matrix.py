@@ -19,7 +19,8 @@ from sqlalchemy.orm import Session
 
 from shopapp.certificates import issue as certificates
 from shopapp.core.permissions import PERMISSIONS
-from shopapp.jobs import services as jobs
+from shopapp.jobs.runs import record_run
+from shopapp.jobs.states import mark_in_tolerance
 from shopapp.models import Arbor
 
 ROLES = ("operator", "quality", "owner", "admin")
@@ -157,11 +158,11 @@ def ids(db: Session, shop: Any, make_user: Callable[..., Any]) -> dict[str, Any]
     rt = shop.rotor_type()
     rotor = shop.rotor(rt)
     job = shop.job(rotor, machine=machine)
-    jobs.record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
-                    readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
-    jobs.record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
-                    readings=[(1, 50.0, 10.0, "g·mm"), (2, 40.0, 100.0, "g·mm")])
-    jobs.mark_in_tolerance(db, job, by=operator)
+    record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
+               readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
+    record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
+               readings=[(1, 50.0, 10.0, "g·mm"), (2, 40.0, 100.0, "g·mm")])
+    mark_in_tolerance(db, job, by=operator)
     cert = certificates.issue(db, job, by=quality)
     arbor = Arbor(name="Arbor A-1 (test)")
     db.add(arbor)
