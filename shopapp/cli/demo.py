@@ -9,7 +9,8 @@ import click
 from flask.cli import with_appcontext
 
 from shopapp.cli.common import app_db, one_line_errors
-from shopapp.demo import simulator as demo
+from shopapp.demo import bulk as demo_bulk
+from shopapp.demo import loader as demo
 
 
 class _Bars:
@@ -101,9 +102,9 @@ def bulk(jobs: int, runs_per_job: int, seed: int, years: float, force: bool) -> 
     bars = _Bars()
     try:
         with app_db().session() as sess:
-            summary = demo.generate_bulk(sess, jobs=jobs, runs_per_job=runs_per_job, seed=seed,
-                                         years=years, force=force, progress=bars.message,
-                                         steps=bars)
+            summary = demo_bulk.generate_bulk(
+                sess, jobs=jobs, runs_per_job=runs_per_job, seed=seed, years=years, force=force,
+                progress=bars.message, steps=bars)
     finally:
         bars.close()
     click.echo(f"{summary.jobs} jobs, {summary.runs} runs, {summary.readings} readings, "

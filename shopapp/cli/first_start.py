@@ -16,7 +16,7 @@ from flask.cli import with_appcontext
 
 from shopapp.accounts import users
 from shopapp.cli.common import app_db, one_line_errors
-from shopapp.demo import simulator as demo
+from shopapp.demo import loader as demo
 
 LOGINS_FILE = "first-logins.txt"
 
