@@ -316,7 +316,10 @@ class JobSim:
         for _ in range(n):
             moments.append(self.tick(4, 9))
             readings.append(self.measure(u))
-        verdicts = self.solver.verdicts(self.tm, [self.residual(r) for r in readings])
+        a = self.a_est if not self.tm.calibrated else None
+        residuals = self.solver.unbalances_gmm(a, [self.seen(r) for r in readings],
+                                               self.tm.radii)
+        verdicts = self.solver.verdicts(self.tm, residuals)
         idx = len(self.runs) - 1
         for reading, moment, ok in zip(readings, moments, verdicts, strict=True):
             self.clock = moment

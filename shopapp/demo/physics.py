@@ -145,6 +145,9 @@ class Solver:
 
     def __init__(self, exact: bool) -> None:
         self.exact = exact
+        # Bulk mode: the last solve, as a check run's residual and the next correction
+        # answer the same reading (W = −A⁻¹·V, so A⁻¹·V = −W).
+        self._last: tuple[Matrix, Pair, Pair] | None = None
 
     @staticmethod
     def coefficients(v0: Pair, trials: Sequence[tuple[int, float, float, Pair]]
@@ -164,9 +167,20 @@ class Solver:
                 np.array([[a[0], a[1]], [a[2], a[3]]]), list(v)
             )
             return sol.corrections[0].vector_g, sol.corrections[1].vector_g
-        w = influence.solve_two_plane_batch(
-            np.array([[[a[0], a[1]], [a[2], a[3]]]]), np.array([v])).corrections[0]
-        return complex(w[0]), complex(w[1])
+        if self._last is not None and self._last[0] == a and self._last[1] == v:
+            return self._last[2]
+        w = self._solve(a, [v])[0]
+        self._last = (a, v, w)
+        return w
+
+    @staticmethod
+    def _solve(a: Matrix, vs: Sequence[Pair]) -> list[Pair]:
+        """:func:`~shopapp.balancing.influence.solve_two_plane_batch` for readings ``vs``."""
+        m = np.array([[[a[0], a[1]], [a[2], a[3]]]])
+        if len(vs) > 1:
+            m = np.broadcast_to(m, (len(vs), 2, 2))
+        w = influence.solve_two_plane_batch(m, np.array(vs, dtype=complex)).corrections
+        return [(complex(x[0]), complex(x[1])) for x in w]
 
     def unbalance_gmm(self, a: Matrix | None, v: Pair, radii: tuple[float, float]) -> Pair:
         """The unbalance a run shows: g·mm readings as they are, else ``A⁻¹·V·R``."""
@@ -177,6 +191,13 @@ class Solver:
             return complex(u[0]) * radii[0], complex(u[1]) * radii[1]
         w = self.correction(a, v)  # A⁻¹·V = −W
         return -w[0] * radii[0], -w[1] * radii[1]
+
+    def unbalances_gmm(self, a: Matrix | None, vs: Sequence[Pair], radii: tuple[float, float]
+                       ) -> list[Pair]:
+        """:meth:`unbalance_gmm` of several runs (bulk mode: one batch solve)."""
+        if a is None or self.exact or len(vs) < 2:
+            return [self.unbalance_gmm(a, v, radii) for v in vs]
+        return [(-w[0] * radii[0], -w[1] * radii[1]) for w in self._solve(a, vs)]
 
     def verdicts(self, tm: TypeModel, residuals: Sequence[Pair]) -> list[bool]:
         """Each residual judged against the job tolerance (both planes within)."""
