@@ -31,12 +31,16 @@ from shopapp.cli.demo import (
     report_failure,
     write_logins,
 )
+from shopapp.core.database import SQLITE_IMMEDIATE
 from shopapp.demo import loader as demo
 from shopapp.demo.status import read_status, write_status
 
 SEED = 1
 YEARS = 2.0
 SLICE_SECONDS = 1.0  # certificates written per commit (the web waits at most this long)
+# Between slices the write lock is free this long: SQLite's busy handler retries at most every
+# 100 ms, so a request waiting to write gets its turn instead of losing every race.
+PAUSE_SECONDS = 0.2
 BUSY_RETRIES = 5
 RESET = ("shopapp db downgrade --yes && shopapp db upgrade && "
          f"shopapp demo load --seed {SEED} --years {YEARS:g}")
@@ -137,6 +141,7 @@ def _certificate_slice(sess: Session, load: demo.DemoLoad) -> None:
     """One slice, committed; again when a person's save made the database busy meanwhile."""
     for attempt in range(BUSY_RETRIES):
         try:
+            sess.connection(execution_options={SQLITE_IMMEDIATE: True})
             n = load.certificates(seconds=SLICE_SECONDS)
             sess.commit()
         except OperationalError:
@@ -146,4 +151,5 @@ def _certificate_slice(sess: Session, load: demo.DemoLoad) -> None:
             time.sleep(0.5 * (attempt + 1))
             continue
         load.advance(n)
+        time.sleep(PAUSE_SECONDS)
         return

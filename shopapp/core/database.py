@@ -27,8 +27,17 @@ def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
     cur.close()
 
 
+# Execution option: on SQLite, BEGIN IMMEDIATE (take the write lock at the start). A deferred
+# transaction that reads first fails at its first write ("database is locked", no waiting) when
+# another process committed after it began (WAL snapshot); an immediate one waits for the lock
+# (busy_timeout) and then sees the latest data. For work that will write (requests that may
+# change data, a background load committing in slices).
+SQLITE_IMMEDIATE = "shopapp_sqlite_immediate"
+
+
 def _sqlite_begin(conn: Any) -> None:
-    conn.exec_driver_sql("BEGIN")
+    immediate = conn.get_execution_options().get(SQLITE_IMMEDIATE)
+    conn.exec_driver_sql("BEGIN IMMEDIATE" if immediate else "BEGIN")
 
 
 def make_engine(url: str, *, echo: bool = False) -> Engine:

@@ -18,11 +18,14 @@ from typing import Any
 import pytest
 from click.testing import CliRunner
 from sqlalchemy import Connection, Date, create_engine, func, select
+from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import Session
 
 from shopapp.certificates import services as cert_service
 from shopapp.cli import main
+from shopapp.core.database import SQLITE_IMMEDIATE, make_engine
 from shopapp.core.errors import ServiceError, ValidationFailed
+from shopapp.core.extensions import db_session
 from shopapp.demo import loader as demo
 from shopapp.demo import replay, status
 from shopapp.demo import shop as demo_shop
@@ -258,3 +261,53 @@ def test_a_later_start_marks_an_unfinished_load_as_failed(cli: Any, tmp_path: Pa
     note = status.notice(tmp_path)
     assert note is not None and note.failed
     assert "did not finish loading" in note.message and "shopapp db upgrade" in note.message
+
+
+# --------------------------------------------------------------------------- writing beside a load
+
+
+def test_sqlite_immediate_keeps_a_reader_that_writes_from_failing_on_a_commit_meanwhile(
+        tmp_path: Path) -> None:
+    """SQLite in WAL mode: a deferred transaction that has read cannot write once another
+    connection committed (SQLITE_BUSY_SNAPSHOT: "database is locked" at once, no waiting) —
+    what a login (read the user, write its last login) met while the demo committed
+    certificate slices. BEGIN IMMEDIATE takes the write lock first, so others wait instead."""
+    engine = make_engine(f"sqlite:///{tmp_path / 'lock.sqlite3'}")
+    with engine.begin() as conn:
+        conn.exec_driver_sql("CREATE TABLE t (x INTEGER)")
+        conn.exec_driver_sql("INSERT INTO t VALUES (1)")
+    reader = engine.connect()
+    reader.begin()
+    reader.exec_driver_sql("SELECT x FROM t").all()
+    with engine.begin() as other:
+        other.exec_driver_sql("UPDATE t SET x = 2")
+    with pytest.raises(OperationalError, match="locked"):
+        reader.exec_driver_sql("UPDATE t SET x = 3")
+    reader.rollback()
+    reader.close()
+
+    writer = engine.connect().execution_options(**{SQLITE_IMMEDIATE: True})
+    writer.begin()
+    assert writer.exec_driver_sql("SELECT x FROM t").scalar() == 2
+    other = engine.connect()
+    other.exec_driver_sql("PRAGMA busy_timeout=50")
+    other.commit()
+    with pytest.raises(OperationalError, match="locked"):  # must wait for the writer
+        other.begin()
+        other.exec_driver_sql("UPDATE t SET x = 4")
+    other.rollback()
+    other.close()
+    writer.exec_driver_sql("UPDATE t SET x = 3")
+    writer.commit()
+    writer.close()
+    with engine.connect() as conn:
+        assert conn.exec_driver_sql("SELECT x FROM t").scalar() == 3
+    engine.dispose()
+
+
+@pytest.mark.parametrize("method, immediate", [("POST", True), ("GET", False)])
+def test_a_request_that_may_write_begins_immediate(app: Any, method: str,
+                                                    immediate: bool) -> None:
+    with app.test_request_context("/login", method=method):
+        options = db_session().connection().get_execution_options()
+        assert bool(options.get(SQLITE_IMMEDIATE)) is immediate
