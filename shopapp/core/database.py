@@ -40,6 +40,8 @@ def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
 SQLITE_BUSY_TIMEOUT_MS = 20_000
 # Execution option that marks a connection whose transaction will write.
 WRITE_OPTION = "shopapp_write"
+# The same option under the name the demo loader and its tests use.
+SQLITE_IMMEDIATE = WRITE_OPTION
 
 
 def _sqlite_begin(conn: Any) -> None:

@@ -24,8 +24,9 @@ from sqlalchemy.orm import Session, selectinload
 from shopapp.accounts.users import check_password
 from shopapp.balancing import influence, tolerance
 from shopapp.balancing.phasors import normalize_deg, phasor
+from shopapp.demo import bulk, days
+from shopapp.demo import loader as demo
 from shopapp.demo import scenario as demo_scenario
-from shopapp.demo import simulator as demo
 from shopapp.jobs import evidence as jt
 from shopapp.jobs import residual_tests
 from shopapp.jobs.queries import evaluate
@@ -505,16 +506,16 @@ def test_scenario_rotor_types_pass_the_registry_rules() -> None:
 
 def test_working_days_skip_weekends_and_the_year_end_closure() -> None:
     # Calendar facts (common knowledge): 2026-03-27 is a Friday, 2025-12-24 a Wednesday.
-    assert demo.add_working_days(dt.date(2026, 3, 27), 1) == dt.date(2026, 3, 30)
-    assert demo.add_working_days(dt.date(2025, 12, 23), 1) == dt.date(2026, 1, 2)
-    assert demo.add_working_days(dt.date(2026, 3, 28), 0) == dt.date(2026, 3, 30)
+    assert days.add_working_days(dt.date(2026, 3, 27), 1) == dt.date(2026, 3, 30)
+    assert days.add_working_days(dt.date(2025, 12, 23), 1) == dt.date(2026, 1, 2)
+    assert days.add_working_days(dt.date(2026, 3, 28), 0) == dt.date(2026, 3, 30)
 
 
 # --------------------------------------------------------------------------- bulk
 
 
 def test_bulk_mode_is_consistent_with_the_core(ds: Session) -> None:
-    summary = demo.generate_bulk(ds, jobs=300, runs_per_job=10, seed=3, years=1.0, end_date=END,
+    summary = bulk.generate_bulk(ds, jobs=300, runs_per_job=10, seed=3, years=1.0, end_date=END,
                                  force=True)
     assert 280 <= summary.jobs <= 340
     assert summary.runs >= 10 * summary.jobs * 0.9
@@ -538,4 +539,4 @@ def test_bad_parameters_are_refused_with_the_field() -> None:
     with pytest.raises(ValidationFailed, match="years"):
         demo.load_demo(None, years=0)  # type: ignore[arg-type]
     with pytest.raises(ValidationFailed, match="runs_per_job"):
-        demo.generate_bulk(None, jobs=10, runs_per_job=2)  # type: ignore[arg-type]
+        bulk.generate_bulk(None, jobs=10, runs_per_job=2)  # type: ignore[arg-type]
