@@ -27,13 +27,14 @@ from sqlalchemy.orm import Session
 
 from shopapp.certificates import services as certificates
 from shopapp.cli import main
-from shopapp.core import schema
-from shopapp.core.database import make_engine
+from shopapp.core import backup, schema
+from shopapp.core.database import WRITE_OPTION, make_engine
 from shopapp.core.settings import settings_for_update
 from shopapp.models import (
     BackupLog,
     Base,
     Certificate,
+    Customer,
     InfluenceSet,
     SubmissionToken,
     User,
@@ -359,3 +360,27 @@ def test_backup_of_a_database_behind_the_code_is_refused(cli, fresh_database_url
     assert "run `shopapp db upgrade` first" in result.output
     assert not (tmp_path / "x.zip").exists()
     assert not list(tmp_path.glob(".x.zip.*"))  # no partial file left behind
+
+
+def test_sqlite_backup_takes_the_committed_state_while_a_writer_works(  # type: ignore[no-untyped-def]
+        cli, seeded, tmp_path, backend) -> None:
+    """A write transaction open during the copy neither blocks it nor gets into it.
+
+    (The command then logs the backup, which waits for that writer like any write.)"""
+    if backend != "sqlite":
+        pytest.skip("the SQLite online backup API")
+    committed = len(_contents(seeded)["customer"])
+    engine = make_engine(seeded)
+    try:
+        with engine.connect().execution_options(**{WRITE_OPTION: True}) as writer:
+            writer.begin()  # BEGIN IMMEDIATE: the write lock is held from here on
+            writer.execute(Customer.__table__.insert().values(name="Half-way Ltd"))
+            made = backup.write_archive(engine, tmp_path / "during.zip")
+            writer.commit()
+    finally:
+        engine.dispose()
+    assert made.manifest.backend == "sqlite"
+    with zipfile.ZipFile(tmp_path / "during.zip") as zf:
+        rows = {t["name"]: t["rows"] for t in json.loads(zf.read("manifest.json"))["tables"]}
+    assert rows["customer"] == committed
+    assert len(_contents(seeded)["customer"]) == committed + 1
