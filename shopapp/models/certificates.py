@@ -29,8 +29,9 @@ CERTIFICATE_STATES = ("issued", "void")
 class Certificate(Base):
     """An issued balance certificate. Rows never change except issued → void.
 
-    The database itself enforces that (triggers below, and the same SQL in the
-    initial migration), so no code path can rewrite a certificate.
+    The database itself enforces that (triggers below, and the same SQL in
+    migrations 0001 and 0003), so no code path can rewrite a certificate; nor change
+    the runs, readings and corrections of a job while it holds a valid certificate.
     """
 
     __tablename__ = "certificate"
