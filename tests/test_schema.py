@@ -270,3 +270,57 @@ def test_migrated_database_keeps_certificate_triggers(fresh_database_url: str) -
         assert "certificate_immutable" in names
     finally:
         eng.dispose()
+
+
+def _guards(conn) -> dict[str, str]:  # type: ignore[no-untyped-def]
+    """Every trigger (and PostgreSQL trigger function) of the database with its SQL."""
+    if conn.dialect.name == "sqlite":
+        rows = conn.execute(text("SELECT name, sql FROM sqlite_master WHERE type = 'trigger'"))
+        return {name: " ".join(sql.split()) for name, sql in rows}
+    rows = conn.execute(text(
+        "SELECT tgname, pg_get_triggerdef(oid) FROM pg_trigger WHERE NOT tgisinternal"))
+    out = {name: sql for name, sql in rows}
+    funcs = conn.execute(text(
+        "SELECT proname, prosrc FROM pg_proc p JOIN pg_namespace n ON n.oid = p.pronamespace "
+        "WHERE n.nspname = 'public' AND p.prorettype = 'trigger'::regtype"))
+    out.update({f"function {name}": " ".join(src.split()) for name, src in funcs})
+    return out
+
+
+def test_migrations_and_models_install_the_same_guards(fresh_database_url: str) -> None:
+    """Triggers are not compared by Alembic: the ones ``create_all`` makes (tests) must be
+    the ones the migrations make (shops)."""
+    schema.upgrade(fresh_database_url, "head")
+    eng = make_engine(fresh_database_url)
+    try:
+        with eng.connect() as conn:
+            migrated = _guards(conn)
+        schema.downgrade(fresh_database_url, "base")
+        with eng.connect() as conn:
+            assert _guards(conn) == {}  # the downgrade removes every trigger and function
+        Base.metadata.create_all(eng)
+        with eng.connect() as conn:
+            created = _guards(conn)
+        Base.metadata.drop_all(eng)
+        with eng.connect() as conn:
+            assert _guards(conn) == {}
+    finally:
+        eng.dispose()
+    assert "certificate_immutable" in migrated
+    assert {"run_reading_certified_update", "run_reading_certified_guard"} & set(migrated)
+    assert migrated == created
+
+
+def test_downgrading_0003_restores_the_0001_certificate_guard(fresh_database_url: str) -> None:
+    schema.upgrade(fresh_database_url, "0002")
+    eng = make_engine(fresh_database_url)
+    try:
+        with eng.connect() as conn:
+            before = _guards(conn)
+        schema.upgrade(fresh_database_url, "head")
+        schema.downgrade(fresh_database_url, "0002")
+        with eng.connect() as conn:
+            after = _guards(conn)
+    finally:
+        eng.dispose()
+    assert after == before

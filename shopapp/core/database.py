@@ -33,6 +33,9 @@ def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
     cur.execute("PRAGMA foreign_keys=ON")
     cur.execute("PRAGMA journal_mode=WAL")
     cur.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
+    # INSERT OR REPLACE then fires the DELETE trigger of the row it replaces, so an issued
+    # certificate cannot be replaced (migration 0003 also refuses it without this pragma).
+    cur.execute("PRAGMA recursive_triggers=ON")
     cur.close()
 
 

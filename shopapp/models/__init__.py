@@ -29,7 +29,7 @@ from shopapp.models.registry import (
     Rotor,
     RotorType,
 )
-from shopapp.models.system import NumberLock, SubmissionToken
+from shopapp.models.system import BACKUP_KINDS, BackupLog, NumberLock, SubmissionToken
 from shopapp.models.traceability import (
     RESIDUAL_TEST_POSITIONS,
     Arbor,
@@ -42,6 +42,7 @@ from shopapp.models.traceability import (
 
 __all__ = [
     "ANGLE_SENSES",
+    "BACKUP_KINDS",
     "BEARING_KINDS",
     "CERTIFICATE_STATES",
     "CORRECTION_ACTIONS",
@@ -61,6 +62,7 @@ __all__ = [
     "ArborErrorMeasurement",
     "ArborErrorSubtraction",
     "AuditEvent",
+    "BackupLog",
     "BalanceErrorEstimate",
     "Base",
     "Certificate",
