@@ -24,8 +24,9 @@ the reason behind rework time
 money
     rework hours × the shop's ``MACHINE_HOURLY_RATE`` (shown only when it is set).
 
-Everything up to the sums is one SQL query (LAG over the runs of the jobs that ran
-in the period, partitioned by job and segment); no run is loaded into Python.
+Everything up to the sums is one SQL query (a running count of reopenings over each
+job's runs and reopenings gives the segment, LAG over the runs of a segment the gaps);
+no run is loaded into Python.
 """
 
 from __future__ import annotations
@@ -36,8 +37,19 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-from sqlalchemy import Integer, String, case, cast, func, literal_column, or_, select, union_all
-from sqlalchemy.orm import Session, aliased
+from sqlalchemy import (
+    Integer,
+    String,
+    and_,
+    case,
+    cast,
+    func,
+    literal_column,
+    or_,
+    select,
+    union_all,
+)
+from sqlalchemy.orm import Session
 
 from shopapp.core.errors import ValidationFailed
 from shopapp.measures.periods import EVERYTHING, Period, Scope
@@ -209,35 +221,46 @@ def machine_seconds(
     if idle_seconds <= 0:
         raise ValidationFailed("idle_seconds", "must be longer than zero")
     start, stop = utc_start(p.start), utc_start(p.end + dt.timedelta(days=1))
-    ran = select(Run.job_id).where(Run.taken_at >= start, Run.taken_at < stop)
-    reopen = aliased(JobTransition)
-    # The latest reopening at or before the run: the segment the run belongs to.
-    segment = (
-        select(reopen.id)
-        .where(reopen.job_id == Run.job_id, reopen.to_state == "on_machine",
-               reopen.from_state.in_(REWORK_FROM_STATES), reopen.at <= Run.taken_at)
-        .order_by(reopen.at.desc(), reopen.id.desc())
-        .limit(1)
-        .correlate(Run)
-        .scalar_subquery()
-    )
-    runs = (
-        select(Run.id.label("run_id"), Run.job_id.label("job_id"), Run.taken_at.label("taken_at"),
-               epoch_seconds(Run.taken_at).label("t"), segment.label("seg"))
-        .where(Run.job_id.in_(ran))
-        .cte("visit_runs")
-        .prefix_with("MATERIALIZED")
-    )
+    ran = (select(Run.job_id).where(Run.taken_at >= start, Run.taken_at < stop)
+           .cte("ran").prefix_with("MATERIALIZED"))
+    is_reopen = and_(JobTransition.to_state == "on_machine",
+                     JobTransition.from_state.in_(REWORK_FROM_STATES),
+                     JobTransition.job_id.in_(select(ran.c.job_id)))
+    # The runs and reopenings of every job that ran in the period, in time order (a
+    # reopening before a run at the same moment); the running count of reopenings is
+    # the segment a run belongs to (0: before any reopening).
+    events = union_all(
+        select(Run.job_id.label("job_id"), Run.taken_at.label("at"),
+               literal_column("1", Integer).label("is_run"), Run.id.label("event_id"))
+        .where(Run.job_id.in_(select(ran.c.job_id))),
+        select(JobTransition.job_id, JobTransition.at, literal_column("0", Integer),
+               JobTransition.id).where(is_reopen),
+    ).subquery("events")
+    e = events.c
+    segment = func.sum(1 - e.is_run).over(partition_by=e.job_id,
+                                          order_by=(e.at, e.is_run, e.event_id),
+                                          rows=(None, 0))
+    numbered = (select(e.job_id, e.at, e.is_run, e.event_id, segment.label("seg"))
+                .cte("numbered").prefix_with("MATERIALIZED"))
+    n = numbered.c
+    runs = (select(n.job_id, n.at.label("taken_at"), n.event_id.label("run_id"), n.seg,
+                   epoch_seconds(n.at).label("t"))
+            .where(n.is_run == 1).subquery("visit_runs"))
     previous_t = func.lag(runs.c.t).over(partition_by=(runs.c.job_id, runs.c.seg),
                                          order_by=(runs.c.t, runs.c.run_id))
     gaps = select(runs.c.job_id, runs.c.seg, runs.c.taken_at,
                   (runs.c.t - previous_t).label("gap")).subquery("gaps")
-    opened_by = aliased(JobTransition)
+    # The k-th reopening of a job opened segment k: its reason is the segment's reason.
+    ranked = select(
+        JobTransition.job_id, JobTransition.reason,
+        func.row_number().over(partition_by=JobTransition.job_id,
+                               order_by=(JobTransition.at, JobTransition.id)).label("rank"),
+    ).where(is_reopen).subquery("reopen_ranked")
     idle = literal_column(str(int(idle_seconds)), Integer)
     counted = case((gaps.c.gap.is_(None), 0), (gaps.c.gap > idle, idle), else_=gaps.c.gap)
-    is_rework = or_(gaps.c.seg.is_not(None), Job.kind == "return")
+    is_rework = or_(gaps.c.seg > 0, Job.kind == "return")
     reason = case(
-        (gaps.c.seg.is_not(None), reopen_reason(opened_by.reason)),
+        (gaps.c.seg > 0, reopen_reason(ranked.c.reason)),
         (Job.kind == "return", return_reason(Job.notes)),
         else_="",
     )
@@ -252,7 +275,7 @@ def machine_seconds(
         .select_from(gaps)
         .join(Job, Job.id == gaps.c.job_id)
         .join(Rotor, Rotor.id == Job.rotor_id)
-        .outerjoin(opened_by, opened_by.id == gaps.c.seg)
+        .outerjoin(ranked, and_(ranked.c.job_id == gaps.c.job_id, ranked.c.rank == gaps.c.seg))
         .where(gaps.c.taken_at >= start, gaps.c.taken_at < stop),
         scope,
     ).cte("machine_time").prefix_with("MATERIALIZED")

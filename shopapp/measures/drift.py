@@ -59,6 +59,8 @@ from shopapp.models import (
 from shopapp.reports.shop_month import MachineStatus
 
 DRIFT_VISITS = 8  # the most recent visits a rotor's trend is drawn through
+#: How reading units are written (the stored "um" is a micrometre).
+UNIT_TEXT = {"um": "µm"}
 DRIFT_ALPHA = 0.05
 DAYS_PER_YEAR = 365.25
 GMM = "g·mm"
@@ -95,6 +97,11 @@ class RotorDrift:
         if self.measure == "% of limit":
             return tuple(v.percent_of_limit or 0.0 for v in self.visits)
         return tuple(v.amplitude for v in self.visits)
+
+    @property
+    def unit_text(self) -> str:
+        """What the values are in: ``'% of limit'``, ``'µm'``, ``'mm/s'``, ``'g·mm'``."""
+        return UNIT_TEXT.get(self.measure, self.measure)
 
     @property
     def rising(self) -> bool:

@@ -223,38 +223,43 @@ def _wip(
     )
 
 
-def _reworked_later(reached: Any, today: dt.date) -> ColumnElement[int]:
-    """1 when the job (which first reached in_tolerance at ``reached``) was reworked within
-    :data:`REWORK_WINDOW_DAYS` days of it and by ``today``: reopened from a finished
-    state, or come back as a customer return (a return job naming it); else 0."""
-    window_s = REWORK_WINDOW_DAYS * 86400
-    reached_day = int_div(epoch_seconds(reached), 86400)
+def _first_rework(today: dt.date) -> tuple[Any, Any]:
+    """Per job, by ``today``: its first reopening from a finished state (``at``) and the
+    day its first customer return came in (``received_on``), as two grouped subqueries.
+
+    Every reopening comes after the job first reached ``in_tolerance`` (only a finished
+    job can be reopened), so the first one decides whether the job came back within the
+    window; one pass over the few reopenings and returns, not one lookup per job.
+    """
     reopened = (
-        select(JobTransition.id)
-        .where(
-            JobTransition.job_id == Job.id,
-            JobTransition.to_state == "on_machine",
-            JobTransition.from_state.in_(REWORK_FROM_STATES),
-            JobTransition.at >= reached,
-            JobTransition.at < utc_start(today + dt.timedelta(days=1)),
-            epoch_seconds(JobTransition.at) - epoch_seconds(reached) <= window_s,
-        )
-        .correlate(Job)
-        .exists()
+        select(JobTransition.job_id.label("job_id"), func.min(JobTransition.at).label("at"))
+        .where(JobTransition.to_state == "on_machine",
+               JobTransition.from_state.in_(REWORK_FROM_STATES),
+               JobTransition.at < utc_start(today + dt.timedelta(days=1)))
+        .group_by(JobTransition.job_id)
+        .subquery("first_reopen")
     )
     later = aliased(Job)
     returned = (
-        select(later.id)
-        .where(
-            later.return_of_job_id == Job.id,
-            later.kind == "return",
-            later.received_on <= today,
-            day_number(later.received_on) - reached_day <= REWORK_WINDOW_DAYS,
-        )
-        .correlate(Job)
-        .exists()
+        select(later.return_of_job_id.label("job_id"),
+               func.min(later.received_on).label("received_on"))
+        .where(later.kind == "return", later.return_of_job_id.is_not(None),
+               later.received_on <= today)
+        .group_by(later.return_of_job_id)
+        .subquery("first_return")
     )
-    return case((or_(reopened, returned), 1), else_=0)
+    return reopened, returned
+
+
+def _reworked_later(reached: Any, reopened: Any, returned: Any) -> ColumnElement[int]:
+    """1 when the job (which first reached in_tolerance at ``reached``) was reworked within
+    :data:`REWORK_WINDOW_DAYS` days of it: reopened, or come back as a customer return."""
+    in_window = or_(
+        epoch_seconds(reopened.c.at) - epoch_seconds(reached) <= REWORK_WINDOW_DAYS * 86400,
+        day_number(returned.c.received_on) - int_div(epoch_seconds(reached), 86400)
+        <= REWORK_WINDOW_DAYS,
+    )
+    return case((in_window, 1), else_=0)
 
 
 def _tolerance_cohort(
@@ -293,11 +298,13 @@ def _tolerance_cohort(
         .correlate(Job)
         .scalar_subquery()
     )
+    reopened, returned = _first_rework(today)
     base = scoped(
         base_select({"job_id": Job.id, "cycles": cycles, "fp": first_check_verdict,
-                     "rw": _reworked_later(reached, today)}, reached).where(
-            reached >= utc_start(p.start), reached < utc_start(p.end + dt.timedelta(days=1))
-        ),
+                     "rw": _reworked_later(reached, reopened, returned)}, reached)
+        .outerjoin(reopened, reopened.c.job_id == Job.id)
+        .outerjoin(returned, returned.c.job_id == Job.id)
+        .where(reached >= utc_start(p.start), reached < utc_start(p.end + dt.timedelta(days=1))),
         scope,
     )
     long = long_form(base, dims, ["job_id", "cycles", "fp", "rw"])

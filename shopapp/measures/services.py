@@ -129,6 +129,7 @@ from shopapp.measures.lists import (
 )
 from shopapp.measures.periods import EVERYTHING, Period, Scope
 from shopapp.measures.signals import (
+    MIN_DAYS_TO_COMPARE,
     Change,
     UnitFunnel,
     comparisons,
@@ -174,6 +175,34 @@ class ShopReport:
     @property
     def elapsed_days(self) -> int:
         return self.period.elapsed_days(self.today or self.as_of)
+
+    @property
+    def period_label(self) -> str:
+        """``'November 2026'``, or ``'November 2026 to date'`` while it is in progress."""
+        return f"{self.period.label} to date" if self.in_progress else self.period.label
+
+    @property
+    def previous_label(self) -> str:
+        """The compared period: ``'October 2026'`` or ``'October 2026, days 1–15'``."""
+        if not self.in_progress:
+            return self.previous_period.label
+        whole = self.period.previous()
+        if whole.kind == "custom":
+            return self.previous_period.label
+        return f"{whole.label}, days 1–{self.previous_period.days}"
+
+    @property
+    def comparison_note(self) -> str:
+        """How the two periods are compared, in words ('' for two whole periods)."""
+        if not self.in_progress:
+            return ""
+        days = self.elapsed_days
+        note = (f"{self.period.label} is in progress: its first {days} "
+                f"day{'s' if days != 1 else ''} are compared with the same days of "
+                f"{self.period.previous().label}")
+        if days < MIN_DAYS_TO_COMPARE:
+            return note + f"; changes are not judged before {MIN_DAYS_TO_COMPARE} days."
+        return note + "."
 
     @property
     def rework_final_before(self) -> dt.date:

@@ -48,13 +48,13 @@ RATE_LABELS: dict[str, str] = {
     "rework_rate": "rework rate",
     "rejection_rate": "rejection rate",
 }
-TEST_WORDS = {"z_pooled": "two-proportion z-test", "fisher_exact": "Fisher's exact test"}
+TEST_WORDS = {"z_pooled": "z-test", "fisher_exact": "Fisher's test"}
 COMPARISON_RULE = (
     "A rate is called better or worse only when the change is larger than chance explains: "
-    "a two-sided two-proportion z-test (Fisher's exact test when a count expected under no "
-    "change is below 5) with p below 0.05, and at least 5 jobs on each side. Otherwise the "
-    "page says no clear change and gives the counts. Counts and working days carry no "
-    "better or worse: no test is made for them."
+    "a two-sided two-proportion z-test (\"z-test\"; Fisher's exact test, \"Fisher's test\", "
+    "when a count expected under no change is below 5) with p below 0.05, and at least 5 "
+    "jobs on each side. Otherwise it says no clear change (or too few jobs) and gives the "
+    "counts. Counts and working days carry no better or worse: no test is made for them."
 )
 
 
@@ -87,10 +87,12 @@ def _counts(figures: Figures, name: str) -> str:
 def change_text(name: str, comparison: Comparison) -> str:
     """'worse: 12 of 40 against 3 of 45 (two-proportion z-test, p = 0.008)' and the like."""
     a, b = comparison.a, comparison.b
-    counts = f"{b.numerator} of {b.denominator} against {a.numerator} of {a.denominator}"
+    before = f"{a.numerator} of {a.denominator}" if a.denominator else "none"
+    counts = f"{b.numerator} of {b.denominator} against {before}"
     if comparison.test is None or comparison.p_value is None:
-        return (f"too few jobs to compare ({counts}; {MIN_JOBS_TO_COMPARE} needed on each side)"
-                if min(a.denominator, b.denominator) > 0 else f"nothing to compare ({counts})")
+        if min(a.denominator, b.denominator) == 0:
+            return f"nothing to compare: {counts}"
+        return f"too few jobs: {counts} (fewer than {MIN_JOBS_TO_COMPARE})"
     tested = f"{TEST_WORDS[comparison.test]}, p = {comparison.p_value:.2g}"
     return f"{comparison.verdict}: {counts} ({tested})"
 
@@ -102,8 +104,8 @@ def comparisons(now: Figures, before: Figures, *, elapsed_days: int,
     for name in RATES:
         if in_progress and elapsed_days < MIN_DAYS_TO_COMPARE:
             day_word = "day" if elapsed_days == 1 else "days"
-            out[name] = Change(name, None, f"too early to compare: {elapsed_days} {day_word} "
-                               f"of data ({_counts(now, name)} so far)")
+            out[name] = Change(name, None, f"too early: {elapsed_days} {day_word} "
+                               f"({_counts(now, name)} so far)")
             continue
         c = compare_rates(before.rate(name), now.rate(name),
                           higher_is_better=HIGHER_IS_BETTER[name])
