@@ -36,6 +36,10 @@ two days after receipt, reached the day after receipt):
 J13 R1 recv 03-02 initial (10, 4); J14 R1 recv 06-01 initial (15, 3);
 J15 R2 recv 04-06 initial (30);    J16 R2 recv 07-06 initial (12).
 
+Rework (issue 17): a job counts as reworked when it came back within 90 days of first
+reaching tolerance — J4 and J10 (reopened) in October, J5 (returned as J6) in September;
+a return counts against the job it returns, not against itself.
+
 Machines: M1 verified 2025-11-20 (passed, interval 365 → due 2026-11-20, 5 days after
 today → due soon with the default 14 days); M2 verified 2025-06-01 (passed, due
 2026-06-01 → overdue); M3 verified 2026-09-01 (passed, interval 180 → due 2027-02-28,
