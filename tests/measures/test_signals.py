@@ -204,6 +204,12 @@ def test_page_names_the_flagged_operator_once_with_the_caution_and_links_its_job
     assert svg and "Ada High" in svg.group(1) and unescape(link.group(1)) in unescape(
         svg.group(1))
     assert "Cy Small" not in re.sub(r"<title>.*?</title>", "", svg.group(1))  # not named
+    # the rest of the owner's three questions, on the same first page: is first pass
+    # really better than last year, and what did rework cost in machine hours?
+    row = re.search(r'<tr data-measure="first_pass_rate">(.*?)</tr>', html, re.S)
+    assert row and "better: 165 of 165 against 12 of 40 (z-test" in unescape(row.group(1))
+    cost = re.search(r'<p data-cost="summary">(.*?)</p>', html, re.S)
+    assert cost and "12.0 h of rework on 24 jobs" in cost.group(1)
 
 
 # ------------------------------------------------------------------ p-charts
