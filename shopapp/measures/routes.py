@@ -124,10 +124,10 @@ class Links:
             return jobs_url({**args, **self._dates(row, "dispatched")})
         if name in ("reworked_jobs", "rework_rate", "rework"):
             return jobs_url({**args, **self._dates(row, "received"), "reworked": "1"})
-        if name in ("rejected_jobs",):
+        if name in ("rejected_jobs", "rejection_rate"):
             return jobs_url({**args, **self._dates(row, "received"), "state": "rejected"})
-        if name in ("wip_jobs", "wip_age_median_wd", "wip_age_max_wd"):
-            return None  # work in progress spans states; no single filter shows it
+        if name in ("wip_jobs", "wip_age_median_wd", "wip_age_max_wd", "jobs_closed"):
+            return None  # these span states (or two dates); no single filter shows them
         return jobs_url({**args, **self._dates(row, "received")})
 
     def rotor(self, rotor_id: int) -> str:

@@ -389,6 +389,7 @@ def test_a_month_in_progress_is_compared_like_with_like_and_not_judged_early(
     text = " ".join(p.extract_text() for p in pdf.pages)
     assert len(pdf.pages) == 2
     assert "to date" in text and "too early" in text
+    assert " ".join(text.split()).count("not a verdict on a person") == 1  # once, plainly
     # the document names its definitions itself
     assert "Wilson" in text and "Rework rate: of the jobs that first reached" in text
 
@@ -461,3 +462,18 @@ def test_dashboard_query_count_stays_the_same_with_ten_times_the_data(
     assert 'id="chart-rework_rate-operator"' in html and 'id="chart-pchart-rework_rate"' in html
     assert small.count == large.count, (small.count, large.count)
     assert large.count < 40
+
+
+def test_the_cost_settings_are_typed_configuration_keys(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    from shopapp.core.config import ConfigError, load_config
+
+    cfg = load_config(instance_path=tmp_path, environ={
+        "SHOPAPP_MACHINE_HOURLY_RATE": "62.5", "SHOPAPP_MACHINE_IDLE_MINUTES": "20",
+        "SHOPAPP_MONEY_UNIT": "EUR"})
+    settings = costs.cost_settings(cfg)
+    assert (settings.hourly_rate, settings.idle_seconds, settings.money_unit) == (62.5, 1200,
+                                                                                  "EUR")
+    with pytest.raises(ConfigError, match="is not a number"):
+        load_config(instance_path=tmp_path, environ={"SHOPAPP_MACHINE_HOURLY_RATE": "cheap"})
+    with pytest.raises(Exception, match="MACHINE_IDLE_MINUTES"):
+        costs.cost_settings({"MACHINE_IDLE_MINUTES": 0})
