@@ -52,6 +52,11 @@ KEY_TYPES: dict[str, type] = {
     "SQL_ECHO": bool,
     "REQUIRE_SECRET_KEY": bool,
     "BASE_URL": str,
+    # The owner's view (shopapp.measures.costs): money per machine hour, the longest
+    # gap between two runs counted in full as machine time, and the money unit shown.
+    "MACHINE_HOURLY_RATE": float,
+    "MACHINE_IDLE_MINUTES": float,
+    "MONEY_UNIT": str,
 }
 _TRUE = {"1", "true", "yes", "on"}
 _FALSE = {"0", "false", "no", "off", ""}
@@ -72,7 +77,8 @@ def _typed(key: str, raw: str, source: str) -> Any:
     try:
         return kind(raw.strip())
     except ValueError:
-        raise ConfigError(f"{source}: {raw!r} is not a whole number") from None
+        what = "a number" if kind is float else "a whole number"
+        raise ConfigError(f"{source}: {raw!r} is not {what}") from None
 
 
 def load_config(
