@@ -71,7 +71,7 @@ def nyquist_figure(d: NyquistData, *, title: str = "Polar (Nyquist) plot",
         x2, y2 = point(cx, cy, plot_r, deg)
         fig.add(Line(cx, cy, x2, y2, style="grid"))
         lx, ly = point(cx, cy, plot_r + 11.0, deg)
-        texts.append(Text(lx, ly - 3.0, f"{deg:.0f}°", style="small", anchor="middle"))
+        texts.append(Text(lx, ly - 3.0, quantity(deg, "°"), style="small", anchor="middle"))
 
     for curve in d.fitted:
         pts = tuple(at(a, deg) for a, deg in curve if math.isfinite(a) and math.isfinite(deg))

@@ -4,15 +4,15 @@
 Angles are shown in the shop's display convention (sense and zero). The
 phase of the Bode plot stays continuous: the display angle is the linear map
 ``±(internal − zero)`` of the continuous internal angle, shifted by whole turns
-so that the first reading lies in [0, 360).
+so that the median reading lies in [0, 360).
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
-from shopapp.balancing.runup import BodeCurve
 from shopapp.charts.bode import BodeCurveData, BodeData, bode_figure
 from shopapp.charts.nyquist import NyquistData, nyquist_figure
 from shopapp.charts.primitives import Figure
@@ -22,12 +22,16 @@ from shopapp.models import RunUpRecord
 from shopapp.resonance.loose_mass_calc import LooseMassCheck
 from shopapp.resonance.runups import RunUpAnalysis, operating_range
 
+if TYPE_CHECKING:
+    from shopapp.balancing.runup import BodeCurve
 
-def _phase_map(disp: ShopDisplay, first_internal: float) -> tuple[float, float]:
-    """``(sign, offset)`` with display = sign·internal + offset, first reading in [0, 360)."""
+
+def _phase_map(disp: ShopDisplay, internal: Sequence[float]) -> tuple[float, float]:
+    """``(sign, offset)`` with display = sign·internal + offset, the median reading in
+    [0, 360) (one odd reading at the start does not push the whole curve below 0°)."""
     sign = 1.0 if disp.sense == "with_rotation" else -1.0
-    first = sign * (first_internal - disp.zero)
-    offset = -sign * disp.zero - 360.0 * math.floor(first / 360.0)
+    middle = sign * (sorted(internal)[len(internal) // 2] - disp.zero)
+    offset = -sign * disp.zero - 360.0 * math.floor(middle / 360.0)
     return sign, offset
 
 
@@ -41,7 +45,7 @@ def run_up_figures(analysis: RunUpAnalysis, record: RunUpRecord,
     curves = analysis.curves
     if curves is None or not curves.measured.speed_rpm:
         return []
-    sign, offset = _phase_map(disp, curves.measured.angle_deg[0])
+    sign, offset = _phase_map(disp, curves.measured.angle_deg)
     measured = _curve(curves.measured, sign, offset)
     fitted = [_curve(c, sign, offset) for c in curves.fitted]
     bode = BodeData(
@@ -98,7 +102,7 @@ def loose_mass_figures(check: LooseMassCheck) -> list[Figure]:
     run_fig = xy_figure(
         [XYSeries("with the balancer", t, _every(c.whirl_um, step), style="series"),
          XYSeries("without (masses held evenly spaced)", t,
-                  _every(c.whirl_without_balancer_um, step), style="series3")],
+                  _every(c.whirl_without_balancer_um, step), style="series2")],
         title="Whirl over the simulated run-up", x_label="time, s", y_label="whirl, µm",
         markers=markers, y_min=0.0, height=260.0,
     )

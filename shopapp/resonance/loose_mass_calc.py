@@ -17,9 +17,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from shopapp.balancing import loose_mass as lm
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.core.checks import Errors
 from shopapp.core.checks import number as check_number
@@ -27,6 +26,9 @@ from shopapp.core.display import number, quantity
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.models import User
+
+if TYPE_CHECKING:
+    from shopapp.balancing import loose_mass as lm
 
 MAX_BALLS = 12
 MAX_SPEED_RPM = 100_000.0
@@ -97,6 +99,8 @@ def _inputs(e: Errors, raw: dict[str, Any]) -> dict[str, Any]:
 
 def _hold_s(b: lm.LooseMassBalancer, speed: float, ramp_s: float) -> tuple[float | None, str]:
     """The hold at speed within the budget (None = the numerics' default) and a note."""
+    from shopapp.balancing import loose_mass as lm
+
     period = 1.0 / b.natural_frequency_hz
     ratio = speed / (b.natural_frequency_hz * 60.0)
     hold_periods = lm.MIN_HOLD_PERIODS
@@ -147,6 +151,8 @@ def check_loose_mass(*, by: User, **raw: Any) -> LooseMassCheck:
     stability scan, optional), ``ramp_time_s`` (optional). Raises
     :class:`ValidationFailed` naming every bad field.
     """
+    from shopapp.balancing import loose_mass as lm  # scipy: imported on use
+
     require(by, "read")
     e = Errors()
     v = _inputs(e, raw)
@@ -165,7 +171,7 @@ def check_loose_mass(*, by: User, **raw: Any) -> LooseMassCheck:
     fn_rpm = b.natural_frequency_hz * 60.0
     speed = float(v["speed_rpm"])
     if speed > MAX_SPEED_RATIO * fn_rpm:
-        e.add("speed_rpm", f"at most {MAX_SPEED_RATIO:g} × the support's natural frequency "
+        e.add("speed_rpm", f"at most {number(MAX_SPEED_RATIO)} × the support's natural frequency "
                            f"({_rpm(MAX_SPEED_RATIO * fn_rpm)}) in this calculator")
     if speed < 0.05 * fn_rpm:
         e.add("speed_rpm", f"at least 5 % of the support's natural frequency "
@@ -180,7 +186,7 @@ def check_loose_mass(*, by: User, **raw: Any) -> LooseMassCheck:
     period = 1.0 / b.natural_frequency_hz
     if ramp is not None and ramp / period > MAX_RAMP_PERIODS:
         e.add("ramp_time_s", f"at most {quantity(MAX_RAMP_PERIODS * period, 's')} "
-                             f"({MAX_RAMP_PERIODS:g} natural periods) in this calculator")
+                             f"({number(MAX_RAMP_PERIODS)} natural periods) in this calculator")
     e.raise_if_any()
     hold, note = _hold_s(b, speed, ramp if ramp is not None else lm.DEFAULT_RAMP_PERIODS * period)
     try:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from sqlalchemy import select
+from sqlalchemy import Select, select
 from sqlalchemy.orm import Session, joinedload, selectinload
 
 from shopapp.models import Job, Machine, RunUpRecord
@@ -20,7 +20,7 @@ def run_up(session: Session, record_id: int) -> RunUpRecord | None:
     ).first()
 
 
-def _newest_first(stmt):  # type: ignore[no-untyped-def]
+def _newest_first(stmt: Select[RunUpRecord]) -> Select[RunUpRecord]:
     return stmt.order_by(RunUpRecord.recorded_on.desc(), RunUpRecord.id.desc()).options(
         selectinload(RunUpRecord.points), joinedload(RunUpRecord.job),
         joinedload(RunUpRecord.machine),

@@ -26,12 +26,11 @@ import datetime as dt
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from sqlalchemy.orm import Session
 
-from shopapp.balancing import runup
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.phasors import normalize_deg
 from shopapp.core import audit
@@ -39,7 +38,7 @@ from shopapp.core.checks import Errors
 from shopapp.core.checks import date as check_date
 from shopapp.core.checks import number as check_number
 from shopapp.core.checks import text as check_text
-from shopapp.core.display import ShopDisplay, quantity
+from shopapp.core.display import ShopDisplay, number, quantity
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
 from shopapp.models import (
@@ -52,7 +51,12 @@ from shopapp.models import (
     User,
 )
 
-MIN_POINTS = runup.MIN_POINTS
+if TYPE_CHECKING:
+    from shopapp.balancing import runup
+
+# The fit's minimum, shopapp.balancing.runup.MIN_POINTS (a test checks they agree); that
+# module pulls in scipy's solvers, so it is imported when a run-up is analysed, not here.
+MIN_POINTS = 5
 MAX_POINTS = 500
 MAX_SPEED_RPM = 100_000.0
 SENSOR_MAX = 64
@@ -272,7 +276,7 @@ class RunUpAnalysis:
     peaks: tuple[PeakRow, ...] = ()
     governing: int = 0
     warnings: tuple[str, ...] = ()
-    cautions: tuple[str, ...] = runup.RUNUP_CAUTIONS
+    cautions: tuple[str, ...] = ()
     result: runup.RunupResult | None = None
     curves: runup.RunupCurves | None = field(default=None, repr=False)
 
@@ -288,6 +292,8 @@ def operating_range(rec: RunUpRecord) -> tuple[float, float] | None:
 
 
 def _verdict(res: runup.RunupResult) -> tuple[str, str]:
+    from shopapp.balancing import runup
+
     g = res.peaks[res.governing]
     nc = _rpm(g.critical_speed_rpm)
     if g.fit_residual_pct > runup.FIT_POOR_PCT:
@@ -308,7 +314,7 @@ def _verdict(res: runup.RunupResult) -> tuple[str, str]:
                 f"{quantity(p.required_margin_pct, '%')} is needed.", "too_close")
     if g.required_margin_pct == 0.0:
         return (f"Clear: the resonance at {nc} is well damped (amplification factor below "
-                f"{runup.AF_CRITICALLY_DAMPED:g}), so it needs no separation margin; it lies "
+                f"{number(runup.AF_CRITICALLY_DAMPED)}), so it needs no separation margin; it lies "
                 f"{quantity(g.separation_margin_pct, '%')} from the operating speed.", "clear")
     return (f"Clear: the critical speed {nc} is {quantity(g.separation_margin_pct, '%')} from "
             f"the operating speed; {quantity(g.required_margin_pct, '%')} is needed.", "clear")
@@ -320,6 +326,8 @@ def analyse_run_up(session: Session, record: RunUpRecord, *, by: User) -> RunUpA
     Never raises on the data: a record the fit cannot use gives
     ``verdict_state == "failed"`` and the reason in ``verdict``.
     """
+    from shopapp.balancing import runup  # scipy: imported on use
+
     require(by, "read")
     pts = list(record.points)
     slow = None
@@ -335,7 +343,8 @@ def analyse_run_up(session: Session, record: RunUpRecord, *, by: User) -> RunUpA
         curves = runup.runup_curves(res)
     except BalancingInputError as exc:
         return RunUpAnalysis(record_id=record.id, verdict_state="failed",
-                             verdict=f"No result: {exc.message}.")
+                             verdict=f"No result: {exc.message}.",
+                             cautions=runup.RUNUP_CAUTIONS)
     peaks = tuple(
         PeakRow(
             critical_speed_rpm=p.critical_speed_rpm, damping_ratio=p.damping_ratio,
