@@ -201,3 +201,15 @@ def test_calculator_capacity_too_small(client, login_as) -> None:
     page = resp.get_data(as_text=True)
     assert resp.status_code == 200
     assert "It cannot balance this rotor" in page and "3000 g·mm" in page
+
+
+def test_a_run_up_without_result_still_has_a_page(client, login_as, job) -> None:
+    login_as("operator")
+    text = "600 0 0\n700 0 0\n800 0 0\n900 0 0\n1000 0 0"
+    resp = client.post(f"/resonance/jobs/{job.id}/run-ups/new", data=_form(points=text),
+                       follow_redirects=True)
+    page = resp.get_data(as_text=True)
+    assert resp.status_code == 200
+    assert "No result: all readings are zero." in page and "<svg" not in page
+    assert page.count(CAUTION_WORDS) == 1
+    assert not re.search(r"\b(nan|inf)\b", page, re.IGNORECASE)
