@@ -33,6 +33,7 @@ STYLES: dict[str, Style] = {
     "series": Style(stroke="#24527a", width=1.6),
     "series2": Style(stroke="#1d232a", width=1.6, dash=(5, 3)),
     "series3": Style(stroke="#5b6570", width=1.2, dash=(1, 2)),
+    "operating": Style(stroke="#8a5a00", width=1.4, dash=(8, 3, 2, 3)),
     "bar": Style(stroke="#1d232a", width=0.6, fill="#9fb3c8"),
     "bar2": Style(stroke="#1d232a", width=0.6, fill="#e3e7eb"),
     "bar_bad": Style(stroke="#1d232a", width=0.6, fill="#5b6570"),

@@ -22,6 +22,7 @@ from shopapp.core.permissions import PERMISSIONS
 from shopapp.jobs.runs import record_run
 from shopapp.jobs.states import mark_in_tolerance
 from shopapp.models import Arbor
+from shopapp.resonance import samples as resonance_samples
 
 ROLES = ("operator", "quality", "owner", "admin")
 
@@ -107,6 +108,12 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "evidence.job_index_runs": (None, "work_jobs"),
     "evidence.job_subtraction": (None, "work_jobs"),
     "evidence.repeat_runs": ("work_jobs", "work_jobs"),
+    # resonance
+    "resonance.index": ("read", None),
+    "resonance.detail": ("read", None),
+    "resonance.new_for_job": ("work_jobs", "work_jobs"),
+    "resonance.new_for_machine": ("work_jobs", "work_jobs"),
+    "resonance.loose_mass": ("read", None),
     # admin
     "admin.users": ("manage_users", "manage_users"),
     "admin.user_role": (None, "manage_users"),
@@ -167,10 +174,11 @@ def ids(db: Session, shop: Any, make_user: Callable[..., Any]) -> dict[str, Any]
     arbor = Arbor(name="Arbor A-1 (test)")
     db.add(arbor)
     db.flush()
+    run_up = resonance_samples.add_sample_run_up(db, job, by=operator)
     db.commit()
     return {"job_id": job.id, "customer_id": rt.customer_id, "machine_id": machine.id,
             "rotor_type_id": rt.id, "rotor_id": rotor.id, "user_id": operator.id,
-            "cert_id": cert.id, "arbor_id": arbor.id, "plane": 1}
+            "cert_id": cert.id, "arbor_id": arbor.id, "plane": 1, "run_up_id": run_up.id}
 
 
 def _url(app: Flask, rule: Any, ids: dict[str, Any]) -> str:
