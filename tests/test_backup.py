@@ -25,7 +25,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.exc import DBAPIError
 from sqlalchemy.orm import Session
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as certificates
 from shopapp.cli import main
 from shopapp.core import backup, schema
 from shopapp.core.database import WRITE_OPTION, make_engine

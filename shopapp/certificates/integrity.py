@@ -29,7 +29,7 @@ from dataclasses import dataclass
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from shopapp.certificates import services
+from shopapp.certificates import issue as services
 from shopapp.core.errors import TransitionRefused
 from shopapp.models import Certificate, Job, User
 from shopapp.reports import certificate as report

@@ -15,9 +15,9 @@ from sqlalchemy import text
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import DBAPIError
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as certificates
 from shopapp.core import schema
-from shopapp.jobs import services as jobs
+from shopapp.jobs import states as jobs
 from shopapp.models import Certificate, Correction, Run, RunReading
 from tests.reports.samples import job_ready_for_certificate
 

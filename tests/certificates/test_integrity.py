@@ -16,10 +16,10 @@ from click.testing import CliRunner
 from sqlalchemy import Connection, text
 from sqlalchemy.orm import Session
 
-from shopapp.certificates import services as certificates
+from shopapp.certificates import issue as certificates
 from shopapp.cli import main
 from shopapp.core.database import make_engine
-from shopapp.jobs import services as jobs
+from shopapp.jobs import states as jobs
 from shopapp.models import Base, Correction, Run, RunReading
 from tests import factories
 from tests.reports.samples import RESIDUAL_GMM, job_ready_for_certificate
