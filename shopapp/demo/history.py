@@ -37,7 +37,6 @@ from shopapp.demo.days import WORKDAY_START_MIN, add_working_days, at
 from shopapp.demo.planning import Plan
 from shopapp.demo.shop import Shop
 from shopapp.jobs import advice, residual_tests
-from shopapp.jobs import evidence as jt
 from shopapp.models import Correction, InfluenceSet, Job, JobTransition, Rotor, Run, RunReading
 from shopapp.traceability import services as tr
 
@@ -450,14 +449,15 @@ class JobSim:
         return u, False
 
     def one_residual_test(self, u: ph.Pair, plane: int, spoil: bool
-                          ) -> tuple[dict[str, Any], jt.ResidualOutcome]:
+                          ) -> tuple[dict[str, Any], residual_tests.ResidualOutcome]:
         rng = self.rng
         tm = self.tm
         i = plane - 1
         radius = tm.radii[i]
         limit = tm.tolerance.plane_limits_gmm[i]
         step = tm.spec.stock_g
-        mass = round(max(step, math.floor(jt.SUGGESTED_FACTOR * limit / radius / step) * step), 6)
+        factor = residual_tests.SUGGESTED_FACTOR
+        mass = round(max(step, math.floor(factor * limit / radius / step) * step), 6)
         t_gmm = mass * radius
         a = self.p.rotor.a_true
         sens = (a[0] if plane == 1 else a[3]) / radius  # reading per g·mm in this plane
