@@ -30,6 +30,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from shopapp.certificates import issue as services
+from shopapp.core.display import plain
 from shopapp.core.errors import TransitionRefused
 from shopapp.models import Certificate, Job, User
 from shopapp.reports import certificate as report
@@ -95,14 +96,14 @@ def _stored_checks(number: str, revision: int, data_json: str, data_sha: str, pd
 def _num(value: float | None, unit: str = "") -> str:
     if value is None:
         return "none"
-    return f"{value:g}{(' ' + unit) if unit else ''}"
+    return f"{plain(value)}{(' ' + unit) if unit else ''}"
 
 
 def _vector(v: PlaneVector | None, angles: bool) -> str:
     if v is None:
         return "none"
     text = _num(v.unbalance_gmm, "g·mm")
-    return f"{text} at {v.angle_deg:g}°" if angles else text
+    return f"{text} at {plain(v.angle_deg)}°" if angles else text
 
 
 def _vectors(name: str, certified: Sequence[PlaneVector], stored: Sequence[PlaneVector],
@@ -123,7 +124,7 @@ def _vectors(name: str, certified: Sequence[PlaneVector], stored: Sequence[Plane
 def _correction(c: CorrectionLine, angles: bool) -> str:
     text = f"plane {c.plane} {c.action} {_num(c.mass_g, 'g')} at radius {_num(c.radius_mm, 'mm')}"
     if angles:
-        text += f", {c.angle_deg:g}°" + (f" ({c.details})" if c.details else "")
+        text += f", {plain(c.angle_deg)}°" + (f" ({c.details})" if c.details else "")
     return text
 
 
