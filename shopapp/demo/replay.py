@@ -35,10 +35,11 @@ from shopapp.demo import physics as ph
 from shopapp.demo import scenario as sc
 from shopapp.demo.days import at
 from shopapp.demo.history import History, Op
-from shopapp.demo.shop import ARBOR_INDEX_MIN, PROVING_TEST_MIN, Shop
+from shopapp.demo.shop import ARBOR_INDEX_MIN, PROVING_TEST_MIN, RUN_UP_MIN, Shop
 from shopapp.jobs import certificate_link, residual_tests
 from shopapp.jobs import evidence as jt
-from shopapp.models import AuditEvent, Job, Machine, RotorType, User
+from shopapp.models import AuditEvent, Job, Machine, Rotor, RotorType, User
+from shopapp.resonance.samples import add_sample_run_up
 from shopapp.traceability import services as tr
 
 Steps = Callable[[int, int], object]
@@ -95,7 +96,31 @@ class Replay:
         self._register(quality, admin)
         with s.no_autoflush:  # the services flush what they write
             self._run(self.evidence_ops, users, quality)
+        self._run_up(users)
         s.flush()
+
+    def _run_up(self, users: dict[int, User]) -> None:
+        """A run-up through a resonance on the latest fan job before the load's day.
+
+        The shop records one before balancing a fan at speed (docs/resonance.md);
+        the readings are invented (:mod:`shopapp.resonance.samples`), dated on the
+        day the rotor came in, never after the load's "now".
+        """
+        s = self.session
+        today = self.shop.end_at.date()
+        job = s.scalar(
+            select(Job).join(Rotor, Job.rotor_id == Rotor.id)
+            .join(RotorType, Rotor.rotor_type_id == RotorType.id)
+            .where(Job.id.in_(list(self.history.final)), Job.machine_id.is_not(None),
+                   Job.received_on < today, Job.state != "rejected",
+                   RotorType.kind == "fan")
+            .order_by(Job.received_on.desc(), Job.id.desc()).limit(1))
+        if job is None:
+            return
+        by = users[job.operator_id] if job.operator_id in users else users[self.shop.users[0]]
+        rec = add_sample_run_up(s, job, by=by, recorded_on=job.received_on, today=today)
+        rec.created_at = at(job.received_on, RUN_UP_MIN)
+        _date_new_audits(s, rec.created_at)
 
     def _register(self, quality: User, admin: User) -> None:
         """Proving rotors and tests, the arbor's error history, key conventions."""

@@ -39,6 +39,7 @@ Login = tuple[str, str, str]
 
 PROVING_TEST_MIN = 15 * 60  # the time of day a proving test is recorded
 ARBOR_INDEX_MIN = 8 * 60  # the time of day the arbor's index runs are recorded
+RUN_UP_MIN = 10 * 60  # the time of day a fan's run-up is recorded
 # Consecutive proving tests are planned this many days inside the interval; moved to a
 # working day they stay at least a week inside it (the year-end closure moves up to 12 days).
 TEST_SLACK_DAYS = 21

@@ -75,6 +75,7 @@ def add_sample_run_up(
     rng: np.random.Generator | None = None,
     recorded_on: dt.date | None = None,
     damping_ratio: float = 0.06,
+    today: dt.date | None = None,
 ) -> RunUpRecord:
     """Record an invented run-up through a resonance for ``job`` (demo shop).
 
@@ -96,7 +97,7 @@ def add_sample_run_up(
     points = [PointIn(s, round(a, 2), round(float(disp.angle(ang) or 0.0), 1), line=k + 1)
               for k, (s, a, ang) in enumerate(data.points)]
     slow = data.runout
-    today = dt.datetime.now(dt.UTC).date()
+    today = today or dt.datetime.now(dt.UTC).date()
     done = record_run_up(
         session, by=by, job=job, recorded_on=recorded_on or min(job.received_on, today),
         sensor="bearing A, horizontal", measured="displacement", unit="µm", points=points,
@@ -104,6 +105,6 @@ def add_sample_run_up(
         slow_roll_angle_deg=round(float(disp.angle(math.degrees(np.angle(slow)) % 360.0)
                                         or 0.0), 1),
         operating_speed_rpm=job.service_speed_rpm,
-        notes="Invented demo run-up (Jeffcott response with a little noise).",
+        notes="Invented demo run-up (Jeffcott response with a little noise).", today=today,
     )
     return done.record

@@ -48,9 +48,11 @@ from shopapp.models import (
     Rotor,
     RotorType,
     Run,
+    RunUpRecord,
     User,
 )
 from shopapp.registry import rotor_types
+from shopapp.resonance.runups import analyse_run_up
 from shopapp.traceability import services as tr
 
 END = dt.date(2026, 3, 27)  # a Friday
@@ -431,6 +433,26 @@ def test_key_conventions_on_two_rotor_types(ds: Session) -> None:
     assert set(keyed) == set(demo_scenario.KEY_CONVENTIONS)
     info = tr.key_info(keyed["BMR-75K"])
     assert info.compensation is not None and info.compensation.correction_mass_g > 0
+
+
+def test_a_fan_job_carries_a_run_up_through_its_resonance(ds: Session) -> None:
+    records = list(ds.scalars(select(RunUpRecord)))
+    assert len(records) == 1
+    rec = records[0]
+    job = ds.get(Job, rec.job_id)
+    assert job is not None and job.rotor.rotor_type.kind == "fan"
+    assert rec.recorded_on == job.received_on
+    quality = ds.scalars(select(User).where(User.role == "quality")).first()
+    assert quality is not None
+    result = analyse_run_up(ds, rec, by=quality)
+    main = result.main
+    assert main is not None and main.bracketed
+    # The invented readings put the critical speed at 70 % of the service speed (or lower
+    # on a slow machine) with ζ = 0.06 (shopapp.resonance.samples); the fit, an independent
+    # path through shopapp.balancing.runup, finds them again within the noise.
+    expected = min(0.7 * job.service_speed_rpm, job.machine.max_speed_rpm / 1.6)
+    assert main.critical_speed_rpm == pytest.approx(expected, rel=0.03)
+    assert main.damping_ratio == pytest.approx(0.06, abs=0.015)
 
 
 def test_certified_jobs_hold_one_valid_certificate_some_reissued_some_void(ds: Session) -> None:
