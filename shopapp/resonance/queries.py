@@ -5,7 +5,7 @@ from __future__ import annotations
 from sqlalchemy import Select, select
 from sqlalchemy.orm import Session, joinedload, selectinload
 
-from shopapp.models import Job, Machine, RunUpRecord
+from shopapp.models import Job, Machine, Rotor, RunUpRecord
 
 PANEL_LIMIT = 10
 
@@ -37,6 +37,13 @@ def machine_run_ups(session: Session, machine: Machine,
                     limit: int = PANEL_LIMIT) -> list[RunUpRecord]:
     """Run-ups made on a machine (its own and its jobs'), newest first."""
     stmt = _newest_first(select(RunUpRecord).where(RunUpRecord.machine_id == machine.id))
+    return list(session.scalars(stmt.limit(limit)))
+
+
+def rotor_run_ups(session: Session, rotor: Rotor, limit: int = PANEL_LIMIT) -> list[RunUpRecord]:
+    """Run-ups recorded on any job of a rotor (its history across visits), newest first."""
+    jobs = select(Job.id).where(Job.rotor_id == rotor.id)
+    stmt = _newest_first(select(RunUpRecord).where(RunUpRecord.job_id.in_(jobs)))
     return list(session.scalars(stmt.limit(limit)))
 
 

@@ -32,7 +32,7 @@ from shopapp.core.forms import apply_errors
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
 from shopapp.core.web import acting_user, get_or_404, requires
-from shopapp.models import RUNUP_UNITS, Job, Machine, RunUpRecord
+from shopapp.models import RUNUP_UNITS, Job, Machine, Rotor, RunUpRecord
 from shopapp.resonance import queries, runups
 from shopapp.resonance.figures import loose_mass_figures, run_up_figures
 from shopapp.resonance.forms import TYRE_BEAD_EXAMPLE, LooseMassForm, RunUpForm
@@ -171,7 +171,7 @@ def loose_mass():  # type: ignore[no-untyped-def]
 
 @bp.app_context_processor
 def _panels() -> dict[str, Any]:
-    """The Resonance sections of the job page and the machine page."""
+    """The Resonance sections of the job, machine and rotor pages."""
 
     def job_panel(job: Job) -> dict[str, Any] | None:
         if not current_user.is_authenticated or not can(current_user, "read"):
@@ -189,4 +189,11 @@ def _panels() -> dict[str, Any]:
                 "may_record": can(current_user, "work_jobs"),
                 "new_url": url_for("resonance.new_for_machine", machine_id=machine.id)}
 
-    return {"resonance_job_panel": job_panel, "resonance_machine_panel": machine_panel}
+    def rotor_panel(rotor: Rotor) -> dict[str, Any] | None:
+        if not current_user.is_authenticated or not can(current_user, "read"):
+            return None
+        sess = db_session()
+        return {"rows": _rows(sess, queries.rotor_run_ups(sess, rotor))}
+
+    return {"resonance_job_panel": job_panel, "resonance_machine_panel": machine_panel,
+            "resonance_rotor_panel": rotor_panel}

@@ -142,6 +142,16 @@ def test_job_and_machine_panels(app, db, job, make_user, role, may_record) -> No
         assert ("Log a run-up" in page) is may_record
 
 
+def test_the_rotor_page_shows_the_run_ups_of_its_jobs(client, login_as, db, job,
+                                                      make_user) -> None:
+    rec = samples.add_sample_run_up(db, job, by=make_user("operator"))
+    db.commit()
+    login_as("owner")
+    page = client.get(f"/rotors/{job.rotor_id}").get_data(as_text=True)
+    assert 'id="resonance"' in page and f"/resonance/run-ups/{rec.id}" in page
+    assert f"job {job.number}" in page and "1680 rpm" in page  # 70 % of 2400 rpm
+
+
 def test_panel_without_run_ups(app, db, shop, make_user) -> None:
     j = shop.job()
     with app.test_request_context():
