@@ -375,31 +375,45 @@ def shop_report(
 
 @dataclass(frozen=True)
 class Headline:
-    """The start-page panel: this month so far against last month, and WIP today."""
+    """The start-page panel: this month so far against the same days of last month, WIP today.
+
+    ``before_period`` is :meth:`Period.compared_with` — like with like: on the 2nd of a
+    month the first two days of the month before, never the whole of it.
+    """
 
     month: Period
+    before_period: Period
     now: Figures
     before: Figures
     wip_jobs: int
     wip_age_max_wd: int | None
 
+    @property
+    def before_label(self) -> str:
+        """``'October 2026'`` or ``'1–15 October 2026'`` for a month still in progress."""
+        b = self.before_period
+        if b.kind == "month":
+            return b.label
+        return f"{b.start.day}–{b.end.day} {b.start:%B %Y}"
+
 
 def headline(session: Session, *, by: User | None, today: dt.date | None = None) -> Headline:
-    """This month so far against last month, in four queries (both months in one each)."""
+    """This month so far against the same days of last month, in five queries."""
     _allowed(by)
     today = today or dt.date.today()
     month = Period.containing("month", today)
-    prev = month.previous()
-    both = Period(prev.start, month.end)
-    merged = figures_for(session, both, EVERYTHING, ["month"], today,
-                          families=("received", "tolerance"))
+    before = month.compared_with(today)
+    families = ("received", "tolerance")
+    now = figures_for(session, month, EVERYTHING, ["all"], today, families=families)
+    then = figures_for(session, before, EVERYTHING, ["all"], min(before.end, today),
+                       families=families)
     wip = figures_for(session, month, EVERYTHING, ["all"], today, families=("wip",))
-    now_fig = merged.get(("month", f"{month.start:%Y-%m}"), Figures())
     wip_fig = wip.get(("all", None), Figures())
     return Headline(
         month=month,
-        now=now_fig,
-        before=merged.get(("month", f"{prev.start:%Y-%m}"), Figures()),
+        before_period=before,
+        now=now.get(("all", None), Figures()),
+        before=then.get(("all", None), Figures()),
         wip_jobs=wip_fig.wip_jobs,
         wip_age_max_wd=wip_fig.wip_age_max_wd,
     )

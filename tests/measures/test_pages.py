@@ -268,9 +268,14 @@ def test_start_page_panel_for_the_owner_only(client, login_as, hand, make_user) 
     html = _page(client, "/")
     assert 'id="dashboard-headline"' in html
     assert "November 2026 so far" in html  # TODAY is 2026-11-15
-    # last month (October): 11 received, rework 50 %
+    # Like with like: the first 15 days of October, not the whole month (11 received). By
+    # hand from tests/measures_shop.py: J1, J2, J3, J4, J6 and J7 came in on 1-15 October.
+    assert "1–15 October 2026" in html
     row = re.search(r"<td>Jobs received</td>(.*?)</tr>", html, re.S)
-    assert row and re.findall(r">(\d+)<", row.group(1)) == ["0", "11"]
+    assert row and re.findall(r">(\d+)<", row.group(1)) == ["0", "6"]
+    # A rate carries its counts, so 100 % of 3 jobs is read as what it is.
+    rate = re.search(r"<td>First-pass rate</td>(.*?)</tr>", html, re.S)
+    assert rate and re.search(r"\((\d+) of (\d+)\)", rate.group(1))
     client.post("/logout")
     login_as("operator")
     assert 'id="dashboard-headline"' not in _page(client, "/")
