@@ -10,6 +10,7 @@ CSRF stays ON: the test client adds the token a real browser would have.
 
 from __future__ import annotations
 
+import contextlib
 import itertools
 import os
 import re
@@ -189,14 +190,14 @@ def count_queries(connection: Connection) -> Callable[[], Any]:
     return Counter
 
 
-@pytest.fixture()
-def fresh_database_url(database_url: str, tmp_path: Path) -> Iterator[str]:
-    """An empty database of the same backend, for migrations and CLI tests."""
+@contextlib.contextmanager
+def empty_database(database_url: str, tmp_path: Path, label: str) -> Iterator[str]:
+    """An empty database of the suite's backend named after ``label``, removed afterwards."""
     url = make_url(database_url)
     if url.get_backend_name() == "sqlite":
-        yield f"sqlite:///{tmp_path / 'fresh.sqlite3'}"
+        yield f"sqlite:///{tmp_path / f'{label}.sqlite3'}"
         return
-    name = f"shopapp_fresh_{uuid.uuid4().hex[:10]}"
+    name = f"shopapp_{label}_{uuid.uuid4().hex[:10]}"
     base = make_engine(database_url)
     admin = base.execution_options(isolation_level="AUTOCOMMIT")
     with admin.connect() as conn:
@@ -215,3 +216,10 @@ def fresh_database_url(database_url: str, tmp_path: Path) -> Iterator[str]:
             conn.execute(text(f'DROP DATABASE IF EXISTS "{name}"'))
         # The option engine shares its parent's pool: dispose the parent itself.
         base.dispose()
+
+
+@pytest.fixture()
+def fresh_database_url(database_url: str, tmp_path: Path) -> Iterator[str]:
+    """An empty database of the same backend, for migrations and CLI tests."""
+    with empty_database(database_url, tmp_path, "fresh") as url:
+        yield url

@@ -12,7 +12,6 @@ import datetime as dt
 import hashlib
 import json
 import sqlite3
-import uuid
 import zipfile
 from collections.abc import Iterator
 from pathlib import Path
@@ -21,7 +20,6 @@ from typing import Any
 import pytest
 from click.testing import CliRunner
 from sqlalchemy import select, text
-from sqlalchemy.engine import make_url
 from sqlalchemy.exc import DBAPIError
 from sqlalchemy.orm import Session
 
@@ -40,6 +38,7 @@ from shopapp.models import (
     User,
 )
 from tests import factories
+from tests.conftest import empty_database
 from tests.reports.samples import job_ready_for_certificate
 
 PASSWORD = "long-enough-1"
@@ -48,23 +47,8 @@ PASSWORD = "long-enough-1"
 @pytest.fixture()
 def other_database_url(database_url: str, tmp_path: Path) -> Iterator[str]:
     """A second empty database of the suite's backend (the restore target)."""
-    url = make_url(database_url)
-    if url.get_backend_name() == "sqlite":
-        yield f"sqlite:///{tmp_path / 'restored.sqlite3'}"
-        return
-    name = f"shopapp_restore_{uuid.uuid4().hex[:10]}"
-    base = make_engine(database_url)
-    admin = base.execution_options(isolation_level="AUTOCOMMIT")
-    with admin.connect() as conn:
-        conn.execute(text(f'CREATE DATABASE "{name}"'))
-    try:
-        yield url.set(database=name).render_as_string(hide_password=False)
-    finally:
-        with admin.connect() as conn:
-            conn.execute(text("SELECT pg_terminate_backend(pid) FROM pg_stat_activity "
-                              "WHERE datname = :n AND pid <> pg_backend_pid()"), {"n": name})
-            conn.execute(text(f'DROP DATABASE IF EXISTS "{name}"'))
-        base.dispose()
+    with empty_database(database_url, tmp_path, "restore") as url:
+        yield url
 
 
 def _seed(url: str) -> None:
