@@ -50,6 +50,7 @@ import numpy as np
 
 from shopapp.balancing.checks import finite, finite_array
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.balancing.phasors import normalize_deg
 
 FRAMES = ("arbor", "rotor")
@@ -86,8 +87,8 @@ def _index(index_deg: float) -> float:
     if min(alpha, 360.0 - alpha) < MIN_INDEX_DEG:
         raise BalancingInputError(
             "index_deg",
-            f"the rotor must be turned at least {MIN_INDEX_DEG:g}° on the arbor between the "
-            f"runs (180° recommended), got {alpha:g}°",
+            f"the rotor must be turned at least {short(MIN_INDEX_DEG)}° on the arbor between the "
+            f"runs (180° recommended), got {short(alpha)}°",
         )
     return alpha
 

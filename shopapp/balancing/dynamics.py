@@ -26,6 +26,7 @@ import numpy as np
 
 from shopapp.balancing.checks import finite_array, positive
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 
 FLEXIBLE_SPEED_FRACTION = 0.7  # common practice, no source
 SOFT_BEARING_MIN_RATIO = 2.0  # common practice: at least 2× suspension resonance
@@ -75,7 +76,7 @@ def rigid_or_flexible(
     nc = positive("first_critical_rpm", first_critical_rpm)
     th = positive("threshold", threshold)
     if th >= 1.0:
-        raise BalancingInputError("threshold", f"must be below 1, got {th:g}")
+        raise BalancingInputError("threshold", f"must be below 1, got {short(th)}")
     ratio = n / nc
     rigid = ratio <= th
     warnings: list[str] = []
@@ -223,7 +224,7 @@ def balancing_speed_advice(
         lo, hi = soft_min, cap
         if cap is not None and cap < soft_min:
             warnings.append(
-                f"the speed limit ({cap:.0f} rpm) is below {SOFT_BEARING_MIN_RATIO:g}× the "
+                f"the speed limit ({cap:.0f} rpm) is below {short(SOFT_BEARING_MIN_RATIO)}× the "
                 f"suspension resonance ({soft_min:.0f} rpm): a soft-bearing machine cannot "
                 "measure this rotor reliably; use a hard-bearing machine or stiffer supports"
             )
@@ -251,13 +252,13 @@ def balancing_speed_advice(
             ok = False
             warnings.append(
                 f"proposed speed is only {ratio:.2f}× the suspension resonance: a soft-bearing "
-                f"machine needs at least {SOFT_BEARING_MIN_RATIO:g}× "
-                f"({SOFT_BEARING_GOOD_RATIO:g}× or more preferred)"
+                f"machine needs at least {short(SOFT_BEARING_MIN_RATIO)}× "
+                f"({short(SOFT_BEARING_GOOD_RATIO)}× or more preferred)"
             )
         elif machine_type == "soft" and ratio < SOFT_BEARING_GOOD_RATIO:
             warnings.append(
                 f"proposed speed is {ratio:.2f}× the suspension resonance; "
-                f"{SOFT_BEARING_GOOD_RATIO:g}× or more gives steadier phase readings"
+                f"{short(SOFT_BEARING_GOOD_RATIO)}× or more gives steadier phase readings"
             )
         if machine_type == "hard" and ratio > HARD_BEARING_MAX_RATIO:
             ok = False

@@ -40,6 +40,7 @@ from dataclasses import dataclass
 
 from shopapp.balancing.checks import finite, positive
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.balancing.phasors import normalize_deg
 
 KEY_CONVENTIONS = ("none", "half_key", "full_key")
@@ -110,7 +111,8 @@ def key_mass_g(
     if rounded_ends:
         if length < b:
             raise BalancingInputError(
-                "key_length_mm", f"a key with rounded ends must be at least its width ({b:g} mm)"
+                "key_length_mm",
+                f"a key with rounded ends must be at least its width ({short(b)} mm)",
             )
         volume_mm3 -= (1.0 - math.pi / 4.0) * b * b * h
     return rho * volume_mm3 / 1000.0  # mm³ → cm³
@@ -179,12 +181,12 @@ def key_compensation(
         delta_u = piece_mass * radius
         if piece_mm > 0:
             notes.append(
-                f"The key is {piece_mm:g} mm longer than the hub: half of that length of key "
+                f"The key is {short(piece_mm)} mm longer than the hub: half of that length of key "
                 "is in neither part's balance."
             )
         elif piece_mm < 0:
             notes.append(
-                f"The key is {-piece_mm:g} mm shorter than the hub: the hub's balance counted "
+                f"The key is {short(-piece_mm)} mm shorter than the hub: the hub's balance counted "
                 "half a key where there is none."
             )
     else:

@@ -20,6 +20,7 @@ import numpy as np
 
 from shopapp.balancing.checks import finite, finite_array
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 
 
 def _vector(field: str, value: complex | np.ndarray) -> np.ndarray | complex:
@@ -32,7 +33,7 @@ def _distinct(field_1: str, z1: float, field_2: str, z2: float) -> tuple[float, 
     b = finite(field_2, z2)
     # A pair of coincident planes cannot carry a moment; the 2×2 statics is singular.
     if a == b:
-        raise BalancingInputError(field_2, f"must differ from {field_1} (both {a:g} mm)")
+        raise BalancingInputError(field_2, f"must differ from {field_1} (both {short(a)} mm)")
     return a, b
 
 

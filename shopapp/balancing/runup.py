@@ -65,6 +65,7 @@ from scipy.signal import find_peaks
 
 from shopapp.balancing.checks import finite_array, positive
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 
 MIN_POINTS = 5
 MIN_FIT_POINTS = 4
@@ -494,7 +495,7 @@ def _analyse_peak(
     elif rel_rms > FIT_WARN_PCT:
         warnings.append(f"loose fit (residual {rel_rms:.0f} % of the peak)")
     if zeta >= 0.99 * ZETA_BOUNDS[1] or zeta <= 1.01 * ZETA_BOUNDS[0]:
-        warnings.append(f"the damping ratio ran to the limit of the fit ({zeta:.4g})")
+        warnings.append(f"the damping ratio ran to the limit of the fit ({short(zeta, 4)})")
     lo_nc, hi_nc = 0.25 * float(nw.min()), 4.0 * float(nw.max())
     if nc <= 1.01 * lo_nc or nc >= 0.99 * hi_nc:
         warnings.append("the critical speed ran to the limit of the fit: not determined")

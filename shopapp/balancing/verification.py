@@ -43,6 +43,7 @@ import numpy as np
 
 from shopapp.balancing.checks import finite_array, non_negative, positive
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.balancing.phasors import normalize_deg
 
 MIN_POSITIONS = 4
@@ -394,7 +395,8 @@ def unbalance_reduction_ratio(
     if claimed_urr_percent is not None:
         claim = non_negative("claimed_urr_percent", claimed_urr_percent)
         if claim > 100.0:
-            raise BalancingInputError("claimed_urr_percent", f"must be at most 100, got {claim:g}")
+            raise BalancingInputError("claimed_urr_percent",
+                                      f"must be at most 100, got {short(claim)}")
         passed = bool(np.all(urr >= claim))
     warnings = []
     if np.any(urr < 0.0):

@@ -22,6 +22,7 @@ from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import Session
 
 from shopapp.accounts import users
+from shopapp.balancing.numtext import short
 from shopapp.cli.common import app_db, one_line_errors
 from shopapp.cli.demo import (
     LOGINS_FILE,
@@ -43,7 +44,7 @@ SLICE_SECONDS = 1.0  # certificates written per commit (the web waits at most th
 PAUSE_SECONDS = 0.2
 BUSY_RETRIES = 5
 RESET = ("shopapp db downgrade --yes && shopapp db upgrade && "
-         f"shopapp demo load --seed {SEED} --years {YEARS:g}")
+         f"shopapp demo load --seed {SEED} --years {short(YEARS)}")
 
 
 @click.command("first-start", help="On an empty database: load the demo shop (or a first admin).")
@@ -84,7 +85,7 @@ def _load_demo() -> None:
     folder = instance_folder()
     write_status(folder, "loading", "The demo shop is still loading: its people, machines and "
                  "jobs are being written (a few seconds); the logins follow.")
-    click.echo(f"loading the demo shop (about {YEARS:g} years of jobs); the logins follow in "
+    click.echo(f"loading the demo shop (about {short(YEARS)} years of jobs); the logins follow in "
                "a few seconds")
     sess = app_db().sessionmaker()
     try:
@@ -96,7 +97,7 @@ def _load_demo() -> None:
             sess.rollback()
             report_failure(f"The demo shop did not load: {reason_of(exc)}. Nothing of it was "
                            f"kept; to load it run: shopapp demo load --seed {SEED} "
-                           f"--years {YEARS:g}")
+                           f"--years {short(YEARS)}")
             raise
         total = load.certificates_total
         _loading_certificates(load)

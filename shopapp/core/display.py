@@ -17,6 +17,7 @@ import datetime as dt
 import math
 from typing import Any, overload
 
+from shopapp.balancing.numtext import figures
 from shopapp.balancing.phasors import from_display_deg, to_display_deg
 from shopapp.balancing.units import convert_unbalance
 
@@ -48,20 +49,11 @@ def number(value: Any, sig: int = 3, *, trim: bool = False) -> str:
     (18 900 g·mm is ``18900``, not ``1.89e+04``); smaller ones get the decimals
     the figures need (``12.3``, ``0.00123``). None, NaN and infinity print as an
     en dash. ``trim`` drops trailing zeros after the point (``10`` rather than
-    ``10.0``): chart ticks and labels, where ``format(v, ".3g")`` was used, without
-    its exponent.
+    ``10.0``): chart ticks and labels. The digits come from
+    :func:`shopapp.balancing.numtext.figures` (one algorithm for pages and messages).
     """
     v = _finite(value)
-    if v is None:
-        return NOTHING
-    if v == 0:
-        return "0"
-    mag = abs(v)
-    if mag >= 10 ** (sig - 1):
-        return f"{v:.0f}"
-    decimals = max(0, sig - 1 - math.floor(math.log10(mag)))
-    text = f"{v:.{decimals}f}"
-    return text.rstrip("0").rstrip(".") if trim and "." in text else text
+    return NOTHING if v is None else figures(v, sig, trim=trim)
 
 
 def fixed(value: Any, decimals: int) -> str:

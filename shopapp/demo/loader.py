@@ -28,6 +28,7 @@ from dataclasses import dataclass
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from shopapp.balancing.numtext import short
 from shopapp.core.errors import ValidationFailed
 from shopapp.demo import physics as ph
 from shopapp.demo.days import at
@@ -125,7 +126,8 @@ class DemoLoad:
                  exact: bool = True, with_certificates: bool = True) -> None:
         self.t0 = time.perf_counter()
         if not (0 < years <= 10):
-            raise ValidationFailed("years", f"must be more than 0 and at most 10, got {years:g}")
+            raise ValidationFailed("years",
+                                   f"must be more than 0 and at most 10, got {short(years)}")
         self.session = session
         self.end_at = history_end(now, end_date)
         self.say = progress or (lambda _msg: None)

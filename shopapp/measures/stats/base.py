@@ -10,6 +10,8 @@ from typing import Any, Literal
 
 from scipy import stats
 
+from shopapp.balancing.numtext import short
+
 #: The one sentence the owner's page and the PDF show beside every flag.
 CAUTION = (
     "A flagged unit is a question to look into, not a verdict on a person: "
@@ -119,14 +121,14 @@ def _real(name: str, value: Any) -> float:
 def _proportion(name: str, value: Any) -> float:
     out = _real(name, value)
     if not 0.0 <= out <= 1.0:
-        raise StatisticsInputError(name, f"must lie between 0 and 1, got {out:g}")
+        raise StatisticsInputError(name, f"must lie between 0 and 1, got {short(out)}")
     return out
 
 
 def _open_unit(name: str, value: Any) -> float:
     out = _real(name, value)
     if not 0.0 < out < 1.0:
-        raise StatisticsInputError(name, f"must lie strictly between 0 and 1, got {out:g}")
+        raise StatisticsInputError(name, f"must lie strictly between 0 and 1, got {short(out)}")
     return out
 
 

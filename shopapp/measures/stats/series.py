@@ -11,6 +11,7 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
+from shopapp.balancing.numtext import short
 from shopapp.measures.stats.base import (
     DEFAULT_IDLE_SECONDS,
     StatisticsInputError,
@@ -81,7 +82,7 @@ class Trend:
         until = _real("before_x", before_x)
         if until < self.x_last:
             raise StatisticsInputError(
-                "before_x", f"must not lie before the last data point ({self.x_last:g})"
+                "before_x", f"must not lie before the last data point ({short(self.x_last)})"
             )
         start = self.value_at(self.x_last) - level
         end = self.value_at(until) - level

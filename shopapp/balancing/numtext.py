@@ -1,0 +1,39 @@
+"""Numbers as text without an exponent: the one algorithm behind every number shown.
+
+:mod:`shopapp.core.display` builds the pages', CSV's and PDFs' formatting on
+:func:`figures`; the pure numerics use :func:`short` in their messages and
+warnings (they sit below ``core`` and cannot import it). ``format(v, "g")``
+prints 1 234 567 as ``1.23457e+06`` and 12 345 with ``.3g`` as ``1.23e+04``; a
+shop reads neither.
+"""
+
+from __future__ import annotations
+
+import math
+
+
+def figures(value: float, sig: int = 3, *, trim: bool = False) -> str:
+    """``value`` with ``sig`` significant figures and never an exponent.
+
+    Numbers of ``sig`` digits or more before the point print as whole numbers
+    (18 900 is ``18900``, not ``1.89e+04``); smaller ones get the decimals the
+    figures need (``12.3``, ``0.00123``). ``trim`` drops trailing zeros after the
+    point. NaN and infinity print as ``nan``/``inf``/``-inf`` (messages about
+    such input name them; pages never reach here with them).
+    """
+    v = float(value)
+    if not math.isfinite(v):
+        return str(v)
+    if v == 0:
+        return "0"
+    mag = abs(v)
+    if mag >= 10 ** (sig - 1):
+        return f"{v:.0f}"
+    decimals = max(0, sig - 1 - math.floor(math.log10(mag)))
+    text = f"{v:.{decimals}f}"
+    return text.rstrip("0").rstrip(".") if trim and "." in text else text
+
+
+def short(value: float, sig: int = 6) -> str:
+    """What ``f"{value:g}"`` meant to print, without its exponent (``1234567``, ``0.25``)."""
+    return figures(value, sig, trim=True)
