@@ -8,10 +8,11 @@ not, so :class:`NumberField` refuses them with a message a person understands.
 from __future__ import annotations
 
 import math
+import secrets
 from typing import Any, TypeVar
 
 from flask_wtf import FlaskForm
-from wtforms import Field, FloatField, IntegerField, SelectField
+from wtforms import Field, FloatField, HiddenField, IntegerField, SelectField
 from wtforms.fields.choices import SelectChoice
 
 from shopapp.core.errors import ValidationFailed
@@ -131,6 +132,23 @@ def apply_errors(form: FlaskForm, exc: ValidationFailed,
         else:
             loose.append(f"{name.replace('_', ' ')}: {message}")
     return loose
+
+
+def new_form_token() -> str:
+    """A fresh one-time token for a create form (32 URL-safe characters)."""
+    return secrets.token_urlsafe(24)
+
+
+class OnceForm(FlaskForm):
+    """A create form: it carries a one-time token, issued when the form is drawn.
+
+    The token is spent in the transaction that saves what the form creates
+    (:func:`shopapp.core.web.once`); the same form posted again (back button, double
+    click) saves nothing and leads to what the first post saved. ``hidden_tag()``
+    draws it with the CSRF token.
+    """
+
+    form_token = HiddenField(default=new_form_token)
 
 
 class ConfirmForm(FlaskForm):

@@ -24,7 +24,7 @@ from wtforms.validators import InputRequired, Length, Optional
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import forms
 from shopapp.core.display import plain
-from shopapp.core.forms import NumberField, WholeNumberField
+from shopapp.core.forms import NumberField, OnceForm, WholeNumberField
 from shopapp.models import CORRECTION_METHODS, READING_UNITS, ROTOR_KINDS, RUN_PURPOSES
 
 _NUMBER = "Required: type a number."
@@ -109,7 +109,7 @@ class OneOffForm(FlaskForm):
         return out
 
 
-class IntakeForm(FlaskForm):
+class IntakeForm(OnceForm):
     customer_id = ChoiceField("Customer", coerce=int, choices=[])
     new_customer_name = StringField("New customer: name", validators=[Length(max=200)])
     new_customer_contact = StringField("New customer: contact", validators=[Length(max=200)])
@@ -148,7 +148,7 @@ class LookupForm(FlaskForm):
     serial_number = StringField("Serial number", validators=[Length(max=100)])
 
 
-class RunForm(FlaskForm):
+class RunForm(OnceForm):
     purpose = ChoiceField("Purpose",
                           choices=options([(p, PURPOSE_LABELS[p]) for p in RUN_PURPOSES]),
                           default="initial")
@@ -178,7 +178,7 @@ class RunForm(FlaskForm):
                                                       self.trial_angle_deg))
 
 
-class CorrectionForm(FlaskForm):
+class CorrectionForm(OnceForm):
     run_id = HiddenField()
     action = ChoiceField("Action", choices=options([("add", "added"), ("remove", "removed")]),
                          default="add")
@@ -200,7 +200,7 @@ class StateForm(FlaskForm):
     dispatched_on = DateField("Dispatched on", validators=[Optional()])
 
 
-class ReturnForm(FlaskForm):
+class ReturnForm(OnceForm):
     received_on = DateField("Received back on", validators=[Optional()])
     notes = TextAreaField("What the customer reports", validators=[Length(max=5000)])
 

@@ -16,7 +16,7 @@ from flask_wtf import FlaskForm
 from wtforms import DateField, StringField, TextAreaField
 from wtforms.validators import Length, Optional
 
-from shopapp.core.forms import ChoiceField, NumberField, WholeNumberField
+from shopapp.core.forms import ChoiceField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import MEASURED_QUANTITIES, RUNUP_UNITS
 from shopapp.resonance.runups import MAX_POINTS, PointIn
 
@@ -82,7 +82,7 @@ def unit_choices() -> list[tuple[str, str]]:
     return [(u, f"{u} ({q})") for q, units in RUNUP_UNITS.items() for u in units]
 
 
-class RunUpForm(FlaskForm):
+class RunUpForm(OnceForm):
     recorded_on = DateField("Recorded on", validators=[Optional()])
     sensor = StringField("Sensor (plane, bearing, direction)",
                          validators=[Length(max=64, message="At most 64 characters.")])

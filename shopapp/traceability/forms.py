@@ -31,6 +31,7 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.arbor import FRAMES
 from shopapp.core.display import ShopDisplay, plain
+from shopapp.core.forms import OnceForm
 from shopapp.models import KEY_CONVENTIONS, READING_UNITS, RESIDUAL_TEST_POSITIONS
 
 KEY_DIMENSIONS = ("key_width_mm", "key_height_mm", "key_length_mm", "hub_length_mm",
@@ -74,7 +75,7 @@ def sized(field_list: Any, n: int) -> None:
         field_list.pop_entry()
 
 
-class ProvingTestForm(FlaskForm):
+class ProvingTestForm(OnceForm):
     performed_on = DateField("Test date", validators=[InputRequired("Required: a date.")])
     proving_rotor_id = SelectField("Proving rotor", coerce=int)
     test_mass_g = StringField("Test mass, g")
@@ -143,7 +144,7 @@ class ProvingTestForm(FlaskForm):
         return m
 
 
-class ProvingRotorForm(FlaskForm):
+class ProvingRotorForm(OnceForm):
     name = StringField("Name", validators=[InputRequired("Required."), Length(max=100)])
     mass_kg = StringField("Mass, kg")
     planes = SelectField("Planes", choices=options([("2", "2"), ("1", "1")]))
@@ -153,7 +154,7 @@ class ProvingRotorForm(FlaskForm):
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
 
 
-class ArborForm(FlaskForm):
+class ArborForm(OnceForm):
     name = StringField("Name", validators=[InputRequired("Required."), Length(max=100)])
     description = StringField("Description", validators=[Optional(), Length(max=200)])
     mass_kg = StringField("Mass, kg")
@@ -169,7 +170,7 @@ class PlaneReading(Form):
     ang_2 = StringField("plane 2 angle")
 
 
-class IndexRunsForm(FlaskForm):
+class IndexRunsForm(OnceForm):
     measured_on = DateField("Date", validators=[InputRequired("Required: a date.")])
     index_deg = StringField("Rotor turned on the arbor by, °", default="180")
     second_frame = SelectField("Angle of the second run read",
@@ -192,7 +193,7 @@ class RequiredForm(FlaskForm):
     required = HiddenField()
 
 
-class ResidualTestForm(FlaskForm):
+class ResidualTestForm(OnceForm):
     plane = HiddenField()
     positions = SelectField("Positions", coerce=int,
                             choices=options([(n, str(n)) for n in RESIDUAL_TEST_POSITIONS]))
@@ -207,7 +208,7 @@ class ResidualTestForm(FlaskForm):
     save = SubmitField("Save the test")
 
 
-class ErrorRunsForm(FlaskForm):
+class ErrorRunsForm(OnceForm):
     runs = FieldList(FormField(PlaneReading), min_entries=3, max_entries=8)
     key_compensation_applied = BooleanField("The key compensation was applied to the rotor")
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
