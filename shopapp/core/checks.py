@@ -69,13 +69,51 @@ def text(e: Errors, field: str, value: Any, *, max_len: int = MAX_TEXT,
     return text
 
 
-def date(e: Errors, field: str, value: Any, *, not_after: dt.date | None = None
-          ) -> dt.date | None:
+# The date window (ours): no rotor of a shop using shopapp was received, tested or
+# certified before 1990, and a day may lie ahead of today only where the future makes
+# sense. Every date input (form, query string, CLI option, use-case) is held to it here.
+EARLIEST_DAY = dt.date(1990, 1, 1)
+QUERY_AHEAD_DAYS = 366  # a list or dashboard may look at a period reaching into next year
+PROMISE_AHEAD_DAYS = 3 * 366  # a promised date: about three years ahead at most
+
+
+def utc_today() -> dt.date:
+    """Today's date in UTC: the services' "today" (models.base.utcnow's date)."""
+    return dt.datetime.now(dt.UTC).date()
+
+
+def day_refusal(value: dt.date, *, ahead_days: int = 0, today: dt.date | None = None
+                ) -> str | None:
+    """Why ``value`` lies outside the date window, or None when it is inside.
+
+    The window is :data:`EARLIEST_DAY` .. ``today + ahead_days`` (0: nothing after today).
+    """
+    if value < EARLIEST_DAY:
+        return (f"{value.isoformat()} is before {EARLIEST_DAY.isoformat()}, the earliest "
+                "date shopapp takes")
+    latest = (today or utc_today()) + dt.timedelta(days=ahead_days)
+    if value > latest:
+        if ahead_days == 0:
+            return f"{value.isoformat()} is in the future (today is {latest.isoformat()})"
+        return f"{value.isoformat()} is too far ahead: at most {latest.isoformat()}"
+    return None
+
+
+def date(e: Errors, field: str, value: Any, *, not_after: dt.date | None = None,
+         ahead_days: int = 0, required: bool = True) -> dt.date | None:
+    """``value`` as a date inside the date window (:func:`day_refusal`), or None.
+
+    ``not_after`` is the latest allowed day (default: today + ``ahead_days``).
+    """
+    if value is None and not required:
+        return None
     if not isinstance(value, dt.date) or isinstance(value, dt.datetime):
         e.add(field, "is required (a date)")
         return None
-    if not_after is not None and value > not_after:
-        e.add(field, f"{value.isoformat()} is in the future")
+    latest = not_after if not_after is not None else utc_today() + dt.timedelta(days=ahead_days)
+    refusal = day_refusal(value, today=latest)
+    if refusal is not None:
+        e.add(field, refusal)
         return None
     return value
 

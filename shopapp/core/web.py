@@ -158,8 +158,9 @@ def once(session: Session, form: OnceForm,
 
     def spend(result: Any) -> None:
         entity, entity_id = (request.endpoint or "form")[:40], 0
-        if isinstance(result, Base) and isinstance(getattr(result, "id", None), int):
-            entity, entity_id = type(result).__tablename__, result.id
+        row_id = getattr(result, "id", None)
+        if isinstance(result, Base) and isinstance(row_id, int):
+            entity, entity_id = type(result).__tablename__, row_id
         try:
             with session.begin_nested():
                 session.add(SubmissionToken(token=token, user_id=acting_user().id,

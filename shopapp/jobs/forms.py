@@ -12,7 +12,6 @@ from typing import Any
 from flask_wtf import FlaskForm
 from wtforms import (
     BooleanField,
-    DateField,
     FormField,
     HiddenField,
     StringField,
@@ -23,8 +22,9 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import forms
+from shopapp.core.checks import PROMISE_AHEAD_DAYS
 from shopapp.core.display import plain
-from shopapp.core.forms import NumberField, OnceForm, WholeNumberField
+from shopapp.core.forms import DayField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import CORRECTION_METHODS, READING_UNITS, ROTOR_KINDS, RUN_PURPOSES
 
 _NUMBER = "Required: type a number."
@@ -132,8 +132,8 @@ class IntakeForm(OnceForm):
     balancing_speed_rpm = NumberField("Balancing speed (rpm)",
                                       validators=[InputRequired(_NUMBER)])
     machine_id = ChoiceField("Machine", coerce=int, choices=[])
-    received_on = DateField("Received on", validators=[Optional()])
-    promised_on = DateField("Promised for", validators=[Optional()])
+    received_on = DayField("Received on", validators=[Optional()])
+    promised_on = DayField("Promised for", validators=[Optional()], ahead_days=PROMISE_AHEAD_DAYS)
     customer_order_ref = StringField("Customer order reference", validators=[Length(max=100)])
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
 
@@ -197,11 +197,11 @@ class CorrectionForm(OnceForm):
 class StateForm(FlaskForm):
     action = HiddenField()
     reason = TextAreaField("Reason", validators=[Length(max=5000)])
-    dispatched_on = DateField("Dispatched on", validators=[Optional()])
+    dispatched_on = DayField("Dispatched on", validators=[Optional()])
 
 
 class ReturnForm(OnceForm):
-    received_on = DateField("Received back on", validators=[Optional()])
+    received_on = DayField("Received back on", validators=[Optional()])
     notes = TextAreaField("What the customer reports", validators=[Length(max=5000)])
 
 

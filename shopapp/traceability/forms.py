@@ -16,7 +16,6 @@ from typing import Any
 from flask_wtf import FlaskForm
 from wtforms import (
     BooleanField,
-    DateField,
     FieldList,
     Form,
     FormField,
@@ -31,7 +30,7 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.arbor import FRAMES
 from shopapp.core.display import ShopDisplay, plain
-from shopapp.core.forms import OnceForm
+from shopapp.core.forms import DayField, OnceForm
 from shopapp.models import KEY_CONVENTIONS, READING_UNITS, RESIDUAL_TEST_POSITIONS
 
 KEY_DIMENSIONS = ("key_width_mm", "key_height_mm", "key_length_mm", "hub_length_mm",
@@ -76,7 +75,7 @@ def sized(field_list: Any, n: int) -> None:
 
 
 class ProvingTestForm(OnceForm):
-    performed_on = DateField("Test date", validators=[InputRequired("Required: a date.")])
+    performed_on = DayField("Test date", validators=[InputRequired("Required: a date.")])
     proving_rotor_id = SelectField("Proving rotor", coerce=int)
     test_mass_g = StringField("Test mass, g")
     test_radius_mm = StringField("Test-mass radius, mm")
@@ -171,7 +170,7 @@ class PlaneReading(Form):
 
 
 class IndexRunsForm(OnceForm):
-    measured_on = DateField("Date", validators=[InputRequired("Required: a date.")])
+    measured_on = DayField("Date", validators=[InputRequired("Required: a date.")])
     index_deg = StringField("Rotor turned on the arbor by, °", default="180")
     second_frame = SelectField("Angle of the second run read",
                                choices=options([(f, FRAME_LABELS[f]) for f in FRAMES]))
