@@ -120,7 +120,8 @@ class ProvingTestForm(OnceForm):
             "indicated_angles_deg": [[typed_angle(disp, e.data) for e in self.p1_ang.entries],
                                      [typed_angle(disp, e.data) for e in self.p2_ang.entries]
                                      ][:planes],
-            "first_position_deg": first if isinstance(first, float) else 0.0,
+            # As typed when it is not a number: the use-case refuses it by name.
+            "first_position_deg": 0.0 if first is None else first,
             "claimed_umar": blank_to_none(self.claimed_umar.data),
             "urr_before_gmm": [blank_to_none(self.urr_before_1.data),
                                blank_to_none(self.urr_before_2.data)][:planes],
