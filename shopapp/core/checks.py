@@ -108,18 +108,22 @@ def day_refusal(value: dt.date, *, ahead_days: int = 0, today: dt.date | None = 
 
 
 def date(e: Errors, field: str, value: Any, *, not_after: dt.date | None = None,
-         ahead_days: int = 0, required: bool = True) -> dt.date | None:
+         ahead_days: int = 0, today: dt.date | None = None, required: bool = True
+         ) -> dt.date | None:
     """``value`` as a date inside the date window (:func:`day_refusal`), or None.
 
-    ``not_after`` is the latest allowed day (default: today + ``ahead_days``).
+    The latest day is ``not_after`` when given, else ``today + ahead_days`` (``today``
+    defaults to :func:`utc_today`).
     """
     if value is None and not required:
         return None
     if not isinstance(value, dt.date) or isinstance(value, dt.datetime):
         e.add(field, "is required (a date)")
         return None
-    latest = not_after if not_after is not None else utc_today() + dt.timedelta(days=ahead_days)
-    refusal = day_refusal(value, today=latest)
+    if not_after is not None:
+        refusal = day_refusal(value, today=not_after)
+    else:
+        refusal = day_refusal(value, ahead_days=ahead_days, today=today)
     if refusal is not None:
         e.add(field, refusal)
         return None

@@ -199,7 +199,7 @@ def book_in(
                maximum=MAX_SPEED_RPM, unit="rpm")
     received = _date(e, "received_on", received_on or today(), not_after=today())
     promised_on = _date(e, "promised_on", promised_on, ahead_days=PROMISE_AHEAD_DAYS,
-                        required=False)
+                        today=today(), required=False)
     if promised_on is not None and received is not None and promised_on < received:
         e.add("promised_on", f"{promised_on.isoformat()} is before the job is received "
               f"({received.isoformat()})")
