@@ -30,7 +30,7 @@ from shopapp.measures.periods import parse_month
 @click.option("--output", "-o", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="PDF file to write.")
 @click.option("--json", "as_json", is_flag=True, help="Print the figures as JSON.")
-@click.option("--as-of", "as_of", type=Day(), default=None,
+@click.option("--as-of", "as_of", type=Day(ahead_days=QUERY_AHEAD_DAYS), default=None,
               help="Count work in progress and machine verification as of this day "
                    "(YYYY-MM-DD; default today).")
 @with_appcontext

@@ -85,7 +85,7 @@ def test_cli_report_refuses_an_as_of_day_outside_the_window(runner):
     result = runner.invoke(args=["report", "shop", "--month", "2026-10", "--json",
                                  "--as-of", "9999-12-31"])
     assert result.exit_code != 0
-    assert "9999-12-31 is in the future" in result.output
+    assert "9999-12-31 is too far ahead" in result.output
     result = runner.invoke(args=["report", "shop", "--month", "1900-01", "--json"])
     assert result.exit_code != 0
     assert "earliest date shopapp takes" in result.output
