@@ -202,3 +202,9 @@ def derived(values: dict[str, Any], *, maximum: float = MAX_DERIVED) -> None:
 def derived_row(row: Any, *, maximum: float = MAX_DERIVED) -> None:
     """:func:`derived` over every column of an ORM row about to be stored."""
     derived({c.key: getattr(row, c.key, None) for c in row.__table__.columns}, maximum=maximum)
+
+
+def plain_digits(text: str) -> bool:
+    """Only the ASCII digits 0-9. ``str.isdigit()`` is also true for "³" or "١", which
+    ``int()`` refuses (a 500 found by tests/web/test_fuzz.py)."""
+    return text.isascii() and text.isdigit()

@@ -22,7 +22,7 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import forms
-from shopapp.core.checks import PROMISE_AHEAD_DAYS
+from shopapp.core.checks import PROMISE_AHEAD_DAYS, plain_digits
 from shopapp.core.display import plain
 from shopapp.core.forms import DayField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import CORRECTION_METHODS, READING_UNITS, ROTOR_KINDS, RUN_PURPOSES
@@ -215,7 +215,7 @@ def parse_split(text: str | None) -> list[dict[str, Any]] | None:
         if not chunk:
             continue
         pos, sep, mass = chunk.partition(":")
-        if not sep or not pos.strip().isdigit():
+        if not sep or not plain_digits(pos.strip()):
             raise ValueError(f"{chunk[:30]!r} is not position:grams, e.g. 3:4.2")
         try:
             value = float(mass)

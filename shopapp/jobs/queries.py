@@ -15,7 +15,7 @@ from typing import Any
 from sqlalchemy import Select, and_, func, or_, select
 from sqlalchemy.orm import Session, joinedload, selectinload
 
-from shopapp.core.checks import QUERY_AHEAD_DAYS, day_refusal
+from shopapp.core.checks import QUERY_AHEAD_DAYS, day_refusal, plain_digits
 from shopapp.core.errors import NotFound
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import evidence
@@ -203,7 +203,7 @@ class JobFilter:
             if not text:
                 continue
             if fl.name.endswith("_id"):
-                if text.isdigit() and len(text) < 12:
+                if plain_digits(text) and len(text) < 12:
                     setattr(f, fl.name, int(text))
                 else:
                     messages.append(f"{fl.name}: {text[:20]!r} is not an id; ignored")

@@ -18,6 +18,7 @@ from flask_login import current_user
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.charts.svg import to_svg
+from shopapp.core.checks import plain_digits
 from shopapp.core.display import ShopDisplay, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
@@ -146,7 +147,7 @@ def new():  # type: ignore[no-untyped-def]
     if request.method == "GET":
         cid = request.args.get(lookup.customer_id.name, "")
         serial = (request.args.get(lookup.serial_number.name) or "").strip()[:100]
-        if cid.isdigit() and len(cid) < 12 and serial:
+        if plain_digits(cid) and len(cid) < 12 and serial:
             history = queries.rotor_history(sess, int(cid), serial)
             form.customer_id.data = int(cid)
             form.serial_number.data = serial
@@ -340,7 +341,7 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
         except ValueError as exc:
             form.split.errors = [str(exc)]
             return _render_detail(job_id, status=422, corr_forms={plane: form})
-        run_id = int(form.run_id.data) if (form.run_id.data or "").isdigit() else None
+        run_id = int(form.run_id.data) if plain_digits(form.run_id.data or "") else None
         try:
             corr = corrections.record_correction(
                 sess, job, by=acting_user(), run_id=run_id, plane=plane, action=form.action.data,

@@ -10,7 +10,7 @@ from wtforms import HiddenField, SelectField
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import Optional
 
-from shopapp.core.checks import QUERY_AHEAD_DAYS
+from shopapp.core.checks import QUERY_AHEAD_DAYS, plain_digits
 from shopapp.core.forms import DayField
 from shopapp.measures.periods import Period, Scope
 
@@ -69,7 +69,7 @@ class PeriodForm(FlaskForm):
             raw = (getattr(self, name).data or "").strip()
             if not raw:
                 continue
-            if raw.isdigit() and len(raw) < 12:
+            if plain_digits(raw) and len(raw) < 12:
                 values[name] = int(raw)
             else:
                 dropped.append(f"{name}: {raw[:20]!r} is not an id; ignored")

@@ -89,3 +89,19 @@ def test_cli_report_refuses_an_as_of_day_outside_the_window(runner):
     result = runner.invoke(args=["report", "shop", "--month", "1900-01", "--json"])
     assert result.exit_code != 0
     assert "earliest date shopapp takes" in result.output
+
+
+@pytest.mark.parametrize(("role", "url"), [
+    ("operator", "/rotor-types/?customer_id=³"),
+    ("operator", "/jobs?customer_id=³&machine_id=١٢"),
+    ("operator", "/jobs/new?lookup-customer_id=²&lookup-serial_number=S"),
+    ("owner", "/dashboard?operator_id=³"),
+])
+def test_unicode_digits_in_an_id_are_not_a_500(client, login_as, role, url) -> None:
+    """Found by tests/web/test_fuzz.py: "³".isdigit() is True but int("³") raises
+    (Python documentation, str.isdigit: superscripts are digits; int() takes decimals)."""
+    assert "³".isdigit()
+    with pytest.raises(ValueError):
+        int("³")
+    login_as(role)
+    assert client.get(url).status_code < 500

@@ -53,6 +53,9 @@ HOSTILE = [
     "abc", "<script>alert(1)</script>", "' OR 1=1 --", "\u202eevil", "x" * 5000,
     "a\x00b", "a\x01b", "line\nbreak", "true", "None", "[]", "{}",
 ]
+ODD_DATES = ["0001-01-01", "9999-12-31", "1900-01-01", "2026-02-30", "99999-01-01"]
+# A field that takes a date (its name says so) mostly gets an odd date.
+DATE_NAME = re.compile(r"(^|[_-])(on|date|start|end|from|to)$|date")
 HOSTILE_IDS = ["0", "2147483648", str(2**63), "9" * 30]
 
 
@@ -156,6 +159,8 @@ def fuzz_shop(app: Flask, db: Any, shop: Any, make_user: Any, connection: Connec
     ids = _seed(db, shop, make_user)
     clients: dict[str, ShopClient] = {}
     forms: dict[str, list[dict[str, Any]]] = {}
+    # Per page (rule), the names its own GET forms send: filters, periods, searches.
+    query_names: dict[str, set[str]] = {}
     # /healthz takes no input and answers 503 by design here (a test schema made without
     # Alembic has no revision); static files are Flask's.
     get_rules = [r for r in app.url_map.iter_rules() if "GET" in (r.methods or ())
@@ -180,6 +185,8 @@ def fuzz_shop(app: Flask, db: Any, shop: Any, make_user: Any, connection: Connec
             parser.feed(resp.get_data(as_text=True))
             for f in parser.forms:
                 target = f["action"] or path
+                if f["method"] == "get":
+                    query_names.setdefault(rule.rule, set()).update(f["fields"])
                 if f["method"] == "post" and "/logout" not in target:
                     found.setdefault((target, " ".join(sorted(f["fields"]))), f | {"url": target})
                 elif f["method"] == "get":
@@ -192,7 +199,7 @@ def fuzz_shop(app: Flask, db: Any, shop: Any, make_user: Any, connection: Connec
             and r.endpoint not in SESSION_ENDPOINTS
             and _url(r, ids, lambda _n, choices: choices[0]) not in drawn]
     yield _Shop(ids=ids, clients=clients, forms=forms, get_rules=get_rules, bare_posts=bare,
-                conn=connection)
+                conn=connection, query_names=query_names)
 
 
 FUZZ = settings(max_examples=FUZZ_EXAMPLES, deadline=None, derandomize=True,
@@ -219,56 +226,62 @@ def test_fuzz_discovers_the_create_forms(fuzz_shop) -> None:
         assert expected in posted, sorted(posted)
 
 
-# Every draw has a fixed shape (indexes taken modulo the lists found at run time), so
-# hypothesis replays an example exactly whatever the pages drew.
-picks = st.lists(st.integers(0, 10**6), min_size=3, max_size=3)
-spoils = st.lists(st.tuples(st.integers(0, 10**6), values), max_size=4)
+# Each example walks every form (or every page) once, as one role, with values drawn by
+# hypothesis and the fields and ids chosen by a replayable random: uniform over whatever
+# the pages drew at run time, and the same examples every run (derandomized).
+PER_WALK = settings(FUZZ, max_examples=max(3, FUZZ_EXAMPLES // 5))
+drawn_values = st.lists(values, min_size=4, max_size=4)
+randoms = st.randoms(use_true_random=False)
 
 
-def _at(items: list[Any], i: int) -> Any:
-    return items[i % len(items)]
+def _spoil(rnd: Any, names: list[str], vals: list[str], share: float) -> dict[str, str]:
+    """Field → hostile value for about ``share`` of the fields, chosen by ``rnd``."""
+    out = {}
+    for name in names:
+        if rnd.random() < share:
+            odd_date = DATE_NAME.search(name) and rnd.random() < 0.75
+            out[name] = rnd.choice(ODD_DATES) if odd_date else rnd.choice(vals)
+    return out
 
 
-@FUZZ
-@given(role=st.sampled_from(ROLES), which=st.integers(0, 10**6), ids=picks, spoil=spoils)
-def test_hostile_posts_never_fail_and_never_half_write(fuzz_shop, role, which, ids,
-                                                       spoil) -> None:
+@PER_WALK
+@given(role=st.sampled_from(ROLES), rnd=randoms, vals=drawn_values)
+def test_hostile_posts_never_fail_and_never_half_write(fuzz_shop, role, rnd, vals) -> None:
     client = fuzz_shop["clients"][role]
-    choices = [f for f in fuzz_shop["forms"][role] if f["method"] == "post"]
-    choices += [{"url": r.rule, "rule": r, "fields": {}} for r in fuzz_shop["bare_posts"]]
-    form = _at(choices, which)
-    arg_picks = iter(ids)
-    url = (_url(form["rule"], fuzz_shop["ids"], lambda _n, c: _at(c, next(arg_picks, 0)))
-           if "rule" in form else form["url"])
-    fields = {k: v for k, v in form["fields"].items() if k != "csrf_token"}
-    names = sorted(fields)
-    spoiled = {_at(names, i): v for i, v in spoil} if names else {}
-    # A fresh one-time token (a newly drawn form), unless the token itself is spoiled.
-    token = new_form_token()
-    fields.update({k: token for k in fields if k.endswith("form_token")})
-    fields.update(spoiled)
-    before = _row_counts(fuzz_shop["conn"])
-    resp = client.post(url, data=fields)
-    _check(resp, before, fuzz_shop["conn"], f"{role} POST {url} {spoiled!r:.300}")
+    targets = [f for f in fuzz_shop["forms"][role] if f["method"] == "post"]
+    targets += [{"url": r.rule, "rule": r, "fields": {}} for r in fuzz_shop["bare_posts"]]
+    for form in targets:
+        url = (_url(form["rule"], fuzz_shop["ids"], lambda _n, c: rnd.choice(c))
+               if "rule" in form else form["url"])
+        fields = {k: v for k, v in form["fields"].items() if k != "csrf_token"}
+        # A fresh one-time token (a newly drawn form), unless the token itself is spoiled.
+        token = new_form_token()
+        fields.update({k: token for k in fields if k.endswith("form_token")})
+        names = sorted(fields)
+        spoiled = _spoil(rnd, names, vals, share=0.25)
+        fields.update(spoiled)
+        before = _row_counts(fuzz_shop["conn"])
+        resp = client.post(url, data=fields)
+        _check(resp, before, fuzz_shop["conn"], f"{role} POST {url} {spoiled!r:.300}")
 
 
-@FUZZ
-@given(role=st.sampled_from(ROLES), which=st.integers(0, 10**6), ids=picks, spoil=spoils)
-def test_hostile_queries_and_ids_never_fail_and_never_write(fuzz_shop, role, which, ids,
-                                                           spoil) -> None:
+@PER_WALK
+@given(role=st.sampled_from(ROLES), rnd=randoms, vals=drawn_values)
+def test_hostile_queries_and_ids_never_fail_and_never_write(fuzz_shop, role, rnd, vals) -> None:
     client = fuzz_shop["clients"][role]
-    rule = _at(fuzz_shop["get_rules"], which)
-    arg_picks = iter(ids)
-    url = _url(rule, fuzz_shop["ids"], lambda _n, c: _at(c, next(arg_picks, 0)))
-    # The query names the pages' GET forms use, plus the list pages' paging.
-    names = sorted({"page", *(k for f in fuzz_shop["forms"][role] if f["method"] == "get"
-                              for k in f["fields"])})
-    query = {_at(names, i): v for i, v in spoil}
     before = _row_counts(fuzz_shop["conn"])
-    resp = client.get(url, query_string=query)
-    assert resp.status_code < 500, f"{role} GET {url} {query!r:.300} → {resp.status_code}"
-    after = _row_counts(fuzz_shop["conn"])
-    assert after == before, f"{role} GET {url} wrote rows"
+    for rule in fuzz_shop["get_rules"]:
+        url = _url(rule, fuzz_shop["ids"], lambda _n, c: rnd.choice(c))
+        # The names the page's own GET forms send, plus paging; a page without such a form
+        # gets every name any page's GET forms use.
+        names = sorted({"page", *fuzz_shop["query_names"].get(rule.rule, set())})
+        if names == ["page"]:
+            names = sorted({"page", *(k for f in fuzz_shop["forms"][role]
+                                      if f["method"] == "get" for k in f["fields"])})
+        query = _spoil(rnd, names, vals, share=0.5)
+        resp = client.get(url, query_string=query)
+        assert resp.status_code < 500, f"{role} GET {url} {query!r:.300} → {resp.status_code}"
+    assert _row_counts(fuzz_shop["conn"]) == before, f"{role}: a GET wrote rows"
 
 
 @FUZZ
