@@ -131,8 +131,9 @@ def _book_jobs(url: str, client: Client, count: int) -> list[int]:
     speed = max(m.min_speed_rpm, min(rt.service_speed_rpm, m.max_speed_rpm) * 0.5)
     ids = []
     for i in range(count):
-        client.get("/jobs/new")
+        _, form = client.get("/jobs/new")
         status, _ = client.post("/jobs/new", {
+            "form_token": _hidden(form, "form_token"),
             "customer_id": str(rt.customer_id),
             "serial_number": f"BENCH-{i}-{secrets.token_hex(2)}",
             "rotor_type_id": str(rt.id), "machine_id": str(m.id),
@@ -144,6 +145,12 @@ def _book_jobs(url: str, client: Client, count: int) -> list[int]:
         _, page = client.get("/jobs")
         ids.append(max(int(x) for x in re.findall(r'href="/jobs/(\d+)"', page)))
     return ids
+
+
+def _hidden(page: str, name: str) -> str:
+    """The value of a hidden field the page drew (a create form's one-time token)."""
+    m = re.search(rf'name="{re.escape(name)}"[^>]*value="([^"]*)"', page)
+    return m.group(1) if m else ""
 
 
 def _mix(client: Client, job_id: int, owner: Client, step: int) -> tuple[str, int]:
@@ -160,6 +167,7 @@ def _mix(client: Client, job_id: int, owner: Client, step: int) -> tuple[str, in
     speed = re.search(r'name="run-speed_rpm"[^>]*value="([^"]*)"', page)
     unit = re.search(r'name="run-unit".*?<option[^>]*value="([^"]+)"[^>]*selected', page, re.S)
     status, _ = client.post(f"/jobs/{job_id}/runs", {
+        "run-form_token": _hidden(page, "run-form_token"),
         "run-purpose": "check", "run-speed_rpm": speed.group(1) if speed else "600",
         "run-unit": unit.group(1) if unit else "um",
         "run-amplitude_1": "1.5", "run-angle_1_deg": "10",

@@ -28,6 +28,7 @@ from sqlalchemy.orm import Session
 
 from shopapp import create_app
 from shopapp.core.database import make_engine
+from shopapp.core.forms import new_form_token
 from shopapp.models import Base
 from tests import factories
 
@@ -99,8 +100,20 @@ def db(app: Flask) -> Iterator[Session]:
     sess.close()
 
 
+def with_form_token(data: dict[str, Any]) -> dict[str, Any]:
+    """``data`` plus a fresh one-time form token, as a form freshly drawn by the page would
+    carry (``form_token``, and ``<prefix>-form_token`` for each prefix of the fields).
+    Data that already has a token (a test of double submits) is left as it is."""
+    if any(str(k).endswith("form_token") for k in data):
+        return data
+    token = new_form_token()
+    prefixes = {str(k).split("-", 1)[0] for k in data if "-" in str(k)}
+    return {**data, "form_token": token, **{f"{p}-form_token": token for p in prefixes}}
+
+
 class ShopClient(FlaskClient):
-    """A test client that sends the CSRF token a browser would, unless told not to."""
+    """A test client that sends the CSRF token and the one-time form token a browser
+    would, unless told not to (``csrf=False``, ``form_token=False``)."""
 
     csrf_value: str | None = None
 
@@ -110,12 +123,13 @@ class ShopClient(FlaskClient):
         self.csrf_value = match.group(1) if match else None
         return self.csrf_value
 
-    def post(self, *args: Any, csrf: bool = True, **kwargs: Any):  # type: ignore[override]
+    def post(self, *args: Any, csrf: bool = True, form_token: bool = True,  # type: ignore[override]
+             **kwargs: Any):
         if csrf and "json" not in kwargs:
             data = dict(kwargs.pop("data", None) or {})
             if "csrf_token" not in data:
                 data["csrf_token"] = self.csrf_value or self.refresh_csrf("/login")
-            kwargs["data"] = data
+            kwargs["data"] = with_form_token(data) if form_token else data
         return super().post(*args, **kwargs)
 
 

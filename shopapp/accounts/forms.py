@@ -7,7 +7,7 @@ from wtforms import PasswordField, StringField, TextAreaField
 from wtforms.validators import DataRequired, EqualTo, InputRequired, Length
 
 from shopapp.accounts.users import MIN_PASSWORD_LENGTH
-from shopapp.core.forms import ChoiceField, NumberField, WholeNumberField
+from shopapp.core.forms import ChoiceField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import ANGLE_SENSES, ROLES, UNBALANCE_DISPLAY_UNITS
 
 _PASSWORD = [
@@ -27,7 +27,7 @@ class LoginForm(FlaskForm):
     password = PasswordField("Password", validators=[DataRequired(), Length(max=200)])
 
 
-class AddUserForm(FlaskForm):
+class AddUserForm(OnceForm):
     username = StringField(
         "Username", validators=[InputRequired("Give a username."), Length(max=64)]
     )

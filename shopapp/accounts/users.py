@@ -9,6 +9,7 @@ from sqlalchemy.orm import Session
 from werkzeug.security import check_password_hash, generate_password_hash
 
 from shopapp.core import audit
+from shopapp.core.checks import plain_digits
 from shopapp.core.errors import NotFound, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.models import ROLES, User, utcnow
@@ -93,7 +94,7 @@ def authenticate(session: Session, username: str, password: str) -> User | None:
 def load_active_user(session: Session, user_id: str) -> User | None:
     """The active user whose id is stored in the log-in session, or None (unknown id,
     junk, or a user deactivated since)."""
-    if not user_id.isdigit() or len(user_id) > 10:
+    if not plain_digits(user_id) or len(user_id) > 10:
         return None
     user = session.get(User, int(user_id))
     return user if user is not None and user.active else None

@@ -389,7 +389,12 @@ def unbalance_reduction_ratio(
     a = np.abs(after).astype(float)
     if np.any(b <= 0.0):
         raise BalancingInputError("before_gmm", "every plane needs a non-zero unbalance")
-    urr = (1.0 - a / b) * 100.0
+    with np.errstate(over="ignore"):
+        urr = (1.0 - a / b) * 100.0
+    if not np.all(np.isfinite(urr)):
+        # A "before" so small beside "after" that the ratio overflows (e.g. 1e-310 g·mm).
+        raise BalancingInputError("before_gmm", "is too small beside the unbalance left "
+                                  "after the step: the ratio is not a finite number")
     claim = None
     passed = None
     if claimed_urr_percent is not None:

@@ -5,12 +5,14 @@ from __future__ import annotations
 import datetime as dt
 
 from flask_wtf import FlaskForm
-from wtforms import DateField, SelectField, StringField, TextAreaField
+from wtforms import SelectField, StringField, TextAreaField
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import DataRequired, Length, Optional, ValidationError
 
 from shopapp.certificates.issue import MAX_REASON_LENGTH, MIN_REASON_LENGTH
 from shopapp.certificates.register import RegisterFilter
+from shopapp.core.checks import QUERY_AHEAD_DAYS
+from shopapp.core.forms import DayField
 
 
 class IssueForm(FlaskForm):
@@ -40,14 +42,15 @@ class RegisterSearchForm(_GetForm):
     customer = StringField("Customer", validators=[Optional(), Length(max=100)])
     serial = StringField("Serial", validators=[Optional(), Length(max=100)])
     rotor_type = StringField("Rotor type", validators=[Optional(), Length(max=100)])
-    date_from = DateField("Issued from", validators=[Optional()])
-    date_to = DateField("to", validators=[Optional()])
+    date_from = DayField("Issued from", validators=[Optional()],
+                         ahead_days=QUERY_AHEAD_DAYS)
+    date_to = DayField("to", validators=[Optional()], ahead_days=QUERY_AHEAD_DAYS)
     state = SelectField("State", choices=[SelectChoice("", "any"),
                                           SelectChoice("issued", "valid (issued)"),
                                           SelectChoice("void", "void")],
                         validators=[Optional()])
 
-    def validate_date_to(self, field: DateField) -> None:
+    def validate_date_to(self, field: DayField) -> None:
         if field.data and self.date_from.data and field.data < self.date_from.data:
             raise ValidationError("must not be before the from date")
 
@@ -64,10 +67,12 @@ class RegisterSearchForm(_GetForm):
 
 
 class ZipForm(_GetForm):
-    date_from = DateField("Issued from", validators=[DataRequired(message="is required")])
-    date_to = DateField("to", validators=[DataRequired(message="is required")])
+    date_from = DayField("Issued from", validators=[DataRequired(message="is required")],
+                         ahead_days=QUERY_AHEAD_DAYS)
+    date_to = DayField("to", validators=[DataRequired(message="is required")],
+                       ahead_days=QUERY_AHEAD_DAYS)
 
-    def validate_date_to(self, field: DateField) -> None:
+    def validate_date_to(self, field: DayField) -> None:
         if field.data and self.date_from.data and field.data < self.date_from.data:
             raise ValidationError("must not be before the from date")
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import functools
 import secrets
 from collections.abc import Callable
@@ -12,10 +13,35 @@ from flask import Flask, current_app, has_app_context
 from sqlalchemy.exc import IntegrityError, SQLAlchemyError
 
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.core.checks import day_refusal
 from shopapp.core.config import ConfigError
 from shopapp.core.errors import ServiceError
 
 F = TypeVar("F", bound=Callable[..., Any])
+
+
+class Day(click.ParamType):
+    """A ``YYYY-MM-DD`` option inside the shop's date window
+    (:func:`shopapp.core.checks.day_refusal`)."""
+
+    name = "YYYY-MM-DD"
+
+    def __init__(self, ahead_days: int = 0) -> None:
+        self.ahead_days = ahead_days
+
+    def convert(self, value: Any, param: click.Parameter | None,
+                ctx: click.Context | None) -> dt.date:
+        if isinstance(value, dt.date):
+            day = value
+        else:
+            try:
+                day = dt.date.fromisoformat(str(value).strip())
+            except ValueError:
+                self.fail(f"{str(value)[:40]!r} is not a date; write it as YYYY-MM-DD", param, ctx)
+        refusal = day_refusal(day, ahead_days=self.ahead_days)
+        if refusal is not None:
+            self.fail(refusal, param, ctx)
+        return day
 
 
 def cli_app() -> Flask:

@@ -18,7 +18,7 @@ import click
 from flask import current_app
 from flask.cli import with_appcontext
 
-from shopapp.cli.common import app_db, one_line_errors
+from shopapp.cli.common import Day, app_db, one_line_errors
 from shopapp.demo import bulk as demo_bulk
 from shopapp.demo import loader as demo
 from shopapp.demo.status import write_status
@@ -107,7 +107,7 @@ def demo_group() -> None:
               help="Same seed, same shop and history (passwords are new each time).")
 @click.option("--years", type=click.FloatRange(min=0.05, max=10.0), default=2.0,
               show_default=True, help="Length of the history, ending today (or --end).")
-@click.option("--end", "end_date", type=click.DateTime(formats=["%Y-%m-%d"]), default=None,
+@click.option("--end", "end_date", type=Day(), default=None,
               help="Last day of the history, YYYY-MM-DD (default today).")
 @click.option("--jobs-per-year", type=click.IntRange(min=1, max=100_000), default=None,
               help=f"New jobs per year (default {demo.DEFAULT_JOBS_PER_YEAR}).")
@@ -117,11 +117,11 @@ def demo_group() -> None:
               help="Add the demo shop beside existing data (distinct names; nothing deleted).")
 @with_appcontext
 @one_line_errors
-def load(seed: int, years: float, end_date: dt.datetime | None, jobs_per_year: int | None,
+def load(seed: int, years: float, end_date: dt.date | None, jobs_per_year: int | None,
          no_certificates: bool, force: bool) -> None:
     bars = _Bars()
     command = (f"shopapp demo load --seed {seed} --years {years:g}"
-               + (f" --end {end_date.date().isoformat()}" if end_date else "")
+               + (f" --end {end_date.isoformat()}" if end_date else "")
                + (f" --jobs-per-year {jobs_per_year}" if jobs_per_year else "")
                + (" --no-certificates" if no_certificates else "") + (" --force" if force else ""))
     with app_db().session() as sess:
@@ -133,7 +133,7 @@ def load(seed: int, years: float, end_date: dt.datetime | None, jobs_per_year: i
         with app_db().session() as sess:
             logins = demo.load_demo(
                 sess, seed=seed, years=years, progress=bars.message, steps=bars,
-                end_date=end_date.date() if end_date else None, jobs_per_year=jobs_per_year,
+                end_date=end_date, jobs_per_year=jobs_per_year,
                 force=force, certificates=not no_certificates,
             )
     except BaseException as exc:

@@ -17,7 +17,8 @@ import click
 from flask import current_app
 from flask.cli import with_appcontext
 
-from shopapp.cli.common import app_db, one_line_errors
+from shopapp.cli.common import Day, app_db, one_line_errors
+from shopapp.core.checks import QUERY_AHEAD_DAYS, day_refusal
 from shopapp.measures import monthly
 from shopapp.measures import services as measures
 from shopapp.measures.costs import cost_settings
@@ -29,18 +30,21 @@ from shopapp.measures.periods import parse_month
 @click.option("--output", "-o", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="PDF file to write.")
 @click.option("--json", "as_json", is_flag=True, help="Print the figures as JSON.")
-@click.option("--as-of", "as_of", type=click.DateTime(formats=["%Y-%m-%d"]), default=None,
+@click.option("--as-of", "as_of", type=Day(ahead_days=QUERY_AHEAD_DAYS), default=None,
               help="Count work in progress and machine verification as of this day "
                    "(YYYY-MM-DD; default today).")
 @with_appcontext
 @one_line_errors
 def shop_command(month: str, output: Path | None, as_json: bool,
-                 as_of: dt.datetime | None) -> None:
+                 as_of: dt.date | None) -> None:
     """The month's shop measures as a two-page PDF (--output) and/or JSON (--json)."""
     if output is None and not as_json:
         raise click.UsageError("give --output FILE.pdf, --json, or both")
     period = parse_month(month)
-    today = as_of.date() if as_of else dt.date.today()
+    refusal = day_refusal(period.start, ahead_days=QUERY_AHEAD_DAYS)
+    if refusal is not None:
+        raise click.BadParameter(f"the month starts on {refusal}", param_hint="--month")
+    today = as_of or dt.date.today()
     with app_db().session() as sess:
         report = measures.shop_report(sess, period, by=None, today=today,
                                       costs=cost_settings(current_app.config))

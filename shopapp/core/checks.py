@@ -14,6 +14,11 @@ from typing import Any
 from shopapp.core.errors import ValidationFailed
 
 MAX_TEXT = 5000
+# Largest size of a number typed or computed (ours): the heaviest rotor at the largest
+# radius is about 10^9 g·mm, so 10^12 is never a real figure, and it stays far from float
+# overflow (a sum or a square of such figures still fits a double and a JSON number).
+MAX_DERIVED = 1e12
+TOO_LARGE = "is beyond any real figure (more than a million million)"
 
 
 class Errors(dict[str, str]):
@@ -52,6 +57,9 @@ def number(e: Errors, field: str, value: Any, *, required: bool = True,
         e.add(field, f"must not be below {minimum:g}{suffix}, got {out:g}")
     elif maximum is not None and out > maximum:
         e.add(field, f"must be at most {maximum:g}{suffix}, got {out:g}")
+    elif abs(out) > MAX_DERIVED:
+        # No shop quantity comes near it; products of such inputs overflow to infinity.
+        e.add(field, f"{TOO_LARGE}; check for a typing error")
     else:
         return out
     return None
@@ -69,13 +77,55 @@ def text(e: Errors, field: str, value: Any, *, max_len: int = MAX_TEXT,
     return text
 
 
-def date(e: Errors, field: str, value: Any, *, not_after: dt.date | None = None
-          ) -> dt.date | None:
+# The date window (ours): no rotor of a shop using shopapp was received, tested or
+# certified before 1990, and a day may lie ahead of today only where the future makes
+# sense. Every date input (form, query string, CLI option, use-case) is held to it here.
+EARLIEST_DAY = dt.date(1990, 1, 1)
+QUERY_AHEAD_DAYS = 366  # a list or dashboard may look at a period reaching into next year
+PROMISE_AHEAD_DAYS = 3 * 366  # a promised date: about three years ahead at most
+
+
+def utc_today() -> dt.date:
+    """Today's date in UTC: the services' "today" (models.base.utcnow's date)."""
+    return dt.datetime.now(dt.UTC).date()
+
+
+def day_refusal(value: dt.date, *, ahead_days: int = 0, today: dt.date | None = None
+                ) -> str | None:
+    """Why ``value`` lies outside the date window, or None when it is inside.
+
+    The window is :data:`EARLIEST_DAY` .. ``today + ahead_days`` (0: nothing after today).
+    """
+    if value < EARLIEST_DAY:
+        return (f"{value.isoformat()} is before {EARLIEST_DAY.isoformat()}, the earliest "
+                "date shopapp takes")
+    latest = (today or utc_today()) + dt.timedelta(days=ahead_days)
+    if value > latest:
+        if ahead_days == 0:
+            return f"{value.isoformat()} is in the future (today is {latest.isoformat()})"
+        return f"{value.isoformat()} is too far ahead: at most {latest.isoformat()}"
+    return None
+
+
+def date(e: Errors, field: str, value: Any, *, not_after: dt.date | None = None,
+         ahead_days: int = 0, today: dt.date | None = None, required: bool = True
+         ) -> dt.date | None:
+    """``value`` as a date inside the date window (:func:`day_refusal`), or None.
+
+    The latest day is ``not_after`` when given, else ``today + ahead_days`` (``today``
+    defaults to :func:`utc_today`).
+    """
+    if value is None and not required:
+        return None
     if not isinstance(value, dt.date) or isinstance(value, dt.datetime):
         e.add(field, "is required (a date)")
         return None
-    if not_after is not None and value > not_after:
-        e.add(field, f"{value.isoformat()} is in the future")
+    if not_after is not None:
+        refusal = day_refusal(value, today=not_after)
+    else:
+        refusal = day_refusal(value, ahead_days=ahead_days, today=today)
+    if refusal is not None:
+        e.add(field, refusal)
         return None
     return value
 
@@ -111,3 +161,50 @@ def choice(e: Errors, field: str, value: Any, allowed: tuple[str, ...], *,
         e.add(field, f"{str(value)[:40]!r} is not allowed; choose one of {', '.join(allowed)}")
         return None
     return str(value)
+
+
+def _bad_number(value: Any, maximum: float) -> str | None:
+    """Why ``value`` (a number, or a list/dict of them as in a JSON column) cannot be stored."""
+    if isinstance(value, bool) or value is None or isinstance(value, str | int):
+        return None
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return "is not a finite number"
+        if abs(value) > maximum:
+            return TOO_LARGE
+        return None
+    items = value.values() if isinstance(value, dict) else value
+    if isinstance(items, list | tuple) or isinstance(value, dict):
+        for item in items:
+            why = _bad_number(item, maximum)
+            if why is not None:
+                return why
+    return None
+
+
+def derived(values: dict[str, Any], *, maximum: float = MAX_DERIVED) -> None:
+    """Refuse to store computed figures that are NaN, infinite or absurdly large.
+
+    ``values``: field → float, None, or a list/dict of them (a JSON column). Raises
+    :class:`ValidationFailed` naming every bad field: such a figure comes from an input
+    far out of range (a typing error), and storing it would break later sums, the
+    PostgreSQL JSON type and every page that shows it.
+    """
+    e = Errors()
+    for field, value in values.items():
+        why = _bad_number(value, maximum)
+        if why is not None:
+            e.add(field, f"the inputs give a {field.replace('_', ' ')} that {why}; "
+                  "check the readings and masses for a value typed far too large")
+    e.raise_if_any()
+
+
+def derived_row(row: Any, *, maximum: float = MAX_DERIVED) -> None:
+    """:func:`derived` over every column of an ORM row about to be stored."""
+    derived({c.key: getattr(row, c.key, None) for c in row.__table__.columns}, maximum=maximum)
+
+
+def plain_digits(text: str) -> bool:
+    """Only the ASCII digits 0-9. ``str.isdigit()`` is also true for "³" or "١", which
+    ``int()`` refuses (a 500 found by tests/web/test_fuzz.py)."""
+    return text.isascii() and text.isdigit()

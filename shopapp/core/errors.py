@@ -36,3 +36,13 @@ class TransitionRefused(ServiceError):
     """A job (or certificate) cannot move to the asked state; says why."""
 
     status = 409
+
+
+class AlreadySaved(Exception):
+    """A create form posted again with a one-time token already spent (back button, double
+    click). Not a :class:`ServiceError`: routes must not catch it as a refusal; the app's
+    handler rolls back, says so and redirects to what the first post saved (``target``)."""
+
+    def __init__(self, target: str) -> None:
+        super().__init__(target)
+        self.target = target

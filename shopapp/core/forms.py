@@ -7,13 +7,17 @@ not, so :class:`NumberField` refuses them with a message a person understands.
 
 from __future__ import annotations
 
+import datetime as dt
 import math
+import secrets
 from typing import Any, TypeVar
 
 from flask_wtf import FlaskForm
-from wtforms import Field, FloatField, IntegerField, SelectField
+from wtforms import DateField, Field, FloatField, HiddenField, IntegerField, SelectField
 from wtforms.fields.choices import SelectChoice
+from wtforms.validators import ValidationError
 
+from shopapp.core.checks import day_refusal
 from shopapp.core.errors import ValidationFailed
 from shopapp.models import Base
 
@@ -69,6 +73,22 @@ class WholeNumberField(IntegerField):
         if len(digits) > 9:
             raise ValueError("Too large: at most 9 digits.")
         self.data = int(raw)
+
+
+class DayField(DateField):
+    """A date (YYYY-MM-DD) inside the shop's date window (:func:`shopapp.core.checks.day_refusal`):
+    not before 1990, not after today unless ``ahead_days`` allows it."""
+
+    def __init__(self, *args: Any, ahead_days: int = 0, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        self.ahead_days = ahead_days
+
+    def pre_validate(self, form: Any) -> None:
+        super().pre_validate(form)
+        if isinstance(self.data, dt.date):
+            refusal = day_refusal(self.data, ahead_days=self.ahead_days)
+            if refusal is not None:
+                raise ValidationError(refusal)
 
 
 def _select_choices(value: Any) -> Any:
@@ -131,6 +151,31 @@ def apply_errors(form: FlaskForm, exc: ValidationFailed,
         else:
             loose.append(f"{name.replace('_', ' ')}: {message}")
     return loose
+
+
+def new_form_token() -> str:
+    """A fresh one-time token for a create form (32 URL-safe characters)."""
+    return secrets.token_urlsafe(24)
+
+
+class FormTokenField(HiddenField):
+    """The one-time token: drawn fresh with the form; a post without one has none
+    (WTForms would otherwise fall back to a fresh default and let it through)."""
+
+    def process_formdata(self, valuelist: list[Any]) -> None:
+        self.data = str(valuelist[0]) if valuelist else None
+
+
+class OnceForm(FlaskForm):
+    """A create form: it carries a one-time token, issued when the form is drawn.
+
+    The token is spent in the transaction that saves what the form creates
+    (:func:`shopapp.core.web.once`); the same form posted again (back button, double
+    click) saves nothing and leads to what the first post saved. ``hidden_tag()``
+    draws it with the CSRF token.
+    """
+
+    form_token = FormTokenField(default=new_form_token)
 
 
 class ConfirmForm(FlaskForm):

@@ -9,6 +9,7 @@ request-aware code below the features (docs/architecture.md).
 from __future__ import annotations
 
 import functools
+import re
 from collections.abc import Callable, Sequence
 from typing import Any, TypeVar
 from urllib.parse import urlsplit
@@ -17,14 +18,15 @@ from flask import abort, current_app, flash, redirect, render_template, request
 from flask_login import current_user, login_required
 from flask_wtf import FlaskForm
 from sqlalchemy import Select
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
-from shopapp.core.errors import ValidationFailed
+from shopapp.core.errors import AlreadySaved, ValidationFailed
 from shopapp.core.extensions import db_session
-from shopapp.core.forms import apply_errors
+from shopapp.core.forms import OnceForm, apply_errors
 from shopapp.core.pagination import Page, page_number, paginate
 from shopapp.core.permissions import can
-from shopapp.models import Base, User
+from shopapp.models import Base, SubmissionToken, User
 
 F = TypeVar("F", bound=Callable[..., Any])
 M = TypeVar("M", bound=Base)
@@ -126,6 +128,62 @@ def form_page(template: str, **context: Any) -> Callable[[int, Sequence[str]], A
     return render
 
 
+# What new_form_token issues (token_urlsafe(24) is 32 characters); the column holds 80.
+_TOKEN_RE = re.compile(r"[A-Za-z0-9_-]{16,80}")
+
+ALREADY_SAVED_MESSAGE = "This form was already saved; nothing was saved twice."
+
+
+def once(session: Session, form: OnceForm,
+         target: Callable[[SubmissionToken], str]) -> Callable[[Any], None]:
+    """Guard a create form against being saved twice; call before saving it.
+
+    A token already spent raises :class:`~shopapp.core.errors.AlreadySaved` with
+    ``target(spent_row)``, the page of what the first post saved (the app flashes
+    :data:`ALREADY_SAVED_MESSAGE` and redirects there). A missing or malformed
+    token is a 400: the form did not come from one of our pages. Returns
+    ``spend(result)``, to call after the use-case and before the commit: it stores
+    the token with what was created, in the same transaction; a twin posted at
+    the same moment that got past this check loses on the token's primary key and
+    is rolled back whole (exactly one write).
+    """
+    raw = form.form_token.data
+    token = raw if isinstance(raw, str) else ""
+    if not _TOKEN_RE.fullmatch(token):
+        abort(400, description="The form has no valid one-time token (form_token); reload the "
+                               "page and send it again. Nothing was saved.")
+    spent = session.get(SubmissionToken, token)
+    if spent is not None:
+        raise AlreadySaved(target(spent))
+
+    def spend(result: Any) -> None:
+        entity, entity_id = (request.endpoint or "form")[:40], 0
+        row_id = getattr(result, "id", None)
+        if isinstance(result, Base) and isinstance(row_id, int):
+            entity, entity_id = type(result).__tablename__, row_id
+        try:
+            with session.begin_nested():
+                session.add(SubmissionToken(token=token, user_id=acting_user().id,
+                                            entity=entity, entity_id=entity_id))
+        except IntegrityError:
+            session.rollback()
+            twin = session.get(SubmissionToken, token)
+            if twin is None:  # not the token's key after all: a real error
+                raise
+            raise AlreadySaved(target(twin)) from None
+
+    return spend
+
+
+def saved_row(session: Session, spent: SubmissionToken) -> Base | None:
+    """The row a spent token created (by its table name and id), if it still exists."""
+    for mapper in Base.registry.mappers:
+        cls = mapper.class_
+        if getattr(cls, "__tablename__", None) == spent.entity:
+            return session.get(cls, spent.entity_id)
+    return None
+
+
 def submit_form(
     form: FlaskForm,
     render: Callable[[int, Sequence[str]], Any],
@@ -139,15 +197,27 @@ def submit_form(
     ``render(status, loose)`` draws the page (``loose``: messages with no field);
     a use-case's refusal rolls back and draws the form again with its messages
     beside the fields (:func:`shopapp.core.forms.apply_errors`). On success
-    ``done(result)`` gives the flash message and where to go.
+    ``done(result)`` gives the flash message and where to go. A :class:`OnceForm`
+    is saved once only (:func:`once`); posted again it leads to ``done``'s page of
+    the first result.
     """
     if request.method == "GET":
         return render(200, ())
+    session = db_session()
+    spend: Callable[[Any], None] | None = None
+    if isinstance(form, OnceForm):
+        def again(spent: SubmissionToken) -> str:
+            row = saved_row(session, spent)
+            # Gone since (deleted, rolled back by hand): the form's own page, drawn fresh.
+            return done(row)[1] if row is not None else request.path
+
+        spend = once(session, form, again)
     if not form.validate_on_submit():
         return render(422, ())
-    session = db_session()
     try:
         result = save(session)
+        if spend is not None:
+            spend(result)
         session.commit()
     except ValidationFailed as exc:
         session.rollback()

@@ -28,6 +28,7 @@ from shopapp.balancing.arbor import subtract_arbor_error
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
+from shopapp.core.checks import derived_row
 from shopapp.core.checks import text as _text
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
@@ -231,6 +232,7 @@ def record_error_estimate(
         notes=note,
         performed_by_id=by.id,
     )
+    derived_row(row)
     session.add(row)
     session.flush()
     audit.record(session, by=by, entity="balance_error_estimate", entity_id=row.id,

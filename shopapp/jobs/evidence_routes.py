@@ -22,7 +22,7 @@ from shopapp.core.extensions import db_session
 from shopapp.core.forms import apply_errors
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
-from shopapp.core.web import acting_user, get_or_404, requires
+from shopapp.core.web import acting_user, get_or_404, once, requires
 from shopapp.jobs import evidence, residual_tests
 from shopapp.models import RESIDUAL_TEST_POSITIONS, Arbor, ArborErrorMeasurement, Job
 from shopapp.traceability import services as tr
@@ -61,8 +61,12 @@ def _internal(disp: ShopDisplay, typed: Any) -> Any:
 # --------------------------------------------------------------------------- job steps
 
 
+def _back_url(job: Job) -> str:
+    return url_for("jobs.detail", job_id=job.id) + "#traceability"
+
+
 def _back(job: Job):  # type: ignore[no-untyped-def]
-    return redirect(url_for("jobs.detail", job_id=job.id) + "#traceability")
+    return redirect(_back_url(job))
 
 
 def _refused(job: Job, exc: ServiceError):  # type: ignore[no-untyped-def]
@@ -146,8 +150,10 @@ def residual_test(job_id: int):  # type: ignore[no-untyped-def]
         mapping.update({f"angle_{k}": e for k, e in enumerate(form.ang.entries, 1)})
         try:
             if form.save.data:
+                spend = once(sess, form, lambda _spent: _back_url(job))
                 row = residual_tests.record_residual_test(sess, job, by=acting_user(),
                                                           unit=form.unit.data, **kw)
+                spend(row)
                 sess.commit()
                 flash(f"Residual test of plane {plane} saved: "
                       + ("valid." if row.valid else row.invalid_reason),
@@ -201,6 +207,7 @@ def job_index_runs(job_id: int):  # type: ignore[no-untyped-def]
         return _back(job)
     a = get_or_404(sess, Arbor, job.arbor_id)
     planes = job.rotor.rotor_type.planes
+    spend = once(sess, form, lambda _spent: _back_url(job))
     if not form.validate_on_submit():
         flash("Index runs: " + "; ".join(f"{k}: {' '.join(v) if isinstance(v, list) else v}"
                                          for k, v in form.errors.items()), "error")
@@ -212,6 +219,7 @@ def job_index_runs(job_id: int):  # type: ignore[no-untyped-def]
                               index_deg=form.index_deg.data, second_frame=form.second_frame.data,
                               rotor_mass_kg=_blank(form.rotor_mass_kg.data), job=job,
                               notes=form.notes.data or "")
+        spend(None)
         sess.commit()
         flash(f"Arbor error of {a.name} recorded from the index runs.", "success")
     except ServiceError as exc:
@@ -255,7 +263,8 @@ def repeat_runs(job_id: int):  # type: ignore[no-untyped-def]
     loose: list[str] = []
     status = 200
     systematic, notes = evidence.systematic_errors(sess, job)
-    if posted and form.validate_on_submit():
+    spend = once(sess, form, lambda _spent: _back_url(job)) if posted else None
+    if spend is not None and form.validate_on_submit():
         rows = [r for r in form.runs.entries
                 if any(_blank(getattr(r.form, f).data) is not None for f in ("amp_1", "ang_1"))]
         runs = []
@@ -269,6 +278,7 @@ def repeat_runs(job_id: int):  # type: ignore[no-untyped-def]
                 sess, job, by=acting_user(), runs=runs,
                 key_compensation_applied=form.key_compensation_applied.data,
                 notes=form.notes.data or "")
+            spend(None)
             sess.commit()
             flash("Repeated runs recorded: ΔU per plane computed.", "success")
             return _back(job)

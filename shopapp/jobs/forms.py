@@ -12,7 +12,6 @@ from typing import Any
 from flask_wtf import FlaskForm
 from wtforms import (
     BooleanField,
-    DateField,
     FormField,
     HiddenField,
     StringField,
@@ -23,8 +22,9 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import forms
+from shopapp.core.checks import PROMISE_AHEAD_DAYS, plain_digits
 from shopapp.core.display import plain
-from shopapp.core.forms import NumberField, WholeNumberField
+from shopapp.core.forms import DayField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import CORRECTION_METHODS, READING_UNITS, ROTOR_KINDS, RUN_PURPOSES
 
 _NUMBER = "Required: type a number."
@@ -109,7 +109,7 @@ class OneOffForm(FlaskForm):
         return out
 
 
-class IntakeForm(FlaskForm):
+class IntakeForm(OnceForm):
     customer_id = ChoiceField("Customer", coerce=int, choices=[])
     new_customer_name = StringField("New customer: name", validators=[Length(max=200)])
     new_customer_contact = StringField("New customer: contact", validators=[Length(max=200)])
@@ -132,8 +132,8 @@ class IntakeForm(FlaskForm):
     balancing_speed_rpm = NumberField("Balancing speed (rpm)",
                                       validators=[InputRequired(_NUMBER)])
     machine_id = ChoiceField("Machine", coerce=int, choices=[])
-    received_on = DateField("Received on", validators=[Optional()])
-    promised_on = DateField("Promised for", validators=[Optional()])
+    received_on = DayField("Received on", validators=[Optional()])
+    promised_on = DayField("Promised for", validators=[Optional()], ahead_days=PROMISE_AHEAD_DAYS)
     customer_order_ref = StringField("Customer order reference", validators=[Length(max=100)])
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
 
@@ -148,7 +148,7 @@ class LookupForm(FlaskForm):
     serial_number = StringField("Serial number", validators=[Length(max=100)])
 
 
-class RunForm(FlaskForm):
+class RunForm(OnceForm):
     purpose = ChoiceField("Purpose",
                           choices=options([(p, PURPOSE_LABELS[p]) for p in RUN_PURPOSES]),
                           default="initial")
@@ -178,7 +178,7 @@ class RunForm(FlaskForm):
                                                       self.trial_angle_deg))
 
 
-class CorrectionForm(FlaskForm):
+class CorrectionForm(OnceForm):
     run_id = HiddenField()
     action = ChoiceField("Action", choices=options([("add", "added"), ("remove", "removed")]),
                          default="add")
@@ -197,11 +197,11 @@ class CorrectionForm(FlaskForm):
 class StateForm(FlaskForm):
     action = HiddenField()
     reason = TextAreaField("Reason", validators=[Length(max=5000)])
-    dispatched_on = DateField("Dispatched on", validators=[Optional()])
+    dispatched_on = DayField("Dispatched on", validators=[Optional()])
 
 
-class ReturnForm(FlaskForm):
-    received_on = DateField("Received back on", validators=[Optional()])
+class ReturnForm(OnceForm):
+    received_on = DayField("Received back on", validators=[Optional()])
     notes = TextAreaField("What the customer reports", validators=[Length(max=5000)])
 
 
@@ -215,7 +215,7 @@ def parse_split(text: str | None) -> list[dict[str, Any]] | None:
         if not chunk:
             continue
         pos, sep, mass = chunk.partition(":")
-        if not sep or not pos.strip().isdigit():
+        if not sep or not plain_digits(pos.strip()):
             raise ValueError(f"{chunk[:30]!r} is not position:grams, e.g. 3:4.2")
         try:
             value = float(mass)

@@ -19,7 +19,9 @@ from sqlalchemy.orm import Session
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import audit, locks, numbering
+from shopapp.core.checks import PROMISE_AHEAD_DAYS
 from shopapp.core.checks import Errors as _Errors
+from shopapp.core.checks import date as _date
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import text as _text
 from shopapp.core.display import plain, quantity
@@ -195,8 +197,10 @@ def book_in(
                unit="rpm")
     svc = _num(e, "service_speed_rpm", service_speed_rpm, required=False, above=0,
                maximum=MAX_SPEED_RPM, unit="rpm")
-    received = received_on or today()
-    if promised_on is not None and promised_on < received:
+    received = _date(e, "received_on", received_on or today(), not_after=today())
+    promised_on = _date(e, "promised_on", promised_on, ahead_days=PROMISE_AHEAD_DAYS,
+                        today=today(), required=False)
+    if promised_on is not None and received is not None and promised_on < received:
         e.add("promised_on", f"{promised_on.isoformat()} is before the job is received "
               f"({received.isoformat()})")
     ref = _text(e, "customer_order_ref", customer_order_ref, max_len=100)
@@ -211,7 +215,7 @@ def book_in(
     if rotor_type_id is not None and rt_pick is None:
         e.add("rotor_type_id", "choose a rotor type from the list")
     e.raise_if_any()
-    assert machine is not None and bal is not None
+    assert machine is not None and bal is not None and received is not None
     # A savepoint: a refusal after the customer or rotor was registered leaves nothing behind.
     with session.begin_nested():
         return _book_in_rows(

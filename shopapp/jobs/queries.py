@@ -15,6 +15,7 @@ from typing import Any
 from sqlalchemy import Select, and_, func, or_, select
 from sqlalchemy.orm import Session, joinedload, selectinload
 
+from shopapp.core.checks import QUERY_AHEAD_DAYS, day_refusal, plain_digits
 from shopapp.core.errors import NotFound
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import evidence
@@ -202,16 +203,22 @@ class JobFilter:
             if not text:
                 continue
             if fl.name.endswith("_id"):
-                if text.isdigit() and len(text) < 12:
+                if plain_digits(text) and len(text) < 12:
                     setattr(f, fl.name, int(text))
                 else:
                     messages.append(f"{fl.name}: {text[:20]!r} is not an id; ignored")
             elif fl.name in ("received_from", "received_to", "dispatched_from", "dispatched_to"):
                 try:
-                    setattr(f, fl.name, dt.date.fromisoformat(text))
+                    day = dt.date.fromisoformat(text)
                 except ValueError:
                     messages.append(f"{fl.name}: {text[:20]!r} is not a date (YYYY-MM-DD); "
                                     "ignored")
+                    continue
+                refusal = day_refusal(day, ahead_days=QUERY_AHEAD_DAYS)
+                if refusal is not None:
+                    messages.append(f"{fl.name}: {refusal}; ignored")
+                else:
+                    setattr(f, fl.name, day)
             elif fl.name == "state":
                 if text in JOB_STATES:
                     f.state = text

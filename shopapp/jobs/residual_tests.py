@@ -42,6 +42,7 @@ from shopapp.charts import Figure
 from shopapp.charts.circle_fit import ReadingPoint, circle_fit_figure
 from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
+from shopapp.core.checks import derived_row
 from shopapp.core.checks import number as _num
 from shopapp.core.display import plain, quantity
 from shopapp.core.errors import TransitionRefused, ValidationFailed
@@ -294,6 +295,7 @@ def record_residual_test(
         if performed_at.tzinfo is None or performed_at > dt.datetime.now(dt.UTC):
             raise ValidationFailed("performed_at", "must be a past moment with its time zone")
         row.performed_at = performed_at
+    derived_row(row)
     session.add(row)
     session.flush()
     event = audit.record(session, by=by, entity="residual_test", entity_id=row.id,

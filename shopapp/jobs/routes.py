@@ -18,6 +18,7 @@ from flask_login import current_user
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.charts.svg import to_svg
+from shopapp.core.checks import plain_digits
 from shopapp.core.display import ShopDisplay, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
@@ -25,7 +26,7 @@ from shopapp.core.forms import apply_errors
 from shopapp.core.pagination import page_number, paginate
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
-from shopapp.core.web import acting_user, get_or_404, page_size, requires
+from shopapp.core.web import acting_user, get_or_404, once, page_size, requires, saved_row
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import corrections, intake, queries, runs, states
 from shopapp.jobs.advice import DEFAULT_DRILL_DIAMETER_MM
@@ -146,7 +147,7 @@ def new():  # type: ignore[no-untyped-def]
     if request.method == "GET":
         cid = request.args.get(lookup.customer_id.name, "")
         serial = (request.args.get(lookup.serial_number.name) or "").strip()[:100]
-        if cid.isdigit() and len(cid) < 12 and serial:
+        if plain_digits(cid) and len(cid) < 12 and serial:
             history = queries.rotor_history(sess, int(cid), serial)
             form.customer_id.data = int(cid)
             form.serial_number.data = serial
@@ -160,9 +161,11 @@ def new():  # type: ignore[no-untyped-def]
         form.received_on.data = form.received_on.data or dt.date.today()
         return render_template("jobs/new.html", form=form, lookup=lookup, history=history,
                                disp=disp, loose=loose)
+    spend = once(sess, form, _saved_job_page)
     if form.validate_on_submit():
         try:
             job = intake.book_in(sess, by=acting_user(), **_intake_kwargs(form, disp))
+            spend(job)
             sess.commit()
             flash(f"Job {job.number} booked in.", "success")
             return redirect(url_for("jobs.detail", job_id=job.id))
@@ -178,6 +181,12 @@ def new():  # type: ignore[no-untyped-def]
     status = 422
     return render_template("jobs/new.html", form=form, lookup=lookup, history=history,
                            disp=disp, loose=loose), status
+
+
+def _saved_job_page(spent: Any) -> str:
+    """Where a book-in or return form posted twice leads: the job the first post opened."""
+    job = saved_row(db_session(), spent)
+    return url_for("jobs.detail", job_id=job.id) if isinstance(job, Job) else url_for("jobs.index")
 
 
 def jobs_can_work() -> bool:
@@ -289,6 +298,7 @@ def add_run(job_id: int):  # type: ignore[no-untyped-def]
     job = get_or_404(sess, Job, job_id)
     disp = ShopDisplay(get_settings(sess))
     form = RunForm(prefix="run")
+    spend = once(sess, form, lambda _spent: url_for("jobs.detail", job_id=job_id) + "#runs")
     if not form.validate_on_submit():
         return _render_detail(job_id, status=422, run_form=form)
     readings = [(1, form.amplitude_1.data, disp.internal(form.angle_1_deg.data), form.unit.data)]
@@ -306,6 +316,7 @@ def add_run(job_id: int):  # type: ignore[no-untyped-def]
             speed_rpm=form.speed_rpm.data, readings=readings, trial=trial,
             earlier_trial_left_on=bool(form.earlier_trial_left_on.data),
             notes=form.notes.data or "")
+        spend(run)
         sess.commit()
     except ServiceError as exc:
         return _failed(job_id, exc, form, run_form=form,
@@ -323,13 +334,14 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
         abort(404, description="No such plane.")
     disp = ShopDisplay(get_settings(sess))
     form = CorrectionForm(prefix=f"c{plane}")
+    spend = once(sess, form, lambda _spent: url_for("jobs.detail", job_id=job_id) + "#correction")
     if form.validate_on_submit():
         try:
             split = parse_split(form.split.data)
         except ValueError as exc:
             form.split.errors = [str(exc)]
             return _render_detail(job_id, status=422, corr_forms={plane: form})
-        run_id = int(form.run_id.data) if (form.run_id.data or "").isdigit() else None
+        run_id = int(form.run_id.data) if plain_digits(form.run_id.data or "") else None
         try:
             corr = corrections.record_correction(
                 sess, job, by=acting_user(), run_id=run_id, plane=plane, action=form.action.data,
@@ -338,6 +350,7 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
                 advised_angle_deg=disp.internal(_float(form.advised_angle_deg.data)),
                 split=split, drill_diameter_mm=form.drill_diameter_mm.data,
                 drill_depth_mm=form.drill_depth_mm.data, drill_holes=form.drill_holes.data)
+            spend(corr)
             sess.commit()
             flash(f"Plane {corr.plane}: {quantity(corr.mass_g, 'g')} "
                   f"{PAST_TENSE.get(corr.action, corr.action)} — log a check run.", "success")
@@ -396,12 +409,14 @@ def open_return(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
     job = get_or_404(sess, Job, job_id)
     form = ReturnForm(prefix="ret")
+    spend = once(sess, form, _saved_job_page)
     if not form.validate_on_submit():
         return _render_detail(job_id, status=422, return_form=form)
     try:
         new_job = states.open_return(sess, by=acting_user(), earlier_job=job,
                                      received_on=form.received_on.data,
                                      notes=form.notes.data or "")
+        spend(new_job)
         sess.commit()
     except ServiceError as exc:
         return _failed(job_id, exc, form, return_form=form)

@@ -26,6 +26,7 @@ from sqlalchemy.orm import Session
 
 from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
+from shopapp.core.checks import day_refusal
 from shopapp.core.checks import text as _text
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
@@ -187,6 +188,9 @@ def dispatch(session: Session, job: Job, *, by: User, on: dt.date | None = None)
     require(by, "work_jobs")
     _check_allowed(job, "dispatched")
     day = on or today()
+    refusal = day_refusal(day, today=today())
+    if refusal is not None:
+        raise ValidationFailed("dispatched_on", refusal)
     if day < job.received_on:
         raise ValidationFailed("dispatched_on", f"{day.isoformat()} is before the job was "
                                f"received ({job.received_on.isoformat()})")
@@ -267,6 +271,9 @@ def open_return(session: Session, *, by: User, earlier_job: Job, received_on: dt
         raise TransitionRefused(f"Job {earlier_job.number} is {earlier_job.state}: only a "
                                 "dispatched job can come back as a return.")
     received = received_on or today()
+    refusal = day_refusal(received, today=today())
+    if refusal is not None:
+        raise ValidationFailed("received_on", refusal)
     if received < (earlier_job.dispatched_on or earlier_job.received_on):
         raise ValidationFailed("received_on", f"{received.isoformat()} is before job "
                                f"{earlier_job.number} was dispatched")

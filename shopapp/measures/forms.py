@@ -6,10 +6,12 @@ import datetime as dt
 from typing import Any
 
 from flask_wtf import FlaskForm
-from wtforms import DateField, HiddenField, SelectField
+from wtforms import HiddenField, SelectField
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import Optional
 
+from shopapp.core.checks import QUERY_AHEAD_DAYS, plain_digits
+from shopapp.core.forms import DayField
 from shopapp.measures.periods import Period, Scope
 
 # Longest custom range, so one request cannot ask for decades of work.
@@ -27,9 +29,9 @@ class PeriodForm(FlaskForm):
                  SelectChoice("year"), SelectChoice("custom", "from … to …")],
         default="year",
     )
-    on = DateField("Containing the day", validators=[Optional()])
-    start = DateField("From", validators=[Optional()])
-    end = DateField("To", validators=[Optional()])
+    on = DayField("Containing the day", validators=[Optional()], ahead_days=QUERY_AHEAD_DAYS)
+    start = DayField("From", validators=[Optional()], ahead_days=QUERY_AHEAD_DAYS)
+    end = DayField("To", validators=[Optional()], ahead_days=QUERY_AHEAD_DAYS)
     operator_id = HiddenField()
     machine_id = HiddenField()
     rotor_type_id = HiddenField()
@@ -67,7 +69,7 @@ class PeriodForm(FlaskForm):
             raw = (getattr(self, name).data or "").strip()
             if not raw:
                 continue
-            if raw.isdigit() and len(raw) < 12:
+            if plain_digits(raw) and len(raw) < 12:
                 values[name] = int(raw)
             else:
                 dropped.append(f"{name}: {raw[:20]!r} is not an id; ignored")

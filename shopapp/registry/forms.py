@@ -15,7 +15,7 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core.display import plain
-from shopapp.core.forms import ChoiceField, NumberField, WholeNumberField
+from shopapp.core.forms import ChoiceField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import (
     BEARING_KINDS,
     CORRECTION_METHODS,
@@ -29,7 +29,7 @@ from shopapp.registry.rotor_types import GEOMETRY_FIELDS
 # --------------------------------------------------------------------------- customers
 
 
-class CustomerForm(FlaskForm):
+class CustomerForm(OnceForm):
     name = StringField(
         "Name", validators=[InputRequired("Give the customer's name."), Length(max=200)]
     )
@@ -57,7 +57,7 @@ class CustomerForm(FlaskForm):
 BEARING_LABELS = {"hard": "hard-bearing (runs below resonance)", "soft": "soft-bearing (above it)"}
 
 
-class MachineForm(FlaskForm):
+class MachineForm(OnceForm):
     name = StringField(
         "Name", validators=[InputRequired("Give the machine a name."), Length(max=100)]
     )
@@ -170,7 +170,7 @@ class GeometryForm(FlaskForm):
         self.tolerance_grade.data = plain(grade) if grade is not None else ""
 
 
-class RotorTypeForm(GeometryForm):
+class RotorTypeForm(GeometryForm, OnceForm):
     customer = ChoiceField("Customer", coerce=int, choices=[])
     part_number = StringField(
         "Part number / drawing",
@@ -185,7 +185,7 @@ class RotorTypeForm(GeometryForm):
         return values
 
 
-class OneOffRotorForm(GeometryForm):
+class OneOffRotorForm(GeometryForm, OnceForm):
     """A rotor without a part number: it carries its own geometry."""
 
     customer = ChoiceField("Customer", coerce=int, choices=[])
@@ -196,7 +196,7 @@ class OneOffRotorForm(GeometryForm):
     rotor_notes = TextAreaField("Rotor notes", validators=[Length(max=5000)])
 
 
-class RotorForm(FlaskForm):
+class RotorForm(OnceForm):
     rotor_type = ChoiceField("Rotor type (customer · part number)", coerce=int, choices=[])
     serial_number = StringField(
         "Serial number", validators=[InputRequired("Give the serial number."), Length(max=100)]

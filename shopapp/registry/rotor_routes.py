@@ -6,6 +6,7 @@ from collections.abc import Callable
 
 from flask import Blueprint, render_template, request, url_for
 
+from shopapp.core.checks import plain_digits
 from shopapp.core.display import ShopDisplay
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import ConfirmForm
@@ -31,7 +32,7 @@ INFLUENCE_SETS_SHOWN = 50
 def _int_arg(name: str) -> int | None:
     """An id from the query string; junk means no filter, never an error."""
     raw = request.args.get(name, "")
-    return int(raw) if raw.isdigit() and len(raw) < 10 else None
+    return int(raw) if plain_digits(raw) and len(raw) < 10 else None
 
 
 # --------------------------------------------------------------------------- rotor types

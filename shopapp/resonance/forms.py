@@ -13,10 +13,10 @@ import math
 import re
 
 from flask_wtf import FlaskForm
-from wtforms import DateField, StringField, TextAreaField
+from wtforms import StringField, TextAreaField
 from wtforms.validators import Length, Optional
 
-from shopapp.core.forms import ChoiceField, NumberField, WholeNumberField
+from shopapp.core.forms import ChoiceField, DayField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import MEASURED_QUANTITIES, RUNUP_UNITS
 from shopapp.resonance.runups import MAX_POINTS, PointIn
 
@@ -82,8 +82,8 @@ def unit_choices() -> list[tuple[str, str]]:
     return [(u, f"{u} ({q})") for q, units in RUNUP_UNITS.items() for u in units]
 
 
-class RunUpForm(FlaskForm):
-    recorded_on = DateField("Recorded on", validators=[Optional()])
+class RunUpForm(OnceForm):
+    recorded_on = DayField("Recorded on", validators=[Optional()])
     sensor = StringField("Sensor (plane, bearing, direction)",
                          validators=[Length(max=64, message="At most 64 characters.")])
     measured = ChoiceField("Measured quantity", choices=[(q, q) for q in MEASURED_QUANTITIES])

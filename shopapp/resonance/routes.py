@@ -31,7 +31,7 @@ from shopapp.core.extensions import db_session
 from shopapp.core.forms import apply_errors
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
-from shopapp.core.web import acting_user, get_or_404, requires
+from shopapp.core.web import acting_user, get_or_404, once, requires, saved_row
 from shopapp.models import RUNUP_UNITS, Job, Machine, Rotor, RunUpRecord
 from shopapp.resonance import queries, runups
 from shopapp.resonance.figures import loose_mass_figures, run_up_figures
@@ -73,6 +73,7 @@ def _new(job: Job | None, machine: Machine | None):  # type: ignore[no-untyped-d
         if job is not None:
             form.operating_speed_rpm.data = job.service_speed_rpm
     else:
+        spend = once(sess, form, _saved_run_up_page)
         valid = form.validate()
         points = form.readings()
         if valid and points is not None:
@@ -87,6 +88,7 @@ def _new(job: Job | None, machine: Machine | None):  # type: ignore[no-untyped-d
                     operating_lo_rpm=form.operating_lo_rpm.data,
                     operating_hi_rpm=form.operating_hi_rpm.data, notes=form.notes.data or "",
                 )
+                spend(done.record)
                 sess.commit()
             except ValidationFailed as exc:
                 sess.rollback()
@@ -103,6 +105,13 @@ def _new(job: Job | None, machine: Machine | None):  # type: ignore[no-untyped-d
     return render_template("resonance/new.html", form=form, job=job, machine=machine,
                            loose=loose, settings=settings,
                            limit_machine=machine or (job.machine if job else None)), status
+
+
+def _saved_run_up_page(spent: Any) -> str:
+    """Where a run-up form posted twice leads: the run-up the first post recorded."""
+    rec = saved_row(db_session(), spent)
+    return (url_for("resonance.detail", run_up_id=rec.id) if rec is not None
+            else url_for("resonance.index"))
 
 
 @bp.route("/jobs/<int:job_id>/run-ups/new", methods=["GET", "POST"])

@@ -191,6 +191,7 @@ def record_arbor_error(
         measured_by_id=by.id,
         notes=note,
     )
+    checks.derived_row(row)
     session.add(row)
     session.flush()
     audit.record(session, by=by, entity="arbor_error_measurement", entity_id=row.id,

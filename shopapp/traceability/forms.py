@@ -16,7 +16,6 @@ from typing import Any
 from flask_wtf import FlaskForm
 from wtforms import (
     BooleanField,
-    DateField,
     FieldList,
     Form,
     FormField,
@@ -31,6 +30,7 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.arbor import FRAMES
 from shopapp.core.display import ShopDisplay, plain
+from shopapp.core.forms import DayField, OnceForm
 from shopapp.models import KEY_CONVENTIONS, READING_UNITS, RESIDUAL_TEST_POSITIONS
 
 KEY_DIMENSIONS = ("key_width_mm", "key_height_mm", "key_length_mm", "hub_length_mm",
@@ -74,8 +74,8 @@ def sized(field_list: Any, n: int) -> None:
         field_list.pop_entry()
 
 
-class ProvingTestForm(FlaskForm):
-    performed_on = DateField("Test date", validators=[InputRequired("Required: a date.")])
+class ProvingTestForm(OnceForm):
+    performed_on = DayField("Test date", validators=[InputRequired("Required: a date.")])
     proving_rotor_id = SelectField("Proving rotor", coerce=int)
     test_mass_g = StringField("Test mass, g")
     test_radius_mm = StringField("Test-mass radius, mm")
@@ -120,7 +120,8 @@ class ProvingTestForm(FlaskForm):
             "indicated_angles_deg": [[typed_angle(disp, e.data) for e in self.p1_ang.entries],
                                      [typed_angle(disp, e.data) for e in self.p2_ang.entries]
                                      ][:planes],
-            "first_position_deg": first if isinstance(first, float) else 0.0,
+            # As typed when it is not a number: the use-case refuses it by name.
+            "first_position_deg": 0.0 if first is None else first,
             "claimed_umar": blank_to_none(self.claimed_umar.data),
             "urr_before_gmm": [blank_to_none(self.urr_before_1.data),
                                blank_to_none(self.urr_before_2.data)][:planes],
@@ -143,7 +144,7 @@ class ProvingTestForm(FlaskForm):
         return m
 
 
-class ProvingRotorForm(FlaskForm):
+class ProvingRotorForm(OnceForm):
     name = StringField("Name", validators=[InputRequired("Required."), Length(max=100)])
     mass_kg = StringField("Mass, kg")
     planes = SelectField("Planes", choices=options([("2", "2"), ("1", "1")]))
@@ -153,7 +154,7 @@ class ProvingRotorForm(FlaskForm):
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
 
 
-class ArborForm(FlaskForm):
+class ArborForm(OnceForm):
     name = StringField("Name", validators=[InputRequired("Required."), Length(max=100)])
     description = StringField("Description", validators=[Optional(), Length(max=200)])
     mass_kg = StringField("Mass, kg")
@@ -169,8 +170,8 @@ class PlaneReading(Form):
     ang_2 = StringField("plane 2 angle")
 
 
-class IndexRunsForm(FlaskForm):
-    measured_on = DateField("Date", validators=[InputRequired("Required: a date.")])
+class IndexRunsForm(OnceForm):
+    measured_on = DayField("Date", validators=[InputRequired("Required: a date.")])
     index_deg = StringField("Rotor turned on the arbor by, °", default="180")
     second_frame = SelectField("Angle of the second run read",
                                choices=options([(f, FRAME_LABELS[f]) for f in FRAMES]))
@@ -192,7 +193,7 @@ class RequiredForm(FlaskForm):
     required = HiddenField()
 
 
-class ResidualTestForm(FlaskForm):
+class ResidualTestForm(OnceForm):
     plane = HiddenField()
     positions = SelectField("Positions", coerce=int,
                             choices=options([(n, str(n)) for n in RESIDUAL_TEST_POSITIONS]))
@@ -207,7 +208,7 @@ class ResidualTestForm(FlaskForm):
     save = SubmitField("Save the test")
 
 
-class ErrorRunsForm(FlaskForm):
+class ErrorRunsForm(OnceForm):
     runs = FieldList(FormField(PlaneReading), min_entries=3, max_entries=8)
     key_compensation_applied = BooleanField("The key compensation was applied to the rotor")
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])

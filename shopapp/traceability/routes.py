@@ -24,7 +24,7 @@ from shopapp.core.forms import apply_errors
 from shopapp.core.pagination import Page
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
-from shopapp.core.web import acting_user, get_or_404, request_page, requires, submit_form
+from shopapp.core.web import acting_user, get_or_404, once, request_page, requires, submit_form
 from shopapp.models import Arbor, Machine, RotorType
 from shopapp.traceability import arbors as arbor_cases
 from shopapp.traceability import keys, queries, verifications
@@ -123,9 +123,12 @@ def proving_test(machine_id: int):  # type: ignore[no-untyped-def]
         readings = form.readings(rotor.planes, disp)
         try:
             if form.save.data:
+                spend = once(sess, form, lambda _spent: url_for("traceability.machine",
+                                                                machine_id=m.id))
                 row = verifications.record_proving_test(
                     sess, m, by=acting_user(), performed_on=form.performed_on.data,
                     proving_rotor=rotor, notes=form.notes.data or "", **readings)
+                spend(row)
                 sess.commit()
                 flash(f"Proving test of {m.name} saved: "
                       f"{'passed' if row.passed else 'FAILED'}.",
@@ -197,6 +200,7 @@ def add_arbor_measurement(arbor_id: int):  # type: ignore[no-untyped-def]
     a = get_or_404(sess, Arbor, arbor_id)
     form = IndexRunsForm()
     planes = 2 if blank_to_none(form.first.amp_2.data) is not None else 1
+    spend = once(sess, form, lambda _spent: url_for("traceability.arbor", arbor_id=a.id))
     if not form.validate_on_submit():
         return _arbor_page(a, form, 422)
     first, second = index_runs_from(form, planes, partial(typed_angle, _display()))
@@ -206,6 +210,7 @@ def add_arbor_measurement(arbor_id: int):  # type: ignore[no-untyped-def]
             second_run=second, planes=planes, index_deg=form.index_deg.data,
             second_frame=form.second_frame.data,
             rotor_mass_kg=blank_to_none(form.rotor_mass_kg.data), notes=form.notes.data or "")
+        spend(None)
         sess.commit()
     except ValidationFailed as exc:
         sess.rollback()

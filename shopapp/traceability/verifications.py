@@ -406,7 +406,10 @@ def evaluate_proving_test(
     n_planes = proving_rotor.planes
     if len(indicated_gmm) != n_planes:
         e.add("readings", f"the proving rotor has {n_planes} plane(s); give readings for each")
-    positions = equally_spaced_deg(proving_rotor.positions, first_position_deg)
+    # Checked like any typed angle: "nan" or "abc" were once stored as 0°.
+    first = checks.number(e, "first_position_deg", first_position_deg,
+                          minimum=-360.0, maximum=360.0, unit="°")
+    positions = equally_spaced_deg(proving_rotor.positions, first if first is not None else 0.0)
     amps: list[list[float]] = []
     angs: list[list[float] | None] = []
     for p in range(min(n_planes, len(indicated_gmm))):
@@ -588,6 +591,7 @@ def record_proving_test(
         performed_by_id=by.id,
         notes=note,
     )
+    checks.derived_row(row)
     session.add(row)
     session.flush()
     audit.record(session, by=by, entity="machine_verification", entity_id=row.id,

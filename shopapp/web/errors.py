@@ -10,13 +10,14 @@ from __future__ import annotations
 
 import logging
 
-from flask import Flask, render_template, request
+from flask import Flask, flash, redirect, render_template, request
 from flask_wtf.csrf import CSRFError
 from sqlalchemy.exc import DBAPIError, OperationalError
 from werkzeug.exceptions import HTTPException
 
-from shopapp.core.errors import ServiceError
+from shopapp.core.errors import AlreadySaved, ServiceError
 from shopapp.core.extensions import discard_db_session
+from shopapp.core.web import ALREADY_SAVED_MESSAGE
 
 log = logging.getLogger("shopapp.web")
 
@@ -48,6 +49,13 @@ def register_error_pages(app: Flask) -> None:
         return _page(
             400, "Form expired or forged", f"{exc.description} Reload the page and try again."
         )
+
+    @app.errorhandler(AlreadySaved)
+    def _already_saved(exc: AlreadySaved):  # type: ignore[no-untyped-def]
+        # The repeated post wrote nothing; whatever it began is thrown away.
+        discard_db_session()
+        flash(ALREADY_SAVED_MESSAGE, "info")
+        return redirect(exc.target, code=303)
 
     @app.errorhandler(ServiceError)
     def _service(exc: ServiceError):  # type: ignore[no-untyped-def]

@@ -146,14 +146,18 @@ def passing_check(db: Session, op: Any, job: Job, left_g: np.ndarray | None = No
 # --------------------------------------------------------------------------- numbering
 
 
-def test_job_numbers_follow_the_pattern_and_restart_each_year(db, op, rtype, machine) -> None:
+def test_job_numbers_follow_the_pattern_and_restart_each_year(db, op, rtype, machine,
+                                                              monkeypatch) -> None:
+    # Received dates may not lie in the future (issue 12): the calendar is set past them.
+    monkeypatch.setattr("shopapp.jobs.intake.today", lambda: dt.date(2027, 1, 10))
     a = book(db, op, rtype, machine, serial_number="S1", received_on=dt.date(2026, 3, 2))
     b = book(db, op, rtype, machine, serial_number="S2", received_on=dt.date(2026, 5, 2))
     c = book(db, op, rtype, machine, serial_number="S3", received_on=dt.date(2027, 1, 4))
     assert (a.number, b.number, c.number) == ("J2026-00001", "J2026-00002", "J2027-00001")
 
 
-def test_a_pattern_without_year_counts_on_globally(db, op, rtype, machine) -> None:
+def test_a_pattern_without_year_counts_on_globally(db, op, rtype, machine, monkeypatch) -> None:
+    monkeypatch.setattr("shopapp.jobs.intake.today", lambda: dt.date(2027, 1, 10))
     db.add(ShopSettings(id=1, job_number_pattern="W-{seq:04d}"))
     db.flush()
     a = book(db, op, rtype, machine, serial_number="S1", received_on=dt.date(2026, 12, 30))
@@ -692,3 +696,33 @@ def test_junk_filter_values_are_ignored_with_a_message() -> None:
                                        "kind": "odd", "q": "  ok  "})
     assert f == JobFilter(q="ok")
     assert len(messages) == 5
+
+
+def test_dispatch_in_the_future_is_refused_naming_the_field(db, op, rtype, machine) -> None:
+    """Issue 12: a dispatch dated tomorrow (or 9999-12-31) was stored. Common practice, no
+    source: a dispatch note records a day that has happened."""
+    job = _job_in_state(db, op, rtype, machine, "certified")
+    for day in (dt.date.today() + dt.timedelta(days=2), dt.date(9999, 12, 31)):
+        with pytest.raises(ValidationFailed) as err:
+            dispatch(db, job, by=op, on=day)
+        assert err.value.field == "dispatched_on"
+        assert "future" in err.value.message
+    assert job.state == "certified" and job.dispatched_on is None
+
+
+def test_book_in_refuses_dates_outside_the_window(db, op, rtype, machine) -> None:
+    """Issue 12: received 1900-01-01 was accepted. The window (ours): 1990-01-01 .. today,
+    promised dates up to about three years ahead."""
+    common: dict[str, Any] = dict(customer=rtype.customer_id, serial_number="W-1",
+                                  rotor_type_id=rtype.id, balancing_speed_rpm=600.0,
+                                  machine_id=machine.id,
+                                  tolerance=ToleranceSpec("grade", grade=6.3))
+    for field, kw in (("received_on", {"received_on": dt.date(1900, 1, 1)}),
+                      ("received_on", {"received_on": dt.date.today() + dt.timedelta(days=3)}),
+                      ("promised_on",
+                       {"promised_on": dt.date.today() + dt.timedelta(days=4 * 366)})):
+        with pytest.raises(ValidationFailed) as err:
+            book_in(db, by=op, **common, **kw)
+        assert field in err.value.errors, err.value.errors
+    job = book_in(db, by=op, **common, promised_on=dt.date.today() + dt.timedelta(days=365))
+    assert job.promised_on == dt.date.today() + dt.timedelta(days=365)
