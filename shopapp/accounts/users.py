@@ -99,6 +99,13 @@ def load_active_user(session: Session, user_id: str) -> User | None:
     return user if user is not None and user.active else None
 
 
+def get_user_by_name(session: Session, username: str) -> User:
+    user = session.scalar(select(User).where(User.username == username.strip().lower()))
+    if user is None:
+        raise ValidationFailed("username", f"no user called {username.strip().lower()!r}")
+    return user
+
+
 def get_user(session: Session, user_id: int) -> User:
     user = session.get(User, user_id)
     if user is None:
@@ -179,10 +186,12 @@ def set_active(session: Session, user: User, *, by: User, active: bool) -> User:
     return user
 
 
-def reset_password(session: Session, user: User, *, by: User, password: str) -> User:
-    """Set a new password for ``user`` (admin only) and end the user's sessions; the audit
-    event holds no hash."""
-    require(by, "manage_users")
+def reset_password(session: Session, user: User, *, by: User | None, password: str) -> User:
+    """Set a new password for ``user`` and end the user's sessions; the audit event holds
+    no hash. ``by`` must be allowed to manage users; None only for the CLI (whoever runs
+    ``shopapp user password`` on the server already holds the database)."""
+    if by is not None:
+        require(by, "manage_users")
     validate_password(password, username=user.username)
     user.password_hash = hash_password(password)
     end_sessions(user)
