@@ -143,3 +143,39 @@ def test_admin_ends_a_pause_from_the_page(client, login_as, make_user, db):
     assert _post_login(client, "pia.test", PASSWORD).status_code == 302
     unlock = db.scalars(select(AuditEvent).where(AuditEvent.action == "unlock")).one()
     assert unlock.after == {"kind": "account", "subject": "pia.test"}
+
+
+def _client_of_failure(app: Flask) -> str:
+    client: ShopClient = app.test_client()  # type: ignore[assignment]
+    client.refresh_csrf("/login")
+    client.post("/login", data={"username": "ghost.proxy", "password": "wrong-pw-9"},
+                headers={"X-Forwarded-For": "192.0.2.44"},
+                environ_base={"REMOTE_ADDR": "10.0.0.1"})
+    with app.extensions["shopapp.db"].session() as db:
+        event = db.scalars(select(AuditEvent).where(AuditEvent.action == "login_failed")
+                           .order_by(AuditEvent.id.desc())).first()
+        assert event is not None
+        return str(event.after["client"])
+
+
+@pytest.mark.parametrize("proxies, client", [(0, "10.0.0.1"), (1, "192.0.2.44")])
+def test_the_client_address_comes_from_a_proxy_only_when_trusted(two_processes, tmp_path,
+                                                                 fresh_database_url, proxies,
+                                                                 client):
+    # Werkzeug's ProxyFix takes the last x_for entries of X-Forwarded-For (its docs).
+    app = create_app({"TESTING": True, "SECRET_KEY": "test-only-secret",
+                      "DATABASE_URL": fresh_database_url, "INSTANCE_PATH": str(tmp_path / "px"),
+                      "TRUSTED_PROXIES": proxies})
+    app.test_client_class = ShopClient
+    try:
+        assert _client_of_failure(app) == client
+    finally:
+        app.extensions["shopapp.db"].dispose()
+
+
+def test_a_negative_proxy_count_stops_the_start(tmp_path):
+    from shopapp.core.config import ConfigError
+
+    with pytest.raises(ConfigError, match="TRUSTED_PROXIES must be a whole number from 0 to 5"):
+        create_app({"TESTING": True, "SECRET_KEY": "x", "INSTANCE_PATH": str(tmp_path),
+                    "TRUSTED_PROXIES": -1})
