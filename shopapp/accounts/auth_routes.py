@@ -7,7 +7,7 @@ from flask_login import current_user, login_required, login_user, logout_user
 
 from shopapp.accounts import logins, users
 from shopapp.accounts.forms import LoginForm, OwnPasswordForm
-from shopapp.core.extensions import db_session, login_manager
+from shopapp.core.extensions import db_session, login_manager, read_session
 from shopapp.core.web import acting_user, form_page, safe_next, submit_form
 from shopapp.models import User
 
@@ -47,10 +47,14 @@ def login():  # type: ignore[no-untyped-def]
     headers: dict[str, str] = {}
     if request.method == "POST":
         if form.validate_on_submit():
+            # The password is checked before the request takes the write lock (SQLite's is
+            # the whole database's): a slow hash must not hold other people's saves up.
+            with read_session() as reader:
+                attempt = logins.check_attempt(reader, username=form.username.data or "",
+                                               password=form.password.data or "",
+                                               client=request.remote_addr)
             sess = db_session()
-            outcome = logins.log_in(sess, username=form.username.data or "",
-                                    password=form.password.data or "",
-                                    client=request.remote_addr)
+            outcome = logins.record_attempt(sess, attempt)
             # A failure is committed too: it counts towards the throttle and the audit trail.
             sess.commit()
             if outcome.user is not None:

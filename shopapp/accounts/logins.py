@@ -27,7 +27,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import Select, case, delete, select, tuple_, update
+from sqlalchemy import Select, case, select, tuple_, update
 from sqlalchemy.dialects.postgresql import insert as pg_insert
 from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.orm import Session
@@ -127,44 +127,96 @@ def _normalise(username: str, client: str | None) -> tuple[str, str]:
     return username.strip().lower()[:USERNAME_MAX], (client or "unknown")[:CLIENT_MAX]
 
 
+@dataclass(frozen=True)
+class Attempt:
+    """What the read phase of a log-in found: the username and client as counted, the
+    user whose password matched (``reason`` None) or why not, or the pause in force."""
+
+    username: str
+    client: str
+    user_id: int | None
+    reason: str | None
+    paused: LoginOutcome | None = None
+
+
+def _pause_in_force(session: Session, name: str, where: str,
+                    now: dt.datetime) -> LoginOutcome | None:
+    rows = session.scalars(
+        select(LoginThrottle.locked_until).where(
+            tuple_(LoginThrottle.kind, LoginThrottle.subject).in_(_keys(name, where)),
+            LoginThrottle.locked_until > now)
+    )
+    ends = [until for until in rows if until is not None]
+    return _paused(max(ends), now) if ends else None
+
+
+def check_attempt(
+    session: Session, *, username: str, password: str, client: str | None,
+    now: dt.datetime | None = None,
+) -> Attempt:
+    """Read only: the pause in force, the user, and the password check (slow by design:
+    scrypt). The web runs it before taking the database's write lock, so a log-in does
+    not hold every other writer up while the hash is computed."""
+    now = now or utcnow()
+    name, where = _normalise(username, client)
+    paused = _pause_in_force(session, name, where, now)
+    if paused is not None:
+        return Attempt(name, where, None, "paused", paused)
+    user = session.scalar(select(User).where(User.username == name))
+    if user is None:
+        users.burn_password_check(password)
+        return Attempt(name, where, None, "unknown username")
+    if not users.check_password(user, password):
+        return Attempt(name, where, user.id, "wrong password")
+    if not user.active:
+        return Attempt(name, where, user.id, "account inactive")
+    return Attempt(name, where, user.id, None)
+
+
 def log_in(
     session: Session, *, username: str, password: str, client: str | None,
     now: dt.datetime | None = None,
 ) -> LoginOutcome:
-    """Check a log-in attempt against the throttle and the password; audit it.
+    """Check a log-in attempt against the throttle and the password, count and audit it,
+    in one session. Flushes; the caller commits (after a failure too: it must count)."""
+    now = now or utcnow()
+    attempt = check_attempt(session, username=username, password=password, client=client,
+                            now=now)
+    return record_attempt(session, attempt, now=now)
 
-    Flushes; the caller commits (also after a failure: the failure must be counted).
+
+def record_attempt(session: Session, attempt: Attempt, *,
+                   now: dt.datetime | None = None) -> LoginOutcome:
+    """The writes of a log-in attempt checked by :func:`check_attempt`: the audit event,
+    the failure counts and any pause they start, or the successful log-in.
+
+    A pause that began since the check (another process) still refuses the attempt.
+    Flushes; the caller commits.
     """
     now = now or utcnow()
-    name, where = _normalise(username, client)
+    if attempt.paused is not None:
+        return attempt.paused
+    name, where = attempt.username, attempt.client
     keys = _keys(name, where)
-    rows = list(session.scalars(
-        select(LoginThrottle).where(tuple_(LoginThrottle.kind, LoginThrottle.subject).in_(keys))
-    ))
-    locks = [r.locked_until for r in rows if r.locked_until is not None and r.locked_until > now]
-    if locks:
-        return _paused(max(locks), now)
-
-    user = session.scalar(select(User).where(User.username == name))
-    if user is None:
-        users.burn_password_check(password)
-        reason = "unknown username"
-    elif not users.check_password(user, password):
-        reason = "wrong password"
-    elif not user.active:
-        reason = "account inactive"
-    else:
+    paused = _pause_in_force(session, name, where, now)
+    if paused is not None:
+        return paused
+    user = session.get(User, attempt.user_id) if attempt.user_id is not None else None
+    reason = attempt.reason
+    if reason is None and (user is None or not user.active):
+        reason = "account inactive"  # deactivated since the check
+    if reason is None and user is not None:
         user.last_login_at = now
-        account_row = next((r for r in rows if r.kind == "account"), None)
-        if account_row is not None:
-            session.execute(delete(LoginThrottle).where(
-                LoginThrottle.kind == "account", LoginThrottle.subject == name))
+        # Only a username with failures to clear is written to.
+        counted = session.get(LoginThrottle, ("account", name))
+        if counted is not None:
+            session.delete(counted)
         session.flush()
         audit.record(session, by=user, entity="login", entity_id=user.id, action="login",
                      after={"username": name, "client": where})
         return LoginOutcome(user=user)
 
-    audit.record(session, by=None, entity="login", entity_id=user.id if user else None,
+    audit.record(session, by=None, entity="login", entity_id=attempt.user_id,
                  action="login_failed",
                  after={"username": name, "client": where, "reason": reason})
     until: dt.datetime | None = None

@@ -179,3 +179,39 @@ def test_a_negative_proxy_count_stops_the_start(tmp_path):
     with pytest.raises(ConfigError, match="TRUSTED_PROXIES must be a whole number from 0 to 5"):
         create_app({"TESTING": True, "SECRET_KEY": "x", "INSTANCE_PATH": str(tmp_path),
                     "TRUSTED_PROXIES": -1})
+
+
+def test_the_password_is_checked_before_the_write_lock_is_taken(two_processes, monkeypatch,
+                                                               backend):
+    """SQLite has one write lock for the whole database; a log-in that held it through
+    the (deliberately slow) password hash made every other save wait. While the hash is
+    computed another connection must be able to take the write lock at once."""
+    if backend != "sqlite":
+        pytest.skip("PostgreSQL has row locks, no database-wide write lock")
+    import sqlite3
+
+    app, _other = two_processes
+    path = app.config["DATABASE_URL"].removeprefix("sqlite:///")
+    with app.extensions["shopapp.db"].session() as db:
+        factories.user(db, username="pia.test", role="operator", password=PASSWORD)
+    real = users.check_password
+    seen: list[str] = []
+
+    def probing_check(user, password):  # type: ignore[no-untyped-def]
+        other = sqlite3.connect(path, timeout=0, isolation_level=None)
+        try:
+            other.execute("BEGIN IMMEDIATE")
+            other.execute("ROLLBACK")
+            seen.append("free")
+        except sqlite3.OperationalError as exc:
+            seen.append(str(exc))
+        finally:
+            other.close()
+        return real(user, password)
+
+    monkeypatch.setattr(users, "check_password", probing_check)
+    client: ShopClient = app.test_client()  # type: ignore[assignment]
+    assert _post_login(client, "pia.test", PASSWORD).status_code == 302
+    assert _post_login(client.application.test_client(), "pia.test", "wrong-pw-1").status_code \
+        == 422
+    assert seen == ["free", "free"]
