@@ -12,6 +12,7 @@ from pathlib import Path
 from typing import Any
 
 from flask import Flask, request
+from werkzeug.middleware.proxy_fix import ProxyFix
 
 from shopapp.core.config import check_config, load_config
 from shopapp.core.database import Database
@@ -49,6 +50,7 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
         app.config["SESSION_COOKIE_SECURE"] = True
         app.config["REMEMBER_COOKIE_SECURE"] = True
     configure_logging(str(cfg.get("LOG_LEVEL", "INFO")))
+    register_proxies(app)
     register_database(app)
     register_extensions(app)
     register_request_guards(app)
@@ -58,6 +60,14 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     register_template_helpers(app)
     register_commands(app)
     return app
+
+
+def register_proxies(app: Flask) -> None:
+    """Behind ``TRUSTED_PROXIES`` reverse proxies, take the client's address (the log-in
+    throttle's per-client count) and scheme from their X-Forwarded-* headers."""
+    hops = int(app.config.get("TRUSTED_PROXIES") or 0)
+    if hops > 0:
+        app.wsgi_app = ProxyFix(app.wsgi_app, x_for=hops, x_proto=hops)  # type: ignore[method-assign]
 
 
 def register_database(app: Flask) -> None:

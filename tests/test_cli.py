@@ -29,7 +29,8 @@ def test_help_lists_the_commands(cli) -> None:
 def test_every_command_has_help(cli) -> None:
     for args in (["db", "--help"], ["db", "upgrade", "--help"], ["db", "downgrade", "--help"],
                  ["db", "current", "--help"], ["user", "add", "--help"],
-                 ["user", "list", "--help"], ["serve", "--help"]):
+                 ["user", "list", "--help"], ["user", "password", "--help"],
+                 ["serve", "--help"]):
         result = cli(*args)
         assert result.exit_code == 0, args
         assert "Usage:" in result.output
@@ -118,3 +119,29 @@ def test_first_start_without_demo_creates_one_admin_then_only_reminds(cli, tmp_p
     assert again.exit_code == 0
     assert "log in with one of the accounts in" in again.output
     assert cli("user", "list").output.count("\n") == 1  # still exactly one user
+
+
+@pytest.mark.parametrize("stdin, message", [
+    ("mara.quill99\n", "password: must not be the username"),
+    ("Password123\n", "password: is one of the 3000 most used passwords"),
+    ("          \n", "password: must not be only blanks"),
+])
+def test_user_add_applies_the_password_rules(cli, stdin, message) -> None:
+    cli("db", "upgrade")
+    result = cli("user", "add", "mara.quill", "--role", "quality", "--password-stdin",
+                 input=stdin)
+    assert result.exit_code == 1
+    assert message in result.output and "Traceback" not in result.output
+    assert "mara.quill" not in cli("user", "list").output
+
+
+def test_user_password_resets_with_the_rules(cli) -> None:
+    cli("db", "upgrade")
+    cli("user", "add", "sam", "--role", "owner", "--password-stdin", input="long-enough-pw\n")
+    weak = cli("user", "password", "sam", "--password-stdin", input="qwertyuiop\n")
+    assert weak.exit_code == 1 and "most used passwords" in weak.output
+    ok = cli("user", "password", "SAM", "--password-stdin", input="spindle-night-31\n")
+    assert ok.exit_code == 0, ok.output
+    assert "new password set for sam" in ok.output
+    missing = cli("user", "password", "nobody", "--password-stdin", input="spindle-night-31\n")
+    assert missing.exit_code == 1 and "no user called 'nobody'" in missing.output

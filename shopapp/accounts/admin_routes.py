@@ -7,13 +7,20 @@ from typing import Any
 
 from flask import Blueprint, flash, redirect, render_template, request, url_for
 
-from shopapp.accounts import users
+from shopapp.accounts import logins, users
 from shopapp.accounts.forms import AddUserForm, PasswordForm, RoleForm, SettingsForm
 from shopapp.core import settings as shop_settings
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import ConfirmForm
-from shopapp.core.web import acting_user, form_page, get_or_404, requires, submit_form
+from shopapp.core.web import (
+    acting_user,
+    form_page,
+    get_or_404,
+    request_page,
+    requires,
+    submit_form,
+)
 from shopapp.models import User
 
 bp = Blueprint("admin", __name__, url_prefix="/admin", template_folder="templates")
@@ -108,6 +115,34 @@ def user_password(user_id: int):  # type: ignore[no-untyped-def]
                                           password=form.password.data or ""),
         done=lambda u: (f"New password set for {u.username}.", url_for("admin.users")),
     )
+
+
+@bp.get("/logins")
+@requires("manage_users")
+def logins_page():  # type: ignore[no-untyped-def]
+    """Recent failed log-ins and locks (paginated), and the locks in force now."""
+    sess = db_session()
+    return render_template(
+        "admin/logins.html",
+        page=request_page(sess, logins.recent_failures_query()),
+        locks=logins.active_locks(sess, by=acting_user()),
+        confirm=ConfirmForm(formdata=None),
+        **logins.policy_figures(),
+    )
+
+
+@bp.post("/logins/unlock")
+@requires("manage_users")
+def end_lock():  # type: ignore[no-untyped-def]
+    kind = request.form.get("kind", "")[:8]
+    subject = request.form.get("subject", "")[:100]
+    sess = db_session()
+    lifted = logins.end_lock(sess, kind=kind, subject=subject, by=acting_user())
+    sess.commit()
+    what = "username" if kind == "account" else "client"
+    flash(f"Log-ins for {what} {subject!r} are open again." if lifted
+          else f"No lock for {what} {subject!r}.", "success" if lifted else "info")
+    return redirect(url_for("admin.logins_page"))
 
 
 def _sample(pattern: str) -> tuple[str | None, str | None]:

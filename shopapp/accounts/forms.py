@@ -6,13 +6,14 @@ from flask_wtf import FlaskForm
 from wtforms import PasswordField, StringField, TextAreaField
 from wtforms.validators import DataRequired, EqualTo, InputRequired, Length
 
-from shopapp.accounts.users import MIN_PASSWORD_LENGTH
+from shopapp.accounts.password_rules import MAX_PASSWORD_LENGTH, MIN_PASSWORD_LENGTH
 from shopapp.core.forms import ChoiceField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import ANGLE_SENSES, ROLES, UNBALANCE_DISPLAY_UNITS
 
 _PASSWORD = [
     InputRequired("Type a password."),
-    Length(min=MIN_PASSWORD_LENGTH, max=200, message=f"{MIN_PASSWORD_LENGTH} to 200 characters."),
+    Length(min=MIN_PASSWORD_LENGTH, max=MAX_PASSWORD_LENGTH,
+           message=f"{MIN_PASSWORD_LENGTH} to {MAX_PASSWORD_LENGTH} characters."),
 ]
 _SAME = EqualTo("password", message="The two passwords differ; type the same password twice.")
 ROLE_CHOICES = [(r, r) for r in ROLES]
@@ -44,6 +45,17 @@ class RoleForm(FlaskForm):
 
 
 class PasswordForm(FlaskForm):
+    password = PasswordField("New password", validators=_PASSWORD)
+    password_again = PasswordField(
+        "New password again", validators=[InputRequired("Type it again."), _SAME]
+    )
+
+
+class OwnPasswordForm(FlaskForm):
+    current_password = PasswordField(
+        "Current password", validators=[InputRequired("Type your current password."),
+                                        Length(max=MAX_PASSWORD_LENGTH)]
+    )
     password = PasswordField("New password", validators=_PASSWORD)
     password_again = PasswordField(
         "New password again", validators=[InputRequired("Type it again."), _SAME]

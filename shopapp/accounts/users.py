@@ -8,14 +8,14 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 from werkzeug.security import check_password_hash, generate_password_hash
 
+from shopapp.accounts.password_rules import password_problem
 from shopapp.core import audit
 from shopapp.core.checks import plain_digits
 from shopapp.core.errors import NotFound, ValidationFailed
 from shopapp.core.permissions import require
-from shopapp.models import ROLES, User, utcnow
+from shopapp.models import ROLES, User
 
 USERNAME_RE = re.compile(r"^[a-z0-9][a-z0-9._-]{1,63}$")
-MIN_PASSWORD_LENGTH = 8
 # A hash to compare against when the username is unknown, so a wrong username
 # costs as long as a wrong password (no user enumeration by timing).
 _DUMMY_HASH = generate_password_hash("not-a-real-password")
@@ -30,11 +30,12 @@ def check_password(user: User, password: str) -> bool:
     return check_password_hash(user.password_hash, password)
 
 
-def validate_password(password: str) -> None:
-    if len(password) < MIN_PASSWORD_LENGTH:
-        raise ValidationFailed(
-            "password", f"must be at least {MIN_PASSWORD_LENGTH} characters long"
-        )
+def validate_password(password: str, *, username: str) -> None:
+    """Refuse a new password for ``username`` that breaks a rule of
+    :mod:`shopapp.accounts.password_rules` (message on the ``password`` field)."""
+    problem = password_problem(password, username=username)
+    if problem is not None:
+        raise ValidationFailed("password", problem)
 
 
 def create_user(
@@ -59,7 +60,7 @@ def create_user(
         )
     if role not in ROLES:
         raise ValidationFailed("role", f"{role!r} is not a role; choose one of {', '.join(ROLES)}")
-    validate_password(password)
+    validate_password(password, username=username)
     exists = session.scalar(select(func.count()).select_from(User).where(User.username == username))
     if exists:
         raise ValidationFailed("username", f"{username!r} is already taken")
@@ -79,16 +80,15 @@ def create_user(
     return user
 
 
-def authenticate(session: Session, username: str, password: str) -> User | None:
-    """The active user with these credentials, or None."""
-    user = session.scalar(select(User).where(User.username == username.strip().lower()))
-    if user is None:
-        check_password_hash(_DUMMY_HASH, password)
-        return None
-    if not check_password(user, password) or not user.active:
-        return None
-    user.last_login_at = utcnow()
-    return user
+def burn_password_check(password: str) -> None:
+    """Spend the time of a password check when there is no user to check against."""
+    check_password_hash(_DUMMY_HASH, password)
+
+
+def end_sessions(user: User) -> None:
+    """End every log-in session ``user`` has open: each stores the session version it
+    began with, and a request whose version differs is logged out."""
+    user.session_version = (user.session_version or 0) + 1
 
 
 def load_active_user(session: Session, user_id: str) -> User | None:
@@ -98,6 +98,13 @@ def load_active_user(session: Session, user_id: str) -> User | None:
         return None
     user = session.get(User, int(user_id))
     return user if user is not None and user.active else None
+
+
+def get_user_by_name(session: Session, username: str) -> User:
+    user = session.scalar(select(User).where(User.username == username.strip().lower()))
+    if user is None:
+        raise ValidationFailed("username", f"no user called {username.strip().lower()!r}")
+    return user
 
 
 def get_user(session: Session, user_id: int) -> User:
@@ -180,16 +187,38 @@ def set_active(session: Session, user: User, *, by: User, active: bool) -> User:
     return user
 
 
-def reset_password(session: Session, user: User, *, by: User, password: str) -> User:
-    """Set a new password for ``user`` (admin only); the audit event holds no hash."""
-    require(by, "manage_users")
-    if len(password) > 200:
-        raise ValidationFailed("password", "is too long: at most 200 characters")
-    validate_password(password)
+def reset_password(session: Session, user: User, *, by: User | None, password: str) -> User:
+    """Set a new password for ``user`` and end the user's sessions; the audit event holds
+    no hash. ``by`` must be allowed to manage users; None only for the CLI (whoever runs
+    ``shopapp user password`` on the server already holds the database)."""
+    if by is not None:
+        require(by, "manage_users")
+    validate_password(password, username=user.username)
     user.password_hash = hash_password(password)
+    end_sessions(user)
     session.flush()
     audit.record(
         session, by=by, entity="user", entity_id=user.id, action="reset_password",
+        after={"username": user.username},
+    )
+    return user
+
+
+def change_own_password(
+    session: Session, user: User, *, current_password: str, password: str
+) -> User:
+    """The user sets a new password, proving the current one. Every other session of
+    the user ends; the caller keeps this one by storing the new session version."""
+    if not check_password(user, current_password):
+        raise ValidationFailed("current_password", "is not your current password")
+    if check_password(user, password):
+        raise ValidationFailed("password", "is your current password; choose a new one")
+    validate_password(password, username=user.username)
+    user.password_hash = hash_password(password)
+    end_sessions(user)
+    session.flush()
+    audit.record(
+        session, by=user, entity="user", entity_id=user.id, action="change_password",
         after={"username": user.username},
     )
     return user

@@ -34,6 +34,7 @@ def defaults(instance_path: Path) -> dict[str, Any]:
         "PAGE_SIZE": 25,
         "WTF_CSRF_ENABLED": True,
         "SQL_ECHO": False,
+        "TRUSTED_PROXIES": 0,
     }
 
 
@@ -52,6 +53,9 @@ KEY_TYPES: dict[str, type] = {
     "SQL_ECHO": bool,
     "REQUIRE_SECRET_KEY": bool,
     "BASE_URL": str,
+    # Reverse proxies in front of shopapp whose X-Forwarded-For is believed (0: none, the
+    # client is the connection's address). The log-in throttle counts per client address.
+    "TRUSTED_PROXIES": int,
     # The owner's view (shopapp.measures.costs): money per machine hour, the longest
     # gap between two runs counted in full as machine time, and the money unit shown.
     "MACHINE_HOURLY_RATE": float,
@@ -126,7 +130,10 @@ def load_config(
 
 
 def check_config(cfg: Mapping[str, Any]) -> None:
-    """Refuse to start production without a secret key."""
+    """Refuse to start production without a secret key, or with a negative proxy count."""
+    hops = cfg.get("TRUSTED_PROXIES") or 0
+    if not isinstance(hops, int) or hops < 0 or hops > 5:
+        raise ConfigError(f"TRUSTED_PROXIES must be a whole number from 0 to 5, got {hops!r}")
     if not cfg.get("REQUIRE_SECRET_KEY", True):
         return
     if not cfg.get("SECRET_KEY") and not (cfg.get("DEBUG") or cfg.get("TESTING")):

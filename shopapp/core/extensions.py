@@ -9,6 +9,9 @@ process's commit meanwhile cannot make its write fail (``SQLITE_IMMEDIATE``).
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
+
 from flask import current_app, g, has_request_context, request
 from flask_login import LoginManager
 from flask_wtf.csrf import CSRFProtect
@@ -41,6 +44,18 @@ def db_session() -> Session:
             database.begin_write(sess)
         g.db_session = sess
     return g.db_session
+
+
+@contextmanager
+def read_session() -> Iterator[Session]:
+    """A short session beside the request's, for reads that take long (a password hash)
+    and must not run while the request holds the write lock; rolled back and closed."""
+    sess = get_database().sessionmaker()
+    try:
+        yield sess
+    finally:
+        sess.rollback()
+        sess.close()
 
 
 def close_db_session(_exc: BaseException | None = None) -> None:

@@ -16,7 +16,15 @@ from shopapp.models.jobs import (
     Run,
     RunReading,
 )
-from shopapp.models.people import ANGLE_SENSES, ROLES, UNBALANCE_DISPLAY_UNITS, ShopSettings, User
+from shopapp.models.people import (
+    ANGLE_SENSES,
+    ROLES,
+    THROTTLE_KINDS,
+    UNBALANCE_DISPLAY_UNITS,
+    LoginThrottle,
+    ShopSettings,
+    User,
+)
 from shopapp.models.registry import (
     BEARING_KINDS,
     CORRECTION_METHODS,
@@ -68,6 +76,7 @@ __all__ = [
     "RUNUP_UNITS",
     "RUN_PURPOSES",
     "SWEEPS",
+    "THROTTLE_KINDS",
     "TOLERANCE_METHODS",
     "UNBALANCE_DISPLAY_UNITS",
     "Arbor",
@@ -83,6 +92,7 @@ __all__ = [
     "InfluenceSet",
     "Job",
     "JobTransition",
+    "LoginThrottle",
     "Machine",
     "MachineVerification",
     "NumberLock",

@@ -26,6 +26,11 @@ class User(Base):
     active: Mapped[bool] = mapped_column(Boolean, nullable=False, default=True)
     created_at: Mapped[Timestamp]
     last_login_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime())
+    # Stored in each log-in session and compared on every request: raising it (log-out,
+    # a password change or reset) ends every session the user has open anywhere.
+    session_version: Mapped[int] = mapped_column(
+        Integer, nullable=False, default=0, server_default="0"
+    )
 
     # Flask-Login protocol, kept here so the web layer needs no wrapper class.
     @property
@@ -70,3 +75,25 @@ class ShopSettings(Base):
     )
     due_soon_days: Mapped[int] = mapped_column(Integer, nullable=False, default=14)
     updated_at: Mapped[Timestamp]
+
+
+THROTTLE_KINDS = ("account", "client")
+
+
+class LoginThrottle(Base):
+    """Failed log-ins counted per username tried (``account``) and per client address
+    (``client``), kept in the database so every server process sees the same counts.
+
+    ``locked_until``: log-ins for this username, or from this client, are refused
+    until then (shopapp.accounts.logins decides the numbers).
+    """
+
+    __tablename__ = "login_throttle"
+    __table_args__ = (one_of("kind", THROTTLE_KINDS),)
+
+    kind: Mapped[str] = mapped_column(String(8), primary_key=True)
+    # The username as typed (lower-cased, at most 64 characters) or the client address.
+    subject: Mapped[str] = mapped_column(String(100), primary_key=True)
+    failures: Mapped[int] = mapped_column(Integer, nullable=False)
+    last_failure_at: Mapped[dt.datetime] = mapped_column(UTCDateTime(), nullable=False)
+    locked_until: Mapped[dt.datetime | None] = mapped_column(UTCDateTime(), index=True)

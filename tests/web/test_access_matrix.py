@@ -47,6 +47,7 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "auth.login": (PUBLIC, PUBLIC),
     "auth.logout": (None, "login"),
     "auth.home": ("login", None),
+    "auth.own_password": ("login", "login"),
     "certificates.verify": (PUBLIC, None),
     # registries
     "customers.index": ("read", None),
@@ -119,6 +120,8 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "admin.user_role": (None, "manage_users"),
     "admin.user_active": (None, "manage_users"),
     "admin.user_password": ("manage_users", "manage_users"),
+    "admin.logins_page": ("manage_users", None),
+    "admin.end_lock": (None, "manage_users"),
     "admin.settings": ("edit_settings", "edit_settings"),
     "admin.job_number_sample": ("edit_settings", None),
 }

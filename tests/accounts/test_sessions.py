@@ -1,0 +1,106 @@
+"""Sessions end on log-out, on an admin's password reset and (other sessions) on the
+user's own password change. Flask's session is a signed cookie the browser keeps; a copy
+of it (another tab's, a stolen one) would stay valid until it expires unless the server
+checks something it controls. Common practice, no source: "log out everywhere after a
+password change" (value from memory: the OWASP Session Management Cheat Sheet asks for
+session invalidation on log-out and on password change)."""
+
+from __future__ import annotations
+
+from flask import Flask
+
+from shopapp.accounts import users
+from tests.conftest import PASSWORD, ShopClient
+
+
+def _second_client(app: Flask, username: str) -> ShopClient:
+    other: ShopClient = app.test_client()  # type: ignore[assignment]
+    other.refresh_csrf("/login")
+    assert other.post("/login", data={"username": username,
+                                      "password": PASSWORD}).status_code == 302
+    other.refresh_csrf("/")
+    return other
+
+
+def _copy_cookie(app: Flask, source: ShopClient) -> ShopClient:
+    """A client holding a copy of ``source``'s session cookie."""
+    thief: ShopClient = app.test_client()  # type: ignore[assignment]
+    cookie = source.get_cookie("session")
+    assert cookie is not None
+    thief.set_cookie("session", cookie.value)
+    return thief
+
+
+def test_a_copied_cookie_dies_with_the_log_out(app, client, login_as):
+    login_as("operator")
+    thief = _copy_cookie(app, client)
+    assert thief.get("/").status_code == 200  # the copy works while the session lives
+    assert client.post("/logout").status_code == 302
+    resp = thief.get("/")
+    assert resp.status_code == 302 and "/login" in resp.headers["Location"]
+    page = thief.get("/login").get_data(as_text=True)
+    assert "Your session has ended" in page
+
+
+def test_an_admin_password_reset_ends_the_users_sessions(app, client, login_as, make_user):
+    op = make_user("operator")
+    op_client = _second_client(app, op.username)
+    assert op_client.get("/").status_code == 200
+    login_as("admin")
+    resp = client.post(f"/admin/users/{op.id}/password",
+                       data={"password": "fresh-turbine-77", "password_again": "fresh-turbine-77"})
+    assert resp.status_code == 302
+    assert op_client.get("/").status_code == 302
+    assert client.get("/").status_code == 200  # the admin's own session is untouched
+
+
+def test_own_password_change_ends_other_sessions_and_keeps_this_one(app, client, login_as, db):
+    me = login_as("quality")
+    elsewhere = _second_client(app, me.username)
+    resp = client.post("/account/password", data={
+        "current_password": PASSWORD, "password": "spindle-night-31",
+        "password_again": "spindle-night-31"})
+    assert resp.status_code == 302, resp.get_data(as_text=True)[:300]
+    assert client.get("/").status_code == 200
+    assert elsewhere.get("/").status_code == 302
+    db.expire_all()
+    assert users.check_password(users.get_user(db, me.id), "spindle-night-31")
+
+
+def test_own_password_change_needs_the_current_password(client, login_as, db):
+    me = login_as("operator")
+    resp = client.post("/account/password", data={
+        "current_password": "not-my-password", "password": "spindle-night-31",
+        "password_again": "spindle-night-31"})
+    assert resp.status_code == 422
+    assert "is not your current password" in resp.get_data(as_text=True)
+    db.expire_all()
+    assert users.check_password(users.get_user(db, me.id), PASSWORD)
+
+
+def test_own_password_change_follows_the_password_rules(client, login_as):
+    me = login_as("operator")
+    resp = client.post("/account/password", data={
+        "current_password": PASSWORD, "password": me.username + "2026",
+        "password_again": me.username + "2026"})
+    assert resp.status_code == 422
+    assert "must not be the username" in resp.get_data(as_text=True)
+
+
+def test_log_out_is_audited(client, login_as, db):
+    from sqlalchemy import select
+
+    from shopapp.models import AuditEvent
+
+    me = login_as("owner")
+    client.post("/logout")
+    event = db.scalars(select(AuditEvent).where(AuditEvent.action == "logout")).one()
+    assert event.user_id == me.id and event.after["username"] == me.username
+
+
+def test_a_session_from_before_the_version_check_is_logged_out(app, client, login_as):
+    """A cookie without the version (older than this check) is not trusted."""
+    login_as("operator")
+    with client.session_transaction() as sess:
+        sess.pop("session_version")
+    assert client.get("/").status_code == 302
