@@ -19,6 +19,7 @@ from shopapp.models.jobs import (
 from shopapp.models.people import ANGLE_SENSES, ROLES, UNBALANCE_DISPLAY_UNITS, ShopSettings, User
 from shopapp.models.registry import (
     BEARING_KINDS,
+    CALIBRATED_READING_UNIT,
     CORRECTION_METHODS,
     KEY_CONVENTIONS,
     ROTATIONS,
@@ -53,6 +54,7 @@ __all__ = [
     "ANGLE_SENSES",
     "BACKUP_KINDS",
     "BEARING_KINDS",
+    "CALIBRATED_READING_UNIT",
     "CERTIFICATE_STATES",
     "CORRECTION_ACTIONS",
     "CORRECTION_METHODS",

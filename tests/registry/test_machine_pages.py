@@ -21,6 +21,8 @@ FORM = {
     "claimed_emar_gmm_per_kg": "1.0",
     "claimed_urr_pct": "95",
     "suspension_resonance_rpm": "240",
+    "reading_unit": "um",
+    "reading_planes": "2",
     "verification_interval_days": "",
     "notes": "",
 }

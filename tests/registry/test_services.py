@@ -365,6 +365,8 @@ MACHINE: dict[str, Any] = {
     "max_mass_kg": 3000.0,
     "max_speed_rpm": 2500.0,
     "claimed_emar_gmm_per_kg": 0.5,
+    "reading_unit": "g·mm",
+    "reading_planes": 2,
 }
 
 
