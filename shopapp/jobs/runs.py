@@ -134,7 +134,9 @@ def record_run(
     Every correction plane of the rotor needs its reading, and a single-plane
     rotor takes none for plane 2. ``trial = (plane, mass_g, angle_deg,
     radius_mm)`` for trial runs only. The first run moves a booked-in job onto
-    the machine. Angles are normalised to [0, 360). Errors name the form fields
+    the machine. Angles of −360…360° are stored as [0, 360); beyond a turn they
+    are refused. The speed must suit the machine and the rotor and the unit must
+    be the machine's (:mod:`shopapp.jobs.limits`). Errors name the form fields
     ``amplitude_<plane>``, ``angle_<plane>_deg``, ``unit``, ``trial_*``,
     ``speed_rpm``, ``purpose``.
     """
@@ -210,8 +212,8 @@ def strike_run(session: Session, job: Job, run: Run, *, by: User, reason: str) -
 
     Never deleted. Allowed while the job is booked in or on the machine (a certified
     job's evidence is frozen; reopen it first). The stored verdicts of the job's other
-    check runs are judged again without it, and any stored influence set scored from
-    it is left as it was (the audit trail says why). Errors name ``reason``.
+    check runs are judged again without it. A stored influence set's last prediction
+    score, if a struck check run gave it, stays as it was. Errors name ``reason``.
     """
     require(by, "strike_runs")
     if run.job_id != job.id:

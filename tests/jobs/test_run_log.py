@@ -349,3 +349,16 @@ def test_run_form_focus_one_form_for_both_planes_and_one_caution_block(
     assert body.count("a thrown mass is a projectile") == 1
     advice = re.search(r'<div id="trial-advice">.*?</div>', body, re.S)
     assert advice is not None and "projectile" in advice.group(0)
+
+
+def test_a_correction_cannot_answer_a_struck_run(db, op, shop, calibrated) -> None:
+    from shopapp.jobs.corrections import record_correction
+
+    job = book(db, op, calibrated, shop.rotor_type())
+    run = record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+                     readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
+    strike_run(db, job, run, by=op, reason="wrong job")
+    with pytest.raises(ValidationFailed) as exc:
+        record_correction(db, job, by=op, run_id=run.id, plane=1, action="add", mass_g=10.0,
+                          angle_deg=190.0, radius_mm=300.0)
+    assert exc.value.field == "run_id" and "struck out" in exc.value.message
