@@ -362,3 +362,32 @@ def test_a_correction_cannot_answer_a_struck_run(db, op, shop, calibrated) -> No
         record_correction(db, job, by=op, run_id=run.id, plane=1, action="add", mass_g=10.0,
                           angle_deg=190.0, radius_mm=300.0)
     assert exc.value.field == "run_id" and "struck out" in exc.value.message
+
+
+def test_shop_measures_judge_first_pass_without_the_struck_check(db, op, shop, calibrated,
+                                                                 make_user) -> None:
+    """README, "Shop measures": first pass is the first check after the first correction.
+    A struck check (a slip that read in tolerance) must not be that check: the real one,
+    out of tolerance, is — 1 job judged, 0 first-pass (counted by hand)."""
+    from shopapp.jobs.corrections import record_correction
+    from shopapp.measures.periods import Period
+    from shopapp.measures.services import period_figures
+
+    job = book(db, op, calibrated, shop.rotor_type())
+    initial = record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+                         readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
+    record_correction(db, job, by=op, run_id=initial.id, plane=1, action="add", mass_g=16.7,
+                      angle_deg=190.0, radius_mm=300.0)
+    slip = record_run(db, job, by=op, purpose="check", speed_rpm=600,
+                      readings=[(1, 4.0, 10.0, "g·mm"), (2, 4.0, 100.0, "g·mm")])
+    strike_run(db, job, slip, by=op, reason="readings of another rotor")
+    record_run(db, job, by=op, purpose="check", speed_rpm=600,
+               readings=[(1, 4000.0, 10.0, "g·mm"), (2, 4000.0, 10.0, "g·mm")])
+    record_run(db, job, by=op, purpose="check", speed_rpm=600,
+               readings=[(1, 4.0, 10.0, "g·mm"), (2, 4.0, 100.0, "g·mm")])
+    mark_in_tolerance(db, job, by=op)
+    db.commit()
+    today = utcnow().date()
+    f = period_figures(db, Period(today, today), by=make_user("owner"), today=today)
+    assert f.reached_in_tolerance == 1  # type: ignore[union-attr]
+    assert (f.first_pass_judged, f.first_pass_jobs) == (1, 0)  # type: ignore[union-attr]
