@@ -165,7 +165,10 @@ def _mix(client: Client, job_id: int, owner: Client, step: int) -> tuple[str, in
         return "home", client.get("/")[0]
     _, page = client.get(f"/jobs/{job_id}")
     speed = re.search(r'name="run-speed_rpm"[^>]*value="([^"]*)"', page)
-    unit = re.search(r'name="run-unit".*?<option[^>]*value="([^"]+)"[^>]*selected', page, re.S)
+    # The form starts in the machine's unit (the only one it accepts): take the selected one.
+    select = re.search(r'<select[^>]*name="run-unit"[^>]*>(.*?)</select>', page, re.S)
+    unit = select and re.search(r'<option(?=[^>]*\bselected\b)[^>]*value="([^"]+)"',
+                                select.group(1))
     status, _ = client.post(f"/jobs/{job_id}/runs", {
         "run-form_token": _hidden(page, "run-form_token"),
         "run-purpose": "check", "run-speed_rpm": speed.group(1) if speed else "600",

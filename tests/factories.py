@@ -79,6 +79,7 @@ class ShopFactory:
             "max_speed_rpm": 3000.0,
             "claimed_emar_gmm_per_kg": 0.5,
             "verification_interval_days": 365,
+            "reading_unit": "g·mm",
         }
         values.update(kw)
         return self._add(Machine(**values))

@@ -8,12 +8,23 @@ import hashlib
 import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
-from sqlalchemy import delete, inspect, text, update
+from sqlalchemy import delete, inspect, select, text, update
 from sqlalchemy.exc import DBAPIError, IntegrityError
 
 from shopapp.core import schema
 from shopapp.core.database import make_engine
-from shopapp.models import Base, Certificate, Customer, Job, Rotor, RotorType, Run, RunReading
+from shopapp.models import (
+    Base,
+    Certificate,
+    Customer,
+    Job,
+    Machine,
+    Rotor,
+    RotorType,
+    Run,
+    RunReading,
+    utcnow,
+)
 
 
 def _refused(db, obj) -> None:
@@ -324,3 +335,43 @@ def test_downgrading_0003_restores_the_0001_certificate_guard(fresh_database_url
     finally:
         eng.dispose()
     assert after == before
+
+
+def test_0012_gives_existing_machines_the_unit_their_runs_were_logged_in(
+        fresh_database_url: str) -> None:
+    """Issue 11: machines had no reading unit; the upgrade takes the unit most of a
+    machine's run readings are in, g·mm (the old form default) when it has no runs.
+    Rows made at head survive a downgrade below 0012 and the upgrade back."""
+    from sqlalchemy.orm import Session
+
+    from tests.factories import ShopFactory, user
+
+    schema.upgrade(fresh_database_url, "head")
+    before_0012 = schema._scripts().get_revision("0012").down_revision
+    eng = make_engine(fresh_database_url)
+    try:
+        with Session(eng) as s:
+            shop = ShopFactory(s)
+            vib, idle = shop.machine(reading_unit="mm/s"), shop.machine(reading_unit="um")
+            job = shop.job(machine_id=vib.id)
+            op = user(s, username="u12", role="operator", password="correct-horse-42",
+                      full_name="U Twelve")
+            for seq, unit in ((1, "mm/s"), (2, "mm/s"), (3, "um")):
+                run = Run(job_id=job.id, seq=seq, purpose="initial", speed_rpm=600.0)
+                run.readings = [RunReading(plane=1, amplitude=2.0, angle_deg=10.0, unit=unit)]
+                s.add(run)
+            s.flush()
+            run.struck_at, run.struck_by_id, run.struck_reason = utcnow(), op.id, "typo"
+            s.commit()
+            ids = (vib.id, idle.id, run.id)
+        eng.dispose()
+        schema.downgrade(fresh_database_url, before_0012)
+        schema.upgrade(fresh_database_url, "head")
+        with Session(eng) as s:
+            assert s.get(Machine, ids[0]).reading_unit == "mm/s"  # 2 of its 3 readings
+            assert s.get(Machine, ids[1]).reading_unit == "g·mm"  # no runs: check its page
+            assert s.get(Machine, ids[0]).reading_planes == 2
+            assert s.get(Run, ids[2]).struck_at is None  # the downgrade dropped the marks
+            assert len(s.scalars(select(RunReading)).all()) == 3  # and no reading was lost
+    finally:
+        eng.dispose()

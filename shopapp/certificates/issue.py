@@ -101,7 +101,8 @@ class JobEvidence:
 def _load_job(session: Session, job: Job, as_of: dt.datetime | None = None
               ) -> tuple[list[Run], list[Correction], list[InfluenceSet]]:
     """The job's runs, corrections and stored sets; with ``as_of`` only what existed then."""
-    run_q = select(Run).where(Run.job_id == job.id)
+    # Struck-out runs are no evidence (and cannot be struck once a certificate is valid).
+    run_q = select(Run).where(Run.job_id == job.id, Run.struck_at.is_(None))
     corr_q = select(Correction).where(Correction.job_id == job.id)
     if as_of is not None:
         run_q = run_q.where(Run.taken_at <= as_of)

@@ -1,8 +1,9 @@
 """Form fields every feature's forms share, the confirm-button form, and the one mapper
 from a use-case's field errors to a form.
 
-WTForms' FloatField takes "nan", "inf" and "1e999" as numbers; a shop form must
-not, so :class:`NumberField` refuses them with a message a person understands.
+WTForms' FloatField takes "nan", "inf" and "1e999" as numbers, and Python's float
+takes "1_5" as 15; a shop form must not, so :class:`NumberField` refuses them with a
+message a person understands and reads a decimal comma without changing a magnitude.
 """
 
 from __future__ import annotations
@@ -33,30 +34,71 @@ def _raw(valuelist: list[Any]) -> str | None:
     return raw or None
 
 
+def parse_number(raw: str) -> float:
+    """A typed decimal number as a float, or ValueError with a message for the person.
+
+    The one place a typed number is read, so a magnitude is never changed on the way:
+    a decimal comma is read as a point ("1,5" is 1.5); anything a thousands separator
+    could be part of is refused rather than guessed ("1,500", "1.234,5", "1,234.5",
+    "1 500"), and so are Python's digit underscores ("1_5" would silently be 15).
+    """
+    if len(raw) > MAX_NUMBER_CHARS:
+        raise ValueError(f"Not a number: at most {MAX_NUMBER_CHARS} characters.")
+    if any(ch.isspace() for ch in raw) or "_" in raw:
+        raise ValueError(f"Not a number: {raw!r}. Type it without spaces or separators "
+                         "between the digits, e.g. 1500 or 1.5.")
+    text = raw
+    if "," in raw:
+        whole, _, fraction = raw.partition(",")
+        if "." in raw or "," in fraction:
+            raise ValueError(f"{raw!r} has a thousands separator: type it with one decimal "
+                             "point and no separators, e.g. 1234.5.")
+        if len(fraction) == 3 and fraction.isdigit() and whole.lstrip("+-") not in ("", "0"):
+            raise ValueError(f"{raw!r} could be {whole}.{fraction} or {whole}{fraction}: "
+                             "type it with a decimal point, e.g. 1.5 or 1500.")
+        text = f"{whole}.{fraction}"
+    try:
+        value = float(text)
+    except ValueError:
+        raise ValueError(f"Not a number: {raw!r}. Type digits, e.g. 12.5.") from None
+    if not math.isfinite(value):
+        raise ValueError(f"{raw!r} is not allowed: type a finite number, e.g. 12.5.")
+    return value
+
+
 class NumberField(FloatField):
-    """A decimal number; empty is None; NaN, infinity, commas and junk are refused."""
+    """A decimal number; empty is None; NaN, infinity and ambiguous separators are refused
+    (:func:`parse_number`)."""
 
     def process_formdata(self, valuelist: list[Any]) -> None:
         raw = _raw(valuelist)
         self.data = None
         if raw is None:
             return
-        if len(raw) > MAX_NUMBER_CHARS:
-            raise ValueError(f"Not a number: at most {MAX_NUMBER_CHARS} characters.")
-        if "," in raw:
-            raise ValueError("Use a point as the decimal separator, e.g. 12.5 (no commas).")
-        try:
-            value = float(raw)
-        except ValueError:
-            raise ValueError(f"Not a number: {raw!r}. Type digits, e.g. 12.5.") from None
-        if not math.isfinite(value):
-            raise ValueError(f"{raw!r} is not allowed: type a finite number, e.g. 12.5.")
-        self.data = value
+        self.data = self.check(raw, parse_number(raw))
+
+    def check(self, raw: str, value: float) -> float:
+        """Hook for a subclass's range; returns the value kept."""
+        return value
 
     def _value(self) -> str:
         if self.raw_data:
             return str(self.raw_data[0])
         return "" if self.data is None else f"{self.data:g}"
+
+
+class AngleField(NumberField):
+    """An angle as the machine or the rotor shows it, 0–360°; anything else is refused.
+
+    Never wrapped: 400° is more likely a slip than "a turn and 40°", and a wrapped
+    angle would put a mass in the wrong place.
+    """
+
+    def check(self, raw: str, value: float) -> float:
+        if not 0.0 <= value <= 360.0:
+            raise ValueError(f"{raw}° is outside 0–360°: type the angle as shown (it is not "
+                             f"wrapped to {value % 360.0:g}° for you).")
+        return value
 
 
 class WholeNumberField(IntegerField):

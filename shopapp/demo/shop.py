@@ -138,6 +138,7 @@ class Shop:
                          "claimed_emar_gmm_per_kg": m.claimed_emar_gmm_per_kg,
                          "claimed_urr_pct": m.claimed_urr_pct,
                          "suspension_resonance_rpm": m.suspension_resonance_rpm,
+                         "reading_unit": m.reading_unit, "reading_planes": 2,
                          "verification_interval_days": m.verification_interval_days,
                          "notes": m.notes, "archived": False, "created_at": t_setup})
             store.audit(t_setup, self.admin_id, "machine", mid, "create",

@@ -44,6 +44,7 @@ from shopapp.balancing.phasors import amplitude_angle, phasor
 from shopapp.charts import Figure
 from shopapp.charts.polar import PolarVector, polar_figure
 from shopapp.core.display import plain, quantity
+from shopapp.jobs import limits
 from shopapp.jobs.advice import DEFAULT_DRILL_DIAMETER_MM, CorrectionAdvice, plane_advice
 from shopapp.models import Correction, InfluenceSet, Job, Machine, RotorType, Run
 
@@ -52,6 +53,21 @@ CALIBRATED_UNIT = "g·mm"
 JUDGED_PURPOSES = ("initial", "check", "final")
 CHECK_PURPOSES = ("check", "final")
 TOLERANCE_LABELS = {"grade": "ISO 21940-11", "4w/n": "4W/N (API-style)", "explicit": "customer"}
+# The job page says these once, in its one safety block (PAGE_CAUTION); they are not
+# repeated beside each piece of advice. What is left is specific to a trial mass.
+PAGE_CAUTION = (
+    "Never run above the rotor's permitted speed or the balancing machine maker's limits: "
+    "over-speed can burst the rotor or throw its masses. Run only with the guard closed and "
+    "everyone clear of the plane of rotation; secure every trial and correction mass. Local "
+    "codes, the rotor and machine makers' instructions and licensed practice take precedence "
+    "over this advice."
+)
+COVERED_BY_PAGE_CAUTION = frozenset({
+    dynamics.SPEED_CAUTION,
+    influence.TRIAL_MASS_CAUTIONS[1],  # guard closed, clear of the plane of rotation
+    influence.TRIAL_MASS_CAUTIONS[2],  # never exceed the permitted speed
+    influence.TRIAL_MASS_CAUTIONS[4],  # local codes and makers' limits first
+})
 
 
 # --------------------------------------------------------------------------- data
@@ -178,8 +194,10 @@ class JobCalc:
     verdicts: dict[int, RunVerdict] = field(default_factory=dict)
     last_check: RunVerdict | None = None
     warnings: list[str] = field(default_factory=list)
+    # Cautions beyond the page's safety block (PAGE_CAUTION), and those of a trial mass.
     cautions: list[str] = field(default_factory=list)
     trial_advice: list[influence.TrialMassAdvice] = field(default_factory=list)
+    trial_cautions: list[str] = field(default_factory=list)
 
     @property
     def in_tolerance(self) -> bool:
@@ -561,15 +579,15 @@ def _core_warnings(job: Job, rt: RotorType, machine: Machine | None, calc: JobCa
             adv = dynamics.balancing_speed_advice(
                 machine.bearing_kind, machine.suspension_resonance_rpm,
                 proposed_speed_rpm=job.balancing_speed_rpm,
-                max_permitted_speed_rpm=min(machine.max_speed_rpm, job.service_speed_rpm),
+                max_permitted_speed_rpm=limits.highest_speed_rpm(machine, rt,
+                                                                 job.service_speed_rpm),
                 first_critical_rpm=rt.first_critical_rpm,
             )
             calc.warnings.extend(f"Balancing speed: {w}." for w in adv.warnings)
-            calc.cautions.extend(c for c in adv.cautions if c not in calc.cautions)
+            calc.cautions.extend(c for c in adv.cautions
+                                 if c not in calc.cautions and c not in COVERED_BY_PAGE_CAUTION)
         except BalancingInputError as exc:
             calc.warnings.append(f"Speed advice not computed: {exc}")
-    elif machine is not None:
-        calc.cautions.append(dynamics.SPEED_CAUTION)
     if machine is not None and machine.claimed_emar_gmm_per_kg is not None and calc.tolerance:
         u_mar = machine.claimed_emar_gmm_per_kg * rt.mass_kg
         if u_mar > min(calc.tolerance.plane_limits_gmm):
@@ -683,7 +701,8 @@ def _trial_mass_advice(job: Job, rt: RotorType, calc: JobCalc) -> None:
         except BalancingInputError:
             continue
         calc.trial_advice.append(adv)
-        calc.cautions.extend(c for c in adv.cautions if c not in calc.cautions)
+        calc.trial_cautions.extend(c for c in adv.cautions if c not in calc.trial_cautions
+                                   and c not in COVERED_BY_PAGE_CAUTION)
 
 
 # --------------------------------------------------------------------------- polar plot

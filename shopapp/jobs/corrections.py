@@ -93,6 +93,8 @@ def record_correction(
         run = session.get(Run, run_id) if isinstance(run_id, int) else None
         if run is None or run.job_id != job.id:
             e.add("run_id", "must be a run of this job")
+        elif run.struck_at is not None:
+            e.add("run_id", f"run {run.seq} was struck out: a correction cannot answer it")
     cols: dict[str, Any] = {
         "mass_g": _num(e, "mass_g", mass_g, above=0, maximum=1e6, unit="g"),
         "angle_deg": _num(e, "angle_deg", angle_deg, minimum=-1e6, maximum=1e6),

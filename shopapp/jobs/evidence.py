@@ -341,7 +341,8 @@ def job_traceability(session: Session, job: Job, calc: job_calc.JobCalc | None =
         out.received_standing = traceability.status_from_records(job.machine, records,
                                                                  job.received_on, soon)
         runs = session.execute(
-            select(Run.seq, Run.taken_at).where(Run.job_id == job.id).order_by(Run.seq)
+            select(Run.seq, Run.taken_at).where(Run.job_id == job.id, Run.struck_at.is_(None))
+            .order_by(Run.seq)
         ).all()
         for seq, taken in runs:
             day = taken.astimezone(dt.UTC).date()

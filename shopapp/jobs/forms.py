@@ -24,7 +24,7 @@ from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import forms
 from shopapp.core.checks import PROMISE_AHEAD_DAYS, plain_digits
 from shopapp.core.display import plain
-from shopapp.core.forms import DayField, NumberField, OnceForm, WholeNumberField
+from shopapp.core.forms import AngleField, DayField, NumberField, OnceForm, WholeNumberField
 from shopapp.models import CORRECTION_METHODS, READING_UNITS, ROTOR_KINDS, RUN_PURPOSES
 
 _NUMBER = "Required: type a number."
@@ -157,13 +157,13 @@ class RunForm(OnceForm):
                        choices=options([(u, UNIT_LABELS[u]) for u in READING_UNITS]),
                        default="g·mm")
     amplitude_1 = NumberField("Plane 1 amplitude", validators=[InputRequired(_NUMBER)])
-    angle_1_deg = NumberField("Plane 1 angle (°)", validators=[InputRequired(_NUMBER)])
+    angle_1_deg = AngleField("Plane 1 angle (°)", validators=[InputRequired(_NUMBER)])
     amplitude_2 = NumberField("Plane 2 amplitude", validators=[Optional()])
-    angle_2_deg = NumberField("Plane 2 angle (°)", validators=[Optional()])
+    angle_2_deg = AngleField("Plane 2 angle (°)", validators=[Optional()])
     trial_plane = ChoiceField("Trial mass in plane", coerce=str,
                               choices=options([("", "—"), ("1", "1"), ("2", "2")]), default="")
     trial_mass_g = NumberField("Trial mass (g)", validators=[Optional()])
-    trial_angle_deg = NumberField("Trial mass angle (°)", validators=[Optional()])
+    trial_angle_deg = AngleField("Trial mass angle (°)", validators=[Optional()])
     trial_radius_mm = NumberField("Trial mass radius (mm)", validators=[Optional()])
     earlier_trial_left_on = BooleanField("The earlier trial mass is still on")
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
@@ -183,7 +183,7 @@ class CorrectionForm(OnceForm):
     action = ChoiceField("Action", choices=options([("add", "added"), ("remove", "removed")]),
                          default="add")
     mass_g = NumberField("Mass (g)", validators=[InputRequired(_NUMBER)])
-    angle_deg = NumberField("Angle (°)", validators=[InputRequired(_NUMBER)])
+    angle_deg = AngleField("Angle (°)", validators=[InputRequired(_NUMBER)])
     radius_mm = NumberField("Radius (mm)", validators=[InputRequired(_NUMBER)])
     split = StringField("Split onto positions (position:grams, …)",
                         validators=[Optional(), Length(max=500)])
@@ -192,6 +192,14 @@ class CorrectionForm(OnceForm):
     drill_holes = WholeNumberField("Holes", validators=[Optional()])
     advised_mass_g = HiddenField()
     advised_angle_deg = HiddenField()
+
+
+class StrikeForm(FlaskForm):
+    """Strike a mistaken run out of the calculations (it stays in the log)."""
+
+    reason = TextAreaField("Why is this run struck out?",
+                           validators=[InputRequired("Give the reason: it is kept with the run."),
+                                       Length(max=500)])
 
 
 class StateForm(FlaskForm):

@@ -24,12 +24,12 @@ from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import date as _date
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import text as _text
-from shopapp.core.display import plain, quantity
+from shopapp.core.display import plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
 from shopapp.jobs import calc as job_calc
-from shopapp.jobs import residual_tests
+from shopapp.jobs import limits, residual_tests
 from shopapp.jobs.queries import open_job_of
 from shopapp.models import (
     JOB_KINDS,
@@ -110,19 +110,6 @@ def _tolerance_columns(e: _Errors, spec: ToleranceSpec | None, rt: RotorType | N
         e.add("tolerance_method", f"{str(spec.method)[:20]!r} is not allowed; choose grade, "
               "4w/n or explicit")
     return out
-
-
-def check_machine_capacity(machine: Machine, *, mass_kg: float, speed_rpm: float) -> None:
-    """Refuse a rotor the machine cannot take (mass range) or a speed outside its range."""
-    e = _Errors()
-    if not machine.min_mass_kg <= mass_kg <= machine.max_mass_kg:
-        e.add("machine_id", f"{machine.name} takes rotors of {plain(machine.min_mass_kg)}–"
-              f"{plain(machine.max_mass_kg)} kg; this rotor is {plain(mass_kg)} kg")
-    if not machine.min_speed_rpm <= speed_rpm <= machine.max_speed_rpm:
-        e.add("balancing_speed_rpm", f"{machine.name} runs at {plain(machine.min_speed_rpm)}–"
-              f"{quantity(machine.max_speed_rpm, 'rpm')}; {quantity(speed_rpm, 'rpm')} is "
-              "outside that range")
-    e.raise_if_any()
 
 
 # --------------------------------------------------------------------------- book in
@@ -270,7 +257,11 @@ def _book_in_rows(
     rt = rotor.rotor_type
     cols = _tolerance_columns(e, tolerance, rt)
     e.raise_if_any()
-    check_machine_capacity(machine, mass_kg=rt.mass_kg, speed_rpm=bal)
+    limits.check_machine_capacity(e, machine, mass_kg=rt.mass_kg)
+    limits.check_reading_planes(e, "machine_id", rt.planes, machine)
+    limits.check_speed(e, "balancing_speed_rpm", bal, machine=machine, rotor_type=rt,
+                       service_speed_rpm=svc or rt.service_speed_rpm)
+    e.raise_if_any()
     # Traceability: an overdue (or failed) machine cannot be chosen for a new job.
     for day in sorted({received, today()}):
         try:
@@ -286,10 +277,6 @@ def _book_in_rows(
         residual_test_required=residual_tests.default_residual_test_required(
             cust, cols["tolerance_method"]), **cols,
     )
-    if job.balancing_speed_rpm > job.service_speed_rpm:
-        raise ValidationFailed("balancing_speed_rpm", f"{quantity(bal, 'rpm')} is above the "
-                               f"service speed {quantity(job.service_speed_rpm, 'rpm')}: "
-                               "over-speed risk")
     try:
         job_calc.job_tolerance(job, rt)
     except BalancingInputError as exc:

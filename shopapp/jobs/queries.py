@@ -52,7 +52,9 @@ def load_job(session: Session, job_id: int) -> Job:
             joinedload(Job.machine),
             joinedload(Job.operator),
             joinedload(Job.return_of),
-            selectinload(Job.runs).selectinload(Run.readings),
+            selectinload(Job.run_log).selectinload(Run.readings),
+            selectinload(Job.run_log).joinedload(Run.struck_by),
+            selectinload(Job.runs),
             selectinload(Job.corrections),
             selectinload(Job.transitions),
         )

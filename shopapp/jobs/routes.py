@@ -28,7 +28,7 @@ from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
 from shopapp.core.web import acting_user, get_or_404, once, page_size, requires, saved_row
 from shopapp.jobs import calc as job_calc
-from shopapp.jobs import corrections, intake, queries, runs, states
+from shopapp.jobs import corrections, intake, limits, queries, runs, states
 from shopapp.jobs.advice import DEFAULT_DRILL_DIAMETER_MM
 from shopapp.jobs.forms import (
     CorrectionForm,
@@ -37,10 +37,11 @@ from shopapp.jobs.forms import (
     ReturnForm,
     RunForm,
     StateForm,
+    StrikeForm,
     options,
     parse_split,
 )
-from shopapp.models import JOB_KINDS, JOB_STATES, Job
+from shopapp.models import JOB_KINDS, JOB_STATES, Job, Run
 
 bp = Blueprint("jobs", __name__, url_prefix="/jobs", template_folder="templates")
 
@@ -235,7 +236,8 @@ def _correction_forms(job: Job, calc: job_calc.JobCalc, disp: ShopDisplay
 def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None = None,
                    corr_forms: dict[int, CorrectionForm] | None = None,
                    state_form: StateForm | None = None, state_action: str = "",
-                   return_form: ReturnForm | None = None, page_error: str = "",
+                   return_form: ReturnForm | None = None,
+                   strike_form: tuple[int, StrikeForm] | None = None, page_error: str = "",
                    loose: list[str] | None = None):  # type: ignore[no-untyped-def]
     sess = db_session()
     job = queries.load_job(sess, job_id)
@@ -250,7 +252,10 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
         run_form.speed_rpm.data = job.balancing_speed_rpm
         last = job.runs[-1] if job.runs else None
         run_form.purpose.data = "check" if job.corrections else ("trial" if last else "initial")
-        if last is not None and last.readings:
+        # The machine says what its readings are; a job without one keeps its last unit.
+        if job.machine is not None:
+            run_form.unit.data = job.machine.reading_unit
+        elif last is not None and last.readings:
             run_form.unit.data = last.readings[0].unit
         run_form.trial_radius_mm.data = rt.radius_1_mm
     forms = _correction_forms(job, calc, disp)
@@ -261,6 +266,10 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
         state_forms[state_action] = state_form
     if return_form is None:
         return_form = ReturnForm(prefix="ret", formdata=None)
+    strike_forms = {r.id: StrikeForm(prefix=f"strike-{r.id}", formdata=None)
+                    for r in job.run_log if r.struck_at is None}
+    if strike_form is not None and strike_form[0] in strike_forms:
+        strike_forms[strike_form[0]] = strike_form[1]
     trail = queries.job_audit_trail(sess, job.id)
     returns = queries.return_jobs_of(sess, job.id)
     now = dt.datetime.now(dt.UTC)
@@ -268,6 +277,10 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
         "jobs/detail.html", job=job, rt=rt, calc=calc, disp=disp,
         svgs=[to_svg(fig, css_class="chart polar") for fig in figures],
         run_form=run_form, corr_forms=forms, state_forms=state_forms, return_form=return_form,
+        strike_forms=strike_forms, can_strike=can(current_user, "strike_runs")
+        and job.state in runs.STRIKE_STATES,
+        page_caution=job_calc.PAGE_CAUTION,
+        permitted_speed_rpm=limits.highest_speed_rpm(job.machine, rt, job.service_speed_rpm),
         actions=actions, trail=trail, returns=returns, now=now,
         page_error=page_error, loose=loose or [], can_work=jobs_can_work(),
         drill_mm=_drill_diameter() or DEFAULT_DRILL_DIAMETER_MM,
@@ -322,6 +335,26 @@ def add_run(job_id: int):  # type: ignore[no-untyped-def]
         return _failed(job_id, exc, form, run_form=form,
                        mapping={"readings": form.amplitude_1, "trial_plane": form.trial_plane})
     flash(f"Run {run.seq} ({run.purpose}) logged.", "success")
+    return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
+
+
+@bp.post("/<int:job_id>/runs/<int:run_id>/strike")
+@requires("strike_runs")
+def strike_run(job_id: int, run_id: int):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = get_or_404(sess, Job, job_id)
+    run = get_or_404(sess, Run, run_id)
+    if run.job_id != job.id:
+        abort(404, description="No such run on this job.")
+    form = StrikeForm(prefix=f"strike-{run_id}")
+    if not form.validate_on_submit():
+        return _render_detail(job_id, status=422, strike_form=(run_id, form))
+    try:
+        runs.strike_run(sess, job, run, by=acting_user(), reason=form.reason.data or "")
+        sess.commit()
+    except ServiceError as exc:
+        return _failed(job_id, exc, form, strike_form=(run_id, form))
+    flash(f"Run {run.seq} struck out: it stays in the log and counts for nothing.", "success")
     return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
 
 

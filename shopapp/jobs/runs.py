@@ -1,8 +1,11 @@
-"""Runs: log a run of the rotor on the machine with its per-plane readings (and trial mass).
+"""Runs: log a run of the rotor on the machine with its per-plane readings (and trial mass),
+or strike a mistaken one out.
 
 A use-case (docs/architecture.md, "Inside a feature package"). The rotor's number
 of correction planes decides which readings a run needs: every plane of the
-rotor, and none beyond them.
+rotor, and none beyond them. The machine decides the reading unit and the speed
+range, the rotor its permitted speed (:mod:`shopapp.jobs.limits`). A struck-out
+run stays in the log but counts for nothing (``Job.runs`` leaves it out).
 """
 
 from __future__ import annotations
@@ -18,13 +21,14 @@ from shopapp.core import audit, locks
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import text as _text
-from shopapp.core.errors import TransitionRefused
+from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.jobs import calc as job_calc
+from shopapp.jobs import limits
 from shopapp.jobs.learning import score_stored_set
 from shopapp.jobs.queries import evaluate
 from shopapp.jobs.states import REOPEN_FROM, start
-from shopapp.models import READING_UNITS, RUN_PURPOSES, Job, Run, RunReading, User
+from shopapp.models import READING_UNITS, RUN_PURPOSES, Job, Run, RunReading, User, utcnow
 from shopapp.registry.common import MAX_SPEED_RPM
 
 RUN_STATES = frozenset({"booked_in", "on_machine"})
@@ -35,6 +39,17 @@ Trial = tuple[int, float, float, float]
 
 def _blank(value: Any) -> bool:
     return value is None or (isinstance(value, str) and not value.strip())
+
+
+def _angle(e: _Errors, field: str, value: Any) -> float | None:
+    """An internal angle within one turn either way, −360…360° (stored as 0…360°).
+
+    A person's typed angle is refused outside 0–360° by the form
+    (:class:`shopapp.core.forms.AngleField`) before the shop convention is taken off;
+    here a caller's phase angle (−180…180° from ``atan2``) is fine, but more than a
+    turn is refused, never wrapped.
+    """
+    return _num(e, field, value, minimum=-360.0, maximum=360.0, unit="°")
 
 
 def _readings(e: _Errors, readings: Sequence[Any], planes: int
@@ -66,8 +81,7 @@ def _readings(e: _Errors, readings: Sequence[Any], planes: int
                 e.add(field, needed)
         amp = None if _blank(amplitude) else _num(e, f"amplitude_{plane}", amplitude,
                                                    minimum=0.0, maximum=1e9)
-        ang = None if _blank(angle) else _num(e, f"angle_{plane}_deg", angle, minimum=-1e6,
-                                               maximum=1e6, unit="°")
+        ang = None if _blank(angle) else _angle(e, f"angle_{plane}_deg", angle)
         if unit not in READING_UNITS:
             e.add("unit", f"{str(unit)[:12]!r} is not a reading unit; use one of "
                   + ", ".join(READING_UNITS))
@@ -94,7 +108,7 @@ def _trial_columns(e: _Errors, trial: Any, planes: int) -> dict[str, Any]:
     cols: dict[str, Any] = {
         "trial_plane": t_plane,
         "trial_mass_g": _num(e, "trial_mass_g", t_mass, above=0, maximum=1e6, unit="g"),
-        "trial_angle_deg": _num(e, "trial_angle_deg", t_angle, minimum=-1e6, maximum=1e6),
+        "trial_angle_deg": _angle(e, "trial_angle_deg", t_angle),
         "trial_radius_mm": _num(e, "trial_radius_mm", t_radius, above=0, maximum=1e5,
                                 unit="mm"),
     }
@@ -120,7 +134,9 @@ def record_run(
     Every correction plane of the rotor needs its reading, and a single-plane
     rotor takes none for plane 2. ``trial = (plane, mass_g, angle_deg,
     radius_mm)`` for trial runs only. The first run moves a booked-in job onto
-    the machine. Angles are normalised to [0, 360). Errors name the form fields
+    the machine. Angles of −360…360° are stored as [0, 360); beyond a turn they
+    are refused. The speed must suit the machine and the rotor and the unit must
+    be the machine's (:mod:`shopapp.jobs.limits`). Errors name the form fields
     ``amplitude_<plane>``, ``angle_<plane>_deg``, ``unit``, ``trial_*``,
     ``speed_rpm``, ``purpose``.
     """
@@ -136,8 +152,16 @@ def record_run(
         e.add("purpose", f"{str(purpose)[:20]!r} is not allowed; choose "
               + ", ".join(RUN_PURPOSES))
     speed = _num(e, "speed_rpm", speed_rpm, above=0, maximum=MAX_SPEED_RPM, unit="rpm")
+    if speed is not None:
+        limits.check_speed(e, "speed_rpm", speed, machine=job.machine,
+                           rotor_type=job.rotor.rotor_type,
+                           service_speed_rpm=job.service_speed_rpm)
+    limits.check_reading_planes(e, "amplitude_2", planes, job.machine)
     note_text = _text(e, "notes", notes)
     clean = _readings(e, readings, planes)
+    if "unit" not in e:
+        for unit in {u for _, _, u in clean.values()}:
+            limits.check_reading_unit(e, unit, job.machine)
     trial_cols: dict[str, Any] = {}
     if purpose == "trial":
         if trial is None:
@@ -162,6 +186,7 @@ def record_run(
                     for p, (a, g, u) in sorted(clean.items())]
     session.add(run)
     session.flush()
+    session.expire(job, ["runs"])  # the counted runs are a read-only view: reload them
     if purpose in job_calc.CHECK_PURPOSES:
         # Stored so the shop measures (first-pass rate) can read the verdict in SQL.
         verdict = evaluate(session, job).verdicts.get(run.id)
@@ -176,4 +201,48 @@ def record_run(
     )
     if purpose in job_calc.CHECK_PURPOSES:
         score_stored_set(session, job, run, by=by)
+    return run
+
+
+STRIKE_STATES = RUN_STATES
+
+
+def strike_run(session: Session, job: Job, run: Run, *, by: User, reason: str) -> Run:
+    """Strike a mistaken run out: it stays in the log, marked, and counts for nothing.
+
+    Never deleted. Allowed while the job is booked in or on the machine (a certified
+    job's evidence is frozen; reopen it first). The stored verdicts of the job's other
+    check runs are judged again without it. A stored influence set's last prediction
+    score, if a struck check run gave it, stays as it was. Errors name ``reason``.
+    """
+    require(by, "strike_runs")
+    if run.job_id != job.id:
+        raise ValidationFailed("run_id", f"run {run.id} is not a run of job {job.number}")
+    if job.state not in STRIKE_STATES:
+        raise TransitionRefused(
+            f"Job {job.number} is {job.state.replace('_', ' ')}: runs are struck out while it "
+            "is on the machine" + (" (reopen it first)" if job.state in REOPEN_FROM else "."))
+    if run.struck_at is not None:
+        raise TransitionRefused(f"Run {run.seq} was already struck out.")
+    e = _Errors()
+    why = _text(e, "reason", reason, max_len=500, required=True)
+    e.raise_if_any()
+    locks.hold_row(session, job)
+    run.struck_at = utcnow()
+    run.struck_by_id = by.id
+    run.struck_reason = why
+    session.flush()
+    session.expire(job, ["runs"])
+    # The shop measures read the stored verdicts: judge the remaining check runs again
+    # (a struck trial run changes the coefficients they were judged with).
+    run.within_tolerance = None
+    verdicts = evaluate(session, job).verdicts
+    for other in job.runs:
+        if other.purpose in job_calc.CHECK_PURPOSES:
+            v = verdicts.get(other.id)
+            other.within_tolerance = v.passed if v is not None and v.judged else None
+    session.flush()
+    audit.record(session, by=by, entity="run", entity_id=run.id, action="strike_run",
+                 job_id=job.id, before={"struck": False},
+                 after={"struck": True, "seq": run.seq, "reason": why})
     return run

@@ -221,7 +221,8 @@ def machine_seconds(
     if idle_seconds <= 0:
         raise ValidationFailed("idle_seconds", "must be longer than zero")
     start, stop = utc_start(p.start), utc_start(p.end + dt.timedelta(days=1))
-    ran = (select(Run.job_id).where(Run.taken_at >= start, Run.taken_at < stop)
+    ran = (select(Run.job_id).where(Run.taken_at >= start, Run.taken_at < stop,
+                                    Run.struck_at.is_(None))
            .cte("ran").prefix_with("MATERIALIZED"))
     is_reopen = and_(JobTransition.to_state == "on_machine",
                      JobTransition.from_state.in_(REWORK_FROM_STATES),
@@ -232,7 +233,7 @@ def machine_seconds(
     events = union_all(
         select(Run.job_id.label("job_id"), Run.taken_at.label("at"),
                literal_column("1", Integer).label("is_run"), Run.id.label("event_id"))
-        .where(Run.job_id.in_(select(ran.c.job_id))),
+        .where(Run.job_id.in_(select(ran.c.job_id)), Run.struck_at.is_(None)),
         select(JobTransition.job_id, JobTransition.at, literal_column("0", Integer),
                JobTransition.id).where(is_reopen),
     ).subquery("events")

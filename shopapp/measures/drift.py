@@ -185,7 +185,8 @@ def _visit_rows(session: Session, p: Period, scope: Scope) -> list[Any]:
         .subquery("ranked")
     )
     first_initial = (
-        select(Run.id).where(Run.job_id == ranked.c.job_id, Run.purpose == "initial")
+        select(Run.id).where(Run.job_id == ranked.c.job_id, Run.purpose == "initial",
+                             Run.struck_at.is_(None))
         .order_by(Run.seq).limit(1).correlate(ranked).scalar_subquery()
     )
     visits = (select(ranked, first_initial.label("run_id")).where(ranked.c.rn <= DRIFT_VISITS)

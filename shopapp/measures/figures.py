@@ -292,6 +292,7 @@ def _tolerance_cohort(
             check.job_id == Job.id,
             check.seq > first_step_seq,
             check.purpose.in_(CHECK_PURPOSES),
+            check.struck_at.is_(None),  # a struck-out run counts for nothing
         )
         .order_by(check.seq)
         .limit(1)

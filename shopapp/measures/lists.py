@@ -140,7 +140,7 @@ def rotors_getting_worse(
     # Each visit's first initial run: one index lookup per visit (run has (job_id, seq)).
     first_initial = (
         select(Run.id)
-        .where(Run.job_id == last.c.job_id, Run.purpose == "initial")
+        .where(Run.job_id == last.c.job_id, Run.purpose == "initial", Run.struck_at.is_(None))
         .order_by(Run.seq)
         .limit(1)
         .correlate(last)
@@ -225,7 +225,8 @@ def machine_status(
         )
         .select_from(Run)
         .join(Job, Job.id == Run.job_id)
-        .where(Run.taken_at >= start, Run.taken_at < stop, Job.machine_id.is_not(None))
+        .where(Run.taken_at >= start, Run.taken_at < stop, Job.machine_id.is_not(None),
+               Run.struck_at.is_(None))
         .group_by(Job.machine_id)
         .subquery("use")
     )

@@ -27,6 +27,7 @@ from shopapp.models.people import (
 )
 from shopapp.models.registry import (
     BEARING_KINDS,
+    CALIBRATED_READING_UNIT,
     CORRECTION_METHODS,
     KEY_CONVENTIONS,
     ROTATIONS,
@@ -61,6 +62,7 @@ __all__ = [
     "ANGLE_SENSES",
     "BACKUP_KINDS",
     "BEARING_KINDS",
+    "CALIBRATED_READING_UNIT",
     "CERTIFICATE_STATES",
     "CORRECTION_ACTIONS",
     "CORRECTION_METHODS",

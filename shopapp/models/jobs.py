@@ -30,13 +30,12 @@ from shopapp.models.base import (
     positive,
     utcnow,
 )
-from shopapp.models.registry import Customer, Machine, Rotor
+from shopapp.models.registry import READING_UNITS, Customer, Machine, Rotor
 
 JOB_STATES = ("booked_in", "on_machine", "in_tolerance", "certified", "dispatched", "rejected")
 JOB_KINDS = ("new", "return")
 TOLERANCE_METHODS = ("grade", "4w/n", "explicit")
 RUN_PURPOSES = ("initial", "trial", "check", "final", "verification")
-READING_UNITS = ("um", "mm/s", "g·mm", "mil", "in/s")
 CORRECTION_ACTIONS = ("add", "remove")
 
 
@@ -134,7 +133,14 @@ class Job(Base):
     machine: Mapped[Machine | None] = relationship()
     operator: Mapped[Any] = relationship("User")
     return_of: Mapped[Job | None] = relationship(remote_side="Job.id")
-    runs: Mapped[list[Run]] = relationship(back_populates="job", order_by="Run.seq")
+    # Every run ever logged, struck-out ones included: the run log shows them all.
+    run_log: Mapped[list[Run]] = relationship(back_populates="job", order_by="Run.seq")
+    # The runs that count: struck-out runs are left out of every calculation, so any
+    # code reading ``job.runs`` (verdicts, coefficients, advice, certificates) skips them.
+    runs: Mapped[list[Run]] = relationship(
+        primaryjoin="and_(Job.id == Run.job_id, Run.struck_at.is_(None))",
+        order_by="Run.seq", viewonly=True,
+    )
     corrections: Mapped[list[Correction]] = relationship(
         back_populates="job", order_by="Correction.id"
     )
@@ -193,6 +199,12 @@ class Run(Base):
             "AND trial_radius_mm IS NOT NULL)",
             name="trial_complete",
         ),
+        # A struck-out run says when, by whom and why, or none of it.
+        CheckConstraint(
+            "(struck_at IS NULL AND struck_by_id IS NULL AND struck_reason IS NULL) OR "
+            "(struck_at IS NOT NULL AND struck_by_id IS NOT NULL AND struck_reason <> '')",
+            name="struck_complete",
+        ),
     )
 
     id: Mapped[IntPK]
@@ -218,8 +230,15 @@ class Run(Base):
         ForeignKey("user_account.id", ondelete="RESTRICT"), index=True
     )
     taken_at: Mapped[Timestamp] = mapped_column(index=True)
+    # Struck out: a mistaken run stays in the log (never deleted) but counts for nothing.
+    struck_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime())
+    # No ON DELETE clause (NO ACTION refuses the delete all the same): SQLite adds the
+    # column with an inline REFERENCES, whose options SQLAlchemy cannot reflect.
+    struck_by_id: Mapped[int | None] = mapped_column(ForeignKey("user_account.id"), index=True)
+    struck_reason: Mapped[str | None] = mapped_column(Text)
 
-    job: Mapped[Job] = relationship(back_populates="runs")
+    job: Mapped[Job] = relationship(back_populates="run_log")
+    struck_by: Mapped[Any] = relationship("User", foreign_keys=[struck_by_id])
     readings: Mapped[list[RunReading]] = relationship(
         back_populates="run", order_by="RunReading.plane", cascade="all, delete-orphan"
     )

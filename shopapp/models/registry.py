@@ -26,6 +26,10 @@ CORRECTION_METHODS = ("add", "remove", "both")
 ROTATIONS = ("cw", "ccw")
 BEARING_KINDS = ("hard", "soft")
 KEY_CONVENTIONS = ("none", "half_key", "full_key")
+# What a balancing machine reads: "g·mm" is calibrated unbalance per correction plane;
+# µm (displacement), mm/s and in/s (velocity) and mil are vibration readings.
+READING_UNITS = ("um", "mm/s", "g·mm", "mil", "in/s")
+CALIBRATED_READING_UNIT = "g·mm"
 
 
 class Customer(Base):
@@ -74,6 +78,7 @@ class RotorType(Base):
         positive("radius_2_mm"),
         positive("density_g_cm3"),
         positive("first_critical_rpm"),
+        positive("permitted_balancing_speed_rpm"),
         positive("tolerance_grade"),
         positive("tolerance_gmm"),
         CheckConstraint("bearing_a_mm <> bearing_b_mm", name="bearings_apart"),
@@ -105,6 +110,9 @@ class RotorType(Base):
     mass_kg: Mapped[float] = mapped_column(Float, nullable=False)
     service_speed_rpm: Mapped[float] = mapped_column(Float, nullable=False)
     first_critical_rpm: Mapped[float | None] = mapped_column(Float)
+    # The highest speed the rotor may be spun at on a balancing machine; NULL = its
+    # service speed (see :attr:`permitted_speed_rpm`).
+    permitted_balancing_speed_rpm: Mapped[float | None] = mapped_column(Float)
     bearing_a_mm: Mapped[float] = mapped_column(Float, nullable=False)
     bearing_b_mm: Mapped[float] = mapped_column(Float, nullable=False)
     centre_of_mass_mm: Mapped[float] = mapped_column(Float, nullable=False)
@@ -142,6 +150,13 @@ class RotorType(Base):
         """1 for single-plane rotors, 2 for two-plane rotors."""
         return 1 if self.plane_2_mm is None else 2
 
+    @property
+    def permitted_speed_rpm(self) -> float:
+        """The permitted balancing speed, or the service speed when none is given."""
+        if self.permitted_balancing_speed_rpm is not None:
+            return self.permitted_balancing_speed_rpm
+        return self.service_speed_rpm
+
 
 class Rotor(Base):
     __tablename__ = "rotor"
@@ -176,6 +191,8 @@ class Machine(Base):
         CheckConstraint("min_mass_kg >= 0 AND min_mass_kg < max_mass_kg", name="mass_range"),
         CheckConstraint("min_speed_rpm >= 0 AND min_speed_rpm < max_speed_rpm", name="speed_range"),
         CheckConstraint("verification_interval_days > 0", name="interval_positive"),
+        one_of("reading_unit", READING_UNITS),
+        CheckConstraint("reading_planes IN (1, 2)", name="reading_planes_allowed"),
         CheckConstraint(
             "claimed_urr_pct IS NULL OR (claimed_urr_pct > 0 AND claimed_urr_pct <= 100)",
             name="claimed_urr_range",
@@ -193,6 +210,11 @@ class Machine(Base):
     claimed_emar_gmm_per_kg: Mapped[float | None] = mapped_column(Float)
     claimed_urr_pct: Mapped[float | None] = mapped_column(Float)
     suspension_resonance_rpm: Mapped[float | None] = mapped_column(Float)
+    # What the machine's readings are: "g·mm" for a calibrated machine (unbalance per
+    # correction plane), else a vibration unit that needs influence coefficients.
+    reading_unit: Mapped[str] = mapped_column(String(8), nullable=False)
+    # How many planes (sensors) the machine reads in one run.
+    reading_planes: Mapped[int] = mapped_column(Integer, nullable=False, default=2)
     verification_interval_days: Mapped[int] = mapped_column(Integer, nullable=False, default=365)
     notes: Mapped[str] = mapped_column(Text, nullable=False, default="")
     archived: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False, index=True)

@@ -20,6 +20,7 @@ from shopapp.models import (
     BEARING_KINDS,
     CORRECTION_METHODS,
     KEY_CONVENTIONS,
+    READING_UNITS,
     ROTATIONS,
     ROTOR_KINDS,
 )
@@ -54,6 +55,14 @@ class CustomerForm(OnceForm):
 
 # --------------------------------------------------------------------------- machines
 
+# What a machine's readings are; only calibrated g·mm is unbalance without trial runs.
+READING_UNIT_LABELS = {
+    "g·mm": "calibrated unbalance, g·mm per correction plane",
+    "mm/s": "vibration velocity, mm/s",
+    "um": "vibration displacement, µm",
+    "mil": "vibration displacement, mil",
+    "in/s": "vibration velocity, in/s",
+}
 BEARING_LABELS = {"hard": "hard-bearing (runs below resonance)", "soft": "soft-bearing (above it)"}
 
 
@@ -76,6 +85,14 @@ class MachineForm(OnceForm):
     claimed_urr_pct = NumberField("Claimed unbalance reduction ratio (%)", validators=[Optional()])
     suspension_resonance_rpm = NumberField(
         "Rotor-on-suspension resonance (rpm)", validators=[Optional()]
+    )
+    reading_unit = ChoiceField(
+        "Its readings are", choices=[("", "— choose —")] + [
+            (u, READING_UNIT_LABELS[u]) for u in READING_UNITS]
+    )
+    reading_planes = ChoiceField(
+        "Planes (sensors) read in one run", coerce=int,
+        choices=[(2, "2 planes"), (1, "1 plane")], default=2
     )
     verification_interval_days = WholeNumberField(
         "Verification interval (days)", validators=[Optional()], default=365
@@ -109,6 +126,9 @@ class GeometryForm(FlaskForm):
         "Maximum service speed (rpm)", validators=[InputRequired(_REQUIRED)]
     )
     first_critical_rpm = NumberField("First bending critical speed (rpm)", validators=[Optional()])
+    permitted_balancing_speed_rpm = NumberField(
+        "Permitted balancing speed (rpm)", validators=[Optional()]
+    )
     bearing_a_mm = NumberField("Bearing A position (mm)", validators=[InputRequired(_REQUIRED)])
     bearing_b_mm = NumberField("Bearing B position (mm)", validators=[InputRequired(_REQUIRED)])
     centre_of_mass_mm = NumberField(

@@ -20,7 +20,7 @@ from shopapp.core.web import (
 )
 from shopapp.models import Machine
 from shopapp.registry import machines, queries
-from shopapp.registry.forms import MachineForm
+from shopapp.registry.forms import READING_UNIT_LABELS, MachineForm
 from shopapp.registry.pages import archive_button
 
 bp = Blueprint("machines", __name__, url_prefix="/machines", template_folder="templates")
@@ -68,6 +68,7 @@ def detail(machine_id: int, status: int = 200, archive_error: str | None = None)
             machine=machine,
             confirm=ConfirmForm(),
             archive_error=archive_error,
+            reading_unit_labels=READING_UNIT_LABELS,
         ),
         status,
     )

@@ -14,7 +14,7 @@ from sqlalchemy.orm import Session
 from shopapp.core import checks
 from shopapp.core.display import plain
 from shopapp.core.permissions import require
-from shopapp.models import BEARING_KINDS, Job, Machine, User
+from shopapp.models import BEARING_KINDS, READING_UNITS, Job, Machine, User
 from shopapp.registry.common import (
     MAX_MASS_KG,
     MAX_NOTES,
@@ -40,6 +40,8 @@ MACHINE_FIELDS: tuple[str, ...] = (
     "claimed_emar_gmm_per_kg",
     "claimed_urr_pct",
     "suspension_resonance_rpm",
+    "reading_unit",
+    "reading_planes",
     "verification_interval_days",
     "notes",
 )
@@ -57,6 +59,10 @@ def _clean_machine(
     out: dict[str, Any] = {
         "name": checks.text(e, "name", v("name"), max_len=100, required=True),
         "bearing_kind": checks.choice(e, "bearing_kind", v("bearing_kind"), BEARING_KINDS),
+        # Required, never guessed: a vibration reading judged as g·mm gives nonsense verdicts.
+        "reading_unit": checks.choice(e, "reading_unit", v("reading_unit"), READING_UNITS),
+        "reading_planes": checks.integer(e, "reading_planes", v("reading_planes"), minimum=1,
+                                         maximum=2),
         "notes": checks.text(e, "notes", v("notes"), max_len=MAX_NOTES),
     }
     for low, high, maximum, unit in (
@@ -109,6 +115,8 @@ def _taken(name: str) -> str:
 def create_machine(session: Session, *, by: User, **values: Any) -> Machine:
     """Add a balancing machine (:data:`MACHINE_FIELDS`). Needs ``edit_machines`` (quality, admin).
 
+    ``reading_unit`` (what its readings are: calibrated "g·mm" or a vibration unit)
+    and ``reading_planes`` (1 or 2 sensors read in one run) are required.
     Mass and speed ranges: minimum ≥ 0 and below the maximum; the claimed
     minimum achievable residual specific unbalance (g·mm/kg) > 0; the claimed
     unbalance reduction ratio in (0, 100] %; verification interval 1–3650 days.

@@ -186,7 +186,8 @@ def run_summaries(session: Session, job_ids: list[int]) -> dict[int, dict[str, R
     runs = session.scalars(
         select(Run)
         .options(selectinload(Run.readings))
-        .where(Run.job_id.in_(job_ids), Run.purpose.in_(SUMMARY_PURPOSES))
+        .where(Run.job_id.in_(job_ids), Run.purpose.in_(SUMMARY_PURPOSES),
+               Run.struck_at.is_(None))  # a struck-out run counts for nothing
         .order_by(Run.job_id, Run.seq)
     )
     for run in runs:

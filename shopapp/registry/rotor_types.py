@@ -61,6 +61,7 @@ GEOMETRY_FIELDS: tuple[str, ...] = (
     "mass_kg",
     "service_speed_rpm",
     "first_critical_rpm",
+    "permitted_balancing_speed_rpm",
     "bearing_a_mm",
     "bearing_b_mm",
     "centre_of_mass_mm",
@@ -109,10 +110,18 @@ def _fields(e: checks.Errors, v: Any, out: dict[str, Any], values: Mapping[str, 
     out["mass_kg"] = checks.number(
         e, "mass_kg", v("mass_kg"), above=0, maximum=MAX_MASS_KG, unit="kg"
     )
-    for name, required in (("service_speed_rpm", True), ("first_critical_rpm", False)):
+    for name, required in (("service_speed_rpm", True), ("first_critical_rpm", False),
+                           ("permitted_balancing_speed_rpm", False)):
         out[name] = checks.number(
             e, name, v(name), required=required, above=0, maximum=MAX_SPEED_RPM, unit="rpm"
         )
+    permitted, service = out["permitted_balancing_speed_rpm"], out["service_speed_rpm"]
+    # It may only lower the limit: spinning a rotor above its service speed risks a burst.
+    if permitted is not None and service is not None and permitted > service:
+        e.add("permitted_balancing_speed_rpm",
+              f"{plain(permitted)} rpm is above the service speed ({plain(service)} rpm): "
+              "the permitted balancing speed may only be lower; leave it empty to use the "
+              "service speed")
     for name, required in (
         ("bearing_a_mm", True),
         ("bearing_b_mm", True),

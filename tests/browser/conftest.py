@@ -74,7 +74,8 @@ def live_shop(tmp_path: Path) -> Iterator[LiveShop]:
         rt = shop.rotor_type(customer, part_number="FFW-IMP-120",
                              description="two-plane fan impeller", positions_1=None,
                              positions_2=None)
-        machine = shop.machine(name="Bay 1 soft-bearing (test)", bearing_kind="soft")
+        machine = shop.machine(name="Bay 1 soft-bearing (test)", bearing_kind="soft",
+                               reading_unit="um")
         sess.commit()
         live = (operator.username, customer.name, rt.id, machine.id, rt.radius_1_mm)
     engine.dispose()

@@ -45,7 +45,14 @@ def readings_for(u_g: np.ndarray) -> list[tuple[int, float, float, str]]:
 
 @pytest.fixture()
 def machine(shop):  # type: ignore[no-untyped-def]
-    return shop.machine(min_speed_rpm=100.0)
+    """A machine reading vibration displacement (µm)."""
+    return shop.machine(min_speed_rpm=100.0, reading_unit="um")
+
+
+@pytest.fixture()
+def calibrated(shop):  # type: ignore[no-untyped-def]
+    """A calibrated machine: its readings are g·mm of unbalance."""
+    return shop.machine(min_speed_rpm=100.0, reading_unit="g·mm")
 
 
 @pytest.fixture()
@@ -352,9 +359,9 @@ def test_recording_the_applied_correction_and_a_passing_check(client, login_as, 
 
 
 def test_a_large_unbalance_reads_as_a_plain_number_on_the_job_page(client, login_as, db, rtype,
-                                                                   machine) -> None:
+                                                                   calibrated) -> None:
     user = login_as("operator")
-    job = booked(db, user, rtype, machine)
+    job = booked(db, user, rtype, calibrated)
     # A calibrated machine (g·mm readings): 18 900 g·mm in plane 1, nothing in plane 2.
     for purpose in ("initial", "check"):
         record_run(db, job, by=user, purpose=purpose, speed_rpm=600,
@@ -370,9 +377,9 @@ def test_a_large_unbalance_reads_as_a_plain_number_on_the_job_page(client, login
     assert _advice_cells(body)[0][0] == pytest.approx(63.0)
 
 
-def test_verdict_percentages_match_the_iso_limits(client, login_as, db, rtype, machine) -> None:
+def test_verdict_percentages_match_the_iso_limits(client, login_as, db, rtype, calibrated) -> None:
     user = login_as("operator")
-    job = booked(db, user, rtype, machine)
+    job = booked(db, user, rtype, calibrated)
     # A calibrated machine (g·mm readings): residual 300 g·mm at 0° in plane 1 only.
     record_run(db, job, by=user, purpose="check", speed_rpm=600,
                readings=[(1, 300.0, 0.0, "g·mm"), (2, 0.0, 0.0, "g·mm")])

@@ -93,7 +93,7 @@ def quality(make_user):  # type: ignore[no-untyped-def]
 @pytest.fixture()
 def machine(shop):  # type: ignore[no-untyped-def]
     return shop.machine(min_mass_kg=1.0, max_mass_kg=2000.0, min_speed_rpm=100.0,
-                        max_speed_rpm=3000.0)
+                        max_speed_rpm=3000.0, reading_unit="um")
 
 
 @pytest.fixture()
@@ -436,9 +436,10 @@ def test_open_return_links_to_the_dispatched_job(db, op, rtype, machine) -> None
 def test_first_run_moves_the_job_onto_the_machine_and_is_audited(db, op, rtype, machine) -> None:
     job = book(db, op, rtype, machine)
     run = record_run(db, job, by=op, purpose="initial", speed_rpm=600,
-                     readings=[(1, 3.0, 370.0, "um"), (2, 2.0, -10.0, "um")])
+                     readings=[(1, 3.0, 360.0, "um"), (2, 2.0, -10.0, "um")])
     assert run.seq == 1 and job.state == "on_machine" and job.operator_id == op.id
-    assert [r.angle_deg for r in run.readings] == pytest.approx([10.0, 350.0])
+    # 360° is the mark itself; −10° (a phase from atan2) is 350° one turn on.
+    assert [r.angle_deg for r in run.readings] == pytest.approx([0.0, 350.0])
     actions = list(db.scalars(select(AuditEvent.action).where(AuditEvent.job_id == job.id)
                               .order_by(AuditEvent.id)))
     assert actions == ["book_in", "start", "record_run"]

@@ -21,6 +21,8 @@ FORM = {
     "claimed_emar_gmm_per_kg": "1.0",
     "claimed_urr_pct": "95",
     "suspension_resonance_rpm": "240",
+    "reading_unit": "um",
+    "reading_planes": "2",
     "verification_interval_days": "",
     "notes": "",
 }
@@ -65,6 +67,18 @@ def test_quality_adds_a_machine(client, login_as, db):
     machine = db.scalars(select(Machine).where(Machine.name == FORM["name"])).one()
     assert machine.min_speed_rpm == 0.0 and machine.verification_interval_days == 365
     assert machine.suspension_resonance_rpm == 240.0
+    # Issue 11: the machine says what its readings are, and its page shows it.
+    assert (machine.reading_unit, machine.reading_planes) == ("um", 2)
+    page = client.get(f"/machines/{machine.id}").get_data(as_text=True)
+    assert "vibration displacement, µm · 2 planes per run" in page
+
+
+def test_a_machine_without_a_reading_unit_is_refused(client, login_as, db):
+    """Defect: g·mm was assumed for every machine; now the person must choose."""
+    login_as("quality")
+    resp = client.post("/machines/new", data=FORM | {"reading_unit": ""})
+    assert resp.status_code == 422 and "is required" in resp.get_data(as_text=True)
+    assert db.scalars(select(Machine).where(Machine.name == FORM["name"])).first() is None
 
 
 @pytest.mark.parametrize(

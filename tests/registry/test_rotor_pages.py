@@ -107,7 +107,7 @@ GARBAGE: list[tuple[str, str, str]] = [
     ("mass_kg", "-5", "greater than 0"),
     ("mass_kg", "0", "greater than 0"),
     ("mass_kg", "", "Required"),
-    ("mass_kg", "12,5", "decimal separator"),
+    ("mass_kg", "12,500", "could be 12.500 or 12500"),  # never guessed: 12.5 or 12 500 kg
     ("mass_kg", "9" * 50, "at most 40 characters"),
     ("service_speed_rpm", "fast", "Not a number"),
     ("bearing_b_mm", "0", "apart"),

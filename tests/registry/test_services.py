@@ -365,6 +365,8 @@ MACHINE: dict[str, Any] = {
     "max_mass_kg": 3000.0,
     "max_speed_rpm": 2500.0,
     "claimed_emar_gmm_per_kg": 0.5,
+    "reading_unit": "g·mm",
+    "reading_planes": 2,
 }
 
 
@@ -434,3 +436,41 @@ def test_unique_race_is_converted_to_a_message(db: Session, make_user, shop, mon
     assert exc.value.field == "name"
     # The outer transaction is still usable after the savepoint rolled back.
     assert _count(db, Machine) >= 1
+
+
+# --------------------------------------------------------------------------- issue 11
+
+
+def test_permitted_balancing_speed_defaults_to_the_service_speed(db: Session, make_user, shop):
+    op = make_user("operator")
+    rt = rotor_types.create_rotor_type(db, by=op, customer=shop.customer(), **GOOD)
+    assert rt.permitted_balancing_speed_rpm is None
+    assert rt.permitted_speed_rpm == rt.service_speed_rpm
+    rotor_types.update_rotor_type(db, rt, by=op, permitted_balancing_speed_rpm=900.0)
+    assert rt.permitted_speed_rpm == 900.0
+
+
+def test_permitted_balancing_speed_may_not_exceed_the_service_speed(db: Session, make_user,
+                                                                     shop):
+    """Common shop practice: a balancing run never goes above the rotor's service speed
+    (over-speed, rotor burst); the field may only lower the limit."""
+    with pytest.raises(ValidationFailed) as exc:
+        rotor_types.create_rotor_type(
+            db, by=make_user("operator"), customer=shop.customer(),
+            **(GOOD | {"permitted_balancing_speed_rpm": GOOD["service_speed_rpm"] + 1}))
+    assert exc.value.field == "permitted_balancing_speed_rpm"
+    assert "above the service speed" in exc.value.message
+
+
+def test_a_machine_must_say_what_it_reads(db: Session, make_user):
+    """Defect: a velocity machine looked like a calibrated one (g·mm was assumed)."""
+    q = make_user("quality")
+    with pytest.raises(ValidationFailed) as exc:
+        machines.create_machine(db, by=q, **(MACHINE | {"reading_unit": ""}))
+    assert exc.value.field == "reading_unit"
+    with pytest.raises(ValidationFailed) as exc:
+        machines.create_machine(db, by=q, **(MACHINE | {"reading_planes": 3}))
+    assert exc.value.field == "reading_planes"
+    m = machines.create_machine(db, by=q, **(MACHINE | {"reading_unit": "mm/s",
+                                                        "reading_planes": 1}))
+    assert (m.reading_unit, m.reading_planes) == ("mm/s", 1)

@@ -30,6 +30,7 @@ ROLES = ("operator", "quality", "owner", "admin")
 POLICY: dict[str, frozenset[str]] = {
     "read": frozenset(ROLES),
     "work_jobs": frozenset({"operator", "quality"}),
+    "strike_runs": frozenset({"operator", "quality"}),
     "edit_registry": frozenset({"operator", "quality", "admin"}),
     "edit_machines": frozenset({"quality", "admin"}),
     "verify_machines": frozenset({"quality"}),
@@ -76,6 +77,7 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "jobs.detail": ("read", None),
     "jobs.new": ("work_jobs", "work_jobs"),
     "jobs.add_run": (None, "work_jobs"),
+    "jobs.strike_run": (None, "strike_runs"),
     "jobs.add_correction": (None, "work_jobs"),
     "jobs.change_state": (None, "work_jobs"),
     "jobs.open_return": (None, "work_jobs"),
@@ -168,8 +170,8 @@ def ids(db: Session, shop: Any, make_user: Callable[..., Any]) -> dict[str, Any]
     rt = shop.rotor_type()
     rotor = shop.rotor(rt)
     job = shop.job(rotor, machine=machine)
-    record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
-               readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
+    initial = record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
+                         readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
     record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
                readings=[(1, 50.0, 10.0, "g·mm"), (2, 40.0, 100.0, "g·mm")])
     mark_in_tolerance(db, job, by=operator)
@@ -181,7 +183,8 @@ def ids(db: Session, shop: Any, make_user: Callable[..., Any]) -> dict[str, Any]
     db.commit()
     return {"job_id": job.id, "customer_id": rt.customer_id, "machine_id": machine.id,
             "rotor_type_id": rt.id, "rotor_id": rotor.id, "user_id": operator.id,
-            "cert_id": cert.id, "arbor_id": arbor.id, "plane": 1, "run_up_id": run_up.id}
+            "cert_id": cert.id, "arbor_id": arbor.id, "plane": 1, "run_up_id": run_up.id,
+            "run_id": initial.id}
 
 
 def _url(app: Flask, rule: Any, ids: dict[str, Any]) -> str:

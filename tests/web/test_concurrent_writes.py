@@ -51,7 +51,7 @@ def _setup(app: Flask) -> tuple[list[str], int, int, int]:
         users = [factories.user(db, username=f"op{i}", role="operator", password=PASSWORD)
                  for i in range(WRITERS)]
         shop = factories.ShopFactory(db)
-        machine = shop.machine(min_speed_rpm=100.0)
+        machine = shop.machine(min_speed_rpm=100.0, reading_unit="um")
         rtype = shop.rotor_type()
         db.flush()
         job = jobs.book_in(db, by=users[0], customer=rtype.customer_id, serial_number="S-1",

@@ -11,7 +11,7 @@ from shopapp.models import Job
 
 
 def _job(shop: Any) -> Job:
-    return shop.job(machine_id=shop.machine(min_speed_rpm=100.0).id)
+    return shop.job(machine_id=shop.machine(min_speed_rpm=100.0, reading_unit="um").id)
 
 
 def _post_run(client: Any, job: Job) -> Any:

@@ -1,0 +1,80 @@
+"""Typed numbers (shopapp.core.forms): one home, and a magnitude is never changed.
+
+Common practice, no source: continental shops write 1,5 for one and a half, English-speaking
+ones 1,500 for fifteen hundred; 1.234,5 and 1,234.5 group thousands with the other mark.
+Whatever cannot be told apart is refused with a message, never guessed.
+"""
+
+from __future__ import annotations
+
+import pytest
+from flask_wtf import FlaskForm
+from werkzeug.datastructures import MultiDict
+
+from shopapp.core.forms import AngleField, NumberField, parse_number
+
+
+class _Form(FlaskForm):
+    class Meta:
+        csrf = False  # a bare field check, no request behind it
+
+    value = NumberField("Value")
+    angle = AngleField("Angle")
+
+
+def _form(app, **data: str) -> _Form:
+    with app.test_request_context():
+        form = _Form(formdata=MultiDict(data))
+        form.validate()
+        return form
+
+
+@pytest.mark.parametrize(("typed", "value"), [
+    ("1.5", 1.5),
+    ("1,5", 1.5),  # decimal comma: the same magnitude, never 15
+    ("-1,5", -1.5),
+    ("0,125", 0.125),  # a leading 0 cannot be a thousands group
+    ("12,25", 12.25),
+    ("1500", 1500.0),
+])
+def test_numbers_keep_their_magnitude(typed: str, value: float) -> None:
+    assert parse_number(typed) == value
+
+
+@pytest.mark.parametrize(("typed", "says"), [
+    ("1.234,5", "thousands separator"),
+    ("1,234.5", "thousands separator"),
+    ("1,234,567", "thousands separator"),
+    ("1 500", "without spaces"),
+    ("1\u00a0500", "without spaces"),  # a no-break space from a spreadsheet
+    ("1_5", "without spaces"),  # Python's float() reads this as 15
+    ("1,500", "could be 1.500 or 1500"),
+    ("nan", "finite"),
+    ("inf", "finite"),
+    ("1e999", "finite"),
+    ("12 kg", "without spaces"),
+    ("abc", "Not a number"),
+])
+def test_ambiguous_or_junk_numbers_are_refused(typed: str, says: str) -> None:
+    with pytest.raises(ValueError, match=says):
+        parse_number(typed)
+
+
+def test_the_field_shows_the_message_beside_itself(app) -> None:
+    form = _form(app, value="1.234,5", angle="10")
+    assert form.value.data is None and "thousands separator" in form.value.errors[0]
+    assert _form(app, value="1,5", angle="10").value.data == 1.5
+
+
+@pytest.mark.parametrize(("typed", "value"), [("0", 0.0), ("359,5", 359.5), ("360", 360.0)])
+def test_angles_within_a_turn_are_kept(app, typed: str, value: float) -> None:
+    form = _form(app, angle=typed)
+    assert form.angle.data == value and not form.angle.errors
+
+
+@pytest.mark.parametrize(("typed", "wrapped"), [("400", "40"), ("-10", "350"), ("720", "0")])
+def test_angles_outside_a_turn_are_refused_not_wrapped(app, typed: str, wrapped: str) -> None:
+    form = _form(app, angle=typed)
+    assert form.angle.data is None
+    assert "outside 0–360°" in form.angle.errors[0]
+    assert f"not wrapped to {wrapped}°" in form.angle.errors[0]
