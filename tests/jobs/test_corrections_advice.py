@@ -23,7 +23,9 @@ from shopapp.jobs.corrections import record_correction
 from shopapp.jobs.intake import ToleranceSpec, book_in
 from shopapp.jobs.queries import evaluate
 from shopapp.jobs.runs import record_run
+from shopapp.jobs.states import mark_in_tolerance
 from shopapp.models import Job
+from tests.jobs.test_pages import U_TRUE_G, booked, readings_for, with_trials
 
 R = 250.0
 
@@ -151,6 +153,34 @@ def test_trial_mass_warning_only_when_the_job_has_trial_runs(db, shop, machine,
     calc = evaluate(db, job)
     assert calc.advice is not None
     assert any("every trial mass has been removed" in w for w in calc.advice.warnings)
+
+
+def test_no_trial_mass_warning_when_stored_coefficients_answer(db, shop, machine,
+                                                                make_user) -> None:
+    # A repeat job corrected from stored coefficients has no trial runs of its own, so the
+    # trial-mass warning is wrong there (it was shown for every stored-set job before).
+    user = make_user("operator")
+    rtype = shop.rotor_type()
+    first = with_trials(db, user, booked(db, user, rtype, machine, serial="LEARN-1"))
+    calc = evaluate(db, first)
+    assert calc.advice is not None
+    assert any("every trial mass has been removed" in w for w in calc.advice.warnings)
+    for a in calc.advice.planes:
+        record_correction(db, first, by=user, run_id=calc.advice.run_id, plane=a.plane,
+                          action="add", mass_g=a.mass_g, angle_deg=a.angle_deg,
+                          radius_mm=300.0)
+    record_run(db, first, by=user, purpose="check", speed_rpm=600,
+               readings=readings_for(U_TRUE_G * 0.01))
+    mark_in_tolerance(db, first, by=user)
+    first.state = "dispatched"
+    db.commit()
+    job = booked(db, user, rtype, machine, serial="LEARN-2")
+    record_run(db, job, by=user, purpose="initial", speed_rpm=600,
+               readings=readings_for(U_TRUE_G))
+    db.commit()
+    calc = evaluate(db, job)
+    assert calc.advice is not None and calc.advice.source == "stored"
+    assert not any("trial mass" in w for w in calc.advice.warnings)
 
 
 # --------------------------------------------------------------------------- trims
