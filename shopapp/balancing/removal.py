@@ -284,6 +284,10 @@ def hole_centroid_depth_mm(
     return (v_cyl * h / 2.0 + v_cone * (h + c / 4.0)) / (v_cyl + v_cone)
 
 
+def _holes(n: int) -> str:
+    return "one hole" if n == 1 else f"{n} holes"
+
+
 def _radial_depth_mm(moment_gmm: float, d: float, rho: float, p: float, r: float,
                      limit: float) -> float | None:
     """Depth to the tip of a radial hole whose removed first moment ``m·(R − z̄)`` is
@@ -400,7 +404,7 @@ def drill_plan(
             raise BalancingInputError(
                 "max_depth_mm",
                 f"{n} holes of {d:g} mm at {pitch:.1f}° pitch would spread wider than "
-                f"{spread_max:g}° at {r:g} mm and {n - 1} holes would be deeper than "
+                f"{spread_max:g}° at {r:g} mm and {_holes(n - 1)} would be deeper than "
                 f"{limit:g} mm; add mass instead (or use a larger drill)",
             )
         gain = sum(math.cos(math.radians(o)) for o in offsets)
@@ -439,6 +443,6 @@ def drill_plan(
             )
     raise BalancingInputError(
         "max_depth_mm",
-        f"even {most} holes of {d:g} mm would be deeper than {limit:g} mm; "
+        f"even {_holes(most)} of {d:g} mm would be deeper than {limit:g} mm; "
         "add mass instead (or use a larger drill)",
     )

@@ -275,3 +275,9 @@ def test_drilling_caution_is_one_block_naming_the_hazards() -> None:
     for word in ("wall", "stress raiser", "blade roots", "keyways", "chip", "rotor maker",
                  "licensed practice"):
         assert word in text
+
+
+def test_refusal_for_a_single_hole_reads_one_hole() -> None:
+    with pytest.raises(BalancingInputError) as err:
+        drill_plan(50.0, 10, 7.85, max_depth_mm=20, radius_mm=100, min_web_mm=3, max_holes=1)
+    assert "even one hole of 10 mm" in err.value.message and "1 holes" not in err.value.message

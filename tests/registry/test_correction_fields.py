@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import html
+import re
 from typing import Any
 
 import pytest
@@ -73,3 +74,15 @@ def test_rotor_type_form_takes_stock_weights_as_a_typed_list(client, login_as, d
     rt = db.scalars(select(RotorType).where(RotorType.customer_id == customer.id)).one()
     assert rt.stock_weights_g == [2.0, 5.0, 10.0] and rt.material == "brass"
     assert rt.hole_direction == "axial" and rt.max_hole_depth_mm == 12.0
+
+
+def test_edit_page_shows_the_stored_correction_fields(client, login_as, db, shop) -> None:
+    rt = shop.rotor_type(stock_weights_g=[2.0, 5.0, 10.0], material="steel",
+                         hole_direction="radial", max_hole_depth_mm=20.0)
+    db.commit()
+    login_as("operator")
+    body = html.unescape(client.get(f"/rotor-types/{rt.id}/edit").get_data(as_text=True))
+    assert 'value="2, 5, 10"' in body
+    assert re.search(r'<option selected value="radial">|<option value="radial" selected', body)
+    detail = html.unescape(client.get(f"/rotor-types/{rt.id}").get_data(as_text=True))
+    assert "stock weights 2.00 g, 5.00 g, 10.00 g" in detail or "stock weights 2" in detail
