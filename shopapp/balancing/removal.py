@@ -107,7 +107,9 @@ class DrillPlan:
     vector sum of all holes' unbalances equals the wanted removal (holes off the
     centre line count only with ``cos`` of their offset). ``effective_radius_mm``
     is where each hole's mass sits (R for axial holes, the centroid for radial
-    ones), ``depth_limit_mm`` and ``web_mm`` the limits the plan kept to.
+    ones), ``depth_limit_mm`` and ``web_mm`` the limits the plan kept to, and
+    ``spacing_mm`` the arc between neighbouring centres at the correction radius
+    (what is marked out on the rotor).
     """
 
     holes: int
@@ -123,6 +125,7 @@ class DrillPlan:
     effective_radius_mm: float | None = None
     depth_limit_mm: float | None = None
     web_mm: float | None = None
+    spacing_mm: float = 0.0  # arc between neighbouring centres at the correction radius
 
 
 def _point_angle(point_angle_deg: float) -> float:
@@ -440,6 +443,7 @@ def drill_plan(
                 effective_radius_mm=r_eff,
                 depth_limit_mm=limit,
                 web_mm=web,
+                spacing_mm=r * math.radians(pitch) if n > 1 else 0.0,
             )
     raise BalancingInputError(
         "max_depth_mm",
