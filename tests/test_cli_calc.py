@@ -177,6 +177,18 @@ def test_drill_depth_reproduces_mass() -> None:
     assert out["cautions"]
 
 
+def test_drill_plan_for_radial_holes_counts_their_centroid() -> None:
+    req = {"mass_g": 40.0, "drill_diameter_mm": 10.0, "material": "steel", "max_depth_mm": 25,
+           "radius_mm": 180, "min_web_mm": 4, "direction": "radial", "max_spread_deg": 90}
+    plan = _ok("drill", req)["plan"]
+    assert plan["direction"] == "radial" and plan["depth_to_tip_mm"] <= 25
+    # Each hole's mass counts at its centroid, inside the radius: Σ m·r_eff·cos δ = m·R.
+    gain = sum(math.cos(math.radians(a)) for a in plan["hole_angles_deg"])
+    assert plan["effective_radius_mm"] < 180
+    assert_allclose(plan["mass_per_hole_g"] * plan["effective_radius_mm"] * gain, 40.0 * 180,
+                    rtol=1e-6)
+
+
 def _circle_readings(residual: complex, test: float, n: int, sens: complex, with_phase: bool):
     readings = []
     for k in range(n):

@@ -9,6 +9,7 @@ convention of :mod:`shopapp.balancing.phasors`).
 
 from __future__ import annotations
 
+import cmath
 import itertools
 import math
 from collections.abc import Sequence
@@ -255,14 +256,7 @@ def choose_weights(
     phi = finite("angle_deg", angle_deg)
     n = whole("positions", positions, 3)
     first = finite("first_position_deg", first_position_deg)
-    sizes_arr = positive_array("available_g", available_g)
-    if sizes_arr.ndim != 1 or sizes_arr.size == 0:
-        raise BalancingInputError("available_g", "must list at least one weight size")
-    sizes = tuple(sorted({float(s) for s in sizes_arr}))
-    if len(sizes) > MAX_WEIGHT_SIZES:
-        raise BalancingInputError(
-            "available_g", f"at most {MAX_WEIGHT_SIZES} different sizes, got {len(sizes)}"
-        )
+    sizes = _stock_sizes(available_g)
     per = whole("max_per_position", max_per_position, 1)
     n_combos = math.comb(len(sizes) + per, per)
     if n_combos > MAX_COMBINATIONS_PER_POSITION:
@@ -312,5 +306,178 @@ def choose_weights(
         residual_vector_g=residual,
         residual_mass_g=r_mass,
         residual_angle_deg=r_angle,
+        warnings=tuple(warnings),
+    )
+
+
+# --------------------------------------------------------------------------- stock and trims
+
+NEAR_DEG = 30.0  # a trim this close to a fitted weight merges with it (our rule)
+
+
+@dataclass(frozen=True)
+class StockRounding:
+    """One mass rounded to stock pieces at a fixed angle (:func:`round_to_stock`)."""
+
+    angle_deg: float
+    pieces_g: tuple[float, ...]
+    mass_g: float
+    residual_vector_g: complex
+
+
+@dataclass(frozen=True)
+class WeightOnRotor:
+    """A weight already fitted in a plane: ``ref`` names it (the recorded correction),
+    ``vector_g`` is its unbalance as grams at the plane's radius (parts summed)."""
+
+    ref: int
+    vector_g: complex
+
+
+@dataclass(frozen=True)
+class WeightToFit:
+    """One weight to fit: at a fixed position (1-based) or at a free angle (``None``)."""
+
+    position: int | None
+    angle_deg: float
+    mass_g: float
+    pieces_g: tuple[float, ...] = ()
+
+
+@dataclass(frozen=True)
+class TrimPlan:
+    """How to fit a trim correction on a rotor that already carries weights.
+
+    ``kind`` is ``"add"`` (fit ``parts`` beside the weights on the rotor) or
+    ``"replace"`` (take weight ``replaces`` off and fit ``parts`` in its place).
+    ``target_g`` is what ``parts`` should add up to: the trim, or the replaced
+    weight plus the trim. ``residual_g = target − fitted`` is what rounding to
+    stock leaves; ``combined_g`` is everything in the plane once done (weights
+    on the rotor + trim), the one weight equivalent to them all.
+    """
+
+    kind: str
+    replaces: int | None
+    target_g: complex
+    parts: tuple[WeightToFit, ...]
+    fitted_g: complex
+    residual_g: complex
+    on_rotor_g: complex
+    combined_g: complex
+    warnings: tuple[str, ...]
+
+
+def _stock_sizes(available_g: Sequence[float]) -> tuple[float, ...]:
+    sizes_arr = positive_array("available_g", available_g)
+    if sizes_arr.ndim != 1 or sizes_arr.size == 0:
+        raise BalancingInputError("available_g", "must list at least one weight size")
+    sizes = tuple(sorted({float(s) for s in sizes_arr}))
+    if len(sizes) > MAX_WEIGHT_SIZES:
+        raise BalancingInputError(
+            "available_g", f"at most {MAX_WEIGHT_SIZES} different sizes, got {len(sizes)}"
+        )
+    return sizes
+
+
+def round_to_stock(
+    mass_g: float, angle_deg: float, available_g: Sequence[float], *, max_pieces: int = 2
+) -> StockRounding:
+    """Nearest sum of at most ``max_pieces`` stock weights to ``mass_g``, fitted at ``angle_deg``.
+
+    At a free angle the rounding only changes the length of the vector, so the
+    miss is ``(m − m_stock)·e^{iφ}``; ties go to fewer pieces, then less mass.
+    """
+    m = positive("mass_g", mass_g)
+    phi = finite("angle_deg", angle_deg)
+    sizes = _stock_sizes(available_g)
+    per = whole("max_pieces", max_pieces, 1)
+    if math.comb(len(sizes) + per, per) > MAX_COMBINATIONS_PER_POSITION:
+        raise BalancingInputError("max_pieces", f"{per} pieces is too many to search")
+    sums, sets = _position_options(sizes, per)
+    miss = np.round(np.abs(sums - m) / m, 9)
+    order = np.lexsort((sums, np.array([len(s) for s in sets]), miss))
+    best = int(order[0])
+    fitted = float(sums[best])
+    # m − fitted may be negative (rounded up): the miss then points the other way.
+    return StockRounding(phi, tuple(sets[best]), fitted, cmath.rect(m - fitted, math.radians(phi)))
+
+
+def _fit(target: complex, positions: int | None, first: float,
+         available_g: Sequence[float] | None) -> tuple[tuple[WeightToFit, ...], complex,
+                                                       list[str]]:
+    """Weights that make up ``target``: split onto positions and/or rounded to stock."""
+    mass, angle = amplitude_angle(target)
+    if mass == 0.0:
+        return (), 0j, []
+    if positions is None:
+        if not available_g:
+            return (WeightToFit(None, angle, mass),), target, []
+        r = round_to_stock(mass, angle, available_g)
+        parts = (WeightToFit(None, angle, r.mass_g, r.pieces_g),) if r.pieces_g else ()
+        return parts, target - r.residual_vector_g, []
+    if not available_g:
+        s = split_to_positions(mass, angle, positions, first)
+        return (tuple(WeightToFit(p.position, p.angle_deg, p.mass_g) for p in s.parts),
+                target, list(s.warnings))
+    c = choose_weights(mass, angle, positions, first, available_g)
+    return (tuple(WeightToFit(p.position, p.angle_deg, p.mass_g, p.pieces_g) for p in c.parts),
+            c.fitted_vector_g, list(c.warnings))
+
+
+def plan_trim(
+    trim_g: complex,
+    on_rotor: Sequence[WeightOnRotor],
+    *,
+    positions: int | None = None,
+    first_position_deg: float = 0.0,
+    available_g: Sequence[float] | None = None,
+    near_deg: float | None = None,
+) -> TrimPlan:
+    """Fit a trim correction, merging it with a weight already on the rotor when close.
+
+    Rule (ours, so that a rotor does not collect a pile of small weights): when
+    the trim ``T`` points within ``near_deg`` of a weight ``E`` already fitted
+    (30° at a free angle, one position spacing with fixed positions), take
+    ``E`` off and fit ``E + T`` in its place — one weight instead of two, the
+    same vector sum (``Σ on rotor − E + (E + T) = Σ on rotor + T``). Otherwise
+    fit ``T`` beside the others. The target is then split onto the
+    neighbouring positions (:func:`split_to_positions`) and/or rounded to the
+    stock sizes (:func:`choose_weights`, :func:`round_to_stock`); the miss is
+    ``residual = target − fitted``. All vectors are grams at the plane's radius.
+    """
+    t = complex(trim_g)
+    if not (math.isfinite(t.real) and math.isfinite(t.imag)):
+        raise BalancingInputError("trim_g", "must be a finite vector")
+    first = finite("first_position_deg", first_position_deg)
+    n = None if positions is None else whole("positions", positions, 3)
+    if near_deg is None:
+        near = NEAR_DEG if n is None else max(NEAR_DEG, 360.0 / n)
+    else:
+        near = finite("near_deg", near_deg)
+    if available_g is not None and len(available_g) > 0:
+        _stock_sizes(available_g)  # checked up front so a bad list is named
+    stock = list(available_g) if available_g else None
+    on_total = complex(sum((w.vector_g for w in on_rotor), 0j))
+    replaces: int | None = None
+    target = t
+    if abs(t) > 0.0:
+        t_angle = math.degrees(cmath.phase(t))
+        close = [(abs(normalize_deg(math.degrees(cmath.phase(w.vector_g)) - t_angle + 180.0)
+                      - 180.0), w) for w in on_rotor if abs(w.vector_g) > 0.0]
+        close = [c for c in close if c[0] <= near]
+        if close:
+            _, nearest = min(close, key=lambda c: (c[0], c[1].ref))
+            replaces = nearest.ref
+            target = nearest.vector_g + t
+    parts, fitted, warnings = _fit(target, n, first, stock)
+    return TrimPlan(
+        kind="replace" if replaces is not None else "add",
+        replaces=replaces,
+        target_g=target,
+        parts=parts,
+        fitted_g=fitted,
+        residual_g=target - fitted,
+        on_rotor_g=on_total,
+        combined_g=on_total + t,
         warnings=tuple(warnings),
     )

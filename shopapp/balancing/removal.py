@@ -8,7 +8,17 @@ cylinder of full-diameter depth ``h`` plus a cone of height
     m = ρ · V / 1000                             [g, ρ in g/cm³]
 
 and the depth to the tip is ``h + c`` (elementary solid geometry). A hole
-shallower than the point is a cone only: ``V = π tan²(p/2) t³ / 3``.
+shallower than the point is a cone only: ``V = π tan²(p/2) t³ / 3``. The cone
+is the handbook's ``V = π r² h / 3`` with the tip height ``h = r / tan(p/2)``,
+``r / tan 59°`` for the usual 118° point (a machinery handbook's solid-geometry
+table; formula from memory).
+
+Radial and axial holes: an *axial* hole (parallel to the shaft) at the
+correction radius R removes its mass at R. A *radial* hole drilled inwards
+from the rim at R removes its mass at the hole's centroid, ``R − z̄``, where
+``z̄`` is the centroid depth of cylinder plus point
+(:func:`hole_centroid_depth_mm`), so it must remove more mass than an axial
+hole for the same unbalance: ``m·(R − z̄) = U``.
 
 Removal at angle θ corrects like an addition at θ + 180°
 (:func:`shopapp.balancing.phasors.removal_angle_deg`); the functions here take
@@ -19,6 +29,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+
+from scipy.optimize import brentq
 
 from shopapp.balancing.checks import finite, non_negative, positive, whole
 from shopapp.balancing.errors import BalancingInputError
@@ -52,13 +64,16 @@ DENSITIES: dict[str, Density] = {
     "bronze": Density("bronze", 8.8, 7.4, 8.9, _HANDBOOK),
 }
 
+HOLE_DIRECTIONS: tuple[str, ...] = ("radial", "axial")
+
+# One block, shown once wherever drilling is advised (common practice, no source).
 DRILLING_CAUTIONS: tuple[str, ...] = (
-    "Check the remaining wall thickness and the web between holes against the drawing "
-    "before drilling.",
-    "A drilled hole is a stress raiser: keep to the zones the rotor maker allows for "
-    "removal, away from highly stressed sections, keys and welds; deburr the hole.",
-    "Local codes, the rotor maker's rules and licensed practice take precedence over this "
-    "calculation.",
+    "Before drilling: check the wall left under each hole and the web between holes against "
+    "the drawing. A hole is a stress raiser: keep clear of blade roots, keyways, welds, fillets "
+    "and other highly stressed sections, drill only where the rotor maker allows removal, and "
+    "deburr. Clamp the rotor, wear eye protection, and clear every chip from the rotor, its "
+    "bore and the machine before the next run (a chip left inside is an unbalance of its own). "
+    "The rotor maker's rules, local codes and licensed practice come before this calculation.",
 )
 
 
@@ -89,8 +104,12 @@ class DrillPlan:
 
     ``hole_angles_deg`` are the hole centres, spread symmetrically about the
     removal angle at ``pitch_deg``; each removes ``mass_per_hole_g`` so that the
-    vector sum of all holes equals the wanted removal (holes off the centre line
-    count only with ``cos`` of their offset).
+    vector sum of all holes' unbalances equals the wanted removal (holes off the
+    centre line count only with ``cos`` of their offset). ``effective_radius_mm``
+    is where each hole's mass sits (R for axial holes, the centroid for radial
+    ones), ``depth_limit_mm`` and ``web_mm`` the limits the plan kept to, and
+    ``spacing_mm`` the arc between neighbouring centres at the correction radius
+    (what is marked out on the rotor).
     """
 
     holes: int
@@ -102,6 +121,11 @@ class DrillPlan:
     hole_angles_deg: tuple[float, ...]
     warnings: tuple[str, ...]
     cautions: tuple[str, ...]
+    direction: str = "axial"
+    effective_radius_mm: float | None = None
+    depth_limit_mm: float | None = None
+    web_mm: float | None = None
+    spacing_mm: float = 0.0  # arc between neighbouring centres at the correction radius
 
 
 def _point_angle(point_angle_deg: float) -> float:
@@ -222,6 +246,70 @@ def drill_depth(
     )
 
 
+def cone_volume_mm3(drill_diameter_mm: float, point_angle_deg: float = DEFAULT_POINT_ANGLE_DEG
+                    ) -> float:
+    """Volume of the drill point's cone, mm³.
+
+    ``V = π r² h / 3`` with ``r = d/2`` and the tip height ``h = r / tan(p/2)``
+    (``r / tan 59°`` for a 118° point) — a machinery handbook's cone volume
+    formula, from memory.
+    """
+    d = positive("drill_diameter_mm", drill_diameter_mm)
+    p = _point_angle(point_angle_deg)
+    r = d / 2.0
+    return math.pi * r * r * _point_length_mm(d, p) / 3.0
+
+
+def hole_centroid_depth_mm(
+    drill_diameter_mm: float,
+    depth_to_tip_mm: float,
+    point_angle_deg: float = DEFAULT_POINT_ANGLE_DEG,
+) -> float:
+    """Depth below the surface of the centroid of the material a hole removes, mm.
+
+    A full-diameter part of depth ``h = t − c`` (volume ``A·h``, centroid at
+    ``h/2``) and the point's cone below it (volume ``A·c/3``, centroid a quarter
+    of its height from its base, i.e. at ``h + c/4``):
+
+        z̄ = (A·h · h/2 + A·c/3 · (h + c/4)) / (A·h + A·c/3)
+
+    A hole shallower than the point is a cone only, ``z̄ = t/4`` (the centroid
+    of a cone lies at a quarter of its height from the base; any statics text).
+    """
+    d = positive("drill_diameter_mm", drill_diameter_mm)
+    t = positive("depth_to_tip_mm", depth_to_tip_mm)
+    p = _point_angle(point_angle_deg)
+    c = _point_length_mm(d, p)
+    if t <= c:
+        return t / 4.0
+    h = t - c
+    v_cyl, v_cone = h, c / 3.0  # the common area A cancels
+    return (v_cyl * h / 2.0 + v_cone * (h + c / 4.0)) / (v_cyl + v_cone)
+
+
+def _holes(n: int) -> str:
+    return "one hole" if n == 1 else f"{n} holes"
+
+
+def _radial_depth_mm(moment_gmm: float, d: float, rho: float, p: float, r: float,
+                     limit: float) -> float | None:
+    """Depth to the tip of a radial hole whose removed first moment ``m·(R − z̄)`` is
+    ``moment_gmm``; None when even ``limit`` is not deep enough.
+
+    The removed region only grows with depth and every point of it lies inside R,
+    so the moment rises monotonically and a bracketing root search is safe.
+    """
+    def moment(t: float) -> float:
+        if t <= 0.0:
+            return 0.0
+        m = drill_mass(d, rho, depth_to_tip_mm=t, point_angle_deg=p)
+        return m * (r - hole_centroid_depth_mm(d, t, p))
+
+    if moment(limit) < moment_gmm:
+        return None
+    return float(brentq(lambda t: moment(t) - moment_gmm, 0.0, limit, xtol=1e-9, rtol=1e-12))
+
+
 def drill_plan(
     mass_g: float,
     drill_diameter_mm: float,
@@ -233,25 +321,36 @@ def drill_plan(
     angle_deg: float = 0.0,
     point_angle_deg: float = DEFAULT_POINT_ANGLE_DEG,
     max_holes: int = 12,
+    direction: str = "axial",
+    max_spread_deg: float = 180.0,
 ) -> DrillPlan:
     """Fewest equal holes, each no deeper than ``max_depth_mm`` to the tip.
 
-    Holes sit side by side at ``radius_mm`` with centre distance ``d + min_web``
-    (chord), i.e. an angular pitch ``α = 2·asin((d + web) / (2r))``, spread
-    symmetrically about ``angle_deg``. Hole ``j`` of ``n`` is offset
-    ``δ_j = (j - (n-1)/2)·α`` and contributes ``m_h·cos δ_j`` in the wanted
-    direction (the sideways parts cancel), so ``m_h = m / Σ cos δ_j``.
+    ``mass_g`` is the removal wanted *at* ``radius_mm`` (unbalance
+    ``U = m·R``). Holes sit side by side with centre distance ``d + min_web``
+    (chord), i.e. an angular pitch ``α = 2·asin((d + web) / (2ρ))``, spread
+    symmetrically about ``angle_deg``; ``ρ = R`` for axial holes and, for
+    radial holes (which converge inwards), the radius of the deepest permitted
+    tip ``R − max_depth`` so the web holds all the way down. Hole ``j`` of ``n``
+    is offset ``δ_j = (j - (n-1)/2)·α`` and counts ``cos δ_j`` in the wanted
+    direction (the sideways parts cancel), so each hole removes
+
+    - axial: ``m_h = m / Σ cos δ_j`` at R;
+    - radial: ``m_h`` with ``m_h·(R − z̄) = m·R / Σ cos δ_j``, z̄ the hole's
+      centroid depth (:func:`hole_centroid_depth_mm`), solved for the depth by
+      :func:`scipy.optimize.brentq`.
 
     Parameters
     ----------
     mass_g : float
-        Mass to remove (vector sum), grams, > 0.
+        Mass to remove at ``radius_mm`` (vector sum), grams, > 0.
     drill_diameter_mm, density_g_cm3 : float
         Drill diameter (mm) and density (g/cm³), > 0.
     max_depth_mm : float
         Deepest permitted hole, measured to the tip, mm, > 0 (from the drawing).
     radius_mm : float
-        Radius of the hole centres, mm, > 0.
+        Correction radius: the hole centres (axial) or the rim the holes start
+        from (radial), mm, > 0.
     min_web_mm : float
         Least material between neighbouring holes, mm, >= 0.
     angle_deg : float
@@ -260,13 +359,18 @@ def drill_plan(
         Included drill point angle, degrees.
     max_holes : int
         Most holes to consider (1..36).
+    direction : str
+        ``"axial"`` or ``"radial"``.
+    max_spread_deg : float
+        Widest angle the outermost hole centres may span (0 < spread <= 180);
+        holes far off the removal line waste material.
 
     Raises
     ------
     BalancingInputError
-        When even ``max_holes`` holes would be too deep (``max_depth_mm``), or
-        the holes would spread over more than half the circumference or do not
-        fit on the radius (``radius_mm``).
+        When even ``max_holes`` holes would be too deep, or the holes would
+        spread wider than ``max_spread_deg`` (field ``max_depth_mm``; the message
+        suggests adding mass instead), or do not fit on the radius (``radius_mm``).
     """
     m = positive("mass_g", mass_g)
     d = positive("drill_diameter_mm", drill_diameter_mm)
@@ -277,28 +381,48 @@ def drill_plan(
     centre = finite("angle_deg", angle_deg)
     p = _point_angle(point_angle_deg)
     most = whole("max_holes", max_holes, 1)
+    spread_max = positive("max_spread_deg", max_spread_deg)
+    if spread_max > 180.0:
+        raise BalancingInputError("max_spread_deg", f"must be at most 180°, got {spread_max:g}")
     if most > 36:
         raise BalancingInputError("max_holes", f"at most 36 holes are considered, got {most}")
+    if direction not in HOLE_DIRECTIONS:
+        raise BalancingInputError("direction", f"{str(direction)[:20]!r} is not radial or axial")
+    if direction == "radial" and limit >= r:
+        raise BalancingInputError(
+            "max_depth_mm", f"a radial hole {limit:g} mm deep would reach the axis from "
+            f"a {r:g} mm radius")
+    pitch_radius = r - limit if direction == "radial" else r
     chord = d + web
-    if chord > 2.0 * r:
+    if chord > 2.0 * pitch_radius:
         raise BalancingInputError(
             "radius_mm",
-            f"{r:g} mm is too small to place two {d:g} mm holes with a {web:g} mm web",
+            f"{pitch_radius:g} mm is too small a radius to place two {d:g} mm holes with a "
+            f"{web:g} mm web",
         )
-    pitch = math.degrees(2.0 * math.asin(chord / (2.0 * r)))
+    pitch = math.degrees(2.0 * math.asin(chord / (2.0 * pitch_radius)))
     for n in range(1, most + 1):
         offsets = [(j - (n - 1) / 2.0) * pitch for j in range(n)]
-        # Holes 90° or more off the centre line remove nothing useful.
-        if offsets[-1] - offsets[0] >= 180.0:
+        if offsets[-1] - offsets[0] > spread_max + 1e-9:
             raise BalancingInputError(
                 "max_depth_mm",
-                f"{n} holes would spread over more than half the circumference at "
-                f"{r:g} mm; use a larger drill, a deeper limit or add mass instead",
+                f"{n} holes of {d:g} mm at {pitch:.1f}° pitch would spread wider than "
+                f"{spread_max:g}° at {r:g} mm and {_holes(n - 1)} would be deeper than "
+                f"{limit:g} mm; add mass instead (or use a larger drill)",
             )
         gain = sum(math.cos(math.radians(o)) for o in offsets)
-        per_hole = m / gain
-        hole = drill_depth(per_hole, d, rho, point_angle_deg=p)
-        if hole.depth_to_tip_mm <= limit:
+        if direction == "radial":
+            t = _radial_depth_mm(m * r / gain, d, rho, p, r, limit)
+            if t is None:
+                continue
+            per_hole = drill_mass(d, rho, depth_to_tip_mm=t, point_angle_deg=p)
+            hole = drill_depth(per_hole, d, rho, point_angle_deg=p)
+            r_eff = r - hole_centroid_depth_mm(d, hole.depth_to_tip_mm, p)
+        else:
+            per_hole = m / gain
+            hole = drill_depth(per_hole, d, rho, point_angle_deg=p)
+            r_eff = r
+        if hole.depth_to_tip_mm <= limit * (1.0 + 1e-9):
             warnings = list(hole.warnings)
             if n > 1:
                 warnings.append(
@@ -315,9 +439,14 @@ def drill_plan(
                 hole_angles_deg=tuple(normalize_deg(centre + o) for o in offsets),
                 warnings=tuple(warnings),
                 cautions=DRILLING_CAUTIONS,
+                direction=direction,
+                effective_radius_mm=r_eff,
+                depth_limit_mm=limit,
+                web_mm=web,
+                spacing_mm=r * math.radians(pitch) if n > 1 else 0.0,
             )
     raise BalancingInputError(
         "max_depth_mm",
-        f"even {most} holes of {d:g} mm would be deeper than {limit:g} mm; "
-        "use a larger drill or add mass instead",
+        f"even {_holes(most)} of {d:g} mm would be deeper than {limit:g} mm; "
+        "add mass instead (or use a larger drill)",
     )

@@ -403,6 +403,8 @@ def calc_drill(req: Request) -> Response:
             min_web_mm=_number_or(req, "min_web_mm", 0.0),
             angle_deg=_number_or(req, "angle_deg", 0.0),
             point_angle_deg=point,
+            direction=_text(req, "direction", "axial"),
+            max_spread_deg=_number_or(req, "max_spread_deg", 180.0),
         )
         out["plan"] = {
             "holes": plan.holes,
@@ -412,6 +414,8 @@ def calc_drill(req: Request) -> Response:
             "depth_to_tip_mm": plan.depth_to_tip_mm,
             "pitch_deg": plan.pitch_deg,
             "hole_angles_deg": list(plan.hole_angles_deg),
+            "direction": plan.direction,
+            "effective_radius_mm": plan.effective_radius_mm,
             "warnings": list(plan.warnings),
         }
     return out

@@ -13,6 +13,7 @@ from the reference mark, unbalance is g·mm; conversion happens at the edges).
 
 from __future__ import annotations
 
+import cmath
 import datetime as dt
 import math
 from typing import Any, overload
@@ -155,3 +156,12 @@ class ShopDisplay:
     def a(self, internal_deg: float | None) -> str:
         """An angle in the shop's convention, e.g. ``135°``."""
         return quantity(self.angle(internal_deg), "°")
+
+    def mass_angle(self, vector_g: complex | None) -> str:
+        """A mass vector (grams at a radius) as ``12.0 g at 40°`` in the shop's angle convention."""
+        if vector_g is None:
+            return NOTHING
+        v = complex(vector_g)
+        if not (math.isfinite(v.real) and math.isfinite(v.imag)):
+            return NOTHING
+        return f"{quantity(abs(v), 'g')} at {self.a(math.degrees(cmath.phase(v)) % 360.0)}"

@@ -14,10 +14,11 @@ import secrets
 from typing import Any, TypeVar
 
 from flask_wtf import FlaskForm
-from wtforms import DateField, Field, FloatField, HiddenField, IntegerField, SelectField
+from wtforms import DateField, Field, FloatField, HiddenField, IntegerField, SelectField, StringField
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import ValidationError
 
+from shopapp.balancing.numtext import short
 from shopapp.core.checks import day_refusal
 from shopapp.core.errors import ValidationFailed
 from shopapp.models import Base
@@ -84,7 +85,7 @@ class NumberField(FloatField):
     def _value(self) -> str:
         if self.raw_data:
             return str(self.raw_data[0])
-        return "" if self.data is None else f"{self.data:g}"
+        return "" if self.data is None else short(self.data, 12)
 
 
 class AngleField(NumberField):
@@ -222,3 +223,32 @@ class OnceForm(FlaskForm):
 
 class ConfirmForm(FlaskForm):
     """An empty form: a POST button with its CSRF token (archive, unarchive, confirm)."""
+
+
+class NumberListField(StringField):
+    """A list of decimal numbers typed as ``2, 5, 10`` (commas or spaces between them);
+    empty is None. Each item is refused like :class:`NumberField` refuses a number."""
+
+    def process_formdata(self, valuelist: list[Any]) -> None:
+        raw = _raw(valuelist)
+        self.data = None
+        if raw is None:
+            return
+        if len(raw) > 20 * MAX_NUMBER_CHARS:
+            raise ValueError(f"Too long: at most {20 * MAX_NUMBER_CHARS} characters.")
+        values = []
+        for item in raw.replace(",", " ").replace(";", " ").split():
+            try:
+                value = float(item)
+            except ValueError:
+                raise ValueError(f"Not a number: {item[:MAX_NUMBER_CHARS]!r}. Type numbers "
+                                 "separated by commas, e.g. 2, 5, 10.") from None
+            if not math.isfinite(value):
+                raise ValueError(f"{item!r} is not allowed: type finite numbers, e.g. 2, 5, 10.")
+            values.append(value)
+        self.data = values
+
+    def _value(self) -> str:
+        if self.raw_data:
+            return str(self.raw_data[0])
+        return "" if not self.data else ", ".join(short(v, 12) for v in self.data)

@@ -45,7 +45,12 @@ from shopapp.charts import Figure
 from shopapp.charts.polar import PolarVector, polar_figure
 from shopapp.core.display import plain, quantity
 from shopapp.jobs import limits
-from shopapp.jobs.advice import DEFAULT_DRILL_DIAMETER_MM, CorrectionAdvice, plane_advice
+from shopapp.jobs.advice import (
+    DEFAULT_DRILL_DIAMETER_MM,
+    CorrectionAdvice,
+    plane_advice,
+    weights_on_rotor,
+)
 from shopapp.models import Correction, InfluenceSet, Job, Machine, RotorType, Run
 
 SPEED_MATCH_FRACTION = 0.05  # stored coefficients within ±5 % of the run's speed
@@ -529,12 +534,20 @@ def correction_advice(
     tol: JobTolerance | None,
     *,
     drill_diameter_mm: float = DEFAULT_DRILL_DIAMETER_MM,
+    corrections: Sequence[Correction] = (),
+    has_trial_runs: bool = False,
 ) -> CorrectionAdvice:
     """Correction answering ``current``: ``W = −A⁻¹·V`` (least squares), per plane.
 
-    The predicted residual is the unbalance left when the advised masses are
-    fitted rounded to 0.1 g and 1° (what a person can fit), ``U + W_fitted``
-    in g·mm; a warning follows when it is over the limit.
+    ``W`` is what still has to change: after a check run it is a trim on top of
+    the weights already fitted (``corrections``: those in the run's reading,
+    i.e. applied before it; the ones replaced since are left out), and the
+    advice may merge it with one of them (:func:`shopapp.jobs.advice.plane_advice`).
+    The predicted residual is what is left when the advice is fitted: the miss
+    of rounding to the stock weights where the rotor type lists them
+    (``|target − fitted|·R``), otherwise the masses rounded to 0.1 g and 1°
+    (what a person can fit), ``U + W_fitted`` in g·mm; a warning follows when
+    it is over the limit.
     """
     radii = plane_radii_mm(rt)
     sol = influence.correction_from_coefficients(coeffs.matrix, current.readings)
@@ -542,23 +555,31 @@ def correction_advice(
     cautions: list[str] = []
     planes_advised = []
     for c in sol.corrections:
-        pa = plane_advice(c.plane, c.vector_g, rt, radii[c.plane - 1], drill_diameter_mm)
+        radius = radii[c.plane - 1]
+        pa = plane_advice(c.plane, c.vector_g, rt, radius, drill_diameter_mm,
+                          weights_on_rotor(corrections, c.plane, radius))
         planes_advised.append(pa)
         warnings.extend(pa.warnings)
-        if pa.drill:
+        if pa.drill_refusal:
+            warnings.append(pa.drill_refusal)
+        if pa.drill or pa.drill_refusal:
             cautions.extend(x for x in removal.DRILLING_CAUTIONS if x not in cautions)
     exact = np.array([c.vector_g for c in sol.corrections])
     fitted = np.array([phasor(round(abs(w), 1), round(math.degrees(cmath.phase(w))))
                        for w in exact])
     # What is left, in grams at R: the unbalance the run shows (−W exact) plus what is fitted.
-    left_gmm = tuple(abs(complex(f - e)) * r for f, e, r in zip(fitted, exact, radii, strict=True))
+    left = [abs(complex(f - e)) * r for f, e, r in zip(fitted, exact, radii, strict=True)]
+    for i, pa in enumerate(planes_advised):
+        if pa.fit is not None and rt.stock_weights_g:
+            left[i] = abs(pa.fit.residual_g) * radii[i]
+    left_gmm = tuple(left)
     pct = None
     if tol is not None:
         pct = tuple(100.0 * u / lim for u, lim in zip(left_gmm, tol.plane_limits_gmm, strict=True))
         if any(p > 100.0 for p in pct):
             warnings.append("Predicted residual after fitting the rounded correction is still "
                             "out of tolerance: fit the masses more precisely.")
-    if coeffs.source in ("trials", "stored"):
+    if has_trial_runs:
         warnings.append("The advice assumes every trial mass has been removed from the rotor.")
     return CorrectionAdvice(current.run_id, current.seq, coeffs.source, tuple(planes_advised),
                             left_gmm, pct, tuple(warnings), tuple(cautions))
@@ -676,14 +697,27 @@ def evaluate(
             "machine reading g·mm) to compute the correction.")
     else:
         try:
-            calc.advice = correction_advice(current, coeffs, rt, calc.tolerance,
-                                            drill_diameter_mm=drill_diameter_mm)
+            calc.advice = correction_advice(
+                current, coeffs, rt, calc.tolerance, drill_diameter_mm=drill_diameter_mm,
+                corrections=_in_reading(corrections, runs, current),
+                has_trial_runs=any(r.purpose == "trial" for r in data))
         except BalancingInputError as exc:
             calc.advice_note = f"No correction computed: {exc}"
 
     if coeffs is None:
         _trial_mass_advice(job, rt, calc)
     return calc
+
+
+def _in_reading(corrections: Sequence[Correction], runs: Sequence[Run], current: RunData
+                ) -> list[Correction]:
+    """Corrections applied before ``current`` was taken (so its reading includes them):
+    those answering an earlier run, or without a run and recorded before it."""
+    earlier = {r.id for r in runs if r.seq < current.seq}
+    taken = next((r.taken_at for r in runs if r.id == current.run_id), None)
+    return [c for c in corrections
+            if (c.run_id in earlier) or (c.run_id is None and taken is not None
+                                         and c.applied_at < taken)]
 
 
 def _less_arbor_error(run: RunData, error_gmm: Sequence[complex]) -> RunData:

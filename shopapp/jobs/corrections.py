@@ -54,6 +54,29 @@ def _parse_split(e: _Errors, split: Any, rt: RotorType, plane: int) -> list[dict
     return out or None
 
 
+def replaceable_weights(job: Job, plane: int) -> list[Correction]:
+    """The job's added weights in ``plane`` not replaced by a later one (oldest first)."""
+    replaced = {c.replaces_correction_id for c in job.corrections if c.replaces_correction_id}
+    return [c for c in job.corrections
+            if c.plane == plane and c.action == "add" and c.id not in replaced]
+
+
+def _check_replaced(e: _Errors, job: Job, ref: Any, plane: int, action: str) -> None:
+    """The weight taken off must be an added weight of this job and plane, not replaced yet."""
+    if ref is None:
+        return
+    field = "replaces_correction_id"
+    if action != "add":
+        e.add(field, "only an added weight is fitted in place of another")
+        return
+    old = next((c for c in job.corrections if isinstance(ref, int) and not isinstance(ref, bool)
+                and c.id == ref), None)
+    if old is None or old.plane != plane or old.action != "add":
+        e.add(field, f"must be a weight added in plane {plane} of this job")
+    elif old not in replaceable_weights(job, plane):
+        e.add(field, "that weight was already replaced by a later one")
+
+
 def record_correction(
     session: Session,
     job: Job,
@@ -71,13 +94,16 @@ def record_correction(
     drill_diameter_mm: float | None = None,
     drill_depth_mm: float | None = None,
     drill_holes: int | None = None,
+    replaces_correction_id: int | None = None,
 ) -> Correction:
     """Record what was actually fitted (or removed) in one plane; it may differ from the advice.
 
     ``mass_g``/``angle_deg`` are the single equivalent correction (internal
     angle: where mass was added, or where it was removed); ``split`` lists the
     parts fitted on fixed positions (``{"position", "mass_g"}``, angles from the
-    rotor type). Drill fields are for removal only.
+    rotor type). Drill fields are for removal only. ``replaces_correction_id``
+    names an added weight of this job and plane, still on the rotor, that this
+    added weight was fitted in place of (it was taken off).
     """
     require(by, "work_jobs")
     if job.state != "on_machine":
@@ -119,10 +145,11 @@ def record_correction(
         if cols[f] is not None:
             cols[f] = normalize_deg(cols[f])
     parts = _parse_split(e, split, rt, plane) if plane in (1, 2) else None
+    _check_replaced(e, job, replaces_correction_id, plane, action)
     e.raise_if_any()
     record_influence_set(session, job, run_id, by=by)
     corr = Correction(job=job, run_id=run_id, plane=plane, action=action, split=parts,
-                      applied_by_id=by.id, **cols)
+                      applied_by_id=by.id, replaces_correction_id=replaces_correction_id, **cols)
     session.add(corr)
     session.flush()
     audit.record(session, by=by, entity="correction", entity_id=corr.id,

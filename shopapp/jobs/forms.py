@@ -18,7 +18,7 @@ from wtforms import (
     TextAreaField,
 )
 from wtforms.fields.choices import SelectChoice
-from wtforms.validators import InputRequired, Length, Optional
+from wtforms.validators import InputRequired, Length, NumberRange, Optional
 
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import forms
@@ -28,6 +28,7 @@ from shopapp.core.forms import AngleField, DayField, NumberField, OnceForm, Whol
 from shopapp.models import CORRECTION_METHODS, READING_UNITS, ROTOR_KINDS, RUN_PURPOSES
 
 _NUMBER = "Required: type a number."
+MIN_DRILL_MM, MAX_DRILL_MM = 0.5, 100.0
 PURPOSE_LABELS = {
     "initial": "initial (as received)",
     "trial": "trial (trial mass fitted)",
@@ -192,6 +193,21 @@ class CorrectionForm(OnceForm):
     drill_holes = WholeNumberField("Holes", validators=[Optional()])
     advised_mass_g = HiddenField()
     advised_angle_deg = HiddenField()
+    replaces_correction_id = ChoiceField("Fitted in place of", coerce=str,
+                                         choices=[("", "nothing (an extra weight)")],
+                                         default="")
+
+
+class DrillForm(FlaskForm):
+    """The drill diameter the advice's depths are computed for (a GET form)."""
+
+    class Meta:
+        csrf = False
+
+    drill_mm = NumberField("Drill diameter for the depth (mm)", validators=[
+        Optional(), NumberRange(min=MIN_DRILL_MM, max=MAX_DRILL_MM,
+                                message=f"Drill diameter must be between {MIN_DRILL_MM:g} and "
+                                        f"{MAX_DRILL_MM:g} mm.")])
 
 
 class StrikeForm(FlaskForm):

@@ -103,7 +103,8 @@ def score_stored_set(session: Session, job: Job, run: Run, *, by: User) -> None:
     if current.unit != stored.reading_unit:
         return
     radii = job_calc.plane_radii_mm(job.rotor.rotor_type)
-    applied = [advice.applied_vector_g(answering, p + 1, r) for p, r in enumerate(radii)]
+    applied = [advice.applied_vector_g(answering, p + 1, r, job.corrections)
+               for p, r in enumerate(radii)]
     try:
         err = advice.prediction_error_pct(job_calc.stored_matrix(stored), before_run.readings,
                                           applied, current.readings)

@@ -32,6 +32,7 @@ from shopapp.jobs import corrections, intake, limits, queries, runs, states
 from shopapp.jobs.advice import DEFAULT_DRILL_DIAMETER_MM
 from shopapp.jobs.forms import (
     CorrectionForm,
+    DrillForm,
     IntakeForm,
     LookupForm,
     ReturnForm,
@@ -197,38 +198,53 @@ def jobs_can_work() -> bool:
 # --------------------------------------------------------------------------- job page
 
 
-def _drill_diameter() -> float | None:
-    raw = (request.args.get("drill_mm") or "").strip()
-    try:
-        value = float(raw[:20])
-    except ValueError:
-        return None
-    return value if math.isfinite(value) and 0.5 <= value <= 100.0 else None
+def _drill_form() -> DrillForm:
+    """The drill diameter asked for on the page (validated; its message goes beside the field)."""
+    form = DrillForm(request.args)
+    form.validate()
+    return form
+
+
+def _weight_label(c: Any, disp: ShopDisplay, seq: dict[int, int]) -> str:
+    run = f", after run {seq[c.run_id]}" if c.run_id in seq else ""
+    return f"{quantity(c.mass_g, 'g')} at {disp.a(c.angle_deg)}{run}"
+
+
+def _replace_choices(form: CorrectionForm, job: Job, plane: int, disp: ShopDisplay) -> None:
+    seq = {r.id: r.seq for r in job.runs}
+    form.replaces_correction_id.choices = [("", "nothing (an extra weight)")] + [
+        (str(c.id), _weight_label(c, disp, seq))
+        for c in corrections.replaceable_weights(job, plane)]
 
 
 def _correction_forms(job: Job, calc: job_calc.JobCalc, disp: ShopDisplay
                       ) -> dict[int, CorrectionForm]:
-    """One record form per plane, prefilled with the advice (or the plane's radius)."""
+    """One record form per plane, prefilled with what the advice says to fit (the split
+    rounded to stock weights, in place of a weight when it says so), or the plane's radius."""
     rt = job.rotor.rotor_type
     radii = job_calc.plane_radii_mm(rt)
     forms = {}
     advice = {a.plane: a for a in calc.advice.planes} if calc.advice else {}
     for plane in range(1, rt.planes + 1):
         f = CorrectionForm(prefix=f"c{plane}", formdata=None)
+        _replace_choices(f, job, plane, disp)
         a = advice.get(plane)
         f.radius_mm.data = radii[plane - 1]
         if a is not None:
             f.run_id.data = str(calc.advice.run_id) if calc.advice else ""
             f.action.data = a.action
-            f.mass_g.data = round(a.mass_g, 2)
-            f.angle_deg.data = round(disp.angle(a.angle_deg) or 0.0, 1)
+            mass, angle = a.record_resultant()
+            f.mass_g.data = round(mass, 2)
+            f.angle_deg.data = round(disp.angle(angle) or 0.0, 1)
             f.split.data = a.split_text()
             f.advised_mass_g.data = f"{a.mass_g:.4f}"
             f.advised_angle_deg.data = f"{disp.angle(a.angle_deg):.2f}"
+            if a.fit is not None and a.fit.replaces is not None:
+                f.replaces_correction_id.data = str(a.fit.replaces)
             if a.drill:
                 f.drill_diameter_mm.data = a.drill_diameter_mm
-                f.drill_depth_mm.data = round(a.drill[0].depth_to_tip_mm, 2)
-                f.drill_holes.data = len(a.drill)
+                f.drill_depth_mm.data = round(max(d.depth_to_tip_mm for d in a.drill), 2)
+                f.drill_holes.data = sum(d.holes for d in a.drill)
         forms[plane] = f
     return forms
 
@@ -243,7 +259,9 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
     job = queries.load_job(sess, job_id)
     settings = get_settings(sess)
     disp = ShopDisplay(settings)
-    calc = queries.evaluate(sess, job, drill_diameter_mm=_drill_diameter())
+    drill_form = _drill_form()
+    drill_mm = drill_form.drill_mm.data if not drill_form.errors else None
+    calc = queries.evaluate(sess, job, drill_diameter_mm=drill_mm)
     figures = job_calc.polar_figures(calc, to_unit=disp.unb, unit_label=disp.unit,
                                      angle_sense=disp.sense, angle_zero_deg=disp.zero)
     rt = job.rotor.rotor_type
@@ -283,7 +301,8 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
         permitted_speed_rpm=limits.highest_speed_rpm(job.machine, rt, job.service_speed_rpm),
         actions=actions, trail=trail, returns=returns, now=now,
         page_error=page_error, loose=loose or [], can_work=jobs_can_work(),
-        drill_mm=_drill_diameter() or DEFAULT_DRILL_DIAMETER_MM,
+        drill_form=drill_form, drill_mm=drill_mm or DEFAULT_DRILL_DIAMETER_MM,
+        run_seq={r.id: r.seq for r in job.runs},
     ), status
 
 
@@ -368,6 +387,7 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
     disp = ShopDisplay(get_settings(sess))
     form = CorrectionForm(prefix=f"c{plane}")
     spend = once(sess, form, lambda _spent: url_for("jobs.detail", job_id=job_id) + "#correction")
+    _replace_choices(form, job, plane, disp)
     if form.validate_on_submit():
         try:
             split = parse_split(form.split.data)
@@ -382,7 +402,9 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
                 radius_mm=form.radius_mm.data, advised_mass_g=_float(form.advised_mass_g.data),
                 advised_angle_deg=disp.internal(_float(form.advised_angle_deg.data)),
                 split=split, drill_diameter_mm=form.drill_diameter_mm.data,
-                drill_depth_mm=form.drill_depth_mm.data, drill_holes=form.drill_holes.data)
+                drill_depth_mm=form.drill_depth_mm.data, drill_holes=form.drill_holes.data,
+                replaces_correction_id=(int(form.replaces_correction_id.data)
+                                        if form.replaces_correction_id.data else None))
             spend(corr)
             sess.commit()
             flash(f"Plane {corr.plane}: {quantity(corr.mass_g, 'g')} "

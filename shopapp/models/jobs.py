@@ -302,6 +302,10 @@ class Correction(Base):
     drill_diameter_mm: Mapped[float | None] = mapped_column(Float)
     drill_depth_mm: Mapped[float | None] = mapped_column(Float)
     drill_holes: Mapped[int | None] = mapped_column(Integer)
+    # An added weight fitted in place of an earlier one of the job, which was taken off.
+    replaces_correction_id: Mapped[int | None] = mapped_column(
+        ForeignKey("correction.id", ondelete="RESTRICT"), index=True
+    )
     applied_by_id: Mapped[int | None] = mapped_column(
         ForeignKey("user_account.id", ondelete="RESTRICT"), index=True
     )

@@ -19,6 +19,7 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import Mapped, mapped_column, relationship
 
+from shopapp.balancing.removal import DENSITIES, HOLE_DIRECTIONS
 from shopapp.models.base import Base, IntPK, Name, Timestamp, one_of, positive
 
 ROTOR_KINDS = ("fan", "pump_impeller", "motor_rotor", "spindle", "roll", "wheel", "other")
@@ -30,6 +31,7 @@ KEY_CONVENTIONS = ("none", "half_key", "full_key")
 # µm (displacement), mm/s and in/s (velocity) and mil are vibration readings.
 READING_UNITS = ("um", "mm/s", "g·mm", "mil", "in/s")
 CALIBRATED_READING_UNIT = "g·mm"
+ROTOR_MATERIALS = tuple(DENSITIES)  # materials with a handbook density (balancing.removal)
 
 
 class Customer(Base):
@@ -97,6 +99,12 @@ class RotorType(Base):
             "key_angle_deg IS NULL OR (key_angle_deg >= 0 AND key_angle_deg < 360)",
             name="key_angle_range",
         ),
+        # Corrections (issue 11): stock weights, material, drilling limits.
+        one_of("material", ROTOR_MATERIALS),
+        one_of("hole_direction", HOLE_DIRECTIONS),
+        positive("max_hole_depth_mm"),
+        positive("drill_section_mm"),
+        CheckConstraint("min_wall_mm IS NULL OR min_wall_mm >= 0", name="min_wall_mm_range"),
     )
 
     id: Mapped[IntPK]
@@ -138,6 +146,16 @@ class RotorType(Base):
     hub_length_mm: Mapped[float | None] = mapped_column(Float)
     key_radius_mm: Mapped[float | None] = mapped_column(Float)
     key_angle_deg: Mapped[float | None] = mapped_column(Float)
+    # Corrections (issue 11), all optional: the shop's stock weights for this rotor (grams),
+    # the material (its handbook density when density_g_cm3 is empty), and the drilling
+    # limits from the drawing: radial or axial holes, deepest hole to the tip, least wall
+    # left (under the tip and between holes) and the material depth the holes go into.
+    stock_weights_g: Mapped[list[float] | None] = mapped_column(JSON)
+    material: Mapped[str | None] = mapped_column(String(20))
+    hole_direction: Mapped[str | None] = mapped_column(String(6))
+    max_hole_depth_mm: Mapped[float | None] = mapped_column(Float)
+    min_wall_mm: Mapped[float | None] = mapped_column(Float)
+    drill_section_mm: Mapped[float | None] = mapped_column(Float)
     notes: Mapped[str] = mapped_column(Text, nullable=False, default="")
     archived: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False, index=True)
     created_at: Mapped[Timestamp]

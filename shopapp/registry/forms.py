@@ -13,9 +13,10 @@ from flask_wtf import FlaskForm
 from wtforms import BooleanField, StringField, TextAreaField
 from wtforms.validators import InputRequired, Length, Optional
 
+from shopapp.balancing.removal import DENSITIES
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core.display import plain
-from shopapp.core.forms import ChoiceField, NumberField, OnceForm, WholeNumberField
+from shopapp.core.forms import ChoiceField, NumberField, NumberListField, OnceForm, WholeNumberField
 from shopapp.models import (
     BEARING_KINDS,
     CORRECTION_METHODS,
@@ -23,9 +24,10 @@ from shopapp.models import (
     READING_UNITS,
     ROTATIONS,
     ROTOR_KINDS,
+    ROTOR_MATERIALS,
 )
 from shopapp.registry.machines import MACHINE_FIELDS
-from shopapp.registry.rotor_types import GEOMETRY_FIELDS
+from shopapp.registry.rotor_types import CORRECTION_FIELDS, GEOMETRY_FIELDS
 
 # --------------------------------------------------------------------------- customers
 
@@ -168,6 +170,23 @@ class GeometryForm(FlaskForm):
         "Key convention", choices=[(k, KEY_LABELS[k]) for k in KEY_CONVENTIONS], default="none"
     )
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
+    # How corrections fit this rotor (issue 11).
+    stock_weights_g = NumberListField("Stock weights (g)", validators=[Optional()])
+    material = ChoiceField(
+        "Material",
+        choices=[("", "not stated")]
+        + [(m, f"{DENSITIES[m].material} ({plain(DENSITIES[m].g_cm3)} g/cm³)")
+           for m in ROTOR_MATERIALS],
+        default="",
+    )
+    hole_direction = ChoiceField(
+        "Drilled holes", choices=[("", "not stated"), ("radial", "radial (into the rim)"),
+                                  ("axial", "axial (parallel to the shaft)")], default="",
+    )
+    max_hole_depth_mm = NumberField("Deepest hole, to the tip (mm)", validators=[Optional()])
+    min_wall_mm = NumberField("Least wall left (mm)", validators=[Optional()])
+    drill_section_mm = NumberField("Material depth the holes go into (mm)",
+                                   validators=[Optional()])
 
     def geometry_values(self) -> dict[str, Any]:
         """Field → value for the registry service (empty selects become None)."""
@@ -179,12 +198,18 @@ class GeometryForm(FlaskForm):
         values["rotation"] = self.rotation.data
         values["key_convention"] = self.key_convention.data
         values["notes"] = self.notes.data or ""
+        for name in CORRECTION_FIELDS:
+            values[name] = getattr(self, name).data or None
         return values
 
     def load(self, rotor_type: Any) -> None:
         """Fill the fields from a stored rotor type (GET of an edit page)."""
         for name in (*GEOMETRY_FIELDS, "kind", "rotation", "key_convention", "notes"):
             getattr(self, name).data = getattr(rotor_type, name)
+        for name in CORRECTION_FIELDS:
+            value = getattr(rotor_type, name)
+            getattr(self, name).data = "" if value is None and name in (
+                "material", "hole_direction") else value
         self.method_2.data = rotor_type.method_2 or ""
         grade = rotor_type.tolerance_grade
         self.tolerance_grade.data = plain(grade) if grade is not None else ""

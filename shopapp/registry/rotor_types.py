@@ -22,6 +22,7 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.dynamics import RigidityCheck, rigid_or_flexible
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.removal import HOLE_DIRECTIONS
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S, permissible_unbalance
 from shopapp.core import checks
 from shopapp.core.display import plain
@@ -31,6 +32,7 @@ from shopapp.models import (
     KEY_CONVENTIONS,
     ROTATIONS,
     ROTOR_KINDS,
+    ROTOR_MATERIALS,
     Customer,
     RotorType,
     User,
@@ -92,7 +94,14 @@ ROTOR_TYPE_TEXT_FIELDS: tuple[str, ...] = (
     "key_convention",
     "notes",
 )
-ROTOR_TYPE_FIELDS = ROTOR_TYPE_TEXT_FIELDS + GEOMETRY_FIELDS + KEY_FIELDS
+# How corrections fit this rotor (issue 11): stock weights, material and drilling limits.
+CORRECTION_FIELDS: tuple[str, ...] = (
+    "stock_weights_g", "material", "hole_direction", "max_hole_depth_mm", "min_wall_mm",
+    "drill_section_mm",
+)
+ROTOR_TYPE_FIELDS = ROTOR_TYPE_TEXT_FIELDS + GEOMETRY_FIELDS + KEY_FIELDS + CORRECTION_FIELDS
+MAX_STOCK_SIZES = 12  # the weight search of balancing.positions considers at most 12 sizes
+MAX_STOCK_WEIGHT_G = 10_000.0
 ONE_OFF_PREFIX = "one-off "
 
 
@@ -182,6 +191,56 @@ def _fields(e: checks.Errors, v: Any, out: dict[str, Any], values: Mapping[str, 
             )
 
 
+def _stock_weights(e: checks.Errors, value: Any) -> list[float] | None:
+    """The stock weight sizes: a list of distinct masses in grams, sorted (empty = none)."""
+    if value is None or value == [] or (isinstance(value, str) and not value.strip()):
+        return None
+    if isinstance(value, str) or not isinstance(value, list | tuple):
+        e.add("stock_weights_g", "must be a list of masses in grams, e.g. 2, 5, 10, 20")
+        return None
+    sizes: set[float] = set()
+    for item in value:
+        mass = checks.number(e, "stock_weights_g", item, above=0, maximum=MAX_STOCK_WEIGHT_G,
+                             unit="g")
+        if mass is None:
+            return None
+        sizes.add(mass)
+    if len(sizes) > MAX_STOCK_SIZES:
+        e.add("stock_weights_g", f"at most {MAX_STOCK_SIZES} different sizes, got {len(sizes)}")
+        return None
+    return sorted(sizes)
+
+
+def _correction_fields(e: checks.Errors, v: Any, out: dict[str, Any],
+                       values: Mapping[str, Any]) -> None:
+    """Stock weights, material and drilling limits (only those given are checked)."""
+    if "stock_weights_g" in values:
+        out["stock_weights_g"] = _stock_weights(e, v("stock_weights_g"))
+    if "material" in values:
+        out["material"] = checks.choice(e, "material", v("material") or None, ROTOR_MATERIALS,
+                                        required=False)
+    if "hole_direction" in values:
+        out["hole_direction"] = checks.choice(e, "hole_direction", v("hole_direction") or None,
+                                              HOLE_DIRECTIONS, required=False)
+    for name, low in (("max_hole_depth_mm", "above"), ("drill_section_mm", "above"),
+                      ("min_wall_mm", "minimum")):
+        if name in values:
+            bound = {low: 0.0}
+            out[name] = checks.number(e, name, v(name), required=False, maximum=MAX_RADIUS_MM,
+                                      unit="mm", **bound)
+    depth, wall, section = (out.get(n) for n in ("max_hole_depth_mm", "min_wall_mm",
+                                                 "drill_section_mm"))
+    if section is not None and wall is not None and wall >= section:
+        e.add("min_wall_mm", f"the wall left ({plain(wall)} mm) must be less than the material "
+              f"depth ({plain(section)} mm)")
+    radius = out.get("radius_1_mm")
+    if out.get("hole_direction") == "radial" and radius is not None:
+        for name, reach in (("max_hole_depth_mm", depth), ("drill_section_mm", section)):
+            if reach is not None and reach >= radius:
+                e.add(name, f"a radial hole {plain(reach)} mm deep would reach the axis from the "
+                      f"{plain(radius)} mm correction radius")
+
+
 def _relations(e: checks.Errors, out: dict[str, Any]) -> None:
     """Rules between fields, checked only when the fields themselves are fine."""
     a, b, c = out["bearing_a_mm"], out["bearing_b_mm"], out["centre_of_mass_mm"]
@@ -220,11 +279,12 @@ def _relations(e: checks.Errors, out: dict[str, Any]) -> None:
             e.add("plane_2_mm",
                   f"must be at least {plain(MIN_PLANE_GAP_MM)} mm away from plane 1")
     removes = [out["method_1"], out["method_2"]]
-    if any(m in ("remove", "both") for m in removes) and out["density_g_cm3"] is None:
+    if (any(m in ("remove", "both") for m in removes) and out["density_g_cm3"] is None
+            and out.get("material") is None):
         e.add(
             "density_g_cm3",
             "is required when mass may be removed (method remove or both): "
-            "e.g. 7.85 g/cm³ for steel",
+            "e.g. 7.85 g/cm³ for steel, or choose the material",
         )
 
 
@@ -233,6 +293,7 @@ def clean_geometry(values: Mapping[str, Any]) -> tuple[dict[str, Any], checks.Er
     e = checks.Errors()
     out: dict[str, Any] = {}
     _fields(e, values.get, out, values)
+    _correction_fields(e, values.get, out, values)
     _relations(e, out)
     return out, e
 

@@ -13,9 +13,12 @@ from hypothesis import strategies as st
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.positions import (
+    WeightOnRotor,
     choose_weights,
     combine_masses,
+    plan_trim,
     position_angles_deg,
+    round_to_stock,
     split_to_positions,
 )
 
@@ -183,3 +186,73 @@ def test_bad_input_names_the_field(call, field: str) -> None:
 
 def test_position_angles() -> None:
     np.testing.assert_allclose(position_angles_deg(4, 350.0), [350.0, 80.0, 170.0, 260.0])
+
+
+# --------------------------------------------------------------------------- stock and trims
+
+
+def test_round_to_stock_at_a_free_angle() -> None:
+    # By hand: sums of at most two of {5, 10, 20} are 0, 5, 10, 15, 20, 25, 30, 40;
+    # 13.4 g is nearest 15 (5 + 10); the miss is 13.4 − 15 = −1.6 g along 70°.
+    r = round_to_stock(13.4, 70.0, [5, 10, 20])
+    assert r.pieces_g == (5.0, 10.0) and r.mass_g == 15.0
+    assert r.residual_vector_g == pytest.approx(_vector(-1.6, 70.0))
+
+
+def test_trim_near_a_fitted_weight_replaces_it_with_the_combined_mass() -> None:
+    on = [WeightOnRotor(7, _vector(12.0, 40.0)), WeightOnRotor(9, _vector(5.0, 200.0))]
+    trim = _vector(4.0, 55.0)  # 15° from the 12 g weight: within 30°
+    plan = plan_trim(trim, on)
+    assert plan.kind == "replace" and plan.replaces == 7
+    # numpy vector sum: one weight E + T in place of E.
+    e_plus_t = np.sum([_vector(12.0, 40.0), _vector(4.0, 55.0)])
+    assert plan.target_g == pytest.approx(e_plus_t)
+    assert len(plan.parts) == 1
+    assert plan.parts[0].mass_g == pytest.approx(abs(e_plus_t))
+    assert plan.parts[0].angle_deg == pytest.approx(math.degrees(cmath.phase(e_plus_t)))
+    # Everything in the plane afterwards = weights before + trim.
+    after = _vector(5.0, 200.0) + _vector(plan.parts[0].mass_g, plan.parts[0].angle_deg)
+    assert after == pytest.approx(plan.combined_g)
+    assert plan.combined_g == pytest.approx(np.sum([w.vector_g for w in on]) + trim)
+
+
+def test_trim_far_from_every_weight_is_added_beside_them() -> None:
+    plan = plan_trim(_vector(4.0, 150.0), [WeightOnRotor(7, _vector(12.0, 40.0))])
+    assert plan.kind == "add" and plan.replaces is None
+    assert plan.target_g == pytest.approx(_vector(4.0, 150.0))
+
+
+def test_trim_with_stock_weights_reports_the_rounding_residual() -> None:
+    on = [WeightOnRotor(1, _vector(12.0, 40.0))]
+    trim = _vector(4.0, 55.0)
+    plan = plan_trim(trim, on, available_g=[2, 5, 10, 20])
+    target = _vector(12.0, 40.0) + trim  # 15.87 g: nearest stock sum is 15 (5 + 10)
+    assert plan.parts[0].pieces_g == (5.0, 10.0)
+    fitted = _vector(15.0, math.degrees(cmath.phase(target)))
+    assert plan.residual_g == pytest.approx(target - fitted)
+    assert abs(plan.residual_g) == pytest.approx(abs(target) - 15.0)
+
+
+def test_trim_at_fixed_positions_changes_the_weights_there() -> None:
+    # 8 positions at 45°: a weight of 16 g at position 3 (90°) and 8 g at position 4 (135°).
+    earlier = _vector(16.0, 90.0) + _vector(8.0, 135.0)
+    trim = _vector(3.0, 100.0)
+    plan = plan_trim(trim, [WeightOnRotor(3, earlier)], positions=8)
+    assert plan.kind == "replace" and plan.replaces == 3
+    # Linearity of the two-position split (law of sines, by hand): the new masses are the
+    # old ones plus the trim's parts, 3·sin35°/sin45° at 90° and 3·sin10°/sin45° at 135°.
+    s45 = math.sin(math.radians(45))
+    masses = {p.position: p.mass_g for p in plan.parts}
+    assert masses[3] == pytest.approx(16.0 + 3 * math.sin(math.radians(35)) / s45)
+    assert masses[4] == pytest.approx(8.0 + 3 * math.sin(math.radians(10)) / s45)
+    # With stock sizes: what is fitted + the residual is the target (numpy vector sum).
+    stocked = plan_trim(trim, [WeightOnRotor(3, earlier)], positions=8,
+                        available_g=[1, 2, 5, 10])
+    fitted = np.sum([_vector(sum(p.pieces_g), p.angle_deg) for p in stocked.parts])
+    assert fitted + stocked.residual_g == pytest.approx(earlier + trim)
+
+
+def test_bad_stock_list_is_named() -> None:
+    with pytest.raises(BalancingInputError) as err:
+        plan_trim(_vector(1.0, 0.0), [], available_g=[5, -1])
+    assert err.value.field == "available_g"
