@@ -44,6 +44,7 @@ from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import evidence as job_traceability
+from shopapp.jobs import certificate_link
 from shopapp.jobs import states as job_states
 from shopapp.jobs.certificate_link import (
     audit_certificate as _audit,
@@ -492,7 +493,12 @@ def reissue(session: Session, certificate: Certificate, *, by: User, reason: str
 
 def void(session: Session, certificate: Certificate, *, by: User, reason: str,
          voided_at: dt.datetime | None = None) -> Certificate:
-    """Void an issued certificate (quality only; reason required). The job's state is kept.
+    """Void an issued certificate (quality only; reason required).
+
+    A certified job whose only valid certificate this was goes back to
+    ``in_tolerance`` (:func:`shopapp.jobs.states.certificate_voided`): it
+    cannot be dispatched until a new revision is issued. Other job states are
+    kept (a dispatched rotor has left; a reopened job is already on the machine).
 
     ``voided_at``: a past moment for historical records (default now); not
     before the certificate was issued.
@@ -508,4 +514,9 @@ def void(session: Session, certificate: Certificate, *, by: User, reason: str,
             raise ValidationFailed("voided_at", f"{at.isoformat()} is before the certificate "
                                    f"was issued ({certificate.issued_at.isoformat()})")
     _void(session, certificate, by=by, reason=text, at=at)
+    job = certificate.job
+    if job.state == "certified" and certificate_link.current_certificate(session, job) is None:
+        job_states.certificate_voided(session, job, by=by, reason=f"certificate "
+                                      f"{certificate.number} revision {certificate.revision} "
+                                      f"voided: {text}")
     return certificate
