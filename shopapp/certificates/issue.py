@@ -43,8 +43,8 @@ from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
 from shopapp.jobs import calc as job_calc
-from shopapp.jobs import evidence as job_traceability
 from shopapp.jobs import certificate_link
+from shopapp.jobs import evidence as job_traceability
 from shopapp.jobs import states as job_states
 from shopapp.jobs.certificate_link import (
     audit_certificate as _audit,
@@ -205,14 +205,22 @@ def _correction_details(c: Correction, show: ShopDisplay) -> str:
     return "; ".join(parts)
 
 
+# Names of the judged quantities as the certificate prints them.
+_LIMIT_NAMES = {"static": "static (at the centre of mass)",
+                "couple": "couple (pair in planes 1 and 2)"}
+
+
 def _limit_lines(v: job_calc.RunVerdict, show: ShopDisplay) -> tuple[LimitLine, ...]:
-    out = []
-    for rows, deciding in ((v.rows, True), (v.other_rows, False)):
-        for r in rows:
-            out.append(LimitLine(r.label, r.limit_gmm, show.unb(r.limit_gmm),
-                                 r.residual_gmm, show.unb(r.residual_gmm), r.pct,
-                                 r.passed, deciding))
-    return tuple(out)
+    """The rows that decide the verdict, and only those (one basis on the certificate).
+
+    Residuals in planes the tolerance does not judge (the correction planes of
+    an ISO tolerance) are stated in the residual table without a limit.
+    """
+    return tuple(
+        LimitLine(_LIMIT_NAMES.get(r.label, r.label), r.limit_gmm, show.unb(r.limit_gmm),
+                  r.residual_gmm, show.unb(r.residual_gmm), r.pct, r.passed, True)
+        for r in v.rows
+    )
 
 
 def _tolerance_words(job: Job, tol: job_calc.JobTolerance) -> str:
@@ -313,6 +321,7 @@ def build_data(
         operator_name=operator.full_name if operator is not None else "",
         issued_by_name=issued_by.full_name,
         notes=tuple(notes),
+        tolerance_notes=tol.notes,
         **job_traceability.certificate_fields(session, job, ev.calc, to_shop=show.unb,
                                               to_display_deg=show.angle, as_of=ev.as_of),
     )
