@@ -527,5 +527,5 @@ def void(session: Session, certificate: Certificate, *, by: User, reason: str,
     if job.state == "certified" and certificate_link.current_certificate(session, job) is None:
         job_states.certificate_voided(session, job, by=by, reason=f"certificate "
                                       f"{certificate.number} revision {certificate.revision} "
-                                      f"voided: {text}")
+                                      f"voided: {text}", at=at)
     return certificate

@@ -189,7 +189,8 @@ def mark_certified(session: Session, job: Job, *, by: User, at: dt.datetime | No
     return job
 
 
-def certificate_voided(session: Session, job: Job, *, by: User, reason: str) -> Job:
+def certificate_voided(session: Session, job: Job, *, by: User, reason: str,
+                       at: dt.datetime | None = None) -> Job:
     """certified → in_tolerance: quality voided the job's only valid certificate.
 
     Called by the certificates service after the void (``job`` must then have
@@ -197,13 +198,13 @@ def certificate_voided(session: Session, job: Job, *, by: User, reason: str) -> 
     could otherwise be dispatched on a void paper; back in ``in_tolerance`` it
     waits in the certificate queue until quality issues the next revision. A
     dispatched job keeps its state (the rotor has left the shop); quality
-    reissues or the job is reopened.
+    reissues or the job is reopened. ``at``: the void's moment when historical.
     """
     require(by, "issue_certificates")
     _check_allowed(job, "in_tolerance", frozenset({"certified"}))
     if certificate_link.current_certificate(session, job) is not None:
         raise _refuse(job, "in_tolerance", "It still has a valid certificate.")
-    _move(session, job, "in_tolerance", by=by, reason=reason, action="certificate_void")
+    _move(session, job, "in_tolerance", by=by, reason=reason, action="certificate_void", at=at)
     return job
 
 

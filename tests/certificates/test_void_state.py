@@ -101,3 +101,16 @@ def test_void_page_then_job_page_offers_issue_not_dispatch(client, login_as, db,
     assert "cannot go to dispatched" in refused.get_data(as_text=True)
     db.expire_all()
     assert job.state == "in_tolerance"
+
+
+def test_a_historical_void_dates_the_state_change_then(db, shop, people) -> None:
+    operator, quality = people
+    job = job_ready_for_certificate(db, shop, operator)
+    cert = certificates.issue(db, job, by=quality)
+    when = cert.issued_at  # a given past moment (not before the issue)
+    certificates.void(db, cert, by=quality, reason="loaded from the paper register",
+                      voided_at=when)
+    last = db.query(JobTransition).filter_by(job_id=job.id).order_by(JobTransition.id.desc()
+                                                                     ).first()
+    assert last.to_state == "in_tolerance"
+    assert last.at.replace(tzinfo=None) == when.replace(tzinfo=None)
