@@ -692,3 +692,13 @@ def test_junk_filter_values_are_ignored_with_a_message() -> None:
                                        "kind": "odd", "q": "  ok  "})
     assert f == JobFilter(q="ok")
     assert len(messages) == 5
+
+
+def test_book_in_refuses_a_rotor_type_of_another_customer(db, op, rtype, machine, shop) -> None:
+    # A rotor type is one customer's part number (docs/architecture.md, registry rules).
+    other = shop.customer(name="Brackenford Pumps (fictional)")
+    before = count(db, Job)
+    with pytest.raises(ValidationFailed) as exc:
+        book(db, op, rtype, machine, customer=other.id)
+    assert exc.value.field == "rotor_type_id" and "another customer" in exc.value.message
+    assert count(db, Job) == before
