@@ -85,7 +85,9 @@ RUNUP_CAUTIONS = (
     "the plane of rotation.",
     "Never run above the rotor's permitted speed or the machine maker's limits (over-speed), "
     "also not to complete a run-up record.",
-    "The separation-margin rule here is an API-style rule quoted from memory: where a "
+    # The margin rule is quoted from memory of API practice (module docstring); the page
+    # cites the practice only.
+    "The separation-margin rule here is an API-style rule of common practice: where a "
     "standard, a contract or the machine maker sets the margin, theirs applies. Local codes "
     "and licensed practice take precedence over this advice.",
 )

@@ -13,7 +13,9 @@ Sources and what is from memory:
   reference planes of the tolerance, compared by magnitude whatever the angle.
 - Overhung rotors, static and couple limits, correction-plane equivalents:
   our own rigid-rotor method (documented on each function), used where the
-  standard's exact text is not at hand.
+  standard's exact text is not at hand. Overhung and narrow rotors are judged
+  for static and couple as well as in the bearing planes; "narrow" is planes
+  closer than a third of the bearing span (value from memory).
 - The API-style limit ``U_max = 4·W/N`` oz·in (W journal static load in lb,
   N in rpm) as used in API rotating-machinery standards, here in SI:
   ``6350·W/N`` g·mm with W in kg — the constant follows exactly from the unit
@@ -145,6 +147,11 @@ API_GMM_PER_KG_RPM = 4.0 * G_PER_OZ * MM_PER_IN / (G_PER_LB / 1000.0)
 
 SHARE_MIN = 0.3  # ISO 21940-11 allocation bounds for inboard rotors (from memory)
 SHARE_MAX = 0.7
+# A rotor whose correction planes are closer together than this fraction of the
+# bearing span is "narrow" (disc-like): the plane separation is poor and the
+# static and couple parts are judged on their own (value from memory; confirm
+# against ISO 21940-11's text on disc-shaped rotors where you can).
+NARROW_PLANE_RATIO = 1.0 / 3.0
 
 REFERENCE_PLANES = ("bearing_planes", "correction_planes")
 
@@ -251,6 +258,13 @@ class RotorGeometry:
     def has_planes(self) -> bool:
         """Whether both correction planes are given."""
         return self.plane_1_mm is not None and self.plane_2_mm is not None
+
+    @property
+    def narrow(self) -> bool:
+        """Correction planes closer than :data:`NARROW_PLANE_RATIO` of the bearing span."""
+        if self.plane_1_mm is None or self.plane_2_mm is None:
+            return False
+        return abs(self.plane_2_mm - self.plane_1_mm) < NARROW_PLANE_RATIO * self.span_mm
 
 
 def rotor_geometry(
@@ -432,6 +446,9 @@ class Tolerance:
         ``"inboard"`` / ``"overhung"`` when geometry was given.
     allocation_clamped : bool
         Whether the 0.3–0.7 bounds changed the bearing shares.
+    static_couple_judged : bool
+        Whether the static and couple limits decide as well as the bearing
+        planes (overhung and narrow rotors with correction planes).
     notes : tuple of str
         Plain-language remarks (assumptions made, sources).
     """
@@ -449,6 +466,7 @@ class Tolerance:
     couple_pair_gmm: float | None = None
     layout: str | None = None
     allocation_clamped: bool = False
+    static_couple_judged: bool = False
     notes: tuple[str, ...] = ()
 
 
@@ -493,6 +511,11 @@ def iso_tolerance(
             "overhung rotor: bearing shares from the lever rule; also keep the static and "
             "couple limits"
         )
+    elif geometry.narrow:
+        notes.append(
+            "narrow rotor (correction planes closer than a third of the bearing span): also "
+            "keep the static and couple limits"
+        )
     p1 = p2 = None
     if geometry.has_planes:
         p1, p2 = correction_plane_limits(alloc, geometry)
@@ -510,6 +533,8 @@ def iso_tolerance(
         couple_pair_gmm=sc.couple_pair_gmm,
         layout=alloc.layout,
         allocation_clamped=alloc.clamped,
+        static_couple_judged=geometry.has_planes
+        and (alloc.layout == "overhung" or geometry.narrow),
         notes=tuple(notes),
     )
 
@@ -621,6 +646,7 @@ class ResidualVerdict:
     bearing_planes: tuple[PlaneVerdict, PlaneVerdict] | None
     correction_planes: tuple[PlaneVerdict, PlaneVerdict] | None
     notes: tuple[str, ...] = ()
+    static_couple: tuple[PlaneVerdict, PlaneVerdict] | None = None
 
 
 def _scalar_vector(field: str, value: complex) -> complex:
@@ -634,6 +660,45 @@ def _plane_verdict(name: str, residual: complex, limit: float) -> PlaneVerdict:
     mag, ang = amplitude_angle(residual)
     ratio = mag / limit
     return PlaneVerdict(name, mag, ang, limit, ratio, ratio <= 1.0)
+
+
+def static_couple_matrix(geometry: RotorGeometry) -> np.ndarray:
+    """Rows taking the correction-plane residuals (r1, r2) to (S, C).
+
+    ``S = r1 + r2`` is the static residual referred to the centre of mass and
+    ``C = M/(z1 − z2)`` with ``M = r1·(z1 − z_c) + r2·(z2 − z_c)`` the couple
+    as an equal and opposite pair in the correction planes
+    (:func:`shopapp.balancing.planes.static_couple`); |C| ≤ ``couple_pair_gmm``
+    is |M| ≤ ``couple_moment_gmm2``.
+    """
+    if geometry.plane_1_mm is None or geometry.plane_2_mm is None:
+        raise BalancingInputError("plane_1_mm", "correction-plane positions are needed")
+    z1, z2, zc = geometry.plane_1_mm, geometry.plane_2_mm, geometry.centre_of_mass_mm
+    return np.array([[1.0, 1.0], [(z1 - zc) / (z1 - z2), (z2 - zc) / (z1 - z2)]])
+
+
+def judging_matrix(tolerance: Tolerance, geometry: RotorGeometry) -> tuple[np.ndarray, np.ndarray]:
+    """The deciding rows of a bearing-plane tolerance as one linear map and its limits.
+
+    Returns ``(T, limits)`` with ``T`` of shape (k, 2) taking the residuals in
+    the correction planes to the judged quantities (bearing A, bearing B and,
+    when :attr:`Tolerance.static_couple_judged`, static and couple) and
+    ``limits`` of shape (k,): the rule of :func:`judge_residual` in the form
+    :func:`judge_residuals_batch` takes.
+    """
+    if tolerance.bearing_a_gmm is None or tolerance.bearing_b_gmm is None:
+        raise BalancingInputError("tolerance", "has no bearing-plane limits")
+    if geometry.plane_1_mm is None or geometry.plane_2_mm is None:
+        raise BalancingInputError("plane_1_mm", "correction-plane positions are needed")
+    t = transfer_matrix(geometry.plane_1_mm, geometry.plane_2_mm, geometry.bearing_a_mm,
+                        geometry.bearing_b_mm)
+    rows = [np.asarray(t, dtype=float)]
+    limits = [tolerance.bearing_a_gmm, tolerance.bearing_b_gmm]
+    if tolerance.static_couple_judged:
+        assert tolerance.static_gmm is not None and tolerance.couple_pair_gmm is not None
+        rows.append(static_couple_matrix(geometry))
+        limits += [tolerance.static_gmm, tolerance.couple_pair_gmm]
+    return np.vstack(rows), np.array(limits, dtype=float)
 
 
 def judge_residual(
@@ -650,7 +715,10 @@ def judge_residual(
     compared with that plane's limit: ``ratio = |U_j| / U_per,j``, passed when
     ``ratio <= 1``. Without geometry the correction planes are taken as the
     bearing planes (said in ``notes``). Correction-plane limits are compared
-    directly.
+    directly. For overhung and narrow rotors (``static_couple_judged``) the
+    static residual at the centre of mass and the couple (as a pair in the
+    correction planes) are judged against their limits as well and decide with
+    the bearing planes (:func:`static_couple_limits`).
     """
     r1 = _scalar_vector("residual_1_gmm", residual_1_gmm)
     r2 = _scalar_vector("residual_2_gmm", residual_2_gmm)
@@ -687,14 +755,25 @@ def judge_residual(
     deciding = bearing if tolerance.reference == "bearing_planes" else correction
     if deciding is None:
         raise BalancingInputError("tolerance", f"has no limits in its {tolerance.reference}")
-    worst = max(v.ratio for v in deciding)
+    sc = None
+    if (tolerance.static_couple_judged and tolerance.reference == "bearing_planes"
+            and geometry is not None and geometry.has_planes):
+        assert tolerance.static_gmm is not None and tolerance.couple_pair_gmm is not None
+        m = static_couple_matrix(geometry)
+        sc = (
+            _plane_verdict("static", complex(m[0, 0] * r1 + m[0, 1] * r2), tolerance.static_gmm),
+            _plane_verdict("couple", complex(m[1, 0] * r1 + m[1, 1] * r2),
+                           tolerance.couple_pair_gmm),
+        )
+    judged = (*deciding, *(sc or ()))
     return ResidualVerdict(
-        passed=all(v.passed for v in deciding),
-        worst_ratio=worst,
+        passed=all(v.passed for v in judged),
+        worst_ratio=max(v.ratio for v in judged),
         reference=tolerance.reference,
         bearing_planes=bearing,
         correction_planes=correction,
         notes=tuple(notes),
+        static_couple=sc,
     )
 
 
@@ -721,13 +800,14 @@ def judge_residuals_batch(
     ----------
     residuals_gmm : array_like, complex, shape (n, 2)
         Residuals in correction planes 1 and 2 of n jobs.
-    limits_gmm : array_like, shape (n, 2) or broadcastable (e.g. (2,))
-        Limits in the planes compared (bearing planes when ``transfer`` is
+    limits_gmm : array_like, shape (n, k) or broadcastable (e.g. (k,))
+        Limits of the quantities compared (bearing planes when ``transfer`` is
         given), > 0.
-    transfer : array_like, shape (2, 2) or (n, 2, 2), optional
+    transfer : array_like, shape (k, 2) or (n, 2, 2), optional
         Correction-to-bearing transfer matrices
-        (:func:`shopapp.balancing.planes.transfer_matrix`); none = compare in
-        the correction planes.
+        (:func:`shopapp.balancing.planes.transfer_matrix`), or the rows of
+        :func:`judging_matrix` (bearing planes, static and couple); none =
+        compare in the correction planes.
     """
     r = finite_array("residuals_gmm", residuals_gmm)
     if r.ndim != 2 or r.shape[1] != 2:
@@ -737,22 +817,22 @@ def judge_residuals_batch(
         raise BalancingInputError(
             "limits_gmm", "every limit must be a real number greater than zero"
         )
-    try:
-        lim = np.broadcast_to(lim, r.shape)
-    except ValueError:
-        raise BalancingInputError(
-            "limits_gmm", f"shape {lim.shape} does not fit residuals of shape {r.shape}"
-        ) from None
     if transfer is not None:
         t = finite_array("transfer", transfer)
-        if t.shape == (2, 2):
+        if t.ndim == 2 and t.shape[1] == 2:
             r = r @ t.T
         elif t.shape == (r.shape[0], 2, 2):
             r = np.einsum("nij,nj->ni", t, r)
         else:
             raise BalancingInputError(
-                "transfer", f"must have shape (2, 2) or (n, 2, 2), got {t.shape}"
+                "transfer", f"must have shape (k, 2) or (n, 2, 2), got {t.shape}"
             )
+    try:
+        lim = np.broadcast_to(lim, r.shape)
+    except ValueError:
+        raise BalancingInputError(
+            "limits_gmm", f"shape {lim.shape} does not fit the judged values' shape {r.shape}"
+        ) from None
     ratio = np.abs(r) / lim
     passed_plane = ratio <= 1.0
     return BatchVerdict(ratio=ratio, passed_plane=passed_plane, passed=passed_plane.all(axis=1))

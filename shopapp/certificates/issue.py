@@ -43,6 +43,7 @@ from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
 from shopapp.jobs import calc as job_calc
+from shopapp.jobs import certificate_link
 from shopapp.jobs import evidence as job_traceability
 from shopapp.jobs import states as job_states
 from shopapp.jobs.certificate_link import (
@@ -205,14 +206,22 @@ def _correction_details(c: Correction, show: ShopDisplay) -> str:
     return "; ".join(parts)
 
 
+# Names of the judged quantities as the certificate prints them.
+_LIMIT_NAMES = {"static": "static (at the centre of mass)",
+                "couple": "couple (pair in planes 1 and 2)"}
+
+
 def _limit_lines(v: job_calc.RunVerdict, show: ShopDisplay) -> tuple[LimitLine, ...]:
-    out = []
-    for rows, deciding in ((v.rows, True), (v.other_rows, False)):
-        for r in rows:
-            out.append(LimitLine(r.label, r.limit_gmm, show.unb(r.limit_gmm),
-                                 r.residual_gmm, show.unb(r.residual_gmm), r.pct,
-                                 r.passed, deciding))
-    return tuple(out)
+    """The rows that decide the verdict, and only those (one basis on the certificate).
+
+    Residuals in planes the tolerance does not judge (the correction planes of
+    an ISO tolerance) are stated in the residual table without a limit.
+    """
+    return tuple(
+        LimitLine(_LIMIT_NAMES.get(r.label, r.label), r.limit_gmm, show.unb(r.limit_gmm),
+                  r.residual_gmm, show.unb(r.residual_gmm), r.pct, r.passed, True)
+        for r in v.rows
+    )
 
 
 def _tolerance_words(job: Job, tol: job_calc.JobTolerance) -> str:
@@ -313,6 +322,7 @@ def build_data(
         operator_name=operator.full_name if operator is not None else "",
         issued_by_name=issued_by.full_name,
         notes=tuple(notes),
+        tolerance_notes=tol.notes,
         **job_traceability.certificate_fields(session, job, ev.calc, to_shop=show.unb,
                                               to_display_deg=show.angle, as_of=ev.as_of),
     )
@@ -493,7 +503,12 @@ def reissue(session: Session, certificate: Certificate, *, by: User, reason: str
 
 def void(session: Session, certificate: Certificate, *, by: User, reason: str,
          voided_at: dt.datetime | None = None) -> Certificate:
-    """Void an issued certificate (quality only; reason required). The job's state is kept.
+    """Void an issued certificate (quality only; reason required).
+
+    A certified job whose only valid certificate this was goes back to
+    ``in_tolerance`` (:func:`shopapp.jobs.states.certificate_voided`): it
+    cannot be dispatched until a new revision is issued. Other job states are
+    kept (a dispatched rotor has left; a reopened job is already on the machine).
 
     ``voided_at``: a past moment for historical records (default now); not
     before the certificate was issued.
@@ -509,4 +524,9 @@ def void(session: Session, certificate: Certificate, *, by: User, reason: str,
             raise ValidationFailed("voided_at", f"{at.isoformat()} is before the certificate "
                                    f"was issued ({certificate.issued_at.isoformat()})")
     _void(session, certificate, by=by, reason=text, at=at)
+    job = certificate.job
+    if job.state == "certified" and certificate_link.current_certificate(session, job) is None:
+        job_states.certificate_voided(session, job, by=by, reason=f"certificate "
+                                      f"{certificate.number} revision {certificate.revision} "
+                                      f"voided: {text}", at=at)
     return certificate

@@ -213,6 +213,8 @@ def calc_tolerance(req: Request) -> Response:
             "reference": verdict.reference,
             "bearing_planes": _plane_verdicts(verdict.bearing_planes),
             "correction_planes": _plane_verdicts(verdict.correction_planes),
+            # Overhung and narrow rotors: judged with the bearing planes (None otherwise).
+            "static_couple": _plane_verdicts(verdict.static_couple),
             "notes": list(verdict.notes),
         }
     return out

@@ -91,8 +91,8 @@ class Limits:
     """The job tolerance as the batch verdict takes it (limits in the planes compared)."""
 
     reference: str
-    limits: np.ndarray  # shape (2,)
-    transfer: np.ndarray | None  # shape (2, 2): correction → bearing planes
+    limits: np.ndarray  # shape (k,)
+    transfer: np.ndarray | None  # shape (k, 2): correction planes → judged values
 
 
 @dataclass

@@ -269,8 +269,10 @@ class Replay:
                                          issued_at=moment)
                     self.slice_issued += 1
                 else:
-                    cert_service.void(s, cert, by=quality,
-                                      reason=f"job reopened: {data['reason']}", voided_at=moment)
+                    # The history already reopened the job: void as a reopen does
+                    # (certificate_link), not as quality's void of a certified job.
+                    certificate_link.void_certificate(
+                        s, cert, by=quality, reason=f"job reopened: {data['reason']}", at=moment)
         except ServiceError as exc:
             raise DemoRefused(f"demo job {job.number} ({kind} at {moment.isoformat()}): "
                               f"{exc.message}") from None

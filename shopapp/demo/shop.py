@@ -27,6 +27,7 @@ from sqlalchemy.orm import Session
 from shopapp.accounts.users import hash_password
 from shopapp.balancing import influence
 from shopapp.balancing.planes import transfer_matrix
+from shopapp.balancing.tolerance import judging_matrix
 from shopapp.core.numbering import DEFAULT_PATTERN
 from shopapp.demo import physics as ph
 from shopapp.demo import scenario as sc
@@ -284,9 +285,10 @@ class Shop:
         transfer = transfer_matrix(spec.plane_1_mm, spec.plane_2_mm, spec.bearing_a_mm,
                                    spec.bearing_b_mm)
         if jt.reference == "bearing_planes":
-            assert jt.bearing_limits_gmm is not None
-            limits = ph.Limits(jt.reference, np.array(jt.bearing_limits_gmm, dtype=float),
-                               np.array(transfer, dtype=float))
+            # The page's rule: bearing planes, plus static and couple where they decide.
+            assert jt.core is not None and jt.geometry is not None
+            rows, lims = judging_matrix(jt.core, jt.geometry)
+            limits = ph.Limits(jt.reference, lims, rows)
         else:
             limits = ph.Limits(jt.reference, np.array(jt.plane_limits_gmm[:2], dtype=float),
                                None)

@@ -504,7 +504,8 @@ def _row(label: str, value: complex, limit: float) -> VerdictRow:
 
 
 def judge(run: RunData, residual: tuple[complex, ...], tol: JobTolerance) -> RunVerdict:
-    """Per-plane verdict: residual, limit, % of limit, in/out (ISO: bearing planes decide)."""
+    """Per-plane verdict: residual, limit, % of limit, in/out (ISO: bearing planes decide,
+    with static and couple for overhung and narrow rotors)."""
     if tol.planes == 1:
         row = _row("plane 1", residual[0], tol.plane_limits_gmm[0])
         return RunVerdict(run.run_id, run.seq, run.purpose, True, row.passed, (row,), (),
@@ -520,8 +521,9 @@ def judge(run: RunData, residual: tuple[complex, ...], tol: JobTolerance) -> Run
 
     deciding = v.bearing_planes if v.reference == "bearing_planes" else v.correction_planes
     other = v.correction_planes if v.reference == "bearing_planes" else v.bearing_planes
-    return RunVerdict(run.run_id, run.seq, run.purpose, True, v.passed, rows(deciding),
-                      rows(other), v.reference, residual)
+    # Overhung and narrow rotors: the static and couple rows decide with the bearing planes.
+    return RunVerdict(run.run_id, run.seq, run.purpose, True, v.passed,
+                      rows(deciding) + rows(v.static_couple), rows(other), v.reference, residual)
 
 
 # --------------------------------------------------------------------------- advice

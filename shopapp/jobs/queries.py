@@ -148,6 +148,18 @@ class IntakeChoices:
     rotor_types: Sequence[Any]
     machines: Sequence[Any]
 
+    def rotor_types_of(self, customer_id: int | None) -> list[Any]:
+        """The rotor types the intake form offers: the chosen customer's only (a rotor type
+        is a customer's part number; a new customer has none yet)."""
+        return [t for t in self.rotor_types if customer_id and t.customer_id == customer_id]
+
+    def rotor_types_by_customer(self) -> dict[int, list[Any]]:
+        """Every live customer's rotor types (the intake page's script narrows the list)."""
+        out: dict[int, list[Any]] = {}
+        for t in self.rotor_types:
+            out.setdefault(t.customer_id, []).append(t)
+        return out
+
 
 def intake_choices(session: Session) -> IntakeChoices:
     """Customers, rotor types (with their customer's name) and machines not archived."""
@@ -155,7 +167,8 @@ def intake_choices(session: Session) -> IntakeChoices:
                                 .where(Customer.archived.is_(False))
                                 .order_by(Customer.name)).all()
     types = session.execute(
-        select(RotorType.id, RotorType.part_number, RotorType.description, Customer.name)
+        select(RotorType.id, RotorType.part_number, RotorType.description, Customer.name,
+               RotorType.customer_id)
         .join(Customer, Customer.id == RotorType.customer_id)
         .where(RotorType.archived.is_(False), RotorType.one_off.is_(False))
         .order_by(Customer.name, RotorType.part_number)).all()

@@ -198,7 +198,7 @@ def evaluate_residual_test(
         warnings.append(
             f"The test unbalance ({quantity(t_gmm, 'g·mm')}) is outside {plain(lo)}–{plain(hi)} "
             f"× the plane's limit ({quantity(permissible_gmm, 'g·mm')}), the usual size "
-            "(API-style residual check, from memory; common practice).")
+            "(API-style residual check, common practice).")
     try:
         res = verify_residual(t_gmm, pos, [p.amplitude for p in points],
                               [p.angle_deg for p in points] if use_phase else None,  # type: ignore[misc]

@@ -67,17 +67,31 @@ def index():  # type: ignore[no-untyped-def]
 # --------------------------------------------------------------------------- intake
 
 
-def _intake_choices(form: IntakeForm, choices: queries.IntakeChoices) -> None:
+NO_ROTOR_TYPE = (0, "— none: known serial, or one-off geometry below —")
+
+
+def _rotor_type_label(t: Any) -> str:
+    return f"{t.name} · {t.part_number} {t.description}".strip()
+
+
+def _intake_choices(form: IntakeForm, choices: queries.IntakeChoices,
+                    customer_id: int | None) -> dict[str, list[list[Any]]]:
+    """Set the form's choices; the rotor types are the chosen customer's only.
+
+    Returns every customer's rotor types for the page's script (intake.js), which
+    narrows the list when the customer changes; without it a submit does.
+    """
     form.customer_id.choices = options([(0, "— new customer (fill in below) —")] + [
         (c.id, c.name) for c in choices.customers])
     form.rotor_type_id.choices = options(
-        [(0, "— none: known serial, or one-off geometry below —")]
-        + [(t.id, f"{t.name} · {t.part_number} {t.description}".strip())
-           for t in choices.rotor_types])
+        [NO_ROTOR_TYPE] + [(t.id, _rotor_type_label(t))
+                           for t in choices.rotor_types_of(customer_id)])
     form.machine_id.choices = options([(0, "— choose —")] + [
         (m.id, f"{m.name} ({plain(m.min_mass_kg)}–{plain(m.max_mass_kg)} kg, "
                f"≤ {quantity(m.max_speed_rpm, 'rpm')})")
         for m in choices.machines])
+    return {str(cid): [[t.id, _rotor_type_label(t)] for t in types]
+            for cid, types in choices.rotor_types_by_customer().items()}
 
 
 def _intake_kwargs(form: IntakeForm, disp: ShopDisplay) -> dict[str, Any]:
@@ -139,9 +153,11 @@ def new():  # type: ignore[no-untyped-def]
     sess = db_session()
     disp = ShopDisplay(get_settings(sess))
     form = IntakeForm()
-    _intake_choices(form, queries.intake_choices(sess))
     # Its own prefix: both forms have a customer and a serial, and ids must be unique.
     lookup = LookupForm(request.args, prefix=LOOKUP_PREFIX)
+    chosen = form.customer_id.data if request.method == "POST" else request.args.get(
+        lookup.customer_id.name, type=int)
+    types_by_customer = _intake_choices(form, queries.intake_choices(sess), chosen)
     lookup.customer_id.choices = form.customer_id.choices
     history = None
     status = 200
@@ -162,6 +178,7 @@ def new():  # type: ignore[no-untyped-def]
                     form.machine_id.data = last.machine_id or 0
         form.received_on.data = form.received_on.data or dt.date.today()
         return render_template("jobs/new.html", form=form, lookup=lookup, history=history,
+                               types_by_customer=types_by_customer,
                                disp=disp, loose=loose)
     spend = once(sess, form, _saved_job_page)
     if form.validate_on_submit():
@@ -182,6 +199,7 @@ def new():  # type: ignore[no-untyped-def]
             loose = [str(exc)]
     status = 422
     return render_template("jobs/new.html", form=form, lookup=lookup, history=history,
+                           types_by_customer=types_by_customer,
                            disp=disp, loose=loose), status
 
 

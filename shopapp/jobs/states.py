@@ -5,12 +5,16 @@ States (docs/architecture.md, "Job states")::
     booked_in → on_machine → in_tolerance → certified → dispatched
     booked_in | on_machine | in_tolerance → rejected          (with a reason)
     in_tolerance | certified | dispatched → on_machine        (reopen, with a reason)
+    certified → in_tolerance                                   (its only valid certificate voided)
 
 Only this module changes ``Job.state``. Every change writes a
 :class:`JobTransition` (with its reason) and an :class:`AuditEvent` in the
 caller's transaction; a refused change raises :class:`TransitionRefused` that
 says why and what is allowed. ``certified`` is set only by the certificates
-service through :func:`mark_certified`. Reopening counts as rework
+service through :func:`mark_certified`, and left only through
+:func:`certificate_voided` when quality voids the job's only valid certificate:
+the job goes back to ``in_tolerance`` so it cannot be dispatched until a new
+revision is issued. Dispatch itself also asks for a valid certificate. Reopening counts as rework
 (``reopen_count``) and voids the certificate of a certified job.
 
 Use-cases never commit: the request or CLI command does, once.
@@ -42,7 +46,7 @@ ALLOWED: dict[str, frozenset[str]] = {
     "booked_in": frozenset({"on_machine", "rejected"}),
     "on_machine": frozenset({"in_tolerance", "rejected"}),
     "in_tolerance": frozenset({"certified", "rejected", "on_machine"}),
-    "certified": frozenset({"dispatched", "on_machine"}),
+    "certified": frozenset({"dispatched", "on_machine", "in_tolerance"}),
     "dispatched": frozenset({"on_machine"}),
     "rejected": frozenset(),
 }
@@ -115,6 +119,9 @@ def transition(session: Session, job: Job, to_state: str, *, by: User, reason: s
         return reopen(session, job, by=by, reason=reason)
     if to_state == "on_machine":
         return start(session, job, by=by)
+    if to_state == "in_tolerance" and job.state == "certified":
+        raise _refuse(job, to_state, "A certified job goes back to in tolerance only when "
+                                     "quality voids its certificate.")
     if to_state == "in_tolerance":
         return mark_in_tolerance(session, job, by=by)
     if to_state == "dispatched":
@@ -159,7 +166,7 @@ def mark_in_tolerance(session: Session, job: Job, *, by: User) -> Job:
     (:func:`shopapp.jobs.learning.learn_coefficients`).
     """
     require(by, "work_jobs")
-    _check_allowed(job, "in_tolerance")
+    _check_allowed(job, "in_tolerance", frozenset({"on_machine"}))
     calc = evaluate(session, job)
     if not calc.in_tolerance:
         raise _refuse_in_tolerance(job, calc)
@@ -183,10 +190,36 @@ def mark_certified(session: Session, job: Job, *, by: User, at: dt.datetime | No
     return job
 
 
+def certificate_voided(session: Session, job: Job, *, by: User, reason: str,
+                       at: dt.datetime | None = None) -> Job:
+    """certified → in_tolerance: quality voided the job's only valid certificate.
+
+    Called by the certificates service after the void (``job`` must then have
+    no valid certificate left). A certified job without a valid certificate
+    could otherwise be dispatched on a void paper; back in ``in_tolerance`` it
+    waits in the certificate queue until quality issues the next revision. A
+    dispatched job keeps its state (the rotor has left the shop); quality
+    reissues or the job is reopened. ``at``: the void's moment when historical.
+    """
+    require(by, "issue_certificates")
+    _check_allowed(job, "in_tolerance", frozenset({"certified"}))
+    if certificate_link.current_certificate(session, job) is not None:
+        raise _refuse(job, "in_tolerance", "It still has a valid certificate.")
+    _move(session, job, "in_tolerance", by=by, reason=reason, action="certificate_void", at=at)
+    return job
+
+
 def dispatch(session: Session, job: Job, *, by: User, on: dt.date | None = None) -> Job:
-    """certified → dispatched, setting ``dispatched_on`` (today by default)."""
+    """certified → dispatched, setting ``dispatched_on`` (today by default).
+
+    Every job leaves with a valid certificate: a certified job whose
+    certificate was voided is refused (docs/architecture.md, "Job states").
+    """
     require(by, "work_jobs")
     _check_allowed(job, "dispatched")
+    if certificate_link.current_certificate(session, job) is None:
+        raise _refuse(job, "dispatched", "It has no valid certificate: quality must issue "
+                                         "a new revision first.")
     day = on or today()
     refusal = day_refusal(day, today=today())
     if refusal is not None:
@@ -244,7 +277,7 @@ def allowed_actions(job: Job) -> list[str]:
     nxt = ALLOWED[job.state]
     if job.state == "booked_in":
         out.append("start")
-    if "in_tolerance" in nxt:
+    if job.state == "on_machine":
         out.append("in_tolerance")
     if "dispatched" in nxt:
         out.append("dispatch")

@@ -155,6 +155,8 @@ class CertificateData:
     operator_name: str
     issued_by_name: str
     notes: tuple[str, ...] = ()
+    # How the tolerance method allotted the limits (allocation bounds, lever rule, ...).
+    tolerance_notes: tuple[str, ...] = ()
     # Traceability (shopapp.reports.traceability_section); empty when not applicable.
     key_statement: str = ""
     key_compensation: str = ""
@@ -178,6 +180,7 @@ class CertificateData:
         values["corrections"] = tuple(CorrectionLine(**v) for v in values["corrections"])
         values["limits"] = tuple(LimitLine(**v) for v in values["limits"])
         values["notes"] = tuple(values.get("notes", ()))
+        values["tolerance_notes"] = tuple(values.get("tolerance_notes", ()))
         values = traceability_section.lines_from_dict(values)
         return cls(**values)
 
@@ -276,6 +279,19 @@ def _verdict_word(passed: bool) -> str:
     return "WITHIN TOLERANCE" if passed else "OUT OF TOLERANCE"
 
 
+def judged_where(data: CertificateData) -> str:
+    """Where the verdict was judged, in the words page one and the result table share."""
+    if data.reference_planes == "bearing_planes":
+        where = "in both bearing planes"
+    elif data.planes == 1:
+        where = "in the correction plane"
+    else:
+        where = "in both correction planes"
+    if any(x.deciding and x.name.startswith("static") for x in data.limits):
+        where += " and for static and couple unbalance"
+    return where
+
+
 def first_lines(data: CertificateData) -> list[tuple[str, str]]:
     """The identification block printed first on the certificate (also shown by /verify)."""
     return [
@@ -284,7 +300,7 @@ def first_lines(data: CertificateData) -> list[tuple[str, str]]:
         ("Customer", data.customer_name),
         ("Rotor", f"{data.rotor_part_number} {data.rotor_description}".strip()),
         ("Serial number", data.serial_number),
-        ("Result", _verdict_word(data.passed).lower() + " in every plane"
+        ("Result", f"{_verdict_word(data.passed).lower()} {judged_where(data)}"
          if data.passed else _verdict_word(False).lower()),
     ]
 
@@ -328,8 +344,8 @@ def _acceptance_block(data: CertificateData) -> Flowable:
     worst = max((x.percent_of_limit for x in data.limits if x.deciding), default=0.0)
     verdict = Paragraph(
         f'<font name="{FONT_BOLD}" size="12">{esc(_verdict_word(data.passed))}</font>'
-        f"<br/>{'in every plane' if data.passed else 'see the result table'}"
-        f"<br/>worst plane at {worst:.0f} % of its limit",
+        f"<br/>{esc(judged_where(data)) if data.passed else 'see the result table'}"
+        f"<br/>worst at {worst:.0f} % of its limit",
         st.body,
     )
     box = Table([[verdict]], colWidths=[46 * mm])
@@ -383,15 +399,16 @@ def _tolerance_section(data: CertificateData) -> list[Flowable]:
                      f"{_rpm(data.service_speed_rpm)}.")
     else:
         lines.append("Limits per correction plane as specified by the customer.")
-    rows: list[list[str]] = [["Plane", *_unit_heads("Limit", data.unit), "Decides the verdict"]]
+    lines += [f"Note: {n}." for n in data.tolerance_notes]
+    rows: list[list[str]] = [["Judged", *_unit_heads("Limit", data.unit)]]
     for lim in data.limits:
-        rows.append([lim.name, *_unit_values(lim.limit_shop, lim.limit_gmm, data.unit),
-                     "yes" if lim.deciding else "no, shown for information"])
+        if lim.deciding:  # only what decides carries a limit (one basis)
+            rows.append([lim.name, *_unit_values(lim.limit_shop, lim.limit_gmm, data.unit)])
     return [keep(
         Paragraph("2  Tolerance", st.heading),
         *[Paragraph(esc(t), st.body) for t in lines],
         Spacer(1, 2 * mm),
-        grid_table(rows, _widths(0.25, *_unit_widths(data.unit), 0.31), align_right_from=1),
+        grid_table(rows, _widths(0.4, *_unit_widths(data.unit)), align_right_from=1),
     )]
 
 
@@ -432,19 +449,20 @@ def _balancing_section(data: CertificateData) -> list[Flowable]:
 
 def _result_section(data: CertificateData) -> list[Flowable]:
     st = styles()
-    rows = [["Plane", f"Residual ({data.unit})", f"Limit ({data.unit})", "% of limit",
+    rows = [["Judged", f"Residual ({data.unit})", f"Limit ({data.unit})", "% of limit",
              "Verdict"]]
     for lim in data.limits:
-        verdict = "within" if lim.passed else "OUT"
         if not lim.deciding:
-            verdict += " (information)"
+            continue  # a residual outside the basis is stated above, without a limit
         rows.append([lim.name, display.number(lim.residual_shop), display.number(lim.limit_shop),
-                     f"{lim.percent_of_limit:.0f} %", verdict])
+                     f"{lim.percent_of_limit:.0f} %", "within" if lim.passed else "OUT"])
     w = _CONTENT_WIDTH
     out: list[Flowable] = [
         keep(
             Paragraph(esc(f"4  Result (run {data.final_run})"), st.heading),
             _vector_table(data.residual, "Residual", data.unit),
+            Paragraph(esc(f"Residual per correction plane as measured; the verdict below is "
+                          f"judged {judged_where(data)}."), st.small),
             Spacer(1, 2 * mm),
             grid_table(rows, [w * 0.2, w * 0.2, w * 0.2, w * 0.15, w * 0.25],
                        align_right_from=1),
@@ -455,9 +473,14 @@ def _result_section(data: CertificateData) -> list[Flowable]:
     plot = _polar_plot(data)
     if plot is not None:
         out.append(Spacer(1, 3 * mm))
+        circle = ("the limit circle (heavy dashed circle)"
+                  if data.reference_planes == "correction_planes" else
+                  "the plane's share of the bearing-plane limits (heavy dashed circle: inside "
+                  "it a residual keeps both bearing planes within at any angle; the verdict is "
+                  "the bearing planes' above)")
         out.append(keep(plot, Paragraph(esc(
             "Polar plot per correction plane: initial unbalance (thin dashed arrow), residual "
-            "(heavy solid arrow) and the limit circle (heavy dashed circle); 0° at the top, "
+            f"(heavy solid arrow) and {circle}; 0° at the top, "
             "angles growing clockwise in the shop's angle convention."
         ), st.small)))
     return out

@@ -77,10 +77,13 @@ def sized(field_list: Any, n: int) -> None:
 class ProvingTestForm(OnceForm):
     performed_on = DayField("Test date", validators=[InputRequired("Required: a date.")])
     proving_rotor_id = SelectField("Proving rotor", coerce=int)
-    test_mass_g = StringField("Test mass, g")
-    test_radius_mm = StringField("Test-mass radius, mm")
+    # The rotor the proposed figures below belong to (kept in step by proving_test.js;
+    # without script the server notices a changed rotor and proposes its figures).
+    figures_for = HiddenField()
+    test_mass_g = StringField("Test mass, each plane, g")
+    test_radius_mm = StringField("Test-mass radius, each plane, mm")
     first_position_deg = StringField("Position 1 at, °", default="0")
-    claimed_umar = StringField("Claimed U_mar for this rotor, g·mm")
+    claimed_umar = StringField("Claimed U_mar, whole rotor, g·mm")
     p1_amp = FieldList(StringField("indicated"), min_entries=0)
     p1_ang = FieldList(StringField("angle"), min_entries=0)
     p2_amp = FieldList(StringField("indicated"), min_entries=0)
@@ -99,15 +102,24 @@ class ProvingTestForm(OnceForm):
         for fl in (self.p1_amp, self.p1_ang, self.p2_amp, self.p2_ang):
             sized(fl, positions)
 
-    def propose(self, defaults: Any) -> None:
+    def propose(self, defaults: Any, rotor_id: int | None = None, *,
+                blanks_only: bool = False) -> None:
         """Fill the proposed figures (:class:`~shopapp.traceability.verifications.
-        ProvingTestDefaults`) as a person would type them."""
-        for name, value in (("test_radius_mm", defaults.test_radius_mm),
-                            ("claimed_umar", defaults.claimed_umar_gmm),
-                            ("test_mass_g", defaults.test_mass_g),
-                            ("claimed_urr_pct", defaults.claimed_urr_pct)):
-            if value is not None:
-                getattr(self, name).data = plain(value)
+        ProvingTestDefaults`) as a person would type them; ``blanks_only`` keeps
+        what was typed. ``rotor_id``: the rotor they belong to."""
+        for name, text in defaults.as_form().items():
+            fld = getattr(self, name)
+            if blanks_only and (fld.data or "").strip():
+                continue
+            fld.data = text
+        if rotor_id is not None:
+            self.figures_for.data = str(rotor_id)
+
+    def rotor_changed(self, rotor_id: int) -> bool:
+        """True when the figures on the form were proposed for another rotor (a form that
+        does not say which rotor they belong to is taken as typed for the chosen one)."""
+        marker = (self.figures_for.data or "").strip()
+        return bool(marker) and marker != str(rotor_id)
 
     def readings(self, planes: int, disp: ShopDisplay) -> dict[str, Any]:
         """The typed test as keyword arguments of the proving-test use-cases."""

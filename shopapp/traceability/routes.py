@@ -109,17 +109,36 @@ def proving_test(machine_id: int):  # type: ignore[no-untyped-def]
         (r.id, f"{r.name} ({plain(r.mass_kg)} kg, {r.planes} plane(s), {r.positions} positions)")
         for r in rotors])
     pick = form.proving_rotor_id.data if posted else request.args.get("rotor", type=int)
-    rotor = next((r for r in rotors if r.id == pick), rotors[0] if rotors else None)
+    proposed = verifications.proposed_proving_rotor(m, rotors)
+    rotor = next((r for r in rotors if r.id == pick), proposed)
+    notices: list[str] = []
+    if rotor is None and rotors:
+        rotor = rotors[0]
+        notices.append(f"No proving rotor in the register fits {m.name}'s mass range "
+                       f"({plain(m.min_mass_kg)}–{plain(m.max_mass_kg)} kg); "
+                       f"{rotor.name} is shown: choose the rotor you test with.")
     if not posted:
         form.performed_on.data = _today()
         if rotor is not None:
             form.proving_rotor_id.data = rotor.id
-        form.propose(verifications.proving_test_defaults(m, rotor))
+        form.propose(verifications.proving_test_defaults(m, rotor),
+                     rotor.id if rotor is not None else None)
     form.size_for(rotor.positions if rotor is not None else 8)
     result = None
     loose: list[str] = []
     status = 200
-    if posted and rotor is not None and form.validate_on_submit():
+    changed = posted and rotor is not None and form.rotor_changed(rotor.id)
+    if changed:
+        assert rotor is not None
+        # The rotor was changed without the page's script: its own claimed figures replace
+        # the other rotor's, and nothing is computed until they have been seen.
+        form.propose(verifications.proving_test_defaults(m, rotor), rotor.id)
+        notices.append(f"Figures proposed for {rotor.name}: check them and the positions, "
+                       "then Compute again.")
+    elif posted and rotor is not None:
+        # Blank proposed figures are filled by the server as the script would have.
+        form.propose(verifications.proving_test_defaults(m, rotor), rotor.id, blanks_only=True)
+    if posted and rotor is not None and not changed and form.validate_on_submit():
         readings = form.readings(rotor.planes, disp)
         try:
             if form.save.data:
@@ -139,11 +158,12 @@ def proving_test(machine_id: int):  # type: ignore[no-untyped-def]
             sess.rollback()
             loose = apply_errors(form, exc, form.error_fields())
             status = 422
-    elif posted:
+    elif posted and not changed:
         status = 422
     return render_template(
         "traceability/proving_test.html", machine=m, rotor=rotor, form=form, result=result,
-        disp=disp, loose=loose,
+        disp=disp, loose=loose, notices=notices,
+        figures={r.id: verifications.proving_test_defaults(m, r).as_form() for r in rotors},
         positions=verifications.equally_spaced_deg(rotor.positions) if rotor else (),
     ), status
 

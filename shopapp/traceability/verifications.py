@@ -279,6 +279,29 @@ def proving_rotors(session: Session, *, include_archived: bool = False) -> list[
     return list(session.scalars(q))
 
 
+def fits_mass_range(machine: Machine, proving_rotor: ProvingRotor) -> bool:
+    """Whether the proving rotor's mass lies within the machine's mass range."""
+    return machine.min_mass_kg <= proving_rotor.mass_kg <= machine.max_mass_kg
+
+
+def proposed_proving_rotor(machine: Machine, rotors: Sequence[ProvingRotor]
+                           ) -> ProvingRotor | None:
+    """The proving rotor the test form proposes for ``machine``, or None when none fits.
+
+    Of the rotors within the machine's mass range, the one nearest the middle
+    of the range on a log scale (a machine's range spans decades; common
+    practice, no source: prove the machine with a rotor it is meant to carry,
+    not one at the edge of its range). The lower end is taken as at least 1 %
+    of the upper, so a range from 0 kg has a middle.
+    """
+    fitting = [r for r in rotors if fits_mass_range(machine, r)]
+    if not fitting:
+        return None
+    low = max(machine.min_mass_kg, 0.01 * machine.max_mass_kg)
+    middle = math.sqrt(low * machine.max_mass_kg)
+    return min(fitting, key=lambda r: (abs(math.log(r.mass_kg / middle)), r.name))
+
+
 # --------------------------------------------------------------------------- proving test
 
 
@@ -337,6 +360,14 @@ class ProvingTestDefaults:
     test_mass_g: float | None
     claimed_urr_pct: float | None
 
+    def as_form(self) -> dict[str, str]:
+        """The figures as the form's fields show them (the page's script fills them in)."""
+        return {name: plain(value) if value is not None else ""
+                for name, value in (("test_radius_mm", self.test_radius_mm),
+                                    ("claimed_umar", self.claimed_umar_gmm),
+                                    ("test_mass_g", self.test_mass_g),
+                                    ("claimed_urr_pct", self.claimed_urr_pct))}
+
 
 def _three_figures(value: float) -> float:
     return round(value, 2 - math.floor(math.log10(abs(value)))) if value else value
@@ -348,7 +379,8 @@ def proving_test_defaults(machine: Machine, proving_rotor: ProvingRotor | None
 
     The test mass: the middle (15 ×) of the usual 10–20 × the plane's claimed
     U_mar (from memory of the ISO 21940-21 idea), a two-plane rotor taking half
-    the claim per plane (:func:`evaluate_proving_test`).
+    the claim per plane (:func:`evaluate_proving_test`). ``claimed_umar_gmm``
+    is for the whole rotor; ``test_mass_g`` and ``test_radius_mm`` are per plane.
     """
     if proving_rotor is None:
         return ProvingTestDefaults(None, None, None, machine.claimed_urr_pct)
@@ -456,12 +488,19 @@ def evaluate_proving_test(
     planes: list[PlaneProving] = []
     reasons: list[str] = []
     warnings: list[str] = []
+    if not fits_mass_range(machine, proving_rotor):
+        warnings.append(
+            f"The proving rotor {proving_rotor.name} ({quantity(proving_rotor.mass_kg, 'kg')}) "
+            f"is outside {machine.name}'s mass range ({plain(machine.min_mass_kg)}–"
+            f"{quantity(machine.max_mass_kg, 'kg')}): the test does not prove the machine for "
+            "the rotors it carries."
+        )
     lo, hi = TEST_UNBALANCE_FACTORS
     if not lo * plane_claim <= t_gmm <= hi * plane_claim:
         warnings.append(
             f"The test unbalance ({quantity(t_gmm, 'g·mm')}) is outside {plain(lo)}–{plain(hi)} "
             f"× the plane's claimed U_mar ({quantity(plane_claim, 'g·mm')}), the usual size "
-            "(from memory of the ISO 21940-21 idea)."
+            "for the ISO 21940-21 test."
         )
     for p in range(n_planes):
         try:

@@ -287,3 +287,73 @@ def test_bad_input_names_the_field(call, field) -> None:
     with pytest.raises(BalancingInputError) as err:
         call()
     assert err.value.field == field
+
+
+# --- static and couple for overhung and narrow rotors (issue 11) -----------------------------
+
+
+def _bearing_loads_numpy(r1: complex, r2: complex, za: float, zb: float, z1: float, z2: float
+                         ) -> np.ndarray:
+    """Rigid-rotor statics solved by numpy (force balance and moments about bearing A)."""
+    a = np.array([[1.0, 1.0], [0.0, zb - za]], dtype=complex)
+    return np.abs(np.linalg.solve(a, np.array([r1 + r2, r1 * (z1 - za) + r2 * (z2 - za)])))
+
+
+def test_overhung_static_limit_decides_beside_the_bearing_planes() -> None:
+    # Invented overhung fan: bearings 0/600, centre of mass 900, planes 780/1020.
+    geo = tol.rotor_geometry(0.0, 600.0, 900.0, 780.0, 1020.0)
+    t = tol.iso_tolerance(6.3, 310.0, 1480.0, geo)
+    assert t.static_couple_judged and t.static_gmm is not None
+    # A pure static residual at the centre of mass (no moment about it), 1.6 × the static
+    # limit: split onto the planes by the lever rule about z_c.
+    s = 1.6 * t.static_gmm
+    r1, r2 = s * (1020.0 - 900.0) / 240.0, s * (900.0 - 780.0) / 240.0
+    loads = _bearing_loads_numpy(r1, r2, 0.0, 600.0, 780.0, 1020.0)
+    assert loads[0] <= t.bearing_a_gmm and loads[1] <= t.bearing_b_gmm  # bearings inside
+    v = tol.judge_residual(r1, r2, t, geo)
+    assert all(p.passed for p in v.bearing_planes)
+    assert v.static_couple is not None
+    static, couple = v.static_couple
+    assert static.residual_gmm == pytest.approx(s) and not static.passed
+    assert couple.residual_gmm == pytest.approx(0.0, abs=1e-9)
+    assert not v.passed and v.worst_ratio == pytest.approx(1.6)
+
+
+@pytest.mark.parametrize(("planes", "narrow"), [((170.0, 330.0), True), ((100.0, 400.0), False)])
+def test_narrow_rotor_is_judged_for_static_and_couple(planes, narrow) -> None:  # type: ignore[no-untyped-def]
+    # Value from memory: narrow when the planes are closer than a third of the bearing span.
+    geo = tol.rotor_geometry(0.0, 500.0, 250.0, *planes)
+    t = tol.iso_tolerance(6.3, 45.0, 1470.0, geo)
+    assert geo.narrow is narrow and t.static_couple_judged is narrow
+    assert any("narrow rotor" in n for n in t.notes) is narrow
+
+
+def test_any_residual_within_static_and_couple_limits_keeps_the_bearings_within() -> None:
+    # The docstring's claim checked by sampling against numpy statics (worst phases included).
+    geo = tol.rotor_geometry(0.0, 600.0, 900.0, 780.0, 1020.0)
+    t = tol.iso_tolerance(6.3, 310.0, 1480.0, geo)
+    assert t.static_gmm is not None and t.couple_pair_gmm is not None
+    rng = np.random.default_rng(11)
+    m = tol.static_couple_matrix(geo)
+    inv = np.linalg.inv(m)
+    for _ in range(500):
+        sc = np.array([t.static_gmm * rng.uniform(0, 1) * np.exp(1j * rng.uniform(0, 2 * np.pi)),
+                       t.couple_pair_gmm * rng.uniform(0, 1)
+                       * np.exp(1j * rng.uniform(0, 2 * np.pi))])
+        r1, r2 = inv @ sc
+        loads = _bearing_loads_numpy(r1, r2, 0.0, 600.0, 780.0, 1020.0)
+        assert loads[0] <= t.bearing_a_gmm * (1 + 1e-9)
+        assert loads[1] <= t.bearing_b_gmm * (1 + 1e-9)
+
+
+def test_batch_verdict_with_the_judging_matrix_equals_the_single_verdict() -> None:
+    geo = tol.rotor_geometry(0.0, 600.0, 900.0, 780.0, 1020.0)
+    t = tol.iso_tolerance(6.3, 310.0, 1480.0, geo)
+    rows, limits = tol.judging_matrix(t, geo)
+    rng = np.random.default_rng(5)
+    r = (rng.uniform(0, 1.5, (200, 2)) * t.static_gmm
+         * np.exp(1j * rng.uniform(0, 2 * np.pi, (200, 2))))
+    batch = tol.judge_residuals_batch(r, limits, rows)
+    single = [tol.judge_residual(a, b, t, geo).passed for a, b in r]
+    assert list(batch.passed) == single
+    assert 0 < sum(single) < len(single)  # both outcomes occur

@@ -49,6 +49,7 @@ class LiveShop:
     rotor_type_id: int
     machine_id: int
     radius_mm: float
+    other_rotor_type_id: int  # another customer's, never offered for this customer
 
 
 def _require_browser() -> None:
@@ -76,8 +77,10 @@ def live_shop(tmp_path: Path) -> Iterator[LiveShop]:
                              positions_2=None)
         machine = shop.machine(name="Bay 1 soft-bearing (test)", bearing_kind="soft",
                                reading_unit="um")
+        other = shop.rotor_type(shop.customer(name="Brackenford Pumps (fictional)"),
+                                part_number="BRK-77", description="pump impeller")
         sess.commit()
-        live = (operator.username, customer.name, rt.id, machine.id, rt.radius_1_mm)
+        live = (operator.username, customer.name, rt.id, machine.id, rt.radius_1_mm, other.id)
     engine.dispose()
     app = create_app({
         "SECRET_KEY": "browser-test-only",
@@ -90,7 +93,7 @@ def live_shop(tmp_path: Path) -> Iterator[LiveShop]:
     thread.start()
     try:
         yield LiveShop(f"http://127.0.0.1:{server.server_port}", live[0], PASSWORD, live[1],
-                       live[2], live[3], live[4])
+                       live[2], live[3], live[4], live[5])
     finally:
         server.shutdown()
         thread.join(timeout=10)

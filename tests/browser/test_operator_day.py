@@ -59,9 +59,18 @@ def _log_run(page, purpose: str, v: tuple[complex, complex], trial: int | None =
     assert page.locator("small.error, #page-error").count() == 0, page.inner_text("main")
 
 
-def test_operator_books_in_balances_and_reaches_tolerance(live_shop: LiveShop, page,
-                                                          tmp_path) -> None:  # type: ignore[no-untyped-def]
+def _fits_width(page, what: str) -> None:  # type: ignore[no-untyped-def]
+    """No horizontal overflow: the document is no wider than the viewport."""
+    widths = page.evaluate("() => [document.documentElement.scrollWidth, window.innerWidth]")
+    assert widths[0] <= widths[1], f"{what}: content {widths[0]} px wide in a {widths[1]} px view"
+
+
+# Desktop, and a tablet held in landscape (800 px): the shop floor uses both.
+@pytest.mark.parametrize("width", [1280, 800])
+def test_operator_books_in_balances_and_reaches_tolerance(live_shop: LiveShop, page, tmp_path,
+                                                          width: int) -> None:  # type: ignore[no-untyped-def]
     shop = live_shop
+    page.set_viewport_size({"width": width, "height": 1800})
     page.goto(shop.url + "/login")
     page.get_by_label("Username").fill(shop.username)
     page.get_by_label("Password").fill(shop.password)
@@ -75,15 +84,20 @@ def test_operator_books_in_balances_and_reaches_tolerance(live_shop: LiveShop, p
     # intake form's own inputs; no id on the page is used twice.
     ids = page.eval_on_selector_all("[id]", "els => els.map(e => e.id)")
     assert len(ids) == len(set(ids)), sorted({i for i in ids if ids.count(i) > 1})
+    types = intake.get_by_label("Rotor type (customer · part number)")
+    assert types.locator("option").count() == 1  # no customer chosen: no rotor types yet
     intake.get_by_label("Customer", exact=True).select_option(label=shop.customer)
     intake.get_by_label("Serial number", exact=True).fill("FFW-0001")
-    intake.get_by_label("Rotor type (customer · part number)").select_option(
-        str(shop.rotor_type_id))
+    # The list now holds this customer's types only (intake.js), not the other customer's.
+    offered = types.locator("option").evaluate_all("os => os.map(o => o.value)")
+    assert str(shop.rotor_type_id) in offered and str(shop.other_rotor_type_id) not in offered
+    types.select_option(str(shop.rotor_type_id))
     intake.get_by_label("Balancing speed (rpm)").fill("600")
     intake.get_by_label("Machine", exact=True).select_option(str(shop.machine_id))
     intake.get_by_role("button", name="Book in").click()
     page.wait_for_url(re.compile(r".*/jobs/\d+$"))
     assert "booked in" in page.locator("h1").inner_text()
+    _fits_width(page, "job page")
 
     # Initial run and one trial run per plane (each trial mass removed before the next).
     v0 = _reading(U0)
@@ -125,3 +139,9 @@ def test_operator_books_in_balances_and_reaches_tolerance(live_shop: LiveShop, p
     body = page.inner_text("main")
     assert "Run 4 (check): in tolerance" in body
     assert "FFW-0001" in body
+    _fits_width(page, "job page with runs, advice and plots")
+    job_url = page.url
+    page.goto(shop.url + "/jobs")
+    assert page.locator("table").get_by_text("FFW-0001").count() == 1
+    _fits_width(page, "job list")
+    page.goto(job_url)

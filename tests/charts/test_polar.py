@@ -101,3 +101,62 @@ def test_junk_vectors_are_skipped_not_drawn() -> None:
                         PolarVector("ok", 1.0, 0.0)], limit=float("inf"))
     assert len(_arrows(fig)) == 1
     assert not [c for c in fig.items if isinstance(c, Circle) and c.style == "limit"]
+
+
+# --- labels clear of each other, zoomed inset (issue 11) ------------------------------------
+
+from shopapp.charts.labels import collide  # noqa: E402
+
+
+def _plot_texts(fig):  # type: ignore[no-untyped-def]
+    """The texts drawn inside the plot square (angle labels, ring values, tip labels)."""
+    _, cy, outer_r = _centre(fig)
+    return [t for t in fig.items if isinstance(t, Text) and t.y > cy - outer_r - 20.0]
+
+
+@pytest.mark.parametrize("size", [200.0, 260.0])
+@pytest.mark.parametrize("angles", [(15.0, 195.0), (0.0, 10.0), (45.0, 300.0), (90.0, 95.0)])
+def test_no_two_plot_labels_overlap(size: float, angles: tuple[float, float]) -> None:
+    fig = polar_figure([PolarVector("initial (run 1)", 800.0, angles[0], "initial"),
+                        PolarVector("check (run 3)", 390.0, angles[1], "check"),
+                        PolarVector("residual (run 4)", 410.0, angles[1] + 5.0, "residual")],
+                       limit=400.0, size=size)
+    texts = _plot_texts(fig)
+    labels = {t.text for t in texts}
+    assert {"0°", "90°", "180°", "270°"} <= labels
+    assert {"400", "800"} <= labels  # both ring values (outer ring 800) found a free place
+    for i, a in enumerate(texts):
+        for b in texts[i + 1:]:
+            assert not collide(a, b, gap=0.0), (a, b)
+    # Readable at the default size: the plot's own labels use the 9 pt label style.
+    assert all(t.style == "label" for t in texts)
+
+
+def test_small_residual_is_visible_in_the_zoomed_inset() -> None:
+    # A residual of 2 % of full scale (outer ring 100) with the tolerance at 5.
+    fig = polar_figure([PolarVector("initial (run 1)", 100.0, 0.0, "initial"),
+                        PolarVector("residual (run 4)", 2.0, 120.0, "residual")], limit=5.0)
+    cx, cy, outer_r = _centre(fig)
+    residual_arrows = _arrows(fig, "residual")
+    main = [a for a in residual_arrows if (a.x1, a.y1) == (cx, cy)]
+    inset = [a for a in residual_arrows if (a.x1, a.y1) != (cx, cy)]
+    assert len(inset) == 1
+    (z,) = inset
+    main_len = 2.0 / 100.0 * outer_r  # 2 % of full scale: under 3 points in the main plot
+    assert not main or math.hypot(main[0].x2 - cx, main[0].y2 - cy) == pytest.approx(main_len)
+    z_len = math.hypot(z.x2 - z.x1, z.y2 - z.y1)
+    assert z_len >= 15.0 and z_len >= 5 * main_len  # a visible arrow (our threshold)
+    # Same geometry, larger scale: the residual keeps its ratio to the limit circle.
+    limits = [c for c in fig.items if isinstance(c, Circle) and c.style == "limit"]
+    z_limit = [c for c in limits if (c.cx, c.cy) == (z.x1, z.y1)]
+    assert len(z_limit) == 1 and z_len / z_limit[0].r == pytest.approx(2.0 / 5.0)
+    # Still 120° clockwise from the top in the inset.
+    assert math.degrees(math.atan2(z.x2 - z.x1, z.y2 - z.y1)) == pytest.approx(120.0)
+    assert any(isinstance(t, Text) and t.text.startswith("zoom: outer ring") for t in fig.items)
+
+
+def test_no_inset_when_the_residual_is_already_large_enough() -> None:
+    fig = polar_figure([PolarVector("initial (run 1)", 100.0, 0.0, "initial"),
+                        PolarVector("residual (run 4)", 40.0, 120.0, "residual")], limit=50.0)
+    assert len(_arrows(fig, "residual")) == 1
+    assert not any(isinstance(t, Text) and t.text.startswith("zoom") for t in fig.items)

@@ -181,7 +181,8 @@ def test_a_control_character_in_the_intake_is_refused_and_nothing_saved(
         ({"tolerance_grade": "7"}, "Not one of the choices"),
         ({"received_on": "31/02/2026"}, "Not a valid date"),
         ({"promised_on": "2026-01-01"}, "before the job is received"),
-        ({"customer_id": "0", "new_customer_name": ""}, "is required"),
+        # A new customer has no rotor types yet, so none is chosen (the list is narrowed).
+        ({"customer_id": "0", "new_customer_name": "", "rotor_type_id": "0"}, "is required"),
         ({"rotor_type_id": "0"}, "choose its rotor type"),
         ({"notes": "x" * 6000}, "Field cannot be longer"),
         ({"one_off-mass_kg": "1e999", "rotor_type_id": "0"}, "finite number"),
@@ -543,3 +544,39 @@ def test_page_says_how_old_the_stored_set_is_and_how_it_predicted(client, login_
     body = text(client.get(f"/jobs/{job.id}"))
     # Predicted zero, measured 5 % of the initial unbalance: |pred − meas| / |initial| = 5 %.
     assert "predicted the check run within 5 % of the initial reading" in body
+
+
+# --- book-in: rotor types narrowed to the chosen customer (issue 11) -----------------------
+
+
+def test_intake_offers_only_the_chosen_customers_rotor_types(client, login_as, db, shop, rtype,
+                                                             machine) -> None:
+    other = shop.rotor_type(shop.customer(name="Brackenford Pumps (fictional)"),
+                            part_number="BRK-77")
+    db.commit()
+    login_as("operator")
+    page = text(client.get(f"/jobs/new?lookup-customer_id={rtype.customer_id}"))
+    select_html = page[page.index('id="rotor_type_id"'):]
+    select_html = select_html[:select_html.index("</select>")]
+    assert f'value="{rtype.id}"' in select_html and f'value="{other.id}"' not in select_html
+    # The script gets every customer's types to narrow the list when the customer changes.
+    assert "BRK-77" in page and "intake.js" in page
+    # No customer chosen yet (a new customer has no rotor types): only "none".
+    page = text(client.get("/jobs/new"))
+    select_html = page[page.index('id="rotor_type_id"'):]
+    select_html = select_html[:select_html.index("</select>")]
+    assert select_html.count("<option") == 1
+
+
+def test_intake_refuses_another_customers_rotor_type(client, login_as, db, shop, rtype,
+                                                     machine) -> None:
+    other = shop.rotor_type(shop.customer(name="Brackenford Pumps (fictional)"),
+                            part_number="BRK-77")
+    db.commit()
+    login_as("operator")
+    resp = client.post("/jobs/new", data=intake_data(rtype, machine, rotor_type_id=str(other.id)))
+    assert resp.status_code == 422
+    page = text(resp)
+    after = page[page.index('id="rotor_type_id"'):]
+    assert "error" in after[:3000]  # the message sits beside the rotor-type field
+    assert db.scalar(select(func.count()).select_from(Job)) == 0

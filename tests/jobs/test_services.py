@@ -291,14 +291,25 @@ ACTIONS_BY_EDGE = {
     ("on_machine", "in_tolerance"), ("on_machine", "rejected"),
     ("in_tolerance", "certified"), ("in_tolerance", "rejected"), ("in_tolerance", "on_machine"),
     ("certified", "dispatched"), ("certified", "on_machine"),
+    # Only when quality voids the job's only valid certificate (issue 11).
+    ("certified", "in_tolerance"),
     ("dispatched", "on_machine"),
 }
 
 
-def _job_in_state(db: Session, op: Any, rtype: RotorType, machine: Any, state: str) -> Job:
+def _job_in_state(db: Session, op: Any, rtype: RotorType, machine: Any, state: str,
+                  quality: Any = None) -> Job:
+    """A balanced job put in ``state``; with ``quality`` a certified job holds a real
+    certificate (dispatch asks for a valid one)."""
     job = two_plane_job(db, op, rtype, machine)
     apply_advice(db, op, job)
     passing_check(db, op, job)
+    if state == "certified" and quality is not None:
+        from shopapp.certificates import issue as certificates
+
+        mark_in_tolerance(db, job, by=op)
+        certificates.issue(db, job, by=quality)
+        return job
     job.state = state  # test set-up only: put the job where the row of the table starts
     db.flush()
     return job
@@ -308,7 +319,9 @@ def _job_in_state(db: Session, op: Any, rtype: RotorType, machine: Any, state: s
 @pytest.mark.parametrize("to_state", JOB_STATES)
 def test_every_transition_of_the_table(db, op, quality, rtype, machine, from_state,
                                        to_state) -> None:
-    job = _job_in_state(db, op, rtype, machine, from_state)
+    # A certified job holds its certificate, except on the edge that its void takes.
+    voided = (from_state, to_state) == ("certified", "in_tolerance")
+    job = _job_in_state(db, op, rtype, machine, from_state, None if voided else quality)
     n_tr, n_audit = count(db, JobTransition), count(db, AuditEvent)
     allowed = (from_state, to_state) in ACTIONS_BY_EDGE
     assert allowed == (to_state in ALLOWED[from_state])
@@ -316,6 +329,8 @@ def test_every_transition_of_the_table(db, op, quality, rtype, machine, from_sta
     def go() -> None:
         if to_state == "certified":
             mark_certified(db, job, by=quality)
+        elif voided:
+            states.certificate_voided(db, job, by=quality, reason="because")
         else:
             transition(db, job, to_state, by=op, reason="because", on=dt.date(2026, 4, 1))
 
@@ -410,8 +425,9 @@ def test_first_in_tolerance_at_is_kept_after_a_reopen(db, op, rtype, machine) ->
     assert job.first_in_tolerance_at == first
 
 
-def test_dispatch_sets_the_date_and_refuses_one_before_receipt(db, op, rtype, machine) -> None:
-    job = _job_in_state(db, op, rtype, machine, "certified")
+def test_dispatch_sets_the_date_and_refuses_one_before_receipt(db, op, quality, rtype,
+                                                               machine) -> None:
+    job = _job_in_state(db, op, rtype, machine, "certified", quality)
     with pytest.raises(ValidationFailed):
         dispatch(db, job, by=op, on=dt.date(2026, 1, 1))
     dispatch(db, job, by=op, on=dt.date(2026, 3, 20))
@@ -727,3 +743,13 @@ def test_book_in_refuses_dates_outside_the_window(db, op, rtype, machine) -> Non
         assert field in err.value.errors, err.value.errors
     job = book_in(db, by=op, **common, promised_on=dt.date.today() + dt.timedelta(days=365))
     assert job.promised_on == dt.date.today() + dt.timedelta(days=365)
+
+
+def test_book_in_refuses_a_rotor_type_of_another_customer(db, op, rtype, machine, shop) -> None:
+    # A rotor type is one customer's part number (docs/architecture.md, registry rules).
+    other = shop.customer(name="Brackenford Pumps (fictional)")
+    before = count(db, Job)
+    with pytest.raises(ValidationFailed) as exc:
+        book(db, op, rtype, machine, customer=other.id)
+    assert exc.value.field == "rotor_type_id" and "another customer" in exc.value.message
+    assert count(db, Job) == before

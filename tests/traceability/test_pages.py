@@ -416,3 +416,115 @@ def test_every_traceability_page_renders(client, login_as, shop, db, wn_job) -> 
     assert f'failed its proving test on {TODAY - dt.timedelta(days=3)}' in page
     assert "No proving rotor in the register yet" in _text(
         client.get(f"/traceability/machines/{m.id}/proving-test"))
+
+
+# --------------------------------------------------------------------------- proving rotor choice
+
+
+def _two_proving_rotors(db, make_user):  # type: ignore[no-untyped-def]
+    q = make_user("quality")
+    small = verifications.create_proving_rotor(db, by=q, name="PR-small", mass_kg=3.0,
+                                               planes=1, radius_1_mm=60.0, positions=6)
+    big = verifications.create_proving_rotor(db, by=q, name="PR-big", mass_kg=400.0, planes=2,
+                                             radius_1_mm=250.0, radius_2_mm=250.0, positions=8)
+    db.commit()
+    return small, big
+
+
+def test_proving_test_proposes_the_rotor_that_fits_the_mass_range(client, login_as, shop, db,  # type: ignore[no-untyped-def]
+                                                                  make_user) -> None:
+    small, big = _two_proving_rotors(db, make_user)
+    # A heavy machine (100–5000 kg): only the 400 kg rotor lies in its range. Common practice,
+    # no source: a machine is proved with a rotor within the range it is built for.
+    m = shop.machine(name="Bay H", min_mass_kg=100.0, max_mass_kg=5000.0,
+                     claimed_emar_gmm_per_kg=0.2)
+    db.commit()
+    assert verifications.proposed_proving_rotor(m, [small, big]) is big
+    login_as("quality")
+    page = _text(client.get(f"/traceability/machines/{m.id}/proving-test"))
+    assert f'<option selected value="{big.id}">' in page
+    # Claim for the whole rotor: 0.2 g·mm/kg × 400 kg = 80 g·mm; half per plane, × 15 at
+    # 250 mm = 2.4 g (hand calculation).
+    assert 'name="claimed_umar" type="text" value="80"' in page
+    assert 'name="test_mass_g" type="text" value="2.4"' in page
+    assert f'name="figures_for" type="hidden" value="{big.id}"' in page
+    assert "whole rotor" in page and "each plane" in page
+    # The page's script carries every rotor's figures (data attribute read by proving_test.js).
+    assert '"claimed_umar": "0.6"' in page  # 0.2 × 3 kg for the small rotor
+    assert "proving_test.js" in page
+    js = client.get("/static/proving_test.js")
+    assert js.status_code == 200 and b"figures_for" in js.data
+    js.close()
+
+
+def test_no_fitting_rotor_is_said_not_hidden(client, login_as, shop, db, make_user) -> None:  # type: ignore[no-untyped-def]
+    small, big = _two_proving_rotors(db, make_user)
+    m = shop.machine(name="Bay M", min_mass_kg=20.0, max_mass_kg=200.0)
+    db.commit()
+    assert verifications.proposed_proving_rotor(m, [small, big]) is None
+    login_as("quality")
+    page = _plain(client.get(f"/traceability/machines/{m.id}/proving-test"))
+    assert "No proving rotor in the register fits Bay M's mass range (0–200 kg)" not in page
+    assert "fits Bay M's mass range (20–200 kg)" in page
+
+
+def test_changing_the_rotor_without_script_replaces_its_figures(client, login_as, shop, db,  # type: ignore[no-untyped-def]
+                                                                make_user) -> None:
+    small, big = _two_proving_rotors(db, make_user)
+    m = shop.machine(name="Bay W", min_mass_kg=0.0, max_mass_kg=5000.0,
+                     claimed_emar_gmm_per_kg=0.2)
+    db.commit()
+    login_as("quality")
+    url = f"/traceability/machines/{m.id}/proving-test"
+    # The figures on the form were proposed for the big rotor; the small one is chosen.
+    data = {"performed_on": TODAY.isoformat(), "proving_rotor_id": str(small.id),
+            "figures_for": str(big.id), "test_mass_g": "2.4", "test_radius_mm": "250",
+            "claimed_umar": "80", "compute": "Compute"}
+    resp = client.post(url, data=data)
+    page = _text(resp)
+    assert resp.status_code == 200
+    # 0.2 × 3 kg = 0.6 g·mm; one plane takes it all; 15 × 0.6 / 60 mm = 0.15 g.
+    assert 'name="claimed_umar" type="text" value="0.6"' in page
+    assert 'name="test_mass_g" type="text" value="0.15"' in page
+    assert 'name="test_radius_mm" type="text" value="60"' in page
+    assert f'name="figures_for" type="hidden" value="{small.id}"' in page
+    assert "Figures proposed for PR-small" in page and 'id="result"' not in page
+
+
+def test_blank_figures_are_filled_by_the_server(client, login_as, shop, db,  # type: ignore[no-untyped-def]
+                                                proving_rotor) -> None:
+    m = shop.machine(name="Bay B", claimed_emar_gmm_per_kg=0.5)  # 5 g·mm on the 10 kg rotor
+    db.commit()
+    login_as("quality")
+    theta = np.radians(np.arange(8) * 45.0)
+    z = cmath.rect(1.5, math.radians(90.0)) + 75.0 * np.exp(1j * theta)
+    data = {"performed_on": TODAY.isoformat(), "proving_rotor_id": str(proving_rotor.id),
+            "figures_for": str(proving_rotor.id), "test_mass_g": "", "test_radius_mm": "",
+            "claimed_umar": "", "first_position_deg": "0", "compute": "Compute"}
+    for k, v in enumerate(z):
+        data[f"p1_amp-{k}"] = f"{abs(v):.9f}"
+        data[f"p1_ang-{k}"] = f"{math.degrees(cmath.phase(v)) % 360:.9f}"
+    resp = client.post(f"/traceability/machines/{m.id}/proving-test", data=data)
+    page = _text(resp)
+    assert resp.status_code == 200, page[:2000]
+    assert 'name="test_mass_g" type="text" value="0.75"' in page
+    assert "PASSED" in page
+
+
+def test_no_from_memory_remark_on_pages_or_reports_an_auditor_sees() -> None:
+    # Docstrings may say what is from memory; page text and PDF wording may not.
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2] / "shopapp"
+    hits = [str(p.relative_to(root)) for p in root.rglob("*.html")
+            if "from memory" in p.read_text(encoding="utf-8")]
+    assert hits == []
+    for p in (root / "reports").rglob("*.py"):
+        src = p.read_text(encoding="utf-8")
+        strings = re.findall(r'"[^"\n]*from memory[^"\n]*"', src)
+        assert strings == [], (p, strings)
+    # Texts the certificate and the run-up page print.
+    from shopapp.balancing.balance_errors import RULE_WITH_ERRORS
+    from shopapp.balancing.runup import RUNUP_CAUTIONS
+
+    assert all("from memory" not in t for t in (RULE_WITH_ERRORS, *RUNUP_CAUTIONS))
