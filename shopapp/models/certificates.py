@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import secrets
 from typing import Any
 
 from sqlalchemy import (
@@ -24,6 +25,15 @@ from shopapp.models.base import Base, IntPK, Timestamp, UTCDateTime, one_of
 from shopapp.models.jobs import Job
 
 CERTIFICATE_STATES = ("issued", "void")
+# The verification code printed on a certificate: random, never derived from its number.
+VERIFICATION_CODE_ALPHABET = "ABCDEFGHIJKLMNOPQRSTUVWXYZ234567"  # RFC 4648 base32
+VERIFICATION_CODE_LENGTH = 10  # 50 random bits
+
+
+def new_verification_code() -> str:
+    """A fresh random verification code (``secrets``; 10 base32 characters)."""
+    return "".join(secrets.choice(VERIFICATION_CODE_ALPHABET)
+                   for _ in range(VERIFICATION_CODE_LENGTH))
 
 
 class Certificate(Base):
@@ -67,6 +77,11 @@ class Certificate(Base):
     pdf_sha256: Mapped[str] = mapped_column(String(64), nullable=False, unique=True)
     data_json: Mapped[str] = mapped_column(Text, nullable=False)
     data_sha256: Mapped[str] = mapped_column(String(64), nullable=False, index=True)
+    # Printed on the certificate (and in its QR code) beside the number: /verify shows the
+    # certified details only for the number together with this code (migration 0020).
+    verification_code: Mapped[str] = mapped_column(
+        String(16), nullable=False, unique=True, default=new_verification_code
+    )
 
     job: Mapped[Job] = relationship()
 
@@ -93,10 +108,10 @@ class AuditEvent(Base):
     after: Mapped[dict[str, Any] | None] = mapped_column(JSON)
 
 
-# --- database-level immutability of certificates (same SQL as migration 0001) ---
+# --- database-level immutability of certificates (same SQL as migration 0020) ---
 _CONTENT_COLUMNS = (
     "number", "revision", "job_id", "issued_by_id", "issued_at", "reason",
-    "pdf", "pdf_sha256", "data_json", "data_sha256",
+    "pdf", "pdf_sha256", "data_json", "data_sha256", "verification_code",
 )
 
 SQLITE_CERTIFICATE_TRIGGERS = (
