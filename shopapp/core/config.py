@@ -52,6 +52,8 @@ KEY_TYPES: dict[str, type] = {
     "SQL_ECHO": bool,
     "REQUIRE_SECRET_KEY": bool,
     "BASE_URL": str,
+    "VERIFY_REQUESTS_PER_MINUTE": int,  # /verify rate limit per client address and process
+    "ROTOR_TAG_SIZE_MM": str,  # rotor tag label, width x height in mm, e.g. "62x29"
 }
 _TRUE = {"1", "true", "yes", "on"}
 _FALSE = {"0", "false", "no", "off", ""}
