@@ -23,12 +23,13 @@ from reportlab.graphics import renderPDF
 from reportlab.lib.units import mm
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
-from reportlab.platypus import Flowable, Paragraph, Spacer, Table, TableStyle
+from reportlab.platypus import Flowable, KeepInFrame, Paragraph, Spacer, Table, TableStyle
 
 from shopapp.core import display
 from shopapp.reports.common import (
     FONT,
     FONT_BOLD,
+    HEADER_GAP,
     INK,
     MARGIN,
     PAGE_SIZE,
@@ -43,11 +44,13 @@ from shopapp.reports.common import (
 )
 from shopapp.reports.qr import qr_drawing
 
-READING_ROWS = 10
-CORRECTION_ROWS = 5
+READING_ROWS = 8
+CORRECTION_ROWS = 4
 TAG_MIN_MM = (40.0, 20.0)
 TAG_MAX_MM = (150.0, 100.0)
 _CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
+# The page frame of common.build_pdf (its margins, 6 pt frame padding top and bottom).
+_FRAME_HEIGHT = PAGE_SIZE[1] - 2 * MARGIN - 2 * HEADER_GAP + 10 * mm - 12
 
 
 @dataclass(frozen=True)
@@ -160,21 +163,20 @@ def _boxes(data: TravellerData) -> list[Flowable]:
         plane_heads += [f"Plane {p} amplitude", f"Plane {p} angle"]
     heads = ["Run", "Purpose", "Speed (rpm)", *plane_heads, "Initials"]
     fractions = [0.07, 0.15, 0.12, *([0.56 / len(plane_heads)] * len(plane_heads)), 0.10]
-    readings = grid_table([heads, *[[str(i), "", "", *[""] * len(plane_heads), ""]
+    readings = grid_table([heads, *[[str(i), " ", " ", *[" "] * len(plane_heads), " "]
                                      for i in range(1, READING_ROWS + 1)]],
                           [w * f for f in fractions])
-    readings.setStyle(TableStyle([("ROWBACKGROUNDS", (0, 1), (-1, -1), [None]),
-                                  ("BOTTOMPADDING", (0, 1), (-1, -1), 8)]))
+    readings.setStyle(TableStyle([("BOTTOMPADDING", (0, 1), (-1, -1), 7)]))
     corrections = grid_table(
         [["Plane", "Add / remove", "Mass (g)", "Angle (°)", "Radius (mm)", "How fitted",
-          "Initials"], *[[""] * 7 for _ in range(CORRECTION_ROWS)]],
+          "Initials"], *[[" "] * 7 for _ in range(CORRECTION_ROWS)]],
         [w * f for f in (0.08, 0.13, 0.12, 0.11, 0.12, 0.34, 0.10)],
     )
-    corrections.setStyle(TableStyle([("BOTTOMPADDING", (0, 1), (-1, -1), 8)]))
+    corrections.setStyle(TableStyle([("BOTTOMPADDING", (0, 1), (-1, -1), 15)]))
     sign = grid_table([["", "Name", "Date", "Signature"],
-                       ["Balanced by", "", "", ""], ["Checked by", "", "", ""]],
+                       ["Balanced by", " ", " ", " "], ["Checked by", " ", " ", " "]],
                       [w * 0.2, w * 0.35, w * 0.15, w * 0.3], label_column=True)
-    sign.setStyle(TableStyle([("BOTTOMPADDING", (0, 1), (-1, -1), 9)]))
+    sign.setStyle(TableStyle([("BOTTOMPADDING", (0, 1), (-1, -1), 14)]))
     return [
         Paragraph("Readings (write them here, enter them in shopapp)", st.heading), readings,
         Paragraph("Corrections fitted", st.heading), corrections,
@@ -183,8 +185,11 @@ def _boxes(data: TravellerData) -> list[Flowable]:
 
 
 def render_traveller(data: TravellerData) -> bytes:
-    """The job traveller as a one-page A4 PDF (reproducible)."""
-    story: list[Flowable] = [_head(data), *_what(data), *_safety(data), *_boxes(data)]
+    """The job traveller as a one-page A4 PDF (reproducible). Long safety notes shrink the
+    page's content to fit rather than spill onto a second sheet."""
+    content: list[Flowable] = [_head(data), *_what(data), *_safety(data), *_boxes(data)]
+    story: list[Flowable] = [KeepInFrame(_CONTENT_WIDTH, _FRAME_HEIGHT, content,
+                                         mode="shrink")]
     created = dt.datetime.fromisoformat(data.printed_on).replace(tzinfo=dt.UTC)
     meta = DocumentMeta(
         title=f"Job traveller {data.job_number}", created=created,
