@@ -270,3 +270,56 @@ def test_migrated_database_keeps_certificate_triggers(fresh_database_url: str) -
         assert "certificate_immutable" in names
     finally:
         eng.dispose()
+
+
+def test_migration_0020_gives_every_existing_revision_its_own_code(fresh_database_url: str
+                                                                   ) -> None:
+    """Certificates stored before 0020 (one of them void, which the triggers guard most
+    strictly) get random codes; afterwards a code can no more change than the PDF."""
+    import re
+
+    from sqlalchemy import column, insert, table
+    from sqlalchemy.orm import Session
+
+    from shopapp.models import utcnow
+    from tests import factories
+
+    schema.upgrade(fresh_database_url, "0002")
+    eng = make_engine(fresh_database_url)
+    cert = table("certificate", *(column(c) for c in (
+        "number", "revision", "job_id", "state", "issued_by_id", "issued_at", "reason",
+        "voided_at", "voided_by_id", "void_reason", "pdf", "pdf_sha256", "data_json",
+        "data_sha256")))
+    try:
+        with Session(eng) as db:
+            user = factories.user(db, username="quinn", role="quality",
+                                 password="long-enough-1")
+            job = factories.ShopFactory(db).job()
+            for rev in (1, 2, 3):
+                pdf = f"%PDF-1.4 rev {rev}".encode()
+                db.execute(insert(cert).values(
+                    number="BC-2025-00001", revision=rev, job_id=job.id,
+                    state="void" if rev < 3 else "issued", issued_by_id=user.id,
+                    issued_at=utcnow().replace(tzinfo=None), reason="",
+                    voided_at=utcnow().replace(tzinfo=None) if rev < 3 else None,
+                    voided_by_id=user.id if rev < 3 else None, void_reason="",
+                    pdf=pdf, pdf_sha256=hashlib.sha256(pdf).hexdigest(), data_json="{}",
+                    data_sha256=hashlib.sha256(f"{{}}{rev}".encode()).hexdigest()))
+            db.commit()
+        schema.upgrade(fresh_database_url, "head")
+        with eng.connect() as conn:
+            codes = list(conn.execute(text(
+                "SELECT verification_code FROM certificate ORDER BY revision")).scalars())
+            assert len(codes) == 3 and len(set(codes)) == 3
+            assert all(re.fullmatch(r"[A-Z2-7]{10}", c) for c in codes)
+        with eng.connect() as conn, pytest.raises(DBAPIError, match="immutable"):
+            conn.execute(text("UPDATE certificate SET verification_code = 'AAAAAAAAAA' "
+                              "WHERE revision = 3"))
+        with eng.connect() as conn, pytest.raises(IntegrityError):
+            conn.execute(text("UPDATE certificate SET verification_code = :c "
+                              "WHERE revision = 3"), {"c": codes[0]})
+        schema.downgrade(fresh_database_url, "0002")  # and back: the column goes again
+        assert "verification_code" not in {
+            c["name"] for c in inspect(eng).get_columns("certificate")}
+    finally:
+        eng.dispose()
