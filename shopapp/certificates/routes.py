@@ -90,7 +90,10 @@ def _install_verify_guard(state: Any) -> None:
                         f"Try again in {wait} seconds.")
             return page, 429, {"Retry-After": str(wait)}
         if request.method == "POST":
-            request.max_content_length = MAX_UPLOAD_BYTES + _FORM_OVERHEAD
+            cap = MAX_UPLOAD_BYTES + _FORM_OVERHEAD
+            if (request.content_length or 0) > cap:
+                return _too_large(None)  # refused before a byte of the body is read
+            request.max_content_length = cap  # a body without a declared length
         return None
 
     app.before_request_funcs.setdefault(None, []).insert(0, guard)
