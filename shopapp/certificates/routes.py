@@ -302,6 +302,16 @@ def rotor_type_history_pdf(rotor_type_id: int):  # type: ignore[no-untyped-def]
 # --------------------------------------------------------------------------- public verification
 
 
+def _known_signers() -> list[signing.SignerCertificate] | None:
+    """The shop's signer certificates; None when there are none, or the key file is damaged
+    (the public page then names the signer without comparing; the signing page says why)."""
+    try:
+        return signing.known_certificates(_signing_dir()) or None
+    except signing.SigningKeyBroken:
+        current_app.logger.exception("signing key unreadable")
+        return None
+
+
 @bp.route("/verify", methods=["GET", "POST"])
 def verify():  # type: ignore[no-untyped-def]
     """Public: anyone holding a certificate may check it (no login).
@@ -327,7 +337,7 @@ def verify():  # type: ignore[no-untyped-def]
                 if len(pdf) > MAX_UPLOAD_BYTES:
                     return _too_large(None)
                 result, remark = register.verify_file(sess, pdf)
-                proof = pdfsign.inspect(pdf, signing.known_certificates(_signing_dir()) or None)
+                proof = pdfsign.inspect(pdf, _known_signers())
             else:
                 status = 422
         elif "q" in request.args:
