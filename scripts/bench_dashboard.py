@@ -1,6 +1,6 @@
 """Speed of the owner's dashboard on a large shop; prints one JSON object.
 
-With the demo generator's bulk history (``shopapp.demo.simulator.generate_bulk``:
+With the demo generator's bulk history (``shopapp.demo.bulk.generate_bulk``:
 100 000 jobs, 1 000 000 runs) in an SQLite file in a temp folder, through the real
 app stack (Flask test client, login, session, templates):
 
@@ -51,7 +51,7 @@ def _shop(folder: Path, jobs: int, runs_per_job: int) -> tuple[Any, dict[str, An
     from shopapp import create_app
     from shopapp.core.extensions import db_session, get_database
     from shopapp.core.web import requires
-    from shopapp.demo import simulator as demo
+    from shopapp.demo import bulk as demo
     from shopapp.models import Base
 
     app = create_app({

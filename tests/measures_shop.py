@@ -36,6 +36,10 @@ two days after receipt, reached the day after receipt):
 J13 R1 recv 03-02 initial (10, 4); J14 R1 recv 06-01 initial (15, 3);
 J15 R2 recv 04-06 initial (30);    J16 R2 recv 07-06 initial (12).
 
+Rework (issue 17): a job counts as reworked when it came back within 90 days of first
+reaching tolerance — J4 and J10 (reopened) in October, J5 (returned as J6) in September;
+a return counts against the job it returns, not against itself.
+
 Machines: M1 verified 2025-11-20 (passed, interval 365 → due 2026-11-20, 5 days after
 today → due soon with the default 14 days); M2 verified 2025-06-01 (passed, due
 2026-06-01 → overdue); M3 verified 2026-09-01 (passed, interval 180 → due 2027-02-28,
@@ -264,3 +268,87 @@ def build(db: Session, shop: Any, make_user: Callable[..., User]) -> HandShop:
     )
     db.commit()
     return hs
+
+
+# --------------------------------------------------------------------------- issue 17
+REWORK_TODAY = dt.date(2026, 12, 15)
+# (operator key, full name, jobs that reached tolerance in 2026, of them reworked, reason)
+REWORK_PLAN: tuple[tuple[str, str, int, int, str], ...] = (
+    ("A", "Ada High", 40, 16, "weight found loose"),
+    ("B", "Ben Steady", 60, 3, "knocked in transport"),
+    ("C", "Cy Small", 5, 2, "knocked in transport"),
+    ("D", "Dee Steady", 60, 3, "knocked in transport"),
+)
+LAST_YEAR_JOBS, LAST_YEAR_FIRST_PASS = 40, 12  # 2025-01-06 … 2025-11-xx, operator B
+LATE_LAST_YEAR_JOBS = 5  # received 2025-12-20: after the like-for-like cut of 12-15
+
+
+@dataclass
+class ReworkShop:
+    """A constructed shop where one operator's rework is truly higher (see build_rework)."""
+
+    users: dict[str, User] = field(default_factory=dict)
+    machine: Machine | None = None
+    rotor_types: list[Any] = field(default_factory=list)
+    jobs: list[Job] = field(default_factory=list)
+
+
+def _plain_job(db: Session, shop: Any, rotor: Any, operator: User, machine: Machine,
+               received: dt.date, *, first_pass: bool, rework_reason: str | None) -> Job:
+    """Received, corrected once, checked (twice when the first check failed), reached
+    tolerance the next day at 12:00 and dispatched two days later; when reworked, reopened
+    at 14:00 that day and run again at 14:30 and 15:00 (30 minutes of rework).
+
+    Runs at 09:00 and 10:00 (and 11:00): gaps of one hour, counted as the 30-minute idle
+    time each, so first-time work is 0.5 h (1.0 h when the first check failed).
+    """
+    nxt = received + dt.timedelta(days=1)
+    day = nxt.isoformat()
+    runs: list[RunSpec] = [(1, "initial", None, at(day, 9), (20.0,)),
+                           (2, "check", first_pass, at(day, 10), (2.0,))]
+    corrections = [(1, 1, at(day, 9, 30))]
+    if not first_pass:
+        runs.append((3, "check", True, at(day, 11), (1.0,)))
+        corrections.append((2, 1, at(day, 10, 30)))
+    transitions = []
+    if rework_reason is not None:
+        transitions.append(("in_tolerance", "on_machine", at(day, 14), rework_reason))
+        seq = len(runs)
+        runs += [(seq + 1, "check", True, at(day, 14, 30), (1.0,)),
+                 (seq + 2, "final", True, at(day, 15), (1.0,))]
+    return _job(db, shop, rotor, operator=operator, machine=machine, received=received.isoformat(),
+                state="dispatched", dispatched=(received + dt.timedelta(days=3)).isoformat(),
+                reached=at(day, 12), runs=runs, corrections=corrections, transitions=transitions)
+
+
+def build_rework(db: Session, shop: Any, make_user: Callable[..., User]) -> ReworkShop:
+    """2026 (today 2026-12-15): Ada High's 40 jobs have 16 reworked (40 %), the other
+    operators' 3 of 60, 2 of 5 and 3 of 60; shop rate 24/165. Every 2026 job passed first
+    time. 2025: 40 jobs of Ben Steady, 12 passed first time, plus 5 (all passing) received
+    2025-12-20, after the like-for-like cut. Rotor types and the one machine in turn."""
+    rs = ReworkShop()
+    rs.machine = shop.machine(name="Rework shop M1")
+    customer = shop.customer(name="Rework Shop Customer (invented)")
+    rs.rotor_types = [shop.rotor_type(customer, part_number=f"RS-T{i}", description="fan")
+                      for i in (1, 2, 3)]
+    for key, name, _n, _k, _r in REWORK_PLAN:
+        rs.users[key] = make_user("operator", full_name=name)
+    k = 0
+    for key, _name, n, reworked, reason in REWORK_PLAN:
+        for i in range(n):
+            received = dt.date(2026, 1, 5) + dt.timedelta(days=(2 * k) % 320)
+            rotor = shop.rotor(rs.rotor_types[k % 3])
+            rs.jobs.append(_plain_job(db, shop, rotor, rs.users[key], rs.machine, received,
+                                      first_pass=True,
+                                      rework_reason=reason if i < reworked else None))
+            k += 1
+    for i in range(LAST_YEAR_JOBS + LATE_LAST_YEAR_JOBS):
+        late = i >= LAST_YEAR_JOBS
+        received = (dt.date(2025, 12, 20) if late
+                    else dt.date(2025, 1, 6) + dt.timedelta(days=7 * i))
+        rotor = shop.rotor(rs.rotor_types[i % 3])
+        rs.jobs.append(_plain_job(db, shop, rotor, rs.users["B"], rs.machine, received,
+                                  first_pass=late or i < LAST_YEAR_FIRST_PASS,
+                                  rework_reason=None))
+    db.commit()
+    return rs

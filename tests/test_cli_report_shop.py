@@ -16,7 +16,8 @@ MEASURES = ("jobs_received", "jobs_dispatched", "wip_jobs", "wip_age_median_wd",
             "reached_in_tolerance", "first_pass_rate", "correction_cycles_mean", "reworked_jobs",
             "rework_rate", "rework_reasons", "rejected_jobs", "rejection_reasons",
             "rotors_getting_worse", "machine_utilisation", "machine_verification", "by",
-            "trend", "previous")
+            "trend", "previous", "changes", "funnels", "funnel_flags", "control_charts",
+            "rework_cost", "drift", "definitions", "caution", "rejection_rate")
 
 
 def test_json_prints_the_months_figures(runner, db, shop, make_user) -> None:  # type: ignore[no-untyped-def]
@@ -27,8 +28,14 @@ def test_json_prints_the_months_figures(runner, db, shop, make_user) -> None:  #
     data = json.loads(result.output)
     assert set(MEASURES) <= set(data)
     assert data["jobs_received"] == 11  # J1–J4, J6–J12
-    assert data["rework_rate"] == 0.5  # 3 reworked / 6 reached
-    assert data["first_pass_rate"] == 0.8  # 4 of 5 judged
+    # Every rate is an object since issue 17 (was a bare fraction): value, counts, interval.
+    # Rework: 2 of the 6 that reached tolerance came back within 90 days (J4, J10).
+    assert {k: data["rework_rate"][k] for k in ("value", "numerator", "denominator")} == {
+        "value": 2 / 6, "numerator": 2, "denominator": 6}
+    assert {k: data["first_pass_rate"][k] for k in ("value", "numerator", "denominator")} == {
+        "value": 0.8, "numerator": 4, "denominator": 5}  # 4 of 5 judged
+    assert len(data["first_pass_rate"]["interval_95"]) == 2
+    assert data["by"]["operator"][0]["rework_rate"]["denominator"] == 3
     assert data["turnaround_median_wd"] == 3.0
     assert data["previous"]["jobs_received"] == 1  # J5 in September
     assert [r["reason"] for r in data["rejection_reasons"]] == ["cracked hub",

@@ -274,8 +274,10 @@ def test_migrated_database_keeps_certificate_triggers(fresh_database_url: str) -
 
 def test_migration_0020_gives_every_existing_revision_its_own_code(fresh_database_url: str
                                                                    ) -> None:
-    """Certificates stored before 0020 (one of them void, which the triggers guard most
-    strictly) get random codes; afterwards a code can no more change than the PDF."""
+    """Certificates stored before 0020 (two of them void, which the guards keep most
+    strictly) get random codes; afterwards a code can no more change than the PDF, on an
+    issued row or a void one, while voiding still works; INSERT OR REPLACE (SQLite) and
+    TRUNCATE (PostgreSQL) stay refused; the downgrade puts 0003's guards back exactly."""
     import re
 
     from sqlalchemy import column, insert, table
@@ -284,13 +286,15 @@ def test_migration_0020_gives_every_existing_revision_its_own_code(fresh_databas
     from shopapp.models import utcnow
     from tests import factories
 
-    schema.upgrade(fresh_database_url, "0002")
+    schema.upgrade(fresh_database_url, "0010")
     eng = make_engine(fresh_database_url)
     cert = table("certificate", *(column(c) for c in (
         "number", "revision", "job_id", "state", "issued_by_id", "issued_at", "reason",
         "voided_at", "voided_by_id", "void_reason", "pdf", "pdf_sha256", "data_json",
         "data_sha256")))
     try:
+        with eng.connect() as conn:
+            guards_0010 = _guards(conn)
         with Session(eng) as db:
             user = factories.user(db, username="quinn", role="quality",
                                  password="long-enough-1")
@@ -312,14 +316,94 @@ def test_migration_0020_gives_every_existing_revision_its_own_code(fresh_databas
                 "SELECT verification_code FROM certificate ORDER BY revision")).scalars())
             assert len(codes) == 3 and len(set(codes)) == 3
             assert all(re.fullmatch(r"[A-Z2-7]{10}", c) for c in codes)
+        for revision in (3, 1):  # issued, then void
+            with eng.connect() as conn, pytest.raises(DBAPIError, match="immutable"):
+                conn.execute(text("UPDATE certificate SET verification_code = 'AAAAAAAAAA' "
+                                  "WHERE revision = :r"), {"r": revision})
         with eng.connect() as conn, pytest.raises(DBAPIError, match="immutable"):
-            conn.execute(text("UPDATE certificate SET verification_code = 'AAAAAAAAAA' "
-                              "WHERE revision = 3"))
-        with eng.connect() as conn, pytest.raises(IntegrityError):
-            conn.execute(text("UPDATE certificate SET verification_code = :c "
-                              "WHERE revision = 3"), {"c": codes[0]})
-        schema.downgrade(fresh_database_url, "0002")  # and back: the column goes again
+            conn.execute(text(  # voiding is no way to change the code
+                "UPDATE certificate SET state = 'void', voided_at = issued_at, "
+                "voided_by_id = issued_by_id, verification_code = 'AAAAAAAAAA' "
+                "WHERE revision = 3"))
+        with eng.connect() as conn:  # voiding alone still passes
+            conn.execute(text(
+                "UPDATE certificate SET state = 'void', voided_at = issued_at, "
+                "voided_by_id = issued_by_id WHERE revision = 3"))
+        with eng.connect() as conn, pytest.raises(IntegrityError, match="verification_code"):
+            conn.execute(text(  # a new revision may not reuse a code
+                "INSERT INTO certificate (number, revision, job_id, state, issued_by_id, "
+                "issued_at, reason, void_reason, pdf, pdf_sha256, data_json, data_sha256, "
+                "verification_code) SELECT number, 4, job_id, 'issued', issued_by_id, "
+                "issued_at, '', '', pdf, :sha, '{}', data_sha256, verification_code "
+                "FROM certificate WHERE revision = 1"), {"sha": "0" * 64})
+        with eng.connect() as conn, pytest.raises(DBAPIError, match="never"):
+            if eng.dialect.name == "sqlite":
+                conn.execute(text(
+                    "INSERT OR REPLACE INTO certificate (number, revision, job_id, state, "
+                    "issued_by_id, issued_at, reason, void_reason, pdf, pdf_sha256, data_json, "
+                    "data_sha256, verification_code) SELECT number, revision, job_id, "
+                    "'issued', issued_by_id, issued_at, '', '', x'00', pdf_sha256, '{}', "
+                    "data_sha256, 'BBBBBBBBBB' FROM certificate WHERE revision = 1"))
+            else:
+                conn.execute(text("TRUNCATE certificate CASCADE"))
+        schema.downgrade(fresh_database_url, "0010")  # and back: the column goes again
         assert "verification_code" not in {
             c["name"] for c in inspect(eng).get_columns("certificate")}
+        with eng.connect() as conn:
+            assert _guards(conn) == guards_0010
     finally:
         eng.dispose()
+
+
+def _guards(conn) -> dict[str, str]:  # type: ignore[no-untyped-def]
+    """Every trigger (and PostgreSQL trigger function) of the database with its SQL."""
+    if conn.dialect.name == "sqlite":
+        rows = conn.execute(text("SELECT name, sql FROM sqlite_master WHERE type = 'trigger'"))
+        return {name: " ".join(sql.split()) for name, sql in rows}
+    rows = conn.execute(text(
+        "SELECT tgname, pg_get_triggerdef(oid) FROM pg_trigger WHERE NOT tgisinternal"))
+    out = {name: sql for name, sql in rows}
+    funcs = conn.execute(text(
+        "SELECT proname, prosrc FROM pg_proc p JOIN pg_namespace n ON n.oid = p.pronamespace "
+        "WHERE n.nspname = 'public' AND p.prorettype = 'trigger'::regtype"))
+    out.update({f"function {name}": " ".join(src.split()) for name, src in funcs})
+    return out
+
+
+def test_migrations_and_models_install_the_same_guards(fresh_database_url: str) -> None:
+    """Triggers are not compared by Alembic: the ones ``create_all`` makes (tests) must be
+    the ones the migrations make (shops)."""
+    schema.upgrade(fresh_database_url, "head")
+    eng = make_engine(fresh_database_url)
+    try:
+        with eng.connect() as conn:
+            migrated = _guards(conn)
+        schema.downgrade(fresh_database_url, "base")
+        with eng.connect() as conn:
+            assert _guards(conn) == {}  # the downgrade removes every trigger and function
+        Base.metadata.create_all(eng)
+        with eng.connect() as conn:
+            created = _guards(conn)
+        Base.metadata.drop_all(eng)
+        with eng.connect() as conn:
+            assert _guards(conn) == {}
+    finally:
+        eng.dispose()
+    assert "certificate_immutable" in migrated
+    assert {"run_reading_certified_update", "run_reading_certified_guard"} & set(migrated)
+    assert migrated == created
+
+
+def test_downgrading_0003_restores_the_0001_certificate_guard(fresh_database_url: str) -> None:
+    schema.upgrade(fresh_database_url, "0002")
+    eng = make_engine(fresh_database_url)
+    try:
+        with eng.connect() as conn:
+            before = _guards(conn)
+        schema.upgrade(fresh_database_url, "head")
+        schema.downgrade(fresh_database_url, "0002")
+        with eng.connect() as conn:
+            after = _guards(conn)
+    finally:
+        eng.dispose()
+    assert after == before

@@ -2,18 +2,18 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from typing import Any
 
 from flask import Blueprint, flash, redirect, render_template, request, url_for
-from flask_login import current_user
 
 from shopapp.accounts import users
-from shopapp.accounts.admin_forms import AddUserForm, PasswordForm, RoleForm, SettingsForm
+from shopapp.accounts.forms import AddUserForm, PasswordForm, RoleForm, SettingsForm
 from shopapp.core import settings as shop_settings
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
-from shopapp.core.forms import ConfirmForm, apply_errors
-from shopapp.core.web import get_or_404, requires
+from shopapp.core.forms import ConfirmForm
+from shopapp.core.web import acting_user, form_page, get_or_404, requires, submit_form
 from shopapp.models import User
 
 bp = Blueprint("admin", __name__, url_prefix="/admin", template_folder="templates")
@@ -24,7 +24,7 @@ def _users_page(
     *,
     status: int = 200,
     row_errors: dict[int, str] | None = None,
-    loose: list[str] | tuple[str, ...] = (),
+    loose: Sequence[str] = (),
 ):  # type: ignore[no-untyped-def]
     return (
         render_template(
@@ -46,86 +46,68 @@ def users_page():  # type: ignore[no-untyped-def]
     if request.method == "GET":
         return _users_page()
     form = AddUserForm()
-    if not form.validate_on_submit():
-        return _users_page(form, status=422)
+    return submit_form(
+        form, lambda status, loose: _users_page(form, status=status, loose=loose),
+        lambda sess: users.create_user(
+            sess, username=form.username.data or "", full_name=form.full_name.data or "",
+            role=form.role.data or "", password=form.password.data or "", by=acting_user()),
+        done=lambda u: (f"User {u.username} ({u.role}) added.", url_for("admin.users")),
+    )
+
+
+def _row_change(user_id: int, field: str, change: Callable[[Any, User], User],
+                done: Callable[[User], str]):  # type: ignore[no-untyped-def]
+    """One change to a user row of the users page (role, active): one transaction; a
+    refusal is shown in that row."""
     sess = db_session()
+    user = get_or_404(sess, User, user_id)
     try:
-        user = users.create_user(
-            sess,
-            username=form.username.data or "",
-            full_name=form.full_name.data or "",
-            role=form.role.data or "",
-            password=form.password.data or "",
-            by=current_user._get_current_object(),
-        )
+        change(sess, user)
         sess.commit()
     except ValidationFailed as exc:
         sess.rollback()
-        return _users_page(form, status=422, loose=apply_errors(form, exc))
-    flash(f"User {user.username} ({user.role}) added.", "success")
+        return _users_page(status=422, row_errors={user_id: exc.errors.get(field, exc.message)})
+    flash(done(user), "success")
     return redirect(url_for("admin.users"))
 
 
 @bp.post("/users/<int:user_id>/role")
 @requires("manage_users")
 def user_role(user_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    user = get_or_404(sess, User, user_id)
     form = RoleForm()
     if not form.validate_on_submit():
         message = "; ".join(form.role.errors) or "Choose a role."
+        get_or_404(db_session(), User, user_id)
         return _users_page(status=422, row_errors={user_id: message})
-    try:
-        users.set_role(sess, user, by=current_user._get_current_object(), role=form.role.data)
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return _users_page(status=422, row_errors={user_id: exc.errors.get("role", exc.message)})
-    flash(f"{user.username} is now {user.role}.", "success")
-    return redirect(url_for("admin.users"))
+    return _row_change(
+        user_id, "role", lambda sess, user: users.set_role(sess, user, by=acting_user(),
+                                                            role=form.role.data),
+        lambda user: f"{user.username} is now {user.role}.",
+    )
 
 
 @bp.post("/users/<int:user_id>/active")
 @requires("manage_users")
 def user_active(user_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    user = get_or_404(sess, User, user_id)
     active = request.form.get("active") == "1"
-    try:
-        users.set_active(sess, user, by=current_user._get_current_object(), active=active)
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return _users_page(status=422, row_errors={user_id: exc.errors.get("active", exc.message)})
-    flash(f"{user.username} {'reactivated' if active else 'deactivated'}.", "success")
-    return redirect(url_for("admin.users"))
+    return _row_change(
+        user_id, "active", lambda sess, user: users.set_active(sess, user, by=acting_user(),
+                                                                active=active),
+        lambda user: f"{user.username} {'reactivated' if active else 'deactivated'}.",
+    )
 
 
 @bp.route("/users/<int:user_id>/password", methods=["GET", "POST"])
 @requires("manage_users")
 def user_password(user_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    user = get_or_404(sess, User, user_id)
+    user = get_or_404(db_session(), User, user_id)
     form = PasswordForm()
-
-    def page(status: int, loose: Any = ()):  # type: ignore[no-untyped-def]
-        return render_template("admin/password.html", form=form, user=user, loose=loose), status
-
-    if request.method == "GET":
-        return page(200)
-    if not form.validate_on_submit():
-        return page(422)
-    try:
-        users.reset_password(
-            sess, user, by=current_user._get_current_object(), password=form.password.data or ""
-        )
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        user = get_or_404(sess, User, user_id)
-        return page(422, apply_errors(form, exc))
-    flash(f"New password set for {user.username}.", "success")
-    return redirect(url_for("admin.users"))
+    return submit_form(
+        form, form_page("admin/password.html", form=form, user=user),
+        lambda sess: users.reset_password(sess, user, by=acting_user(),
+                                          password=form.password.data or ""),
+        done=lambda u: (f"New password set for {u.username}.", url_for("admin.users")),
+    )
 
 
 def _sample(pattern: str) -> tuple[str | None, str | None]:
@@ -139,33 +121,23 @@ def _sample(pattern: str) -> tuple[str | None, str | None]:
 @bp.route("/settings", methods=["GET", "POST"])
 @requires("edit_settings")
 def settings():  # type: ignore[no-untyped-def]
-    sess = db_session()
-    current = shop_settings.get_settings(sess)
+    current = shop_settings.get_settings(db_session())
     form = SettingsForm(obj=current if request.method == "GET" else None)
 
-    def page(status: int, loose: Any = ()):  # type: ignore[no-untyped-def]
+    def page(status: int, loose: Sequence[str]):  # type: ignore[no-untyped-def]
         sample, _error = _sample(form.job_number_pattern.data or "")
         return (
             render_template("admin/settings.html", form=form, sample=sample, loose=loose),
             status,
         )
 
-    if request.method == "GET":
-        return page(200)
-    if not form.validate_on_submit():
-        return page(422)
-    try:
-        shop_settings.update_settings(
-            sess,
-            by=current_user._get_current_object(),
-            **{name: getattr(form, name).data for name in shop_settings.SETTINGS_FIELDS},
-        )
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return page(422, apply_errors(form, exc))
-    flash("Settings saved.", "success")
-    return redirect(url_for("admin.settings"))
+    return submit_form(
+        form, page,
+        lambda sess: shop_settings.update_settings(
+            sess, by=acting_user(),
+            **{name: getattr(form, name).data for name in shop_settings.SETTINGS_FIELDS}),
+        done=lambda _: ("Settings saved.", url_for("admin.settings")),
+    )
 
 
 @bp.get("/settings/job-number-sample")

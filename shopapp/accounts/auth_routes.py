@@ -6,7 +6,7 @@ from flask import Blueprint, flash, redirect, render_template, request, session,
 from flask_login import current_user, login_required, login_user, logout_user
 
 from shopapp.accounts import users
-from shopapp.accounts.auth_forms import LoginForm
+from shopapp.accounts.forms import LoginForm
 from shopapp.core.extensions import db_session, login_manager
 from shopapp.core.web import safe_next
 from shopapp.models import User
@@ -16,11 +16,7 @@ bp = Blueprint("auth", __name__, template_folder="templates")
 
 @login_manager.user_loader
 def _load_user(user_id: str) -> User | None:
-    try:
-        user = db_session().get(User, int(user_id))
-    except ValueError:
-        return None
-    return user if user is not None and user.active else None
+    return users.load_active_user(db_session(), user_id)
 
 
 @bp.route("/login", methods=["GET", "POST"])

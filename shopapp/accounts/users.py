@@ -90,6 +90,15 @@ def authenticate(session: Session, username: str, password: str) -> User | None:
     return user
 
 
+def load_active_user(session: Session, user_id: str) -> User | None:
+    """The active user whose id is stored in the log-in session, or None (unknown id,
+    junk, or a user deactivated since)."""
+    if not user_id.isdigit() or len(user_id) > 10:
+        return None
+    user = session.get(User, int(user_id))
+    return user if user is not None and user.active else None
+
+
 def get_user(session: Session, user_id: int) -> User:
     user = session.get(User, user_id)
     if user is None:

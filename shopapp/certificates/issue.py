@@ -60,7 +60,7 @@ from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import evidence as job_traceability
-from shopapp.jobs import services as jobs_service
+from shopapp.jobs import states as job_states
 from shopapp.jobs.certificate_link import (
     audit_certificate as _audit,
 )
@@ -529,7 +529,7 @@ def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None
                       verify_url=verify_url(base, number, code),
                       signed_by=key.info.subject if key else "")
     cert = _store(session, data, job, by=by, issued_at=issued_at, key=key)
-    jobs_service.mark_certified(session, job, by=by, at=issued_at if historical else None)
+    job_states.mark_certified(session, job, by=by, at=issued_at if historical else None)
     _audit(session, by=by, entity_id=cert.id, action="issue", after=_summary(cert),
            job_id=job.id, at=issued_at if historical else None)
     return cert

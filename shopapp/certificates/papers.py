@@ -23,7 +23,7 @@ from shopapp.core.errors import TransitionRefused
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
 from shopapp.jobs import calc as job_calc
-from shopapp.jobs import services as jobs_service
+from shopapp.jobs import queries as job_queries
 from shopapp.jobs.certificate_link import current_certificate
 from shopapp.models import Job, User
 from shopapp.reports.certificate import CertificateData
@@ -68,7 +68,7 @@ def traveller(session: Session, job: Job, *, by: User, job_url: str,
     require(by, "read")
     settings = get_settings(session)
     show = ShopDisplay(settings)
-    calc = jobs_service.evaluate(session, job)
+    calc = job_queries.evaluate(session, job)
     rt = job.rotor.rotor_type
     tol = calc.tolerance
     limits = tuple(f"plane {k + 1}: {display.quantity(show.unb(x), show.unit)}"
@@ -127,7 +127,7 @@ def rotor_tag(session: Session, job: Job, *, by: User, job_url: str,
             qr, caption = data.verify_url, "scan: certificate check"
     else:
         result = _result_words(job.tolerance_method, job.tolerance_grade)
-        calc = jobs_service.evaluate(session, job)
+        calc = job_queries.evaluate(session, job)
         balanced_on = ""
         if calc.last_check is not None and calc.last_check.passed:
             run = next((r for r in job.runs if r.id == calc.last_check.run_id), None)

@@ -33,9 +33,15 @@ STYLES: dict[str, Style] = {
     "series": Style(stroke="#24527a", width=1.6),
     "series2": Style(stroke="#1d232a", width=1.6, dash=(5, 3)),
     "series3": Style(stroke="#5b6570", width=1.2, dash=(1, 2)),
+    "operating": Style(stroke="#8a5a00", width=1.4, dash=(8, 3, 2, 3)),
     "bar": Style(stroke="#1d232a", width=0.6, fill="#9fb3c8"),
     "bar2": Style(stroke="#1d232a", width=0.6, fill="#e3e7eb"),
     "bar_bad": Style(stroke="#1d232a", width=0.6, fill="#5b6570"),
+    # Funnel plots and control charts: a flagged point is filled dark, a point too small
+    # to judge is a light dashed ring, a point in a run is a grey-filled marker.
+    "flagged": Style(stroke="#1d232a", width=1.2, fill="#1d232a"),
+    "unjudged": Style(stroke="#5b6570", width=0.8, dash=(1.5, 1.5), fill="#ffffff"),
+    "in_run": Style(stroke="#1d232a", width=1.0, fill="#9fb3c8"),
     "label": Style(stroke=None, fill="#1d232a", font_size=9.0),
     "small": Style(stroke=None, fill="#5b6570", font_size=7.5),
     "title": Style(stroke=None, fill="#1d232a", font_size=11.0, bold=True),

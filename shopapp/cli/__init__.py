@@ -6,6 +6,7 @@ import click
 from flask import Flask
 from flask.cli import FlaskGroup
 
+from shopapp.cli.backup import backup_command, restore_command
 from shopapp.cli.calc import calc_command
 from shopapp.cli.common import cli_app
 from shopapp.cli.db import db_group
@@ -18,7 +19,7 @@ from shopapp.cli.users import user_group
 
 COMMANDS: tuple[click.Command, ...] = (
     db_group, user_group, serve, first_start, calc_command, demo_group, report_group,
-    signing_group,
+    signing_group, backup_command, restore_command,
 )
 
 

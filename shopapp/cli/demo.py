@@ -1,15 +1,67 @@
-"""``shopapp demo load``: fill an empty database with the invented demo shop."""
+"""``shopapp demo load``: fill an empty database with the invented demo shop.
+
+Every command that prints logins also writes them to ``first-logins.txt`` in
+the instance folder; a load writes its state to ``demo-status.json`` there
+(:mod:`shopapp.demo.status`), which every page shows while it is loading or
+when it failed, with the command that recovers.
+"""
 
 from __future__ import annotations
 
 import datetime as dt
+import logging
+import os
+from pathlib import Path
 from typing import Any
 
 import click
+from flask import current_app
 from flask.cli import with_appcontext
 
 from shopapp.cli.common import app_db, one_line_errors
-from shopapp.demo import simulator as demo
+from shopapp.demo import bulk as demo_bulk
+from shopapp.demo import loader as demo
+from shopapp.demo.status import write_status
+
+log = logging.getLogger("shopapp.demo")
+
+LOGINS_FILE = "first-logins.txt"
+
+
+def instance_folder() -> Path:
+    return Path(current_app.instance_path)
+
+
+def write_logins(lines: list[str]) -> Path:
+    """The logins as printed, readable by the owner only."""
+    path = instance_folder() / LOGINS_FILE
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text("\n".join(lines) + "\n")
+    os.chmod(path, 0o600)
+    return path
+
+
+def print_logins(title: str, logins: list[demo.Login]) -> None:
+    """Print the logins and write them to first-logins.txt."""
+    lines = [f"{role:<9} {name:<16} {pw}" for role, name, pw in logins]
+    click.echo(title)
+    for line in lines:
+        click.echo("  " + line)
+    click.echo(f"(also written to {write_logins(lines)})")
+
+
+def reason_of(exc: BaseException) -> str:
+    """One line saying why a load stopped."""
+    if isinstance(exc, KeyboardInterrupt | SystemExit):
+        return "the load was interrupted"
+    text = str(exc).strip().splitlines()
+    return text[0] if text else exc.__class__.__name__
+
+
+def report_failure(message: str) -> None:
+    """A failed load: in the log (stderr) and on every page through the status file."""
+    log.error("%s", message)
+    write_status(instance_folder(), "failed", message)
 
 
 class _Bars:
@@ -68,6 +120,15 @@ def demo_group() -> None:
 def load(seed: int, years: float, end_date: dt.datetime | None, jobs_per_year: int | None,
          no_certificates: bool, force: bool) -> None:
     bars = _Bars()
+    command = (f"shopapp demo load --seed {seed} --years {years:g}"
+               + (f" --end {end_date.date().isoformat()}" if end_date else "")
+               + (f" --jobs-per-year {jobs_per_year}" if jobs_per_year else "")
+               + (" --no-certificates" if no_certificates else "") + (" --force" if force else ""))
+    with app_db().session() as sess:
+        demo.demo_tag(sess, force)  # refused before any status: the shop there stays as it is
+    write_status(instance_folder(), "loading",
+                 f"The demo shop is still loading ({command}); its pages fill in when it is "
+                 "done.")
     try:
         with app_db().session() as sess:
             logins = demo.load_demo(
@@ -75,11 +136,14 @@ def load(seed: int, years: float, end_date: dt.datetime | None, jobs_per_year: i
                 end_date=end_date.date() if end_date else None, jobs_per_year=jobs_per_year,
                 force=force, certificates=not no_certificates,
             )
+    except BaseException as exc:
+        report_failure(f"The demo shop did not load: {reason_of(exc)}. Nothing of it was "
+                       f"kept; to try again run: {command}")
+        raise
     finally:
         bars.close()
-    click.echo("demo shop loaded; log in with (role, username, password):")
-    for role, name, password in logins:
-        click.echo(f"  {role:<9} {name:<16} {password}")
+    write_status(instance_folder(), "ready", "The demo shop is loaded.")
+    print_logins("demo shop loaded; log in with (role, username, password):", logins)
 
 
 @demo_group.command(
@@ -101,12 +165,11 @@ def bulk(jobs: int, runs_per_job: int, seed: int, years: float, force: bool) -> 
     bars = _Bars()
     try:
         with app_db().session() as sess:
-            summary = demo.generate_bulk(sess, jobs=jobs, runs_per_job=runs_per_job, seed=seed,
-                                         years=years, force=force, progress=bars.message,
-                                         steps=bars)
+            summary = demo_bulk.generate_bulk(
+                sess, jobs=jobs, runs_per_job=runs_per_job, seed=seed, years=years, force=force,
+                progress=bars.message, steps=bars)
     finally:
         bars.close()
     click.echo(f"{summary.jobs} jobs, {summary.runs} runs, {summary.readings} readings, "
                f"{summary.audit_events} audit events in {summary.seconds:.0f} s")
-    for role, name, password in summary.logins:
-        click.echo(f"  {role:<9} {name:<16} {password}")
+    print_logins("log in with (role, username, password):", summary.logins)

@@ -2,7 +2,9 @@
 
 The PDF is the same two-page report as the dashboard's button; ``--json`` prints the
 same figures keyed by the measure names (see ``shopapp.measures.services``), so they
-can be checked and scripted.
+can be checked and scripted. Every rate is an object ``{"value", "numerator",
+"denominator", "interval_95": [low, high]}``; ``changes`` says how each rate moved
+(and by which test), ``funnel_flags`` lists the units outside the funnel limits.
 """
 
 from __future__ import annotations
@@ -12,11 +14,13 @@ import json
 from pathlib import Path
 
 import click
+from flask import current_app
 from flask.cli import with_appcontext
 
 from shopapp.cli.common import app_db, one_line_errors
 from shopapp.measures import monthly
 from shopapp.measures import services as measures
+from shopapp.measures.costs import cost_settings
 from shopapp.measures.periods import parse_month
 
 
@@ -38,7 +42,8 @@ def shop_command(month: str, output: Path | None, as_json: bool,
     period = parse_month(month)
     today = as_of.date() if as_of else dt.date.today()
     with app_db().session() as sess:
-        report = measures.shop_report(sess, period, by=None, today=today)
+        report = measures.shop_report(sess, period, by=None, today=today,
+                                      costs=cost_settings(current_app.config))
     if output is not None:
         output.parent.mkdir(parents=True, exist_ok=True)
         output.write_bytes(monthly.render(report))

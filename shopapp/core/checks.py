@@ -78,3 +78,36 @@ def date(e: Errors, field: str, value: Any, *, not_after: dt.date | None = None
         e.add(field, f"{value.isoformat()} is in the future")
         return None
     return value
+
+
+def integer(e: Errors, field: str, value: Any, *, minimum: int, maximum: int,
+            required: bool = True) -> int | None:
+    """``value`` as a whole number in ``[minimum, maximum]``, or None (and a message in ``e``)."""
+    if value is None or (isinstance(value, str) and not value.strip()):
+        if required:
+            e.add(field, "is required")
+        return None
+    out = number(e, field, value, required=required)
+    if out is None:
+        return None
+    if not out.is_integer():
+        e.add(field, f"must be a whole number, got {value!s:.40}")
+        return None
+    whole = int(out)
+    if not minimum <= whole <= maximum:
+        e.add(field, f"must be between {minimum} and {maximum}, got {whole}")
+        return None
+    return whole
+
+
+def choice(e: Errors, field: str, value: Any, allowed: tuple[str, ...], *,
+           required: bool = True) -> str | None:
+    """``value`` when it is one of ``allowed``; the message lists the choices."""
+    if value is None or (isinstance(value, str) and not value.strip()):
+        if required:
+            e.add(field, f"is required; choose one of {', '.join(allowed)}")
+        return None
+    if value not in allowed:
+        e.add(field, f"{str(value)[:40]!r} is not allowed; choose one of {', '.join(allowed)}")
+        return None
+    return str(value)

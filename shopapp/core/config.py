@@ -54,6 +54,11 @@ KEY_TYPES: dict[str, type] = {
     "BASE_URL": str,
     "VERIFY_REQUESTS_PER_MINUTE": int,  # /verify rate limit per client address and process
     "ROTOR_TAG_SIZE_MM": str,  # rotor tag label, width x height in mm, e.g. "62x29"
+    # The owner's view (shopapp.measures.costs): money per machine hour, the longest
+    # gap between two runs counted in full as machine time, and the money unit shown.
+    "MACHINE_HOURLY_RATE": float,
+    "MACHINE_IDLE_MINUTES": float,
+    "MONEY_UNIT": str,
 }
 _TRUE = {"1", "true", "yes", "on"}
 _FALSE = {"0", "false", "no", "off", ""}
@@ -74,7 +79,8 @@ def _typed(key: str, raw: str, source: str) -> Any:
     try:
         return kind(raw.strip())
     except ValueError:
-        raise ConfigError(f"{source}: {raw!r} is not a whole number") from None
+        what = "a number" if kind is float else "a whole number"
+        raise ConfigError(f"{source}: {raw!r} is not {what}") from None
 
 
 def load_config(

@@ -33,6 +33,9 @@ def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
     cur.execute("PRAGMA foreign_keys=ON")
     cur.execute("PRAGMA journal_mode=WAL")
     cur.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
+    # INSERT OR REPLACE then fires the DELETE trigger of the row it replaces, so an issued
+    # certificate cannot be replaced (migration 0003 also refuses it without this pragma).
+    cur.execute("PRAGMA recursive_triggers=ON")
     cur.close()
 
 
@@ -40,6 +43,8 @@ def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
 SQLITE_BUSY_TIMEOUT_MS = 20_000
 # Execution option that marks a connection whose transaction will write.
 WRITE_OPTION = "shopapp_write"
+# The same option under the name the demo loader and its tests use.
+SQLITE_IMMEDIATE = WRITE_OPTION
 
 
 def _sqlite_begin(conn: Any) -> None:

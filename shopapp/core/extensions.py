@@ -2,7 +2,9 @@
 
 Also the per-request database session: ``db_session()`` opens one on first use;
 the request's teardown rolls back anything uncommitted and closes it. Views
-commit once, after the service call succeeded.
+commit once, after the service call succeeded. A request that may change data
+(not GET/HEAD/OPTIONS) begins its SQLite transaction IMMEDIATE, so another
+process's commit meanwhile cannot make its write fail (``SQLITE_IMMEDIATE``).
 """
 
 from __future__ import annotations

@@ -43,6 +43,7 @@ def hold_sequence(session: Session, key: str) -> None:
 
 def hold_row(session: Session, obj: Base) -> None:
     """Lock ``obj``'s row until this transaction ends and reload it as committed."""
+    session.flush()  # pending changes of this transaction are kept, not refreshed away
     mapper = inspect(obj).mapper
     pk_cols = mapper.primary_key
     ident = mapper.primary_key_from_instance(obj)

@@ -8,7 +8,7 @@ from alembic import command
 from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
-from sqlalchemy import Engine
+from sqlalchemy import Connection, Engine
 
 # shopapp/migrations, shipped inside the wheel.
 MIGRATIONS_DIR = Path(__file__).resolve().parent.parent / "migrations"
@@ -43,3 +43,24 @@ def current_revision(engine: Engine) -> str | None:
 def is_at_head(engine: Engine, url: str) -> bool:
     """True when the database's revision is the newest migration."""
     return current_revision(engine) == head_revision(url)
+
+
+def _scripts() -> ScriptDirectory:
+    cfg = Config()
+    cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
+    return ScriptDirectory.from_config(cfg)
+
+
+def code_head() -> str | None:
+    """The newest migration this code ships (no database needed)."""
+    return _scripts().get_current_head()
+
+
+def known_revisions() -> set[str]:
+    """Every migration revision this code ships."""
+    return {script.revision for script in _scripts().walk_revisions()}
+
+
+def connection_revision(conn: Connection) -> str | None:
+    """The schema revision of the database behind ``conn`` (inside its transaction)."""
+    return MigrationContext.configure(conn).get_current_revision()

@@ -1,5 +1,6 @@
 """View helpers every feature's routes share: role check, acting user, get-or-404,
-page size, safe redirects and the registry's archive button.
+page size and the request's list page, safe redirects, the create/edit form flow
+and the registry's archive button.
 
 Routes parse, call one use-case, commit once, render; these helpers are the only
 request-aware code below the features (docs/architecture.md).
@@ -8,15 +9,20 @@ request-aware code below the features (docs/architecture.md).
 from __future__ import annotations
 
 import functools
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import Any, TypeVar
 from urllib.parse import urlsplit
 
-from flask import abort, current_app, flash, request
+from flask import abort, current_app, flash, redirect, render_template, request
 from flask_login import current_user, login_required
+from flask_wtf import FlaskForm
+from sqlalchemy import Select
 from sqlalchemy.orm import Session
 
 from shopapp.core.errors import ValidationFailed
+from shopapp.core.extensions import db_session
+from shopapp.core.forms import apply_errors
+from shopapp.core.pagination import Page, page_number, paginate
 from shopapp.core.permissions import can
 from shopapp.models import Base, User
 
@@ -98,3 +104,54 @@ def toggle_archive(
         return on_refused(exc.errors.get(exc.field, exc.message))
     flash(done(restore), "success")
     return None
+
+
+def request_page(
+    session: Session, stmt: Select[Any], args: dict[str, Any] | None = None, *,
+    scalars: bool = True,
+) -> Page[Any]:
+    """One page of ``stmt`` for this request: ``?page=``, :func:`page_size`, and ``args``
+    (the list's filters) kept in the page links."""
+    return paginate(session, stmt, page=page_number(request.args.get("page")),
+                    per_page=page_size(), args=args, scalars=scalars)
+
+
+def form_page(template: str, **context: Any) -> Callable[[int, Sequence[str]], Any]:
+    """``render(status, loose)`` for :func:`submit_form`: ``template`` with ``context`` and
+    the messages that have no field (``loose``)."""
+
+    def render(status: int, loose: Sequence[str]) -> Any:
+        return render_template(template, loose=loose, **context), status
+
+    return render
+
+
+def submit_form(
+    form: FlaskForm,
+    render: Callable[[int, Sequence[str]], Any],
+    save: Callable[[Session], Any],
+    *,
+    done: Callable[[Any], tuple[str, str]],
+) -> Any:
+    """Body of a create/edit page: GET shows the form; POST checks it, runs ``save``
+    (one use-case) and commits once.
+
+    ``render(status, loose)`` draws the page (``loose``: messages with no field);
+    a use-case's refusal rolls back and draws the form again with its messages
+    beside the fields (:func:`shopapp.core.forms.apply_errors`). On success
+    ``done(result)`` gives the flash message and where to go.
+    """
+    if request.method == "GET":
+        return render(200, ())
+    if not form.validate_on_submit():
+        return render(422, ())
+    session = db_session()
+    try:
+        result = save(session)
+        session.commit()
+    except ValidationFailed as exc:
+        session.rollback()
+        return render(422, apply_errors(form, exc))
+    message, target = done(result)
+    flash(message, "success")
+    return redirect(target)

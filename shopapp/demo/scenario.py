@@ -4,7 +4,7 @@ Everything here is made up for the demonstration. The names are plainly
 fictional (no real company, brand or person is meant); rotor data are
 plausible values for the kind of part, not any maker's drawing. The physics
 parameters (``reading_gain``, ``initial_ratio`` …) drive the simulated
-machine in :mod:`shopapp.demo.simulator`.
+machine in :mod:`shopapp.demo.physics`.
 """
 
 from __future__ import annotations

@@ -38,15 +38,16 @@ from typing import Any
 
 import numpy as np
 
-from shopapp.balancing import arbor, dynamics, influence, positions, removal, tolerance
+from shopapp.balancing import arbor, dynamics, influence, removal, tolerance
 from shopapp.balancing.errors import BalancingInputError
-from shopapp.balancing.phasors import amplitude_angle, normalize_deg, phasor
+from shopapp.balancing.phasors import amplitude_angle, phasor
 from shopapp.charts import Figure
 from shopapp.charts.polar import PolarVector, polar_figure
+from shopapp.core.display import plain, quantity
+from shopapp.jobs.advice import DEFAULT_DRILL_DIAMETER_MM, CorrectionAdvice, plane_advice
 from shopapp.models import Correction, InfluenceSet, Job, Machine, RotorType, Run
 
 SPEED_MATCH_FRACTION = 0.05  # stored coefficients within ±5 % of the run's speed
-DEFAULT_DRILL_DIAMETER_MM = 10.0  # shown drill depth uses this unless the operator picks one
 CALIBRATED_UNIT = "g·mm"
 JUDGED_PURPOSES = ("initial", "check", "final")
 CHECK_PURPOSES = ("check", "final")
@@ -130,50 +131,6 @@ class Coefficients:
     def as_json(self) -> list[list[float]]:
         """Row-major ``[re, im]`` pairs, the form :class:`InfluenceSet` stores."""
         return [[float(z.real), float(z.imag)] for z in self.matrix.ravel()]
-
-
-@dataclass(frozen=True)
-class PlaneAdvice:
-    """Correction advice for one plane.
-
-    ``angle_deg`` is where to act (add there, or remove there); ``add_angle_deg``
-    the equivalent addition (remove = add + 180°). ``split`` lists the parts on
-    fixed positions, ``drill`` the hole(s) when removing.
-    """
-
-    plane: int
-    method: str
-    action: str
-    mass_g: float
-    angle_deg: float
-    add_angle_deg: float
-    radius_mm: float
-    split: tuple[positions.PositionMass, ...] = ()
-    drill: tuple[removal.HoleDepth, ...] = ()
-    drill_diameter_mm: float | None = None
-    warnings: tuple[str, ...] = ()
-
-    @property
-    def unbalance_gmm(self) -> float:
-        return self.mass_g * self.radius_mm
-
-    def split_text(self) -> str:
-        """``"3:4.20, 4:1.10"`` (position:grams) for the record form."""
-        return ", ".join(f"{p.position}:{p.mass_g:.2f}" for p in self.split)
-
-
-@dataclass(frozen=True)
-class CorrectionAdvice:
-    """Advice answering one run (the rotor's latest state)."""
-
-    run_id: int
-    run_seq: int
-    source: str
-    planes: tuple[PlaneAdvice, ...]
-    predicted_residual_gmm: tuple[float, ...]
-    predicted_pct_of_limit: tuple[float, ...] | None
-    warnings: tuple[str, ...]
-    cautions: tuple[str, ...]
 
 
 @dataclass(frozen=True)
@@ -271,7 +228,7 @@ def job_tolerance(job: Job, rt: RotorType) -> JobTolerance:
     if method == "grade":
         if job.tolerance_grade is None:
             raise BalancingInputError("tolerance_grade", "is needed for a grade tolerance")
-        label = f"G {job.tolerance_grade:g} ({TOLERANCE_LABELS['grade']})"
+        label = f"G {plain(job.tolerance_grade)} ({TOLERANCE_LABELS['grade']})"
         if planes == 1:
             u = tolerance.permissible_unbalance(
                 job.tolerance_grade, rt.mass_kg, job.service_speed_rpm
@@ -312,10 +269,10 @@ def job_tolerance(job: Job, rt: RotorType) -> JobTolerance:
             raise BalancingInputError("explicit_limit_1_gmm", "is needed for a customer limit")
         label = TOLERANCE_LABELS["explicit"]
         if planes == 1:
-            u = tolerance.customer_tolerance(job.explicit_limit_1_gmm).plane_1_gmm
-            assert u is not None
-            return JobTolerance(method, label, 1, (u,), None, "correction_planes", u,
-                                u / rt.mass_kg, None, None, ("customer limit",))
+            limit = tolerance.customer_tolerance(job.explicit_limit_1_gmm).plane_1_gmm
+            assert limit is not None
+            return JobTolerance(method, label, 1, (limit,), None, "correction_planes", limit,
+                                limit / rt.mass_kg, None, None, ("customer limit",))
         core = tolerance.customer_tolerance(job.explicit_limit_1_gmm, job.explicit_limit_2_gmm)
         assert core.plane_1_gmm is not None and core.plane_2_gmm is not None
         return JobTolerance(method, label, 2, (core.plane_1_gmm, core.plane_2_gmm), None,
@@ -459,8 +416,8 @@ def coefficients_from_trials(
             return None, f"Run {r.seq} is in {r.unit}, run {ref.seq} in {ref.unit}: use one unit."
         if not _same_speed(r.speed_rpm, ref.speed_rpm):
             warnings.append(
-                f"Trial run {r.seq} ran at {r.speed_rpm:g} rpm, run {ref.seq} at "
-                f"{ref.speed_rpm:g} rpm: influence coefficients change with speed."
+                f"Trial run {r.seq} ran at {quantity(r.speed_rpm, 'rpm')}, run {ref.seq} at "
+                f"{quantity(ref.speed_rpm, 'rpm')}: influence coefficients change with speed."
             )
     trials = []
     for r in chosen:
@@ -508,8 +465,8 @@ def unbalance_gmm(
     if coeffs.unit != run.unit:
         return None, f"run {run.seq} is in {run.unit}, the coefficients in {coeffs.unit}"
     if coeffs.speed_rpm is not None and not _same_speed(run.speed_rpm, coeffs.speed_rpm):
-        return None, (f"run {run.seq} at {run.speed_rpm:g} rpm; the coefficients hold for "
-                      f"{coeffs.speed_rpm:g} rpm ±5 %")
+        return None, (f"run {run.seq} at {quantity(run.speed_rpm, 'rpm')}; the coefficients "
+                      f"hold for {quantity(coeffs.speed_rpm, 'rpm')} ±5 %")
     u_g = np.linalg.lstsq(coeffs.matrix, np.array(run.readings, dtype=complex), rcond=None)[0]
     return tuple(complex(u) * r for u, r in zip(u_g, radii_mm, strict=True)), ""
 
@@ -547,43 +504,6 @@ def judge(run: RunData, residual: tuple[complex, ...], tol: JobTolerance) -> Run
 # --------------------------------------------------------------------------- advice
 
 
-def _plane_advice(
-    plane: int, vector_g: complex, rt: RotorType, radius_mm: float, drill_diameter_mm: float
-) -> PlaneAdvice:
-    method = rt.method_1 if plane == 1 else (rt.method_2 or rt.method_1)
-    mass, add_angle = amplitude_angle(vector_g)
-    action = "remove" if method == "remove" else "add"
-    angle = normalize_deg(add_angle + 180.0) if action == "remove" else add_angle
-    warnings: list[str] = []
-    count = rt.positions_1 if plane == 1 else rt.positions_2
-    first = rt.first_position_1_deg if plane == 1 else rt.first_position_2_deg
-    split: tuple[positions.PositionMass, ...] = ()
-    if count is not None and mass > 0.0:
-        if count < 3:
-            warnings.append(f"Plane {plane}: {count} fixed positions cannot hold a correction "
-                            "between them; fit it at the computed angle.")
-        else:
-            res = positions.split_to_positions(mass, angle, count, first)
-            split = res.parts
-            warnings.extend(res.warnings)
-    drill: tuple[removal.HoleDepth, ...] = ()
-    if action == "remove" and mass > 0.0:
-        if rt.density_g_cm3 is None:
-            warnings.append(f"Plane {plane}: no material density on the rotor type, so no "
-                            "drill depth is computed.")
-        else:
-            masses = [p.mass_g for p in split] if split else [mass]
-            drill = tuple(removal.drill_depth(m, drill_diameter_mm, rt.density_g_cm3)
-                          for m in masses)
-            for h in drill:
-                warnings.extend(h.warnings)
-    if method == "both":
-        warnings.append(f"Plane {plane} allows adding or removing: removing the same mass at "
-                        f"{normalize_deg(add_angle + 180.0):.0f}° (internal) works as well.")
-    return PlaneAdvice(plane, method, action, mass, angle, add_angle, radius_mm, split, drill,
-                       drill_diameter_mm if drill else None, tuple(warnings))
-
-
 def correction_advice(
     current: RunData,
     coeffs: Coefficients,
@@ -602,10 +522,10 @@ def correction_advice(
     sol = influence.correction_from_coefficients(coeffs.matrix, current.readings)
     warnings = list(coeffs.warnings) + [w for w in sol.warnings if w not in coeffs.warnings]
     cautions: list[str] = []
-    plane_advice = []
+    planes_advised = []
     for c in sol.corrections:
-        pa = _plane_advice(c.plane, c.vector_g, rt, radii[c.plane - 1], drill_diameter_mm)
-        plane_advice.append(pa)
+        pa = plane_advice(c.plane, c.vector_g, rt, radii[c.plane - 1], drill_diameter_mm)
+        planes_advised.append(pa)
         warnings.extend(pa.warnings)
         if pa.drill:
             cautions.extend(x for x in removal.DRILLING_CAUTIONS if x not in cautions)
@@ -622,45 +542,8 @@ def correction_advice(
                             "out of tolerance: fit the masses more precisely.")
     if coeffs.source in ("trials", "stored"):
         warnings.append("The advice assumes every trial mass has been removed from the rotor.")
-    return CorrectionAdvice(current.run_id, current.seq, coeffs.source, tuple(plane_advice),
+    return CorrectionAdvice(current.run_id, current.seq, coeffs.source, tuple(planes_advised),
                             left_gmm, pct, tuple(warnings), tuple(cautions))
-
-
-def applied_vector_g(corrections: Sequence[Correction], plane: int, radius_mm: float) -> complex:
-    """Sum of the corrections fitted in a plane, as grams at the plane's radius R.
-
-    A removal at θ counts as an addition at θ + 180°; parts fitted on fixed
-    positions (``split``) are summed when recorded, otherwise the single mass.
-    """
-    total = 0j
-    for c in corrections:
-        if c.plane != plane:
-            continue
-        scale = c.radius_mm / radius_mm
-        flip = 180.0 if c.action == "remove" else 0.0
-        if c.split:
-            for part in c.split:
-                total += phasor(float(part["mass_g"]) * scale, float(part["angle_deg"]) + flip)
-        else:
-            total += phasor(c.mass_g * scale, c.angle_deg + flip)
-    return total
-
-
-def prediction_error_pct(
-    matrix: np.ndarray, initial: Sequence[complex], applied_g: Sequence[complex],
-    measured: Sequence[complex],
-) -> float:
-    """How far a check run landed from the prediction, % of the initial reading.
-
-    ``V_pred = V0 + A·W_applied``; error ``= ‖V_pred − V_meas‖ / ‖V0‖ · 100`` with
-    ‖·‖ the Euclidean norm over the planes (our definition).
-    """
-    v0 = np.array(initial, dtype=complex)
-    v_pred = v0 + matrix @ np.array(applied_g, dtype=complex)
-    norm0 = float(np.linalg.norm(v0))
-    if norm0 == 0.0:
-        raise BalancingInputError("initial", "the initial reading is zero")
-    return float(np.linalg.norm(v_pred - np.array(measured, dtype=complex)) / norm0 * 100.0)
 
 
 # --------------------------------------------------------------------------- whole job
@@ -691,8 +574,9 @@ def _core_warnings(job: Job, rt: RotorType, machine: Machine | None, calc: JobCa
         u_mar = machine.claimed_emar_gmm_per_kg * rt.mass_kg
         if u_mar > min(calc.tolerance.plane_limits_gmm):
             calc.warnings.append(
-                f"The machine's claimed minimum achievable residual ({u_mar:.3g} g·mm for this "
-                "rotor) is above a plane limit: it may not reach this tolerance."
+                "The machine's claimed minimum achievable residual "
+                f"({quantity(u_mar, 'g·mm')} for this rotor) is above a plane limit: it may not "
+                "reach this tolerance."
             )
 
 

@@ -74,7 +74,7 @@ def void_certificate(session: Session, cert: Certificate, *, by: User | None, re
 def void_for_reopen(session: Session, job: Job, *, by: User, reason: str) -> Certificate | None:
     """Void the job's valid certificate because the job is being reopened.
 
-    Called by :func:`shopapp.jobs.services.reopen`, which has already checked
+    Called by :func:`shopapp.jobs.states.reopen`, which has already checked
     that ``by`` may reopen the job; returns the voided certificate, or None when
     the job had none.
     """

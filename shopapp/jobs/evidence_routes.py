@@ -1,8 +1,9 @@
 """The job page's evidence steps: residual-unbalance test, arbor and index runs, arbor
 subtraction and repeated runs.
 
-Thin: parse the form, call :mod:`shopapp.jobs.evidence`, commit once, render. Angles are typed
-and shown in the shop's display convention.
+Thin: parse the form, call one use-case (:mod:`shopapp.jobs.residual_tests`,
+:mod:`shopapp.jobs.evidence`), commit once, render. Angles are typed and shown in
+the shop's display convention (:class:`shopapp.core.display.ShopDisplay`).
 """
 
 from __future__ import annotations
@@ -13,24 +14,17 @@ from typing import Any
 
 from flask import Blueprint, abort, flash, redirect, render_template, request, url_for
 from flask_login import current_user
-from sqlalchemy.orm import Session
 
-from shopapp.balancing.phasors import from_display_deg, to_display_deg
-from shopapp.balancing.units import convert_unbalance
 from shopapp.charts.svg import to_svg
+from shopapp.core.display import ShopDisplay, number, plain
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
+from shopapp.core.forms import apply_errors
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
-from shopapp.core.web import acting_user, requires
-from shopapp.jobs import evidence as jt
-from shopapp.models import (
-    RESIDUAL_TEST_POSITIONS,
-    Arbor,
-    ArborErrorMeasurement,
-    Job,
-    ShopSettings,
-)
+from shopapp.core.web import acting_user, get_or_404, requires
+from shopapp.jobs import evidence, residual_tests
+from shopapp.models import RESIDUAL_TEST_POSITIONS, Arbor, ArborErrorMeasurement, Job
 from shopapp.traceability import services as tr
 from shopapp.traceability.forms import (
     ErrorRunsForm,
@@ -47,66 +41,24 @@ from shopapp.traceability.forms import (
 bp = Blueprint("evidence", __name__, url_prefix="/traceability", template_folder="templates")
 
 
-class Display:
-    """The shop's angle convention and unbalance unit."""
-
-    def __init__(self, settings: ShopSettings) -> None:
-        self.sense = settings.angle_sense
-        self.zero = settings.angle_zero_deg
-        self.unit = settings.unbalance_unit
-
-    def angle(self, internal_deg: float | None) -> str:
-        if internal_deg is None:
-            return "—"
-        return f"{to_display_deg(internal_deg, sense=self.sense, zero_deg=self.zero):.0f}°"
-
-    def internal(self, typed: Any) -> Any:
-        """A typed display angle as internal degrees; non-numbers pass on for the service."""
-        try:
-            value = float(typed)
-        except (TypeError, ValueError):
-            return typed
-        if not math.isfinite(value):
-            return typed
-        return from_display_deg(value, sense=self.sense, zero_deg=self.zero)
-
-    def u(self, gmm: float | None) -> str:
-        if gmm is None:
-            return "—"
-        return f"{convert_unbalance(gmm, 'g·mm', self.unit):.4g} {self.unit}"
-
-
-def _get(sess: Session, model: Any, ident: int) -> Any:
-    obj = sess.get(model, ident)
-    if obj is None:
-        abort(404, description=f"No {model.__name__.lower()} with id {ident}.")
-    return obj
-
-
 def _blank(v: Any) -> Any:
     return None if v is None or (isinstance(v, str) and not v.strip()) else v
 
 
-def _put_errors(form: Any, exc: ValidationFailed,
-                mapping: dict[str, Any] | None = None) -> list[str]:
-    """Put each service error beside its form field; return the ones with no field."""
-    loose: list[str] = []
-    for name, message in exc.errors.items():
-        target = (mapping or {}).get(name)
-        if target is None and hasattr(form, name.split(".")[0]) and "." not in name:
-            target = getattr(form, name)
-        if target is not None:
-            target.errors = [*list(target.errors or []), message]
-        else:
-            loose.append(f"{name}: {message}")
-    return loose
+def _internal(disp: ShopDisplay, typed: Any) -> Any:
+    """A typed display angle as internal degrees.
+
+    What is not a finite number passes on unchanged, so the use-case names the field
+    and says why (these forms take text).
+    """
+    try:
+        value = float(typed)
+    except (TypeError, ValueError):
+        return typed
+    return disp.internal(value) if math.isfinite(value) else typed
 
 
 # --------------------------------------------------------------------------- job steps
-
-
-def _job(sess: Session, job_id: int) -> Job:
-    return _get(sess, Job, job_id)
 
 
 def _back(job: Job):  # type: ignore[no-untyped-def]
@@ -123,12 +75,12 @@ def _refused(job: Job, exc: ServiceError):  # type: ignore[no-untyped-def]
 @requires("work_jobs")
 def residual_required(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job(sess, job_id)
+    job = get_or_404(sess, Job, job_id)
     form = RequiredForm()
     if not form.validate_on_submit():
         abort(400, description="The form expired; reload the job page.")
     try:
-        jt.set_residual_test_required(sess, job, by=acting_user(),
+        residual_tests.set_residual_test_required(sess, job, by=acting_user(),
                                       required=form.required.data == "1")
         sess.commit()
     except ServiceError as exc:
@@ -140,8 +92,8 @@ def residual_required(job_id: int):  # type: ignore[no-untyped-def]
 @requires("work_jobs")
 def residual_test(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job(sess, job_id)
-    disp = Display(get_settings(sess))
+    job = get_or_404(sess, Job, job_id)
+    disp = ShopDisplay(get_settings(sess))
     planes = job.rotor.rotor_type.planes
     posted = request.method == "POST"
     form = ResidualTestForm() if posted else ResidualTestForm(formdata=None)
@@ -154,7 +106,7 @@ def residual_test(job_id: int):  # type: ignore[no-untyped-def]
     if plane not in range(1, planes + 1):
         abort(404, description=f"The rotor has {planes} plane(s).")
     try:
-        advice = jt.suggested_test_masses(job)[plane - 1]
+        advice = residual_tests.suggested_test_masses(job)[plane - 1]
     except ValidationFailed as exc:
         flash(exc.message, "error")
         return _back(job)
@@ -166,8 +118,8 @@ def residual_test(job_id: int):  # type: ignore[no-untyped-def]
     if not posted:
         form.plane.data = str(plane)
         form.positions.data = n
-        form.test_mass_g.data = f"{advice.suggested_g:.3g}"
-        form.test_radius_mm.data = f"{advice.radius_mm:g}"
+        form.test_mass_g.data = number(advice.suggested_g)
+        form.test_radius_mm.data = plain(advice.radius_mm)
         last = job.runs[-1] if job.runs else None
         if last is not None and last.readings:
             form.unit.data = last.readings[0].unit
@@ -186,27 +138,28 @@ def residual_test(job_id: int):  # type: ignore[no-untyped-def]
             plane=plane, test_mass_g=form.test_mass_g.data, positions=n,
             test_radius_mm=_blank(form.test_radius_mm.data) or advice.radius_mm,
             amplitudes=[e.data for e in form.amp.entries],
-            angles_deg=[disp.internal(_blank(e.data)) for e in form.ang.entries],
+            angles_deg=[_internal(disp, _blank(e.data)) for e in form.ang.entries],
             repeat_amplitude=form.repeat_amplitude.data,
-            repeat_angle_deg=disp.internal(_blank(form.repeat_angle_deg.data)),
+            repeat_angle_deg=_internal(disp, _blank(form.repeat_angle_deg.data)),
         )
         mapping: dict[str, Any] = {f"amplitude_{k}": e for k, e in enumerate(form.amp.entries, 1)}
         mapping.update({f"angle_{k}": e for k, e in enumerate(form.ang.entries, 1)})
         try:
             if form.save.data:
-                row = jt.record_residual_test(sess, job, by=acting_user(), unit=form.unit.data,
-                                              **kw)
+                row = residual_tests.record_residual_test(sess, job, by=acting_user(),
+                                                          unit=form.unit.data, **kw)
                 sess.commit()
                 flash(f"Residual test of plane {plane} saved: "
                       + ("valid." if row.valid else row.invalid_reason),
                       "success" if row.valid else "error")
                 return _back(job)
-            outcome = jt.evaluate_residual_test(permissible_gmm=advice.limit_gmm, **kw)
-            svg = to_svg(jt.outcome_figure(outcome, unit=form.unit.data, angle_sense=disp.sense,
-                                           angle_zero_deg=disp.zero), css_class="chart polar")
+            outcome = residual_tests.evaluate_residual_test(permissible_gmm=advice.limit_gmm, **kw)
+            svg = to_svg(residual_tests.outcome_figure(
+                outcome, unit=form.unit.data, angle_sense=disp.sense, angle_zero_deg=disp.zero),
+                css_class="chart polar")
         except ValidationFailed as exc:
             sess.rollback()
-            loose = _put_errors(form, exc, mapping)
+            loose = apply_errors(form, exc, mapping)
             status = 422
         except ServiceError as exc:
             return _refused(job, exc)
@@ -221,15 +174,15 @@ def residual_test(job_id: int):  # type: ignore[no-untyped-def]
 @requires("work_jobs")
 def job_arbor(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job(sess, job_id)
+    job = get_or_404(sess, Job, job_id)
     form = JobArborForm()
     form.arbor_id.choices = options([(0, "none")] + [(a.id, a.name) for a in tr.arbors(sess)])
     if not form.validate_on_submit():
         flash("Choose an arbor from the list.", "error")
         return _back(job)
-    arbor = sess.get(Arbor, form.arbor_id.data) if form.arbor_id.data else None
+    arbor = get_or_404(sess, Arbor, form.arbor_id.data) if form.arbor_id.data else None
     try:
-        jt.set_job_arbor(sess, job, by=acting_user(), arbor=arbor)
+        evidence.set_job_arbor(sess, job, by=acting_user(), arbor=arbor)
         sess.commit()
     except ServiceError as exc:
         return _refused(job, exc)
@@ -240,19 +193,19 @@ def job_arbor(job_id: int):  # type: ignore[no-untyped-def]
 @requires("work_jobs")
 def job_index_runs(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job(sess, job_id)
-    disp = Display(get_settings(sess))
+    job = get_or_404(sess, Job, job_id)
+    disp = ShopDisplay(get_settings(sess))
     form = IndexRunsForm(prefix="ix")
     if job.arbor_id is None:
         flash("Choose the job's arbor first.", "error")
         return _back(job)
-    a = _get(sess, Arbor, job.arbor_id)
+    a = get_or_404(sess, Arbor, job.arbor_id)
     planes = job.rotor.rotor_type.planes
     if not form.validate_on_submit():
         flash("Index runs: " + "; ".join(f"{k}: {' '.join(v) if isinstance(v, list) else v}"
                                          for k, v in form.errors.items()), "error")
         return _back(job)
-    first, second = index_runs_from(form, planes, disp.internal)
+    first, second = index_runs_from(form, planes, lambda typed: _internal(disp, typed))
     try:
         tr.record_arbor_error(sess, a, by=acting_user(), measured_on=form.measured_on.data,
                               first_run=first, second_run=second, planes=planes,
@@ -270,20 +223,20 @@ def job_index_runs(job_id: int):  # type: ignore[no-untyped-def]
 @requires("work_jobs")
 def job_subtraction(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job(sess, job_id)
+    job = get_or_404(sess, Job, job_id)
     form = SubtractForm()
     choices = [(0, "do not subtract")]
     if job.arbor_id is not None:
-        a = _get(sess, Arbor, job.arbor_id)
+        a = get_or_404(sess, Arbor, job.arbor_id)
         choices += [(m.id, f"{m.measured_on}") for m in a.measurements]
     form.measurement_id.choices = options(choices)
     if not form.validate_on_submit():
         flash("Choose one of the arbor's measured errors.", "error")
         return _back(job)
-    m = sess.get(ArborErrorMeasurement, form.measurement_id.data) if form.measurement_id.data \
-        else None
+    m = (get_or_404(sess, ArborErrorMeasurement, form.measurement_id.data)
+         if form.measurement_id.data else None)
     try:
-        jt.set_arbor_subtraction(sess, job, by=acting_user(), measurement=m)
+        evidence.set_arbor_subtraction(sess, job, by=acting_user(), measurement=m)
         sess.commit()
     except ServiceError as exc:
         return _refused(job, exc)
@@ -294,27 +247,28 @@ def job_subtraction(job_id: int):  # type: ignore[no-untyped-def]
 @requires("work_jobs")
 def repeat_runs(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job(sess, job_id)
-    disp = Display(get_settings(sess))
+    job = get_or_404(sess, Job, job_id)
+    disp = ShopDisplay(get_settings(sess))
     planes = job.rotor.rotor_type.planes
     posted = request.method == "POST"
     form = ErrorRunsForm() if posted else ErrorRunsForm(formdata=None)
     loose: list[str] = []
     status = 200
-    systematic, notes = jt.systematic_errors(sess, job)
+    systematic, notes = evidence.systematic_errors(sess, job)
     if posted and form.validate_on_submit():
         rows = [r for r in form.runs.entries
                 if any(_blank(getattr(r.form, f).data) is not None for f in ("amp_1", "ang_1"))]
         runs = []
         for r in rows:
-            run = [(r.form.amp_1.data, disp.internal(r.form.ang_1.data))]
+            run = [(r.form.amp_1.data, _internal(disp, r.form.ang_1.data))]
             if planes == 2:
-                run.append((r.form.amp_2.data, disp.internal(r.form.ang_2.data)))
+                run.append((r.form.amp_2.data, _internal(disp, r.form.ang_2.data)))
             runs.append(run)
         try:
-            jt.record_error_estimate(sess, job, by=acting_user(), runs=runs,
-                                     key_compensation_applied=form.key_compensation_applied.data,
-                                     notes=form.notes.data or "")
+            evidence.record_error_estimate(
+                sess, job, by=acting_user(), runs=runs,
+                key_compensation_applied=form.key_compensation_applied.data,
+                notes=form.notes.data or "")
             sess.commit()
             flash("Repeated runs recorded: ΔU per plane computed.", "success")
             return _back(job)
@@ -330,7 +284,6 @@ def repeat_runs(job_id: int):  # type: ignore[no-untyped-def]
                            systematic=systematic, notes=notes, disp=disp, loose=loose), status
 
 
-
 # --------------------------------------------------------------------------- panel
 
 
@@ -339,11 +292,11 @@ def _panel() -> dict[str, Any]:
     def traceability_panel(job: Job, calc: Any = None) -> dict[str, Any]:
         sess = db_session()
         settings = get_settings(sess)
-        disp = Display(settings)
-        data = jt.job_traceability(sess, job, calc)
-        svgs = {t.id: to_svg(jt.residual_test_figure(t, angle_sense=disp.sense,
-                                                     angle_zero_deg=disp.zero, size=220),
-                             css_class="chart polar")
+        disp = ShopDisplay(settings)
+        data = evidence.job_traceability(sess, job, calc)
+        svgs = {t.id: to_svg(residual_tests.residual_test_figure(
+                    t, angle_sense=disp.sense, angle_zero_deg=disp.zero, size=220),
+                    css_class="chart polar")
                 for t in (data.test_state.latest.values() if data.test_state else []) if t}
         arbor_form = JobArborForm(prefix="", formdata=None)
         arbor_form.arbor_id.choices = options([(0, "none")] + [(a.id, a.name)
@@ -358,7 +311,7 @@ def _panel() -> dict[str, Any]:
         sub_form.measurement_id.data = data.subtraction.measurement_id if data.subtraction else 0
         ix_form = IndexRunsForm(prefix="ix", formdata=None)
         ix_form.measured_on.data = dt.datetime.now(dt.UTC).date()
-        ix_form.rotor_mass_kg.data = f"{job.rotor.rotor_type.mass_kg:g}"
+        ix_form.rotor_mass_kg.data = plain(job.rotor.rotor_type.mass_kg)
         return {"data": data, "disp": disp, "svgs": svgs, "arbor_form": arbor_form,
                 "sub_form": sub_form, "ix_form": ix_form, "req_form": RequiredForm(formdata=None),
                 "can_work": can(current_user, "work_jobs"),

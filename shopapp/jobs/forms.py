@@ -15,7 +15,6 @@ from wtforms import (
     DateField,
     FormField,
     HiddenField,
-    SelectField,
     StringField,
     TextAreaField,
 )
@@ -23,6 +22,8 @@ from wtforms.fields.choices import SelectChoice
 from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
+from shopapp.core import forms
+from shopapp.core.display import plain
 from shopapp.core.forms import NumberField, WholeNumberField
 from shopapp.models import CORRECTION_METHODS, READING_UNITS, ROTOR_KINDS, RUN_PURPOSES
 
@@ -38,19 +39,13 @@ UNIT_LABELS = {"um": "µm (displacement)", "mm/s": "mm/s (velocity)",
                "g·mm": "g·mm (calibrated machine)", "mil": "mil", "in/s": "in/s"}
 
 
-class ChoiceField(SelectField):
-    """A select whose refusal lists the allowed choices."""
+class ChoiceField(forms.ChoiceField):
+    """A select whose refusal lists the allowed choices, and says so for junk values too."""
 
     def __init__(self, *args: Any, **kwargs: Any) -> None:
         kwargs.setdefault("invalid_value_message",
                           "Not one of the choices: pick one from the list.")
         super().__init__(*args, **kwargs)
-
-    def pre_validate(self, form: Any) -> None:
-        labels = [str(c.label) for c in self.iter_choices()]
-        shown = ", ".join(labels[:12]) + (", …" if len(labels) > 12 else "")
-        self.invalid_choice_message = f"Not one of the choices; choose one of: {shown}."
-        super().pre_validate(form)
 
 
 def options(pairs: list[tuple[Any, str]]) -> list[SelectChoice]:
@@ -126,7 +121,7 @@ class IntakeForm(FlaskForm):
     one_off = FormField(OneOffForm, label="One-off rotor geometry")
     tolerance_method = ChoiceField("Tolerance", choices=options(TOLERANCE_CHOICES), default="")
     tolerance_grade = ChoiceField("Balance grade",
-                                  choices=options([("", "—")] + [(f"{g:g}", f"G {g:g}")
+                                  choices=options([("", "—")] + [(plain(g), f"G {plain(g)}")
                                                                  for g in GRADE_VALUES_MM_S]),
                                   default="")
     journal_load_a_kg = NumberField("Journal load A (kg)", validators=[Optional()])

@@ -1,8 +1,10 @@
 """Job pages: list with filters, intake, the job page with runs, corrections and states.
 
-Thin: parse the form, convert display angles and units at the edge, call
-:mod:`shopapp.jobs.services`, commit once, or roll back and show the messages
-beside the fields (422). Nothing is written on a GET.
+Thin: parse the form, convert display angles and units at the edge, call one
+use-case (:mod:`shopapp.jobs.intake`, :mod:`~shopapp.jobs.runs`,
+:mod:`~shopapp.jobs.corrections`, :mod:`~shopapp.jobs.states`), commit once, or roll
+back and show the messages beside the fields (422). Read queries are in
+:mod:`shopapp.jobs.queries`. Nothing is written on a GET.
 """
 
 from __future__ import annotations
@@ -11,22 +13,22 @@ import datetime as dt
 import math
 from typing import Any
 
-from flask import Blueprint, abort, current_app, flash, redirect, render_template, request, url_for
+from flask import Blueprint, abort, flash, redirect, render_template, request, url_for
 from flask_login import current_user
-from sqlalchemy import select
-from sqlalchemy.orm import Session
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.charts.svg import to_svg
-from shopapp.core.display import ShopDisplay
-from shopapp.core.errors import ServiceError, TransitionRefused, ValidationFailed
+from shopapp.core.display import ShopDisplay, plain, quantity
+from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import apply_errors
 from shopapp.core.pagination import page_number, paginate
+from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
-from shopapp.core.web import acting_user, requires
+from shopapp.core.web import acting_user, get_or_404, page_size, requires
 from shopapp.jobs import calc as job_calc
-from shopapp.jobs import services as jobs
+from shopapp.jobs import corrections, intake, queries, runs, states
+from shopapp.jobs.advice import DEFAULT_DRILL_DIAMETER_MM
 from shopapp.jobs.forms import (
     CorrectionForm,
     IntakeForm,
@@ -37,69 +39,42 @@ from shopapp.jobs.forms import (
     options,
     parse_split,
 )
-from shopapp.models import (
-    JOB_KINDS,
-    JOB_STATES,
-    Customer,
-    Job,
-    Machine,
-    RotorType,
-    User,
-)
+from shopapp.models import JOB_KINDS, JOB_STATES, Job
 
 bp = Blueprint("jobs", __name__, url_prefix="/jobs", template_folder="templates")
 
+PAST_TENSE = {"add": "added", "remove": "removed"}
+
 
 # --------------------------------------------------------------------------- list
-
-
-def _choice_lists(sess: Session) -> dict[str, Any]:
-    return {
-        "machines": sess.execute(select(Machine.id, Machine.name).order_by(Machine.name)).all(),
-        "operators": sess.execute(select(User.id, User.full_name)
-                                  .where(User.role.in_(("operator", "quality")))
-                                  .order_by(User.full_name)).all(),
-        "rotor_types": sess.execute(select(RotorType.id, RotorType.part_number)
-                                    .where(RotorType.one_off.is_(False))
-                                    .order_by(RotorType.part_number)).all(),
-        "customers": sess.execute(select(Customer.id, Customer.name)
-                                  .order_by(Customer.name)).all(),
-    }
 
 
 @bp.get("")
 @requires("read")
 def index():  # type: ignore[no-untyped-def]
     sess = db_session()
-    f, messages = jobs.JobFilter.from_args(request.args)
-    page = paginate(sess, jobs.filtered_jobs_stmt(f), page=page_number(request.args.get("page")),
-                    per_page=int(current_app.config.get("PAGE_SIZE", 25)), args=f.to_args())
+    f, messages = queries.JobFilter.from_args(request.args)
+    page = paginate(sess, queries.filtered_jobs_stmt(f),
+                    page=page_number(request.args.get("page")), per_page=page_size(),
+                    args=f.to_args())
     return render_template("jobs/index.html", page=page, f=f, messages=messages,
-                           states=JOB_STATES, kinds=JOB_KINDS, **_choice_lists(sess))
+                           states=JOB_STATES, kinds=JOB_KINDS, **queries.filter_choices(sess))
 
 
 # --------------------------------------------------------------------------- intake
 
 
-def _intake_choices(sess: Session, form: IntakeForm) -> None:
-    customers = sess.execute(select(Customer.id, Customer.name)
-                             .where(Customer.archived.is_(False)).order_by(Customer.name)).all()
+def _intake_choices(form: IntakeForm, choices: queries.IntakeChoices) -> None:
     form.customer_id.choices = options([(0, "— new customer (fill in below) —")] + [
-        (c.id, c.name) for c in customers])
-    types = sess.execute(
-        select(RotorType.id, RotorType.part_number, RotorType.description, Customer.name)
-        .join(Customer, Customer.id == RotorType.customer_id)
-        .where(RotorType.archived.is_(False), RotorType.one_off.is_(False))
-        .order_by(Customer.name, RotorType.part_number)).all()
+        (c.id, c.name) for c in choices.customers])
     form.rotor_type_id.choices = options(
         [(0, "— none: known serial, or one-off geometry below —")]
-        + [(t.id, f"{t.name} · {t.part_number} {t.description}".strip()) for t in types])
-    machines = sess.execute(select(Machine.id, Machine.name, Machine.min_mass_kg,
-                                   Machine.max_mass_kg, Machine.max_speed_rpm)
-                            .where(Machine.archived.is_(False)).order_by(Machine.name)).all()
+        + [(t.id, f"{t.name} · {t.part_number} {t.description}".strip())
+           for t in choices.rotor_types])
     form.machine_id.choices = options([(0, "— choose —")] + [
-        (m.id, f"{m.name} ({m.min_mass_kg:g}–{m.max_mass_kg:g} kg, ≤ {m.max_speed_rpm:g} rpm)")
-        for m in machines])
+        (m.id, f"{m.name} ({plain(m.min_mass_kg)}–{plain(m.max_mass_kg)} kg, "
+               f"≤ {quantity(m.max_speed_rpm, 'rpm')})")
+        for m in choices.machines])
 
 
 def _intake_kwargs(form: IntakeForm, disp: ShopDisplay) -> dict[str, Any]:
@@ -112,7 +87,7 @@ def _intake_kwargs(form: IntakeForm, disp: ShopDisplay) -> dict[str, Any]:
     spec = None
     if method:
         grade = form.tolerance_grade.data
-        spec = jobs.ToleranceSpec(
+        spec = intake.ToleranceSpec(
             method, grade=float(grade) if grade else None,
             journal_load_a_kg=form.journal_load_a_kg.data,
             journal_load_b_kg=form.journal_load_b_kg.data,
@@ -161,7 +136,7 @@ def new():  # type: ignore[no-untyped-def]
     sess = db_session()
     disp = ShopDisplay(get_settings(sess))
     form = IntakeForm()
-    _intake_choices(sess, form)
+    _intake_choices(form, queries.intake_choices(sess))
     # Its own prefix: both forms have a customer and a serial, and ids must be unique.
     lookup = LookupForm(request.args, prefix=LOOKUP_PREFIX)
     lookup.customer_id.choices = form.customer_id.choices
@@ -172,7 +147,7 @@ def new():  # type: ignore[no-untyped-def]
         cid = request.args.get(lookup.customer_id.name, "")
         serial = (request.args.get(lookup.serial_number.name) or "").strip()[:100]
         if cid.isdigit() and len(cid) < 12 and serial:
-            history = jobs.rotor_history(sess, int(cid), serial)
+            history = queries.rotor_history(sess, int(cid), serial)
             form.customer_id.data = int(cid)
             form.serial_number.data = serial
             if history is not None:
@@ -187,7 +162,7 @@ def new():  # type: ignore[no-untyped-def]
                                disp=disp, loose=loose)
     if form.validate_on_submit():
         try:
-            job = jobs.book_in(sess, by=acting_user(), **_intake_kwargs(form, disp))
+            job = intake.book_in(sess, by=acting_user(), **_intake_kwargs(form, disp))
             sess.commit()
             flash(f"Job {job.number} booked in.", "success")
             return redirect(url_for("jobs.detail", job_id=job.id))
@@ -206,8 +181,6 @@ def new():  # type: ignore[no-untyped-def]
 
 
 def jobs_can_work() -> bool:
-    from shopapp.core.permissions import can
-
     return can(current_user, "work_jobs")
 
 
@@ -256,10 +229,10 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
                    return_form: ReturnForm | None = None, page_error: str = "",
                    loose: list[str] | None = None):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = jobs.load_job(sess, job_id)
+    job = queries.load_job(sess, job_id)
     settings = get_settings(sess)
     disp = ShopDisplay(settings)
-    calc = jobs.evaluate(sess, job, drill_diameter_mm=_drill_diameter())
+    calc = queries.evaluate(sess, job, drill_diameter_mm=_drill_diameter())
     figures = job_calc.polar_figures(calc, to_unit=disp.unb, unit_label=disp.unit,
                                      angle_sense=disp.sense, angle_zero_deg=disp.zero)
     rt = job.rotor.rotor_type
@@ -273,21 +246,22 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
         run_form.trial_radius_mm.data = rt.radius_1_mm
     forms = _correction_forms(job, calc, disp)
     forms.update(corr_forms or {})
-    state_forms = {a: StateForm(prefix=f"s-{a}", formdata=None) for a in jobs.allowed_actions(job)}
+    actions = states.allowed_actions(job)
+    state_forms = {a: StateForm(prefix=f"s-{a}", formdata=None) for a in actions}
     if state_form is not None and state_action in state_forms:
         state_forms[state_action] = state_form
     if return_form is None:
         return_form = ReturnForm(prefix="ret", formdata=None)
-    trail = jobs.job_audit_trail(sess, job.id)
-    returns = jobs.return_jobs_of(sess, job.id)
+    trail = queries.job_audit_trail(sess, job.id)
+    returns = queries.return_jobs_of(sess, job.id)
     now = dt.datetime.now(dt.UTC)
     return render_template(
         "jobs/detail.html", job=job, rt=rt, calc=calc, disp=disp,
         svgs=[to_svg(fig, css_class="chart polar") for fig in figures],
         run_form=run_form, corr_forms=forms, state_forms=state_forms, return_form=return_form,
-        actions=jobs.allowed_actions(job), trail=trail, returns=returns, now=now,
+        actions=actions, trail=trail, returns=returns, now=now,
         page_error=page_error, loose=loose or [], can_work=jobs_can_work(),
-        drill_mm=_drill_diameter() or job_calc.DEFAULT_DRILL_DIAMETER_MM,
+        drill_mm=_drill_diameter() or DEFAULT_DRILL_DIAMETER_MM,
     ), status
 
 
@@ -297,19 +271,14 @@ def detail(job_id: int):  # type: ignore[no-untyped-def]
     return _render_detail(job_id)
 
 
-def _job_or_404(sess: Session, job_id: int) -> Job:
-    job = sess.get(Job, job_id)
-    if job is None:
-        abort(404, description=f"No job with id {job_id}.")
-    return job
-
-
-def _failed(job_id: int, exc: ServiceError, **forms: Any):  # type: ignore[no-untyped-def]
+def _failed(job_id: int, exc: ServiceError, form: Any, *, mapping: dict[str, Any] | None = None,
+            **forms: Any):  # type: ignore[no-untyped-def]
+    """Roll back, then show the page again: a refusal above it (with the error's status,
+    409 for a state rule) or the field messages beside ``form``'s fields (422)."""
     db_session().rollback()
-    if isinstance(exc, TransitionRefused):
-        return _render_detail(job_id, status=409, page_error=exc.message, **forms)
     if isinstance(exc, ValidationFailed):
-        return None
+        return _render_detail(job_id, status=422, loose=apply_errors(form, exc, mapping),
+                              **forms)
     return _render_detail(job_id, status=exc.status, page_error=exc.message, **forms)
 
 
@@ -317,57 +286,39 @@ def _failed(job_id: int, exc: ServiceError, **forms: Any):  # type: ignore[no-un
 @requires("work_jobs")
 def add_run(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job_or_404(sess, job_id)
+    job = get_or_404(sess, Job, job_id)
     disp = ShopDisplay(get_settings(sess))
     form = RunForm(prefix="run")
-    planes = job.rotor.rotor_type.planes
-    if form.validate_on_submit():
-        extra_errors = False
-        if planes == 1 and (form.amplitude_2.data is not None or form.angle_2_deg.data is not None):
-            form.amplitude_2.errors = ["This rotor has one correction plane: leave plane 2 empty."]
-            extra_errors = True
-        if planes == 2:
-            for f in (form.amplitude_2, form.angle_2_deg):
-                if f.data is None:
-                    f.errors = ["Required for a two-plane rotor: type a number."]
-                    extra_errors = True
-        if not extra_errors:
-            readings = [(1, form.amplitude_1.data, disp.internal(form.angle_1_deg.data),
-                         form.unit.data)]
-            if planes == 2:
-                readings.append((2, form.amplitude_2.data, disp.internal(form.angle_2_deg.data),
-                                 form.unit.data))
-            trial = None
-            if form.trial_given():
-                plane = int(form.trial_plane.data) if form.trial_plane.data else None
-                trial = (plane, form.trial_mass_g.data, disp.internal(form.trial_angle_deg.data),
-                         form.trial_radius_mm.data)
-            try:
-                run = jobs.record_run(
-                    sess, job, by=acting_user(), purpose=form.purpose.data,
-                    speed_rpm=form.speed_rpm.data,
-                    readings=readings, trial=trial,
-                    earlier_trial_left_on=bool(form.earlier_trial_left_on.data),
-                    notes=form.notes.data or "")
-                sess.commit()
-                flash(f"Run {run.seq} ({run.purpose}) logged.", "success")
-                return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
-            except ServiceError as exc:
-                page = _failed(job_id, exc, run_form=form)
-                if page is not None:
-                    return page
-                assert isinstance(exc, ValidationFailed)
-                loose = apply_errors(form, exc, {"readings": form.amplitude_1,
-                                                  "trial_plane": form.trial_plane})
-                return _render_detail(job_id, status=422, run_form=form, loose=loose)
-    return _render_detail(job_id, status=422, run_form=form)
+    if not form.validate_on_submit():
+        return _render_detail(job_id, status=422, run_form=form)
+    readings = [(1, form.amplitude_1.data, disp.internal(form.angle_1_deg.data), form.unit.data)]
+    if form.amplitude_2.data is not None or form.angle_2_deg.data is not None:
+        readings.append((2, form.amplitude_2.data, disp.internal(form.angle_2_deg.data),
+                         form.unit.data))
+    trial = None
+    if form.trial_given():
+        plane = int(form.trial_plane.data) if form.trial_plane.data else None
+        trial = (plane, form.trial_mass_g.data, disp.internal(form.trial_angle_deg.data),
+                 form.trial_radius_mm.data)
+    try:
+        run = runs.record_run(
+            sess, job, by=acting_user(), purpose=form.purpose.data,
+            speed_rpm=form.speed_rpm.data, readings=readings, trial=trial,
+            earlier_trial_left_on=bool(form.earlier_trial_left_on.data),
+            notes=form.notes.data or "")
+        sess.commit()
+    except ServiceError as exc:
+        return _failed(job_id, exc, form, run_form=form,
+                       mapping={"readings": form.amplitude_1, "trial_plane": form.trial_plane})
+    flash(f"Run {run.seq} ({run.purpose}) logged.", "success")
+    return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
 
 
 @bp.post("/<int:job_id>/corrections/<int:plane>")
 @requires("work_jobs")
 def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job_or_404(sess, job_id)
+    job = get_or_404(sess, Job, job_id)
     if plane not in (1, 2):
         abort(404, description="No such plane.")
     disp = ShopDisplay(get_settings(sess))
@@ -380,7 +331,7 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
             return _render_detail(job_id, status=422, corr_forms={plane: form})
         run_id = int(form.run_id.data) if (form.run_id.data or "").isdigit() else None
         try:
-            corr = jobs.record_correction(
+            corr = corrections.record_correction(
                 sess, job, by=acting_user(), run_id=run_id, plane=plane, action=form.action.data,
                 mass_g=form.mass_g.data, angle_deg=disp.internal(form.angle_deg.data),
                 radius_mm=form.radius_mm.data, advised_mass_g=_float(form.advised_mass_g.data),
@@ -388,16 +339,11 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
                 split=split, drill_diameter_mm=form.drill_diameter_mm.data,
                 drill_depth_mm=form.drill_depth_mm.data, drill_holes=form.drill_holes.data)
             sess.commit()
-            flash(f"Plane {corr.plane}: {corr.mass_g:g} g {corr.action}ed — log a check run.",
-                  "success")
+            flash(f"Plane {corr.plane}: {quantity(corr.mass_g, 'g')} "
+                  f"{PAST_TENSE.get(corr.action, corr.action)} — log a check run.", "success")
             return redirect(url_for("jobs.detail", job_id=job_id) + "#correction")
         except ServiceError as exc:
-            page = _failed(job_id, exc, corr_forms={plane: form})
-            if page is not None:
-                return page
-            assert isinstance(exc, ValidationFailed)
-            loose = apply_errors(form, exc)
-            return _render_detail(job_id, status=422, corr_forms={plane: form}, loose=loose)
+            return _failed(job_id, exc, form, corr_forms={plane: form})
     return _render_detail(job_id, status=422, corr_forms={plane: form})
 
 
@@ -416,7 +362,7 @@ STATE_ACTIONS = ("start", "in_tolerance", "dispatch", "reject", "reopen")
 @requires("work_jobs")
 def change_state(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job_or_404(sess, job_id)
+    job = get_or_404(sess, Job, job_id)
     action = (request.form.get("action") or "")[:20]
     if action not in STATE_ACTIONS:
         return _render_detail(job_id, status=422, page_error=f"{action!r} is not a state action;"
@@ -428,24 +374,18 @@ def change_state(job_id: int):  # type: ignore[no-untyped-def]
     reason = form.reason.data or ""
     try:
         if action == "start":
-            jobs.start(sess, job, by=by)
+            states.start(sess, job, by=by)
         elif action == "in_tolerance":
-            jobs.mark_in_tolerance(sess, job, by=by)
+            states.mark_in_tolerance(sess, job, by=by)
         elif action == "dispatch":
-            jobs.dispatch(sess, job, by=by, on=form.dispatched_on.data)
+            states.dispatch(sess, job, by=by, on=form.dispatched_on.data)
         elif action == "reject":
-            jobs.reject(sess, job, by=by, reason=reason)
+            states.reject(sess, job, by=by, reason=reason)
         else:
-            jobs.reopen(sess, job, by=by, reason=reason)
+            states.reopen(sess, job, by=by, reason=reason)
         sess.commit()
     except ServiceError as exc:
-        page = _failed(job_id, exc, state_form=form, state_action=action)
-        if page is not None:
-            return page
-        assert isinstance(exc, ValidationFailed)
-        loose = apply_errors(form, exc)
-        return _render_detail(job_id, status=422, state_form=form, state_action=action,
-                              loose=loose)
+        return _failed(job_id, exc, form, state_form=form, state_action=action)
     flash(f"Job {job.number} is now {job.state.replace('_', ' ')}.", "success")
     return redirect(url_for("jobs.detail", job_id=job_id))
 
@@ -454,21 +394,17 @@ def change_state(job_id: int):  # type: ignore[no-untyped-def]
 @requires("work_jobs")
 def open_return(job_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = _job_or_404(sess, job_id)
+    job = get_or_404(sess, Job, job_id)
     form = ReturnForm(prefix="ret")
     if not form.validate_on_submit():
         return _render_detail(job_id, status=422, return_form=form)
     try:
-        new_job = jobs.open_return(sess, by=acting_user(), earlier_job=job,
-                                   received_on=form.received_on.data, notes=form.notes.data or "")
+        new_job = states.open_return(sess, by=acting_user(), earlier_job=job,
+                                     received_on=form.received_on.data,
+                                     notes=form.notes.data or "")
         sess.commit()
     except ServiceError as exc:
-        page = _failed(job_id, exc, return_form=form)
-        if page is not None:
-            return page
-        assert isinstance(exc, ValidationFailed)
-        loose = apply_errors(form, exc)
-        return _render_detail(job_id, status=422, return_form=form, loose=loose)
+        return _failed(job_id, exc, form, return_form=form)
     flash(f"Return job {new_job.number} opened for rotor {job.rotor.serial_number}.", "success")
     return redirect(url_for("jobs.detail", job_id=new_job.id))
 
@@ -478,9 +414,9 @@ def open_return(job_id: int):  # type: ignore[no-untyped-def]
 
 @bp.app_context_processor
 def _home_panel() -> dict[str, Any]:
-    def jobs_home() -> jobs.HomePanel | None:
+    def jobs_home() -> queries.HomePanel | None:
         if not current_user.is_authenticated:
             return None
-        return jobs.home_panel(db_session(), acting_user())
+        return queries.home_panel(db_session(), acting_user())
 
     return {"jobs_home": jobs_home}

@@ -1,7 +1,8 @@
-"""The period figures: one :class:`Figures` per slice, from six families of queries.
+"""The period figures: one :class:`Figures` per slice, from five families of queries.
 
 Each family (received, dispatched with turnaround and promised dates, work in
-progress, the tolerance cohort with cycles and first pass, rework, rejections)
+progress, the tolerance cohort with cycles, first pass and rework, the jobs closed
+with the rejections)
 is one query that returns its aggregates for every slice at once; :func:`figures_for`
 runs the families asked for and merges them. The definitions are in the docstring of
 :mod:`shopapp.measures.services`.
@@ -16,35 +17,41 @@ from typing import Any
 
 from sqlalchemy import (
     Float,
+    Integer,
     case,
     cast,
     false,
     func,
+    literal_column,
     or_,
     select,
     true,
     union_all,
 )
 from sqlalchemy.orm import Session, aliased
+from sqlalchemy.sql import ColumnElement
 
 from shopapp.measures.periods import Period, Scope
 from shopapp.measures.sql import (
+    REWORK_FROM_STATES,
     Grouped,
     base_select,
     day_number,
     days_cte,
+    epoch_seconds,
     from_days,
     grouped,
     histogram,
+    int_div,
     long_form,
     pct_hist,
     rejections,
-    reopenings,
     scoped,
     utc_start,
     work_day_index_of_day,
     work_day_index_py,
 )
+from shopapp.measures.stats import Rate
 from shopapp.models import Correction, Customer, Job, JobTransition, Machine, RotorType, Run, User
 
 DIMENSIONS: tuple[str, ...] = ("operator", "machine", "rotor_type", "customer", "month")
@@ -57,6 +64,11 @@ DIMENSION_LABELS: dict[str, str] = {
 }
 CHECK_PURPOSES: tuple[str, ...] = ("check", "final")
 UNASSIGNED = "(none)"
+#: A job counts as reworked when it comes back to the machine within this many days of
+#: first reaching tolerance (reopened, or returned by the customer). A fixed window keeps
+#: the rework rate of an old period comparable with a recent one; a period's rate is
+#: final once this many days have passed since its end.
+REWORK_WINDOW_DAYS = 90
 
 
 @dataclass
@@ -77,28 +89,54 @@ class Figures:
     first_pass_jobs: int = 0
     correction_cycles_mean: float | None = None
     reworked_jobs: int = 0
+    jobs_closed: int = 0
     rejected_jobs: int = 0
+
+    def rate(self, name: str) -> Rate:
+        """The rate ``name`` (one of :data:`RATES`) with its counts and 95 % Wilson interval."""
+        numerator, denominator = RATES[name]
+        return Rate(getattr(self, numerator), getattr(self, denominator))
 
     @property
     def promised_hit_rate(self) -> float | None:
-        return self.promised_hit / self.promised_jobs if self.promised_jobs else None
+        return self.rate("promised_hit_rate").value
 
     @property
     def first_pass_rate(self) -> float | None:
-        return self.first_pass_jobs / self.first_pass_judged if self.first_pass_judged else None
+        return self.rate("first_pass_rate").value
 
     @property
     def rework_rate(self) -> float | None:
-        return self.reworked_jobs / self.reached_in_tolerance if self.reached_in_tolerance else None
+        return self.rate("rework_rate").value
+
+    @property
+    def rejection_rate(self) -> float | None:
+        return self.rate("rejection_rate").value
 
     def as_dict(self) -> dict[str, Any]:
+        """Counts and figures by name; rates as plain fractions (None without jobs)."""
         out: dict[str, Any] = {f.name: getattr(self, f.name) for f in fields(self)}
-        out["promised_hit_rate"] = self.promised_hit_rate
-        out["first_pass_rate"] = self.first_pass_rate
-        out["rework_rate"] = self.rework_rate
+        for name in RATES:
+            out[name] = self.rate(name).value
+        return out
+
+    def as_json(self) -> dict[str, Any]:
+        """As :meth:`as_dict`, but every rate is ``{"value", "numerator", "denominator",
+        "interval_95": [low, high] | None}`` (:meth:`Rate.as_json`)."""
+        out = self.as_dict()
+        for name in RATES:
+            out[name] = self.rate(name).as_json()
         return out
 
 
+# Each rate: (numerator, denominator) field names. The numerator's jobs are always a
+# subset of the denominator's (see the definitions in shopapp.measures.services).
+RATES: dict[str, tuple[str, str]] = {
+    "promised_hit_rate": ("promised_hit", "promised_jobs"),
+    "first_pass_rate": ("first_pass_jobs", "first_pass_judged"),
+    "rework_rate": ("reworked_jobs", "reached_in_tolerance"),
+    "rejection_rate": ("rejected_jobs", "jobs_closed"),
+}
 FIGURE_NAMES: tuple[str, ...] = tuple(Figures().as_dict())
 
 
@@ -185,8 +223,49 @@ def _wip(
     )
 
 
-def _tolerance_cohort(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
-    """Jobs that first reached in_tolerance in ``p``: count, cycles, first pass."""
+def _first_rework(today: dt.date) -> tuple[Any, Any]:
+    """Per job, by ``today``: its first reopening from a finished state (``at``) and the
+    day its first customer return came in (``received_on``), as two grouped subqueries.
+
+    Every reopening comes after the job first reached ``in_tolerance`` (only a finished
+    job can be reopened), so the first one decides whether the job came back within the
+    window; one pass over the few reopenings and returns, not one lookup per job.
+    """
+    reopened = (
+        select(JobTransition.job_id.label("job_id"), func.min(JobTransition.at).label("at"))
+        .where(JobTransition.to_state == "on_machine",
+               JobTransition.from_state.in_(REWORK_FROM_STATES),
+               JobTransition.at < utc_start(today + dt.timedelta(days=1)))
+        .group_by(JobTransition.job_id)
+        .subquery("first_reopen")
+    )
+    later = aliased(Job)
+    returned = (
+        select(later.return_of_job_id.label("job_id"),
+               func.min(later.received_on).label("received_on"))
+        .where(later.kind == "return", later.return_of_job_id.is_not(None),
+               later.received_on <= today)
+        .group_by(later.return_of_job_id)
+        .subquery("first_return")
+    )
+    return reopened, returned
+
+
+def _reworked_later(reached: Any, reopened: Any, returned: Any) -> ColumnElement[int]:
+    """1 when the job (which first reached in_tolerance at ``reached``) was reworked within
+    :data:`REWORK_WINDOW_DAYS` days of it: reopened, or come back as a customer return."""
+    in_window = or_(
+        epoch_seconds(reopened.c.at) - epoch_seconds(reached) <= REWORK_WINDOW_DAYS * 86400,
+        day_number(returned.c.received_on) - int_div(epoch_seconds(reached), 86400)
+        <= REWORK_WINDOW_DAYS,
+    )
+    return case((in_window, 1), else_=0)
+
+
+def _tolerance_cohort(
+    session: Session, p: Period, scope: Scope, dims: Sequence[str], today: dt.date
+) -> Grouped:
+    """Jobs that first reached in_tolerance in ``p``: count, cycles, first pass, rework."""
     reached = Job.first_in_tolerance_at
     before_tol = Correction.applied_at <= reached
     # Correction steps: distinct runs answered; a correction without a run stands alone.
@@ -219,13 +298,16 @@ def _tolerance_cohort(session: Session, p: Period, scope: Scope, dims: Sequence[
         .correlate(Job)
         .scalar_subquery()
     )
+    reopened, returned = _first_rework(today)
     base = scoped(
-        base_select({"job_id": Job.id, "cycles": cycles, "fp": first_check_verdict}, reached).where(
-            reached >= utc_start(p.start), reached < utc_start(p.end + dt.timedelta(days=1))
-        ),
+        base_select({"job_id": Job.id, "cycles": cycles, "fp": first_check_verdict,
+                     "rw": _reworked_later(reached, reopened, returned)}, reached)
+        .outerjoin(reopened, reopened.c.job_id == Job.id)
+        .outerjoin(returned, returned.c.job_id == Job.id)
+        .where(reached >= utc_start(p.start), reached < utc_start(p.end + dt.timedelta(days=1))),
         scope,
     )
-    long = long_form(base, dims, ["job_id", "cycles", "fp"])
+    long = long_form(base, dims, ["job_id", "cycles", "fp", "rw"])
     return grouped(
         session,
         long,
@@ -234,37 +316,31 @@ def _tolerance_cohort(session: Session, p: Period, scope: Scope, dims: Sequence[
             "correction_cycles_mean": cast(func.avg(cast(long.c.cycles, Float)), Float),
             "first_pass_judged": func.count(long.c.fp),
             "first_pass_jobs": func.coalesce(func.sum(long.c.fp), 0),
+            "reworked_jobs": func.coalesce(func.sum(long.c.rw), 0),
         },
     )
 
 
-def _rework(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
-    reopen = reopenings(p).subquery("reopen")
-    reopened = scoped(
-        base_select({"job_id": Job.id}, reopen.c.at).join(reopen, reopen.c.job_id == Job.id), scope
-    )
-    returned = scoped(
-        base_select({"job_id": Job.id}, Job.received_on).where(
-            Job.kind == "return", Job.received_on.between(p.start, p.end)
-        ),
-        scope,
-    )
-    base = union_all(reopened, returned).subquery("events")
-    flat = select(*base.c)
-    long = long_form(flat, dims, ["job_id"])
-    return grouped(
-        session, long, {"reworked_jobs": func.count(func.distinct(long.c.job_id))}
-    )
-
-
-def _rejected(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
+def _closed(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
+    """Jobs that left the shop in ``p``: dispatched or rejected; and those rejected."""
     rej = rejections(p).subquery("rej")
-    base = scoped(
-        base_select({"job_id": Job.id}, rej.c.at).join(rej, rej.c.job_id == Job.id), scope
+    rejected = scoped(
+        base_select({"job_id": Job.id, "rej": literal_column("1", Integer)}, rej.c.at)
+        .join(rej, rej.c.job_id == Job.id), scope
     )
-    long = long_form(base, dims, ["job_id"])
+    dispatched = scoped(
+        base_select({"job_id": Job.id, "rej": literal_column("0", Integer)}, Job.dispatched_on)
+        .where(Job.dispatched_on.between(p.start, p.end)), scope
+    )
+    events = union_all(rejected, dispatched).subquery("closed")
+    long = long_form(select(*events.c), dims, ["job_id", "rej"])
     return grouped(
-        session, long, {"rejected_jobs": func.count(func.distinct(long.c.job_id))}
+        session,
+        long,
+        {
+            "jobs_closed": func.count(func.distinct(long.c.job_id)),
+            "rejected_jobs": func.count(func.distinct(case((long.c.rej == 1, long.c.job_id)))),
+        },
     )
 
 
@@ -291,15 +367,21 @@ def figures_for(
     scope: Scope,
     dims: Sequence[str],
     as_of: dt.date,
-    families: Sequence[str] = ("received", "dispatched", "wip", "tolerance", "rework", "rejected"),
+    families: Sequence[str] = ("received", "dispatched", "wip", "tolerance", "closed"),
+    today: dt.date | None = None,
 ) -> dict[tuple[str, str | None], Figures]:
+    """The families' figures of ``p`` for every slice of ``dims``.
+
+    ``as_of`` is the day work in progress is counted on; ``today`` (default ``as_of``)
+    the last day a rework of the period's jobs is counted on.
+    """
+    follow_up = today or as_of
     runners = {
         "received": lambda: _received(session, p, scope, dims),
         "dispatched": lambda: _dispatched(session, p, scope, dims),
         "wip": lambda: _wip(session, p, scope, dims, as_of),
-        "tolerance": lambda: _tolerance_cohort(session, p, scope, dims),
-        "rework": lambda: _rework(session, p, scope, dims),
-        "rejected": lambda: _rejected(session, p, scope, dims),
+        "tolerance": lambda: _tolerance_cohort(session, p, scope, dims, follow_up),
+        "closed": lambda: _closed(session, p, scope, dims),
     }
     return _merge(runners[f]() for f in families)
 

@@ -10,12 +10,10 @@ import datetime as dt
 from typing import Any
 
 from sqlalchemy import (
-    String,
     and_,
     case,
     false,
     func,
-    literal_column,
     or_,
     select,
     union_all,
@@ -25,7 +23,15 @@ from sqlalchemy.sql import ColumnElement
 
 from shopapp.core.errors import ValidationFailed
 from shopapp.measures.periods import EVERYTHING, Period, Scope
-from shopapp.measures.sql import day_number, rejections, reopenings, scoped, utc_start
+from shopapp.measures.sql import (
+    day_number,
+    rejections,
+    reopen_reason,
+    reopenings,
+    return_reason,
+    scoped,
+    utc_start,
+)
 from shopapp.models import (
     Customer,
     Job,
@@ -38,16 +44,14 @@ from shopapp.models import (
 )
 from shopapp.reports.shop_month import MachineStatus, ReasonCount, WorseningRotor
 
-RETURN_REASON = "customer return"
-
 
 def rework_reasons(
     session: Session, p: Period, scope: Scope = EVERYTHING, *, limit: int = 20
 ) -> list[ReasonCount]:
-    """Reopen reasons of the period (one per reopening) and returns, most frequent first."""
+    """Reopen reasons of the period (one per reopening) and returns received in it (under
+    "customer return", with the note they were booked in with), most frequent first."""
     reopen = reopenings(p).subquery("reopen")
-    trimmed = func.trim(reopen.c.reason)
-    reason = case((trimmed == "", "(no reason given)"), else_=trimmed)
+    reason = reopen_reason(reopen.c.reason)
     reopen_stmt = scoped(
         select(reason.label("reason"), func.count().label("n"))
         .select_from(Job)
@@ -55,14 +59,14 @@ def rework_reasons(
         .join(reopen, reopen.c.job_id == Job.id),
         scope,
     ).group_by(reason)
+    returned = return_reason(Job.notes)
     returns_stmt = scoped(
-        select(literal_column(f"'{RETURN_REASON}'", String).label("reason"),
-               func.count().label("n"))
+        select(returned.label("reason"), func.count().label("n"))
         .select_from(Job)
         .join(Rotor, Rotor.id == Job.rotor_id)
         .where(Job.kind == "return", Job.received_on.between(p.start, p.end)),
         scope,
-    )
+    ).group_by(returned)
     both = union_all(reopen_stmt, returns_stmt).subquery("reasons")
     stmt = (
         select(both.c.reason, func.sum(both.c.n).label("n"))

@@ -91,6 +91,31 @@ class Period:
             "custom",
         )
 
+    def elapsed_days(self, today: dt.date) -> int:
+        """Days of the period up to and including ``today`` (0 before it starts)."""
+        if today < self.start:
+            return 0
+        return (min(today, self.end) - self.start).days + 1
+
+    def in_progress(self, today: dt.date) -> bool:
+        """Whether ``today`` lies inside the period (its last days are still to come)."""
+        return self.start <= today < self.end
+
+    def compared_with(self, today: dt.date) -> Period:
+        """The period this one is compared with on ``today``: like with like.
+
+        A finished period (or one not begun) is compared with the whole previous period
+        of its kind; a period in progress with the same number of days from the start
+        of the previous one (1–15 November against 1–15 October), never running past
+        that period's end (30 days of March against the 28 of February).
+        """
+        before = self.previous()
+        if not self.in_progress(today):
+            return before
+        days = self.elapsed_days(today)
+        end = min(before.end, before.start + dt.timedelta(days=days - 1))
+        return Period(before.start, end, "custom")
+
     def months(self) -> list[str]:
         """``'YYYY-MM'`` of every month the period touches, in order."""
         out: list[str] = []

@@ -1,10 +1,13 @@
-"""The owner's dashboard: period figures, trend, rework by slice, drill-down, CSV and PDF.
+"""The owner's dashboard: period figures with their intervals, funnel plots, control
+charts, rework cost, drift, tables by slice, drill-down, CSV and PDF.
 
 ``GET /dashboard`` shows one period (week, month, quarter, year or a range) against
-the one before; every bar, point and number links to the job list with the same
-filters (``jobs.index`` query parameters of ``JobFilter``). ``GET /dashboard.csv
-?table=…`` gives any table with the same filters, ``GET /dashboard/report.pdf
-?month=YYYY-MM`` the monthly report. Nothing here writes to the database.
+the one before (like for like while it is in progress); every point, bar and number
+links to the job list with the same filters (``jobs.index`` query parameters of
+``JobFilter``). ``GET /dashboard.csv?table=…`` gives any table with the same filters
+(header in the trade's words; ``&names=machine`` for the stable measure names, see
+:mod:`shopapp.measures.tables`), ``GET /dashboard/report.pdf?month=YYYY-MM`` the
+monthly report. Nothing here writes to the database.
 """
 
 from __future__ import annotations
@@ -17,33 +20,39 @@ from collections.abc import Iterable, Sequence
 from typing import Any
 from urllib.parse import urlencode
 
-from flask import Blueprint, Response, current_app, render_template, request, url_for
+from flask import Blueprint, Response, current_app, g, render_template, request, url_for
 from flask_login import current_user
 
 from shopapp.charts.svg import to_svg
-from shopapp.core import display
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.permissions import can
 from shopapp.core.web import acting_user, requires
 from shopapp.measures import monthly
 from shopapp.measures import services as measures
-from shopapp.measures.charts import rework_bars, trend_chart
-from shopapp.measures.figures import DIMENSION_LABELS, DIMENSIONS, FIGURE_NAMES, SliceRow
+from shopapp.measures.charts import funnel_chart, machine_chart, pareto_chart, pchart_chart
+from shopapp.measures.costs import cost_settings
+from shopapp.measures.definitions import DEFINITIONS
+from shopapp.measures.figures import DIMENSION_LABELS, RATES, REWORK_WINDOW_DAYS, SliceRow
 from shopapp.measures.forms import SCOPE_FIELDS, PeriodForm, period_args
 from shopapp.measures.periods import Period, Scope, parse_month
-from shopapp.measures.texts import headline_rows, measure_text
+from shopapp.measures.signals import COMPARISON_RULE, FUNNEL_DIMENSIONS
+from shopapp.measures.stats import CAUTION
+from shopapp.measures.tables import NAMES, TABLES, csv_value, table_for, table_rows
+from shopapp.measures.texts import (
+    cost_summary,
+    headline_rows,
+    hours_text,
+    interval_text,
+    machine_drift_text,
+    measure_text,
+)
 
 bp = Blueprint("dashboard", __name__, template_folder="templates")
 
 # Slice → the JobFilter parameter of the job list.
 FILTER_PARAM = {"operator": "operator_id", "machine": "machine_id",
                 "rotor_type": "rotor_type_id", "customer": "customer_id"}
-SLICE_TABLES = {f"by_{dim}": dim for dim in DIMENSIONS}
-TABLES: tuple[str, ...] = (
-    "headline", *SLICE_TABLES, "trend", "rework_reasons", "rejection_reasons",
-    "rotors_getting_worse", "machines",
-)
 # Columns of every slice table (page and CSV): measure name and heading.
 SLICE_COLUMNS: tuple[tuple[str, str], ...] = (
     ("jobs_received", "received"),
@@ -56,29 +65,23 @@ SLICE_COLUMNS: tuple[tuple[str, str], ...] = (
     ("reached_in_tolerance", "reached tolerance"),
     ("first_pass_rate", "first pass"),
     ("correction_cycles_mean", "cycles"),
-    ("reworked_jobs", "reworked"),
+    ("reworked_jobs", f"reworked in {REWORK_WINDOW_DAYS} days"),
     ("rework_rate", "rework rate"),
     ("rejected_jobs", "rejected"),
+    ("rejection_rate", "rejection rate"),
 )
-
-
-def csv_value(value: Any) -> str:
-    """A CSV cell: text as it is, dates as ISO dates, numbers machine-readable (rates as
-    fractions to 4 places, empty for none)."""
-    if isinstance(value, str):
-        return value
-    if isinstance(value, dt.date):
-        return display.date(value)
-    return display.csv_number(value)
 
 
 # --------------------------------------------------------------------------- links
 def jobs_url(args: dict[str, Any]) -> str:
     """The job list filtered by ``args`` (``/jobs?...`` until the jobs area exists)."""
     clean = {k: str(v) for k, v in args.items() if v is not None and v != ""}
-    if "jobs.index" in current_app.view_functions:
-        return url_for("jobs.index", **clean)
-    return "/jobs" + ("?" + urlencode(clean) if clean else "")
+    # The page draws hundreds of these links: build the list's path once per request.
+    base = g.get("jobs_index_path")
+    if base is None:
+        base = url_for("jobs.index") if "jobs.index" in current_app.view_functions else "/jobs"
+        g.jobs_index_path = base
+    return base + ("?" + urlencode(clean) if clean else "")
 
 
 def _month_range(key: str) -> tuple[str, str]:
@@ -121,10 +124,10 @@ class Links:
             return jobs_url({**args, **self._dates(row, "dispatched")})
         if name in ("reworked_jobs", "rework_rate", "rework"):
             return jobs_url({**args, **self._dates(row, "received"), "reworked": "1"})
-        if name in ("rejected_jobs",):
+        if name in ("rejected_jobs", "rejection_rate"):
             return jobs_url({**args, **self._dates(row, "received"), "state": "rejected"})
-        if name in ("wip_jobs", "wip_age_median_wd", "wip_age_max_wd"):
-            return None  # work in progress spans states; no single filter shows it
+        if name in ("wip_jobs", "wip_age_median_wd", "wip_age_max_wd", "jobs_closed"):
+            return None  # these span states (or two dates); no single filter shows them
         return jobs_url({**args, **self._dates(row, "received")})
 
     def rotor(self, rotor_id: int) -> str:
@@ -168,7 +171,7 @@ def _parse() -> tuple[PeriodForm, Period, Scope, list[str], bool]:
 
 def _report(period: Period, scope: Scope) -> measures.ShopReport:
     return measures.shop_report(db_session(), period, scope=scope, today=_today(),
-                                by=acting_user())
+                                by=acting_user(), costs=cost_settings(current_app.config))
 
 
 def _scope_labels(report: measures.ShopReport) -> list[tuple[str, str, str]]:
@@ -186,6 +189,26 @@ def _scope_labels(report: measures.ShopReport) -> list[tuple[str, str, str]]:
     return out
 
 
+def _charts(report: measures.ShopReport, links: Links, period: Period,
+            scope: Scope) -> dict[str, Any]:
+    """Every chart of the page as SVG text, keyed by name."""
+    trend_links = Links(report.trend_period or period, scope)
+    charts: dict[str, Any] = {}
+    for name, chart in report.control_charts.items():
+        charts[f"pchart_{name}"] = to_svg(pchart_chart(
+            chart, report.trend, name, link=trend_links.chart, width=340, height=235))
+    for name, per_dim in report.funnels.items():
+        for dim, uf in per_dim.items():
+            charts[f"funnel_{name}_{dim}"] = to_svg(funnel_chart(uf, link=links.chart,
+                                                                 width=340, height=250))
+    if report.cost is not None and any(r.seconds for r in report.cost.reasons):
+        charts["pareto"] = to_svg(pareto_chart(report.cost.reasons))
+    for m in report.drift.machines:
+        if len(m.tests) >= 2:
+            charts[f"machine_{m.machine_id}"] = to_svg(machine_chart(m))
+    return charts
+
+
 @bp.get("/dashboard")
 @requires("view_dashboard")
 def index():  # type: ignore[no-untyped-def]
@@ -193,16 +216,6 @@ def index():  # type: ignore[no-untyped-def]
     report = _report(period, scope)
     links = Links(period, scope)
     args = period_args(period, scope)
-    charts = {
-        "trend": to_svg(trend_chart(
-            report.trend,
-            link=lambda r, what: Links(report.trend_period or period, scope).measure(
-                r, "rework" if what == "rework" else "reached_in_tolerance"),
-        )),
-    }
-    for dim in ("rotor_type", "operator", "machine", "customer"):
-        charts[dim] = to_svg(rework_bars(
-            report.slices.get(dim, []), by_label=DIMENSION_LABELS[dim], link=links.chart))
     prev_args = period_args(period.previous(), scope)
     next_start = period.end + dt.timedelta(days=1)
     if period.kind == "custom":
@@ -212,9 +225,15 @@ def index():  # type: ignore[no-untyped-def]
     status = 200 if ok else 422
     return render_template(
         "dashboard/index.html",
-        form=form, report=report, links=links, charts=charts, args=args, notes=notes,
-        headline=headline_rows(report.figures, report.previous),
+        form=form, report=report, links=links, charts=_charts(report, links, period, scope),
+        args=args, notes=notes,
+        headline=headline_rows(report.figures, report.previous, report.changes),
         slice_columns=SLICE_COLUMNS, dimension_labels=DIMENSION_LABELS, fmt=measure_text,
+        rates=RATES, interval_text=interval_text, funnel_dimensions=FUNNEL_DIMENSIONS,
+        flags=report.funnel_flags(), caution=CAUTION, comparison_rule=COMPARISON_RULE,
+        definitions=DEFINITIONS, hours_text=hours_text,
+        cost_text=cost_summary(report.cost, report.period_label) if report.cost else "",
+        machine_drift_text=machine_drift_text,
         prev_url=url_for("dashboard.index", **prev_args),
         next_url=url_for("dashboard.index", **period_args(nxt, scope)),
         report_month=f"{min(period.end, _today()):%Y-%m}",
@@ -223,33 +242,6 @@ def index():  # type: ignore[no-untyped-def]
 
 
 # --------------------------------------------------------------------------- CSV
-def table_rows(report: measures.ShopReport, table: str) -> tuple[list[str], list[list[Any]]]:
-    """Header and rows of one dashboard table (the page shows the same numbers)."""
-    if table == "headline":
-        header = ["measure", report.period.label, report.previous_period.label]
-        now, before = report.figures.as_dict(), report.previous.as_dict()
-        return header, [[name, now[name], before[name]] for name in FIGURE_NAMES]
-    if table in SLICE_TABLES or table == "trend":
-        dim = SLICE_TABLES.get(table, "month")
-        rows = report.trend if table == "trend" else report.slices.get(dim, [])
-        header = [dim, f"{dim}_id" if dim != "month" else "month_key",
-                  *FIGURE_NAMES]
-        return header, [[r.label, r.key, *r.figures.as_dict().values()] for r in rows]
-    if table == "rework_reasons":
-        return ["reason", "jobs"], [[r.reason, r.count] for r in report.rework_reasons]
-    if table == "rejection_reasons":
-        return ["reason", "jobs"], [[r.reason, r.count] for r in report.rejection_reasons]
-    if table == "rotors_getting_worse":
-        return (["serial_number", "customer", "rotor_type", "latest_job", "received_on",
-                 "unit", "initial_amplitudes_oldest_first"],
-                [[w.serial_number, w.customer, w.rotor_type, w.job_number, w.received_on,
-                  w.unit, " ".join(display.csv_number(a) for a in w.initial_amplitudes)]
-                 for w in report.rotors_getting_worse])
-    return (["machine", "jobs", "runs", "last_verified_on", "due_on", "status"],
-            [[m.name, m.jobs, m.runs, m.last_verified_on, m.due_on, m.status]
-             for m in report.machines])
-
-
 def _csv(header: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\r\n")
@@ -273,12 +265,15 @@ def csv_download():  # type: ignore[no-untyped-def]
     table = request.args.get("table", "headline")
     if table not in TABLES:
         raise ValidationFailed("table", f"'{table[:40]}' is not one of {', '.join(TABLES)}")
+    names = request.args.get("names", "trade")
+    if names not in NAMES:
+        raise ValidationFailed("names", f"'{names[:20]}' is not one of {', '.join(NAMES)}")
     form, period, scope, _notes, ok = _parse()
     if not ok:
         field_name, errors = next(iter(form.errors.items()))
         raise ValidationFailed(field_name, "; ".join(str(e) for e in errors))
     report = _report(period, scope)
-    header, rows = table_rows(report, table)
+    header, rows = table_for(report, table, names)
     name = f"shop-{table}-{period.start.isoformat()}-{period.end.isoformat()}.csv"
     return Response(_csv(header, rows), mimetype="text/csv",
                     headers={"Content-Disposition": f'attachment; filename="{name}"'})
@@ -289,7 +284,8 @@ def csv_download():  # type: ignore[no-untyped-def]
 @requires("view_dashboard")
 def monthly_pdf():  # type: ignore[no-untyped-def]
     month = parse_month(request.args.get("month") or f"{_today():%Y-%m}")
-    report = measures.shop_report(db_session(), month, today=_today(), by=acting_user())
+    report = measures.shop_report(db_session(), month, today=_today(), by=acting_user(),
+                                  costs=cost_settings(current_app.config))
     pdf = monthly.render(report)
     name = f"shop-report-{month.start:%Y-%m}.pdf"
     return Response(pdf, mimetype="application/pdf",
@@ -307,4 +303,4 @@ def _home_helpers() -> dict[str, Any]:
     return {"dashboard_headline": dashboard_headline, "dashboard_fmt": measure_text}
 
 
-__all__ = ["SCOPE_FIELDS", "bp", "table_rows"]
+__all__ = ["SCOPE_FIELDS", "bp", "csv_value", "table_rows"]

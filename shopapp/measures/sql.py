@@ -107,6 +107,30 @@ def _year_month_pg(element: year_month, compiler: Any, **kw: Any) -> str:
     return f"to_char({sql}, 'YYYY-MM')"
 
 
+class epoch_seconds(FunctionElement[int]):
+    """Whole seconds since 1970-01-01 UTC of a UTC timestamp, on SQLite and PostgreSQL.
+
+    Fractions of a second are dropped on both (SQLite's ``strftime('%s')`` truncates;
+    PostgreSQL takes ``floor`` of the epoch), so differences are whole seconds and
+    both backends add them up to the same totals.
+    """
+
+    type = Integer()
+    name = "epoch_seconds"
+    inherit_cache = True
+
+
+@compiles(epoch_seconds, "sqlite")
+def _epoch_seconds_sqlite(element: epoch_seconds, compiler: Any, **kw: Any) -> str:
+    return f"CAST(strftime('%s', {compiler.process(element.clauses, **kw)}) AS INTEGER)"
+
+
+@compiles(epoch_seconds, "postgresql")
+def _epoch_seconds_pg(element: epoch_seconds, compiler: Any, **kw: Any) -> str:
+    arg = compiler.process(element.clauses, **kw)
+    return f"CAST(floor(extract(epoch FROM {arg})) AS BIGINT)"
+
+
 # 1970-01-01 was a Thursday: +3 makes Monday 1969-12-29 day 0 of a Monday-based week.
 _MONDAY_SHIFT = 3
 
@@ -279,6 +303,26 @@ def reopenings(p: Period) -> AnySelect:
         JobTransition.from_state.in_(REWORK_FROM_STATES),
         JobTransition.at >= utc_start(p.start),
         JobTransition.at < utc_start(p.end + dt.timedelta(days=1)),
+    )
+
+
+NO_REASON = "(no reason given)"
+RETURN_REASON = "customer return"
+
+
+def reopen_reason(reason: Column) -> ColumnElement[str]:
+    """How a reopening's reason is listed: its text trimmed, or "(no reason given)"."""
+    trimmed = func.trim(reason)
+    return case((trimmed == "", NO_REASON), else_=trimmed)
+
+
+def return_reason(notes: Column) -> ColumnElement[str]:
+    """How a customer return is listed: "customer return", with the note written when it
+    was booked in (its first 80 characters) when there is one."""
+    trimmed = func.trim(notes)
+    return case(
+        (trimmed == "", RETURN_REASON),
+        else_=literal_column(f"'{RETURN_REASON}: '", String) + func.substr(trimmed, 1, 80),
     )
 
 

@@ -29,7 +29,15 @@ from shopapp.models.registry import (
     Rotor,
     RotorType,
 )
-from shopapp.models.system import NumberLock, SubmissionToken
+from shopapp.models.resonance import (
+    ALL_RUNUP_UNITS,
+    MEASURED_QUANTITIES,
+    RUNUP_UNITS,
+    SWEEPS,
+    RunUpPoint,
+    RunUpRecord,
+)
+from shopapp.models.system import BACKUP_KINDS, BackupLog, NumberLock, SubmissionToken
 from shopapp.models.traceability import (
     RESIDUAL_TEST_POSITIONS,
     Arbor,
@@ -41,7 +49,9 @@ from shopapp.models.traceability import (
 )
 
 __all__ = [
+    "ALL_RUNUP_UNITS",
     "ANGLE_SENSES",
+    "BACKUP_KINDS",
     "BEARING_KINDS",
     "CERTIFICATE_STATES",
     "CORRECTION_ACTIONS",
@@ -49,18 +59,22 @@ __all__ = [
     "JOB_KINDS",
     "JOB_STATES",
     "KEY_CONVENTIONS",
+    "MEASURED_QUANTITIES",
     "READING_UNITS",
     "RESIDUAL_TEST_POSITIONS",
     "ROLES",
     "ROTATIONS",
     "ROTOR_KINDS",
+    "RUNUP_UNITS",
     "RUN_PURPOSES",
+    "SWEEPS",
     "TOLERANCE_METHODS",
     "UNBALANCE_DISPLAY_UNITS",
     "Arbor",
     "ArborErrorMeasurement",
     "ArborErrorSubtraction",
     "AuditEvent",
+    "BackupLog",
     "BalanceErrorEstimate",
     "Base",
     "Certificate",
@@ -78,6 +92,8 @@ __all__ = [
     "RotorType",
     "Run",
     "RunReading",
+    "RunUpPoint",
+    "RunUpRecord",
     "ShopSettings",
     "SubmissionToken",
     "User",

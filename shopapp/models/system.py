@@ -10,14 +10,16 @@
   ``Idempotency-Key``). Stored with what the submission created, in the same
   transaction; a second submission with the same token is answered with the
   first one's result instead of saving twice.
+- :class:`BackupLog`: every backup written and every restore made
+  (``shopapp backup``/``restore``), so "when was the last backup?" has an answer.
 """
 
 from __future__ import annotations
 
-from sqlalchemy import ForeignKey, Integer, String
+from sqlalchemy import BigInteger, ForeignKey, Integer, String, Text
 from sqlalchemy.orm import Mapped, mapped_column
 
-from shopapp.models.base import Base, Timestamp
+from shopapp.models.base import Base, IntPK, Timestamp, one_of
 
 
 class NumberLock(Base):
@@ -36,3 +38,23 @@ class SubmissionToken(Base):
     entity: Mapped[str] = mapped_column(String(40), nullable=False)
     entity_id: Mapped[int] = mapped_column(Integer, nullable=False)
     created_at: Mapped[Timestamp]
+
+
+BACKUP_KINDS = ("backup", "restore")
+
+
+class BackupLog(Base):
+    """A backup archive written (``backup``) or read into this database (``restore``)."""
+
+    __tablename__ = "backup_log"
+    __table_args__ = (one_of("kind", BACKUP_KINDS),)
+
+    id: Mapped[IntPK]
+    kind: Mapped[str] = mapped_column(String(8), nullable=False)
+    at: Mapped[Timestamp] = mapped_column(index=True)
+    # Where the archive was written or read from, as given (absolute path).
+    path: Mapped[str] = mapped_column(Text, nullable=False)
+    size_bytes: Mapped[int] = mapped_column(BigInteger, nullable=False)
+    sha256: Mapped[str] = mapped_column(String(64), nullable=False)
+    schema_revision: Mapped[str] = mapped_column(String(32), nullable=False)
+    row_count: Mapped[int] = mapped_column(Integer, nullable=False)

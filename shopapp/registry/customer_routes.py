@@ -2,19 +2,23 @@
 
 from __future__ import annotations
 
-from flask import Blueprint, flash, redirect, render_template, request, url_for
-from flask_login import current_user
-from sqlalchemy import select
-from sqlalchemy.orm import joinedload
+from flask import Blueprint, render_template, request, url_for
 
-from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
-from shopapp.core.forms import ConfirmForm, apply_errors
-from shopapp.core.pagination import page_number, paginate
-from shopapp.core.web import get_or_404, page_size, requires, toggle_archive
-from shopapp.models import Customer, Job
-from shopapp.registry import services as registry
-from shopapp.registry.customer_forms import CustomerForm
+from shopapp.core.forms import ConfirmForm
+from shopapp.core.pagination import paginate
+from shopapp.core.web import (
+    acting_user,
+    form_page,
+    get_or_404,
+    request_page,
+    requires,
+    submit_form,
+)
+from shopapp.models import Customer
+from shopapp.registry import customers, queries
+from shopapp.registry.forms import CustomerForm
+from shopapp.registry.pages import archive_button
 
 bp = Blueprint("customers", __name__, url_prefix="/customers", template_folder="templates")
 
@@ -26,91 +30,47 @@ DETAIL_LIST_SIZE = 20  # rotor types and rotors shown on a customer's page; the 
 def index():  # type: ignore[no-untyped-def]
     q = request.args.get("q", "")[:100]
     archived = request.args.get("archived") == "1"
-    page = paginate(
-        db_session(),
-        registry.customers_stmt(q, include_archived=archived),
-        page=page_number(request.args.get("page")),
-        per_page=page_size(),
-        args={"q": q, "archived": "1" if archived else ""},
-    )
+    page = request_page(db_session(), queries.customers_stmt(q, include_archived=archived),
+                        {"q": q, "archived": "1" if archived else ""})
     return render_template("customers/index.html", page=page, q=q, archived=archived)
-
-
-def _render_form(form: CustomerForm, customer: Customer | None, status: int, loose=()):  # type: ignore[no-untyped-def]
-    return (
-        render_template("customers/form.html", form=form, customer=customer, loose=loose),
-        status,
-    )
 
 
 @bp.route("/new", methods=["GET", "POST"])
 @requires("edit_registry")
 def new():  # type: ignore[no-untyped-def]
     form = CustomerForm()
-    if request.method == "GET":
-        return _render_form(form, None, 200)
-    if not form.validate_on_submit():
-        return _render_form(form, None, 422)
-    sess = db_session()
-    try:
-        customer = registry.create_customer(
-            sess, by=current_user._get_current_object(), **form.values()
-        )
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return _render_form(form, None, 422, apply_errors(form, exc))
-    flash(f"Customer {customer.name} created.", "success")
-    return redirect(url_for("customers.detail", customer_id=customer.id))
+    return submit_form(
+        form, form_page("customers/form.html", form=form, customer=None),
+        lambda sess: customers.create_customer(sess, by=acting_user(), **form.values()),
+        done=lambda c: (f"Customer {c.name} created.",
+                        url_for("customers.detail", customer_id=c.id)),
+    )
 
 
 @bp.route("/<int:customer_id>/edit", methods=["GET", "POST"])
 @requires("edit_registry")
 def edit(customer_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    customer = get_or_404(sess, Customer, customer_id)
+    customer = get_or_404(db_session(), Customer, customer_id)
     form = CustomerForm(obj=customer)
-    if request.method == "GET":
-        return _render_form(form, customer, 200)
-    if not form.validate_on_submit():
-        return _render_form(form, customer, 422)
-    try:
-        registry.update_customer(
-            sess, customer, by=current_user._get_current_object(), **form.values()
-        )
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        customer = get_or_404(sess, Customer, customer_id)
-        return _render_form(form, customer, 422, apply_errors(form, exc))
-    flash("Customer saved.", "success")
-    return redirect(url_for("customers.detail", customer_id=customer_id))
+    return submit_form(
+        form, form_page("customers/form.html", form=form, customer=customer),
+        lambda sess: customers.update_customer(sess, customer, by=acting_user(),
+                                               **form.values()),
+        done=lambda _: ("Customer saved.", url_for("customers.detail", customer_id=customer_id)),
+    )
 
 
 def _detail(customer: Customer, *, status: int = 200, archive_error: str | None = None):  # type: ignore[no-untyped-def]
     sess = db_session()
     rotor_types = paginate(
-        sess,
-        registry.rotor_types_stmt(customer_id=customer.id),
-        page=1,
+        sess, queries.rotor_types_stmt(customer_id=customer.id), page=1,
         per_page=DETAIL_LIST_SIZE,
     )
     rotors = paginate(
-        sess, registry.rotors_stmt(customer_id=customer.id), page=1, per_page=DETAIL_LIST_SIZE
+        sess, queries.rotors_stmt(customer_id=customer.id), page=1, per_page=DETAIL_LIST_SIZE
     )
-    jobs_stmt = (
-        select(Job)
-        .options(joinedload(Job.rotor))
-        .where(Job.customer_id == customer.id)
-        .order_by(Job.received_on.desc(), Job.id.desc())
-    )
-    jobs = paginate(
-        sess,
-        jobs_stmt,
-        page=page_number(request.args.get("page")),
-        per_page=page_size(),
-        args={"customer_id": customer.id},
-    )
+    jobs = request_page(sess, queries.customer_jobs_stmt(customer.id),
+                        {"customer_id": customer.id})
     return (
         render_template(
             "customers/detail.html",
@@ -134,17 +94,10 @@ def detail(customer_id: int):  # type: ignore[no-untyped-def]
 @bp.post("/<int:customer_id>/archive")
 @requires("edit_registry")
 def archive(customer_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    customer = get_or_404(sess, Customer, customer_id)
-    form = ConfirmForm()
-    if not form.validate_on_submit():
-        return _detail(customer, status=400, archive_error="The form expired; try again.")
-    refused = toggle_archive(
-        sess, customer, archive=registry.archive_customer, unarchive=registry.unarchive_customer,
-        on_refused=lambda msg: _detail(get_or_404(sess, Customer, customer_id), status=422,
-                                       archive_error=msg),
-        done=lambda restored: f"{customer.name} {'restored' if restored else 'archived'}.",
+    return archive_button(
+        Customer, customer_id, archive=customers.archive_customer,
+        unarchive=customers.unarchive_customer,
+        page=lambda **kw: _detail(get_or_404(db_session(), Customer, customer_id), **kw),
+        done=lambda c, restored: f"{c.name} {'restored' if restored else 'archived'}.",
+        target=url_for("customers.detail", customer_id=customer_id),
     )
-    if refused is not None:
-        return refused
-    return redirect(url_for("customers.detail", customer_id=customer_id))

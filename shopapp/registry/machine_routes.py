@@ -1,19 +1,27 @@
-"""The shop's balancing machines: list, create, edit, retire, and a machine's page."""
+"""The shop's balancing machines: list, create, edit, retire, and a machine's page.
+
+The machine page shows the machine's verification register through the panel the
+traceability feature provides (``traceability/_machine_panel.html``).
+"""
 
 from __future__ import annotations
 
-from flask import Blueprint, flash, redirect, render_template, request, url_for
-from flask_login import current_user
-from sqlalchemy import select
+from flask import Blueprint, render_template, request, url_for
 
-from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
-from shopapp.core.forms import ConfirmForm, apply_errors
-from shopapp.core.pagination import page_number, paginate
-from shopapp.core.web import get_or_404, page_size, requires, toggle_archive
-from shopapp.models import Machine, MachineVerification, User
-from shopapp.registry import services as registry
-from shopapp.registry.machine_forms import MachineForm
+from shopapp.core.forms import ConfirmForm
+from shopapp.core.web import (
+    acting_user,
+    form_page,
+    get_or_404,
+    request_page,
+    requires,
+    submit_form,
+)
+from shopapp.models import Machine
+from shopapp.registry import machines, queries
+from shopapp.registry.forms import MachineForm
+from shopapp.registry.pages import archive_button
 
 bp = Blueprint("machines", __name__, url_prefix="/machines", template_folder="templates")
 
@@ -22,85 +30,42 @@ bp = Blueprint("machines", __name__, url_prefix="/machines", template_folder="te
 @requires("read")
 def index():  # type: ignore[no-untyped-def]
     archived = request.args.get("archived") == "1"
-    page = paginate(
-        db_session(),
-        registry.machines_stmt(include_archived=archived),
-        page=page_number(request.args.get("page")),
-        per_page=page_size(),
-        args={"archived": "1" if archived else ""},
-    )
+    page = request_page(db_session(), queries.machines_stmt(include_archived=archived),
+                        {"archived": "1" if archived else ""})
     return render_template("machines/index.html", page=page, archived=archived)
-
-
-def _form_page(form: MachineForm, machine: Machine | None, status: int, loose=()):  # type: ignore[no-untyped-def]
-    return render_template("machines/form.html", form=form, machine=machine, loose=loose), status
 
 
 @bp.route("/new", methods=["GET", "POST"])
 @requires("edit_machines")
 def new():  # type: ignore[no-untyped-def]
     form = MachineForm()
-    if request.method == "GET":
-        return _form_page(form, None, 200)
-    if not form.validate_on_submit():
-        return _form_page(form, None, 422)
-    sess = db_session()
-    try:
-        machine = registry.create_machine(
-            sess, by=current_user._get_current_object(), **form.values()
-        )
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        return _form_page(form, None, 422, apply_errors(form, exc))
-    flash(f"Machine {machine.name} added.", "success")
-    return redirect(url_for("machines.detail", machine_id=machine.id))
+    return submit_form(
+        form, form_page("machines/form.html", form=form, machine=None),
+        lambda sess: machines.create_machine(sess, by=acting_user(), **form.values()),
+        done=lambda m: (f"Machine {m.name} added.", url_for("machines.detail", machine_id=m.id)),
+    )
 
 
 @bp.route("/<int:machine_id>/edit", methods=["GET", "POST"])
 @requires("edit_machines")
 def edit(machine_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    machine = get_or_404(sess, Machine, machine_id)
+    machine = get_or_404(db_session(), Machine, machine_id)
     form = MachineForm(obj=machine)
-    if request.method == "GET":
-        return _form_page(form, machine, 200)
-    if not form.validate_on_submit():
-        return _form_page(form, machine, 422)
-    try:
-        registry.update_machine(
-            sess, machine, by=current_user._get_current_object(), **form.values()
-        )
-        sess.commit()
-    except ValidationFailed as exc:
-        sess.rollback()
-        machine = get_or_404(sess, Machine, machine_id)
-        return _form_page(form, machine, 422, apply_errors(form, exc))
-    flash("Machine saved.", "success")
-    return redirect(url_for("machines.detail", machine_id=machine_id))
+    return submit_form(
+        form, form_page("machines/form.html", form=form, machine=machine),
+        lambda sess: machines.update_machine(sess, machine, by=acting_user(), **form.values()),
+        done=lambda _: ("Machine saved.", url_for("machines.detail", machine_id=machine_id)),
+    )
 
 
 @bp.get("/<int:machine_id>")
 @requires("read")
 def detail(machine_id: int, status: int = 200, archive_error: str | None = None):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    machine = get_or_404(sess, Machine, machine_id)
-    verifications = paginate(
-        sess,
-        select(MachineVerification, User.full_name)
-        .outerjoin(User, User.id == MachineVerification.performed_by_id)
-        .where(MachineVerification.machine_id == machine.id)
-        .order_by(MachineVerification.performed_on.desc(), MachineVerification.id.desc()),
-        page=page_number(request.args.get("page")),
-        per_page=page_size(),
-        args={"machine_id": machine.id},
-        scalars=False,
-    )
+    machine = get_or_404(db_session(), Machine, machine_id)
     return (
         render_template(
             "machines/detail.html",
             machine=machine,
-            verifications=verifications,
             confirm=ConfirmForm(),
             archive_error=archive_error,
         ),
@@ -111,13 +76,10 @@ def detail(machine_id: int, status: int = 200, archive_error: str | None = None)
 @bp.post("/<int:machine_id>/archive")
 @requires("edit_machines")
 def archive(machine_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    machine = get_or_404(sess, Machine, machine_id)
-    refused = toggle_archive(
-        sess, machine, archive=registry.archive_machine, unarchive=registry.unarchive_machine,
-        on_refused=lambda msg: detail(machine_id, status=422, archive_error=msg),
-        done=lambda restored: f"{machine.name} {'back in service' if restored else 'retired'}.",
+    return archive_button(
+        Machine, machine_id, archive=machines.archive_machine,
+        unarchive=machines.unarchive_machine,
+        page=lambda **kw: detail(machine_id, **kw),
+        done=lambda m, restored: f"{m.name} {'back in service' if restored else 'retired'}.",
+        target=url_for("machines.detail", machine_id=machine_id),
     )
-    if refused is not None:
-        return refused
-    return redirect(url_for("machines.detail", machine_id=machine_id))

@@ -1,11 +1,14 @@
 """The monthly shop report: a two-page PDF an owner prints, from a :class:`ShopMonth`.
 
-Page 1: the month's headline figures against the previous month and the
-twelve-month trend of first-pass and rework rate. Page 2: where the rework comes
-from (rotor types and operators), rework and rejection reasons, rotors getting
-worse and the machines' use and verification status. Long lists are cut to
-their first rows (the dashboard and its CSV files have them all) so the report
-stays on two pages.
+Page 1: the month's headline figures against the previous month (or, for a month
+in progress, the same days of it), every rate with its 95 % interval and a change
+called better or worse only when a test says it is more than chance, and the
+twelve-month control charts (p-charts) of first-pass and rework rate. Page 2: the
+funnel plots of rework by rotor type and by operator with the units outside the
+limits named (and the caution that a flag is a question, not a verdict), what
+rework cost in machine hours and why, rejection reasons, what drifts the wrong way,
+the machines, and the definitions. Long lists are cut to their first rows (the
+dashboard and its CSV files have them all) so the report stays on two pages.
 
 Plain data in, PDF bytes out: the shop measures (:mod:`shopapp.measures`) fill a
 :class:`ShopMonth`, headline texts and chart figures included, so the page and
@@ -20,14 +23,23 @@ from dataclasses import dataclass
 from typing import Any, NamedTuple
 
 from reportlab.lib.units import mm
-from reportlab.platypus import PageBreak, Paragraph, Spacer, Table, TableStyle
+from reportlab.platypus import PageBreak, Paragraph, Table, TableStyle
 
 from shopapp.charts import Figure
-from shopapp.core.display import date, number
+from shopapp.core.display import date
 from shopapp.reports.common import DocumentMeta, build_pdf, esc, grid_table, keep, styles
 from shopapp.reports.drawing import to_drawing
 
 LIST_ROWS = 6  # rows of each list on paper
+FLAG_ROWS = 6  # flagged units named on paper
+DRIFT_ROWS = 3  # drift sentences on paper
+REASON_ROWS = 5  # reasons behind rework on paper
+REASON_CHARS = 90
+DRIFT_CHARS = 230
+
+
+def _clip(text: str, chars: int) -> str:
+    return text if len(text) <= chars else text[: chars - 1] + "…"
 
 
 @dataclass(frozen=True)
@@ -62,18 +74,30 @@ class MachineStatus:
 
 class HeadlineRow(NamedTuple):
     """One line of the headline table, as printed: the measure, its label, both periods'
-    figures and the change in words."""
+    figures, the change in words and, for rates, both periods' 95 % intervals."""
 
     name: str
     label: str
     now: str
     before: str
     change: str
+    now_interval: str = ""
+    before_interval: str = ""
+
+
+@dataclass(frozen=True)
+class ReasonLine:
+    """One reason behind rework, as printed: reworks, machine hours, running share."""
+
+    reason: str
+    reworks: str
+    hours: str
+    cumulative: str
 
 
 @dataclass(frozen=True)
 class ShopMonth:
-    """Everything the monthly report prints."""
+    """Everything the monthly report prints (texts already worded, charts already built)."""
 
     shop_name: str
     period_label: str
@@ -84,13 +108,19 @@ class ShopMonth:
     previous_end: dt.date
     as_of: dt.date
     headline: Sequence[HeadlineRow]
-    trend: Figure
-    rework_by_rotor_type: Figure
-    rework_by_operator: Figure
-    rework_reasons: Sequence[ReasonCount]
+    control_charts: Sequence[Figure]
+    funnels: Sequence[Figure]
     rejection_reasons: Sequence[ReasonCount]
-    rotors_getting_worse: Sequence[WorseningRotor]
     machines: Sequence[MachineStatus]
+    comparison_note: str = ""  # how the periods are compared (month to date, ...)
+    comparison_rule: str = ""
+    flags: Sequence[str] = ()  # units outside the funnel limits, in plain words
+    caution: str = ""
+    cost_summary: str = ""
+    cost_reasons: Sequence[ReasonLine] = ()
+    drift: Sequence[str] = ()  # rotors and machines drifting the wrong way, in plain words
+    rate_definitions: Sequence[str] = ()  # the rates' definitions, under the figures
+    definitions: Sequence[str] = ()  # how the charts and the cost are made, at the end
 
 
 def _side_by_side(left: Any, right: Any, width: float) -> Table:
@@ -110,66 +140,81 @@ def render(data: ShopMonth, *, created: dt.datetime | None = None) -> bytes:
     st = styles()
     created = created or dt.datetime.combine(data.as_of, dt.time(0), tzinfo=dt.UTC)
     width = 174 * mm  # A4 less the margins of shopapp.reports.common
+    half = width / 2 - 4
     label = data.period_label
     shop = data.shop_name or "Balancing shop"
     story: list[Any] = [
         Paragraph(esc(f"{shop} — shop report, {label}"), st.title),
         Paragraph(esc(f"{date(data.start)} to {date(data.end)}, against "
-                      f"{date(data.previous_start)} to {date(data.previous_end)}. Working days "
-                      "are Monday to Friday; definitions as in the shop's README."), st.subtitle),
+                      f"{date(data.previous_start)} to {date(data.previous_end)}. "
+                      + (data.comparison_note + " " if data.comparison_note else "")
+                      + "Working days are Monday to Friday."),
+                  st.subtitle),
     ]
-    head = [["Measure", label, data.previous_label, "Change"]]
-    head += [[row.label.strip(), row.now, row.before, row.change] for row in data.headline]
+    head = [["Measure", label, "95 %", data.previous_label, "95 %", "Change"]]
+    head += [[row.label.strip(), row.now, row.now_interval, row.before, row.before_interval,
+              row.change] for row in data.headline]
     story.append(keep(Paragraph("The month in figures", st.heading),
-                      grid_table(head, [70 * mm, 28 * mm, 28 * mm, 48 * mm],
+                      grid_table(head, [50 * mm, 17 * mm, 16 * mm, 17 * mm, 16 * mm, 58 * mm],
                                  align_right_from=1)))
-    story.append(Spacer(1, 4 * mm))
-    story.append(keep(Paragraph("Is it getting better?", st.heading),
-                      _fit(data.trend, width)))
-    story.append(Paragraph(esc(
-        "First-pass rate: share of the jobs that reached tolerance in the month whose first "
-        "check after the first correction was within tolerance in every plane. Rework rate: "
-        "jobs reopened plus return jobs received in the month, per job that reached "
-        "tolerance in it."), st.small))
+    if data.comparison_rule:
+        story.append(Paragraph(esc(data.comparison_rule), st.small))
+    if data.rate_definitions:
+        story.append(Paragraph(esc(" ".join(data.rate_definitions)), st.small))
+    if data.control_charts:
+        charts = [_fit(f, half) for f in data.control_charts[:2]]
+        story.append(keep(Paragraph("Is it getting better? Control charts by month", st.heading),
+                          _side_by_side(charts[0], charts[-1] if len(charts) > 1 else "",
+                                        width)))
     story.append(PageBreak())
 
-    half = width / 2 - 4
-    story.append(Paragraph("Where the rework comes from", st.heading))
-    story.append(_side_by_side(_fit(data.rework_by_rotor_type, half),
-                               _fit(data.rework_by_operator, half), width))
+    story.append(Paragraph("Beyond chance? Rework by rotor type and by operator", st.heading))
+    if data.funnels:
+        figs = [_fit(f, half) for f in data.funnels[:2]]
+        story.append(_side_by_side(figs[0], figs[-1] if len(figs) > 1 else "", width))
+    flags = list(data.flags[:FLAG_ROWS]) or ["No operator, rotor type, machine or customer lies "
+                                             "outside the 99.8 % limits of rework or first pass"]
+    story.append(Paragraph(esc(" ".join(f"{f}." for f in flags)), st.cell))
+    if data.caution:
+        story.append(Paragraph(esc(data.caution), st.caution))
 
-    def reasons(title: str, items: Sequence[ReasonCount]) -> list[Any]:
-        rows = [["Reason", "Jobs"]] + [[r.reason, str(r.count)] for r in items[:LIST_ROWS]]
-        if not items:
-            rows.append(["none in this period", ""])
-        return [Paragraph(title, st.heading),
-                grid_table(rows, [half - 16 * mm, 14 * mm], align_right_from=1)]
+    story.append(Paragraph("What rework cost", st.heading))
+    if data.cost_summary:
+        story.append(Paragraph(esc(data.cost_summary), st.cell))
+    rows = [["Reason behind the rework", "Times", "Machine hours", "Running share"]]
+    rows += [[_clip(r.reason, REASON_CHARS), r.reworks, r.hours, r.cumulative]
+             for r in data.cost_reasons[:REASON_ROWS]]
+    if len(rows) == 1:
+        rows.append(["no rework in this period", "", "", ""])
+    story.append(grid_table(rows, [width - 66 * mm, 16 * mm, 25 * mm, 25 * mm],
+                            align_right_from=1))
 
-    rw = reasons("Rework reasons", data.rework_reasons)
-    rj = reasons("Rejection reasons", data.rejection_reasons)
-    story.append(_side_by_side(rw, rj, width))
-
-    worse = [["Serial", "Customer", "Rotor type", "Latest job", "Initial unbalance, oldest first"]]
-    for w in data.rotors_getting_worse[:LIST_ROWS]:
-        worse.append([w.serial_number, w.customer, w.rotor_type, w.job_number,
-                      " → ".join(number(a) for a in w.initial_amplitudes) + f" {w.unit}"])
-    if len(worse) == 1:
-        worse.append(["none this period", "", "", "", ""])
-    story.append(keep(Paragraph("Rotors getting worse", st.heading),
-                      grid_table(worse, [24 * mm, 38 * mm, 28 * mm, 26 * mm, 58 * mm])))
-
-    machines = [["Machine", "Jobs", "Runs", "Last verified", "Due", "Status"]]
-    for m in data.machines[: LIST_ROWS + 2]:
-        machines.append([m.name, str(m.jobs), str(m.runs), date(m.last_verified_on),
-                         date(m.due_on), m.status])
-    story.append(keep(Paragraph("Machines: use this month and verification today", st.heading),
-                      grid_table(machines, [46 * mm, 16 * mm, 16 * mm, 28 * mm, 28 * mm,
-                                            40 * mm], align_right_from=1)))
+    story.append(Paragraph("Drifting the wrong way", st.heading))
+    lines = list(data.drift[:DRIFT_ROWS]) or ["No rotor or machine drifts the wrong way "
+                                             "beyond chance."]
+    story.append(Paragraph(esc(" ".join(_clip(line, DRIFT_CHARS) for line in lines)), st.cell))
+    rejected = [["Rejection reason", "Jobs"]]
+    rejected += [[_clip(r.reason, 60), str(r.count)] for r in data.rejection_reasons[:4]]
+    if len(rejected) == 1:
+        rejected.append(["none in this period", ""])
+    machines = [["Machine", "Runs", "Due", "Status"]]
+    for m in data.machines[: LIST_ROWS]:
+        machines.append([_clip(m.name, 30), str(m.runs), date(m.due_on), m.status])
+    story.append(_side_by_side(
+        [Paragraph("Rejection reasons", st.heading),
+         grid_table(rejected, [half - 14 * mm, 12 * mm], align_right_from=1)],
+        [Paragraph("Machines: use and verification", st.heading),
+         grid_table(machines, [half - 54 * mm, 12 * mm, 20 * mm, 22 * mm], align_right_from=1)],
+        width))
+    if data.definitions:
+        story.append(Paragraph("How the charts and the cost are made", st.heading))
+        story.append(Paragraph(esc(" ".join(data.definitions)), st.small))
     cut = [name for name, items, n in (
-        ("rework reasons", data.rework_reasons, LIST_ROWS),
-        ("rejection reasons", data.rejection_reasons, LIST_ROWS),
-        ("rotors getting worse", data.rotors_getting_worse, LIST_ROWS),
-        ("machines", data.machines, LIST_ROWS + 2),
+        ("rework reasons", data.cost_reasons, REASON_ROWS),
+        ("rejection reasons", data.rejection_reasons, 4),
+        ("units outside the limits", data.flags, FLAG_ROWS),
+        ("drift", data.drift, DRIFT_ROWS),
+        ("machines", data.machines, LIST_ROWS),
     ) if len(items) > n]
     if cut:
         story.append(Paragraph(esc("Lists cut to their first rows: " + ", ".join(cut)

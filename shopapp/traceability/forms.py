@@ -1,12 +1,15 @@
 """Forms of the traceability area.
 
-Readings are typed as text and checked by the services (which name the field
+Readings are typed as text and checked by the use-cases (which name the field
 and the rule); the forms only carry them. Angles are typed in the shop's
-display convention; the routes convert them. Every form is a FlaskForm (CSRF on).
+display convention and turned into internal degrees by :func:`typed_angle` (what
+is not a number passes on unchanged, so the use-case names the field). Every form
+is a FlaskForm (CSRF on).
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from typing import Any
 
@@ -27,12 +30,36 @@ from wtforms.fields.choices import SelectChoice
 from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.arbor import FRAMES
+from shopapp.core.display import ShopDisplay, plain
 from shopapp.models import KEY_CONVENTIONS, READING_UNITS, RESIDUAL_TEST_POSITIONS
 
+KEY_DIMENSIONS = ("key_width_mm", "key_height_mm", "key_length_mm", "hub_length_mm",
+                  "key_radius_mm", "key_angle_deg")
 KEY_LABELS = {"none": "none (no keyway)", "half_key": "half-key (ISO 21940-32)",
               "full_key": "full-key (ISO 21940-32)"}
 FRAME_LABELS = {"arbor": "from the arbor's mark (machine reference on the spindle)",
                 "rotor": "from the rotor's own mark"}
+
+
+def blank_to_none(value: Any) -> Any:
+    """None for an empty or blank entry, else the value as typed."""
+    return None if value is None or (isinstance(value, str) and not value.strip()) else value
+
+
+def typed_angle(disp: ShopDisplay, raw: Any) -> Any:
+    """A typed angle in the shop's convention as internal degrees.
+
+    Empty stays None; what is not a finite number passes on unchanged, so the
+    use-case refuses it with the field's name and the reason.
+    """
+    raw = blank_to_none(raw)
+    if raw is None:
+        return None
+    try:
+        value = float(raw)
+    except (TypeError, ValueError):
+        return raw
+    return disp.internal(value) if math.isfinite(value) else raw
 
 
 def options(pairs: list[tuple[Any, str]]) -> list[SelectChoice]:
@@ -66,6 +93,54 @@ class ProvingTestForm(FlaskForm):
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
     compute = SubmitField("Compute")
     save = SubmitField("Save the test")
+
+    def size_for(self, positions: int) -> None:
+        """One reading field per test-mass position in each plane."""
+        for fl in (self.p1_amp, self.p1_ang, self.p2_amp, self.p2_ang):
+            sized(fl, positions)
+
+    def propose(self, defaults: Any) -> None:
+        """Fill the proposed figures (:class:`~shopapp.traceability.verifications.
+        ProvingTestDefaults`) as a person would type them."""
+        for name, value in (("test_radius_mm", defaults.test_radius_mm),
+                            ("claimed_umar", defaults.claimed_umar_gmm),
+                            ("test_mass_g", defaults.test_mass_g),
+                            ("claimed_urr_pct", defaults.claimed_urr_pct)):
+            if value is not None:
+                getattr(self, name).data = plain(value)
+
+    def readings(self, planes: int, disp: ShopDisplay) -> dict[str, Any]:
+        """The typed test as keyword arguments of the proving-test use-cases."""
+        first = typed_angle(disp, self.first_position_deg.data or "0")
+        return {
+            "test_mass_g": self.test_mass_g.data,
+            "test_radius_mm": blank_to_none(self.test_radius_mm.data),
+            "indicated_gmm": [[e.data for e in self.p1_amp.entries],
+                              [e.data for e in self.p2_amp.entries]][:planes],
+            "indicated_angles_deg": [[typed_angle(disp, e.data) for e in self.p1_ang.entries],
+                                     [typed_angle(disp, e.data) for e in self.p2_ang.entries]
+                                     ][:planes],
+            "first_position_deg": first if isinstance(first, float) else 0.0,
+            "claimed_umar": blank_to_none(self.claimed_umar.data),
+            "urr_before_gmm": [blank_to_none(self.urr_before_1.data),
+                               blank_to_none(self.urr_before_2.data)][:planes],
+            "urr_after_gmm": [blank_to_none(self.urr_after_1.data),
+                              blank_to_none(self.urr_after_2.data)][:planes],
+            "claimed_urr_pct": blank_to_none(self.claimed_urr_pct.data),
+        }
+
+    def error_fields(self) -> dict[str, Any]:
+        """Which field shows each of the proving-test use-case's error names."""
+        m: dict[str, Any] = {"claimed_umar_gmm": self.claimed_umar}
+        for p, (fa, fg) in enumerate(((self.p1_amp, self.p1_ang), (self.p2_amp, self.p2_ang)),
+                                     start=1):
+            for k, entry in enumerate(fa.entries, start=1):
+                m[f"plane_{p}.amplitude_{k}"] = entry
+            for k, entry in enumerate(fg.entries, start=1):
+                m[f"plane_{p}.angle_{k}"] = entry
+            m[f"urr_before_{p}_gmm"] = getattr(self, f"urr_before_{p}")
+            m[f"urr_after_{p}_gmm"] = getattr(self, f"urr_after_{p}")
+        return m
 
 
 class ProvingRotorForm(FlaskForm):
@@ -147,6 +222,21 @@ class KeyForm(FlaskForm):
     hub_length_mm = StringField("Hub length, mm")
     key_radius_mm = StringField("Radius of the key's centre, mm")
     key_angle_deg = StringField("Keyway angle, °")
+
+    def load(self, rt: Any, disp: ShopDisplay) -> None:
+        """Fill from a stored rotor type (the keyway angle in the shop's convention)."""
+        self.key_convention.data = rt.key_convention
+        for f in KEY_DIMENSIONS:
+            v = getattr(rt, f)
+            if f == "key_angle_deg":
+                v = disp.angle(v)
+            getattr(self, f).data = plain(v)
+
+    def dimensions(self, disp: ShopDisplay) -> dict[str, Any]:
+        """The typed key size (mm) and keyway angle (internal degrees) for the use-case."""
+        dims = {f: blank_to_none(getattr(self, f).data) for f in KEY_DIMENSIONS}
+        dims["key_angle_deg"] = typed_angle(disp, dims["key_angle_deg"])
+        return dims
 
 
 def index_runs_from(form: IndexRunsForm, planes: int,

@@ -15,6 +15,7 @@ from shopapp.jobs import evidence_routes
 from shopapp.jobs import routes as job_routes
 from shopapp.measures import routes as measure_routes
 from shopapp.registry import customer_routes, machine_routes, rotor_routes
+from shopapp.resonance import routes as resonance_routes
 from shopapp.traceability import routes as traceability_routes
 from shopapp.web import health
 
@@ -30,6 +31,7 @@ BLUEPRINTS: tuple[Blueprint, ...] = (
     certificate_routes.bp,
     measure_routes.bp,
     traceability_routes.bp,
+    resonance_routes.bp,
 )
 
 

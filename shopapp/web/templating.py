@@ -1,5 +1,8 @@
 """App-wide template helpers: the role check for menus and the display formatter as filters.
 
+Every page also gets ``demo_notice``: a demo load still running or one that
+failed (:func:`shopapp.demo.status.notice`), shown by ``base.html``.
+
 Pages print every number through :mod:`shopapp.core.display` (``|num``,
 ``|qty(unit)``, ``|pct``, ``|isodate``), so a page, a CSV and a PDF show the same
 figures and never scientific notation.
@@ -14,6 +17,7 @@ from flask_login import current_user
 
 from shopapp.core import display
 from shopapp.core.permissions import can
+from shopapp.demo.status import notice as demo_notice
 
 
 def register_helpers(app: Flask) -> None:
@@ -29,4 +33,5 @@ def register_helpers(app: Flask) -> None:
         return {
             "can": lambda action: can(current_user, action) if current_user else False,
             "endpoints": app.view_functions,
+            "demo_notice": demo_notice(app.instance_path),
         }

@@ -18,7 +18,7 @@ from cryptography.hazmat.primitives.asymmetric import ec, padding, rsa
 
 from shopapp.certificates import issue as certificates
 from shopapp.certificates import signing
-from shopapp.jobs import services as jobs
+from shopapp.jobs import states as job_states
 from shopapp.models import Certificate
 from shopapp.models.certificates import new_verification_code
 from shopapp.reports import certificate as report
@@ -60,7 +60,7 @@ def issue_before_signing(db: Any, shop: Any, operator: Any, quality: Any) -> Cer
                        verification_code=new_verification_code())
     db.add(cert)
     db.flush()
-    jobs.mark_certified(db, job, by=quality)
+    job_states.mark_certified(db, job, by=quality)
     db.commit()
     return cert
 

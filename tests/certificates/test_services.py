@@ -19,7 +19,8 @@ from shopapp.balancing.phasors import phasor
 from shopapp.certificates import issue as certificates
 from shopapp.certificates import queries, register
 from shopapp.core.errors import PermissionDenied, TransitionRefused, ValidationFailed
-from shopapp.jobs import services as jobs
+from shopapp.jobs.runs import record_run
+from shopapp.jobs.states import mark_in_tolerance, reopen
 from shopapp.models import AuditEvent, Certificate, MachineVerification
 from shopapp.reports import certificate as report
 from tests.reports.samples import RESIDUAL_GMM, job_ready_for_certificate
@@ -208,12 +209,12 @@ def test_reopen_voids_and_a_new_issue_is_the_next_revision(db, shop, people) -> 
     operator, quality = people
     job = job_ready_for_certificate(db, shop, operator)
     first = certificates.issue(db, job, by=quality)
-    jobs.reopen(db, job, by=operator, reason="customer reports vibration at site")
+    reopen(db, job, by=operator, reason="customer reports vibration at site")
     assert first.state == "void"
     assert first.void_reason == "job reopened: customer reports vibration at site"
-    jobs.record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
-                    readings=[(1, 500.0, 70.0, "g·mm"), (2, 400.0, 300.0, "g·mm")])
-    jobs.mark_in_tolerance(db, job, by=operator)
+    record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
+               readings=[(1, 500.0, 70.0, "g·mm"), (2, 400.0, 300.0, "g·mm")])
+    mark_in_tolerance(db, job, by=operator)
     again = certificates.issue(db, job, by=quality)
     assert (again.number, again.revision) == (first.number, 2)
     assert register.verify(db, first.data_sha256).status == "superseded"

@@ -24,10 +24,13 @@ from sqlalchemy.orm import Session, selectinload
 from shopapp.accounts.users import check_password
 from shopapp.balancing import influence, tolerance
 from shopapp.balancing.phasors import normalize_deg, phasor
+from shopapp.demo import bulk, days
+from shopapp.demo import loader as demo
 from shopapp.demo import scenario as demo_scenario
-from shopapp.demo import simulator as demo
 from shopapp.jobs import evidence as jt
-from shopapp.jobs import services as jobs_service
+from shopapp.jobs import residual_tests
+from shopapp.jobs.queries import evaluate
+from shopapp.jobs.states import ALLOWED, REOPEN_FROM
 from shopapp.models import (
     Arbor,
     ArborErrorMeasurement,
@@ -47,7 +50,7 @@ from shopapp.models import (
     Run,
     User,
 )
-from shopapp.registry import services as registry
+from shopapp.registry import rotor_types
 from shopapp.traceability import services as tr
 
 END = dt.date(2026, 3, 27)  # a Friday
@@ -204,7 +207,7 @@ def test_rejected_and_reopened_jobs_carry_their_reasons(ds: Session) -> None:
             assert j.transitions[-1].to_state == "rejected"
             assert j.transitions[-1].reason == j.reject_reason
         reopens = [t for t in j.transitions
-                   if t.to_state == "on_machine" and t.from_state in jobs_service.REOPEN_FROM]
+                   if t.to_state == "on_machine" and t.from_state in REOPEN_FROM]
         assert len(reopens) == j.reopen_count
         assert all(len(t.reason) > 10 for t in reopens)
 
@@ -215,7 +218,7 @@ def test_every_state_change_is_a_transition_the_state_machine_allows(ds: Session
         assert trs[0].from_state is None and trs[0].to_state == "booked_in"
         for prev, nxt in itertools.pairwise(trs):
             assert nxt.from_state == prev.to_state, j.number
-            assert nxt.to_state in jobs_service.ALLOWED[prev.to_state], j.number
+            assert nxt.to_state in ALLOWED[prev.to_state], j.number
             assert nxt.at >= prev.at
         assert trs[-1].to_state == j.state
         if j.first_in_tolerance_at is not None:
@@ -285,7 +288,7 @@ def test_stored_verdicts_match_the_core_and_the_job_page(ds: Session) -> None:
                 assert r.within_tolerance is _passes(ds, j, a, r), (j.number, r.seq)
             else:
                 assert r.within_tolerance is None
-        calc = jobs_service.evaluate(ds, j)
+        calc = evaluate(ds, j)
         if j.state in ("in_tolerance", "certified", "dispatched"):
             assert calc.in_tolerance, j.number
 
@@ -380,8 +383,8 @@ def test_four_w_over_n_jobs_carry_valid_residual_tests_before_their_certificates
     assert len(certified) >= 3
     for j in certified:
         assert j.residual_test_required  # set for 4W/N jobs
-        tests = jt.residual_tests_of(ds, j)
-        state = jt.residual_test_state(j, tests)
+        tests = residual_tests.residual_tests_of(ds, j)
+        state = residual_tests.residual_test_state(j, tests)
         assert state.ok, (j.number, state.problems)
         cert = ds.scalars(select(Certificate).where(Certificate.job_id == j.id,
                                                     Certificate.state == "issued")).one()
@@ -503,21 +506,21 @@ def test_scenario_rotor_types_pass_the_registry_rules() -> None:
             else None,
             "tolerance_gmm": spec.explicit_gmm,
         }
-        assert registry.validate_geometry(values) == {}, spec.part_number
+        assert rotor_types.validate_geometry(values) == {}, spec.part_number
 
 
 def test_working_days_skip_weekends_and_the_year_end_closure() -> None:
     # Calendar facts (common knowledge): 2026-03-27 is a Friday, 2025-12-24 a Wednesday.
-    assert demo.add_working_days(dt.date(2026, 3, 27), 1) == dt.date(2026, 3, 30)
-    assert demo.add_working_days(dt.date(2025, 12, 23), 1) == dt.date(2026, 1, 2)
-    assert demo.add_working_days(dt.date(2026, 3, 28), 0) == dt.date(2026, 3, 30)
+    assert days.add_working_days(dt.date(2026, 3, 27), 1) == dt.date(2026, 3, 30)
+    assert days.add_working_days(dt.date(2025, 12, 23), 1) == dt.date(2026, 1, 2)
+    assert days.add_working_days(dt.date(2026, 3, 28), 0) == dt.date(2026, 3, 30)
 
 
 # --------------------------------------------------------------------------- bulk
 
 
 def test_bulk_mode_is_consistent_with_the_core(ds: Session) -> None:
-    summary = demo.generate_bulk(ds, jobs=300, runs_per_job=10, seed=3, years=1.0, end_date=END,
+    summary = bulk.generate_bulk(ds, jobs=300, runs_per_job=10, seed=3, years=1.0, end_date=END,
                                  force=True)
     assert 280 <= summary.jobs <= 340
     assert summary.runs >= 10 * summary.jobs * 0.9
@@ -541,4 +544,4 @@ def test_bad_parameters_are_refused_with_the_field() -> None:
     with pytest.raises(ValidationFailed, match="years"):
         demo.load_demo(None, years=0)  # type: ignore[arg-type]
     with pytest.raises(ValidationFailed, match="runs_per_job"):
-        demo.generate_bulk(None, jobs=10, runs_per_job=2)  # type: ignore[arg-type]
+        bulk.generate_bulk(None, jobs=10, runs_per_job=2)  # type: ignore[arg-type]

@@ -13,6 +13,7 @@ from sqlalchemy import select
 from shopapp.balancing.tolerance import api_limit_gmm
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.jobs import evidence as jt
+from shopapp.jobs import residual_tests
 from shopapp.models import MachineVerification, ResidualTest
 from shopapp.traceability import services as tr
 
@@ -48,13 +49,13 @@ def test_the_limit_used_is_the_api_style_one() -> None:
 def test_residual_test_default_at_intake(shop) -> None:  # type: ignore[no-untyped-def]
     plain = shop.customer()
     asks = shop.customer(requires_residual_test=True)
-    assert jt.default_residual_test_required(plain, "grade") is False
-    assert jt.default_residual_test_required(plain, "4w/n") is True
-    assert jt.default_residual_test_required(asks, "grade") is True
+    assert residual_tests.default_residual_test_required(plain, "grade") is False
+    assert residual_tests.default_residual_test_required(plain, "4w/n") is True
+    assert residual_tests.default_residual_test_required(asks, "grade") is True
 
 
 def test_suggested_test_mass_is_one_to_two_limits(job) -> None:  # type: ignore[no-untyped-def]
-    adv = jt.suggested_test_masses(job)[0]
+    adv = residual_tests.suggested_test_masses(job)[0]
     # m = k·U/r, r = 300 mm (factory rotor type); common practice 1–2 × the limit.
     assert adv.low_g == pytest.approx(LIMIT / 300.0)
     assert adv.high_g == pytest.approx(2 * LIMIT / 300.0)
@@ -77,7 +78,7 @@ def _readings(n: int, residual=100.0, angle=40.0, noise=0.0, seed=1):  # type: i
 
 
 def _record(db, job, by, amps, angs, rep_amp=None, rep_ang=None, n=8, plane=1):  # type: ignore[no-untyped-def]
-    return jt.record_residual_test(
+    return residual_tests.record_residual_test(
         db, job, by=by, plane=plane, test_mass_g=T_MASS_G, positions=n, amplitudes=amps,
         angles_deg=angs, repeat_amplitude=amps[0] if rep_amp is None else rep_amp,
         repeat_angle_deg=(angs[0] if angs else None) if rep_ang is None else rep_ang, unit="um")
@@ -146,17 +147,17 @@ def test_bad_input_saves_nothing(db, job, operator) -> None:  # type: ignore[no-
 
 def test_certification_needs_a_valid_test_in_every_plane(db, job, operator) -> None:  # type: ignore[no-untyped-def]
     with pytest.raises(TransitionRefused) as exc:
-        jt.require_residual_test_ok(db, job)
+        residual_tests.require_residual_test_ok(db, job)
     assert "plane 1 has no residual-unbalance test" in exc.value.message
     amps, angs = _readings(8)
     _record(db, job, operator, amps, angs)
     bad = [a * (1.0 + (0.6 if k % 2 else -0.5)) for k, a in enumerate(amps)]
     _record(db, job, operator, bad, angs, plane=2)
     with pytest.raises(TransitionRefused) as exc:
-        jt.require_residual_test_ok(db, job)
+        residual_tests.require_residual_test_ok(db, job)
     assert "plane 2's latest residual test is invalid" in exc.value.message
     _record(db, job, operator, amps, angs, plane=2)
-    assert jt.require_residual_test_ok(db, job).ok
+    assert residual_tests.require_residual_test_ok(db, job).ok
 
 
 def test_a_test_over_the_limit_blocks_too(db, job, operator) -> None:  # type: ignore[no-untyped-def]
@@ -164,21 +165,21 @@ def test_a_test_over_the_limit_blocks_too(db, job, operator) -> None:  # type: i
         amps, angs = _readings(8, residual=1.2 * LIMIT)
         _record(db, job, operator, amps, angs, plane=plane)
     with pytest.raises(TransitionRefused) as exc:
-        jt.require_residual_test_ok(db, job)
+        residual_tests.require_residual_test_ok(db, job)
     assert "above the limit" in exc.value.message
 
 
 def test_only_quality_may_drop_a_required_test(db, job, operator, quality) -> None:  # type: ignore[no-untyped-def]
     with pytest.raises(ValidationFailed):
-        jt.set_residual_test_required(db, job, by=operator, required=False)
-    jt.set_residual_test_required(db, job, by=quality, required=False)
+        residual_tests.set_residual_test_required(db, job, by=operator, required=False)
+    residual_tests.set_residual_test_required(db, job, by=quality, required=False)
     assert job.residual_test_required is False
-    assert jt.require_residual_test_ok(db, job).ok
+    assert residual_tests.require_residual_test_ok(db, job).ok
 
 
 def test_residual_test_plot_has_the_points_and_the_circle(db, job, operator) -> None:  # type: ignore[no-untyped-def]
     amps, angs = _readings(8)
-    fig = jt.residual_test_figure(_record(db, job, operator, amps, angs))
+    fig = residual_tests.residual_test_figure(_record(db, job, operator, amps, angs))
     titles = [getattr(i, "title", None) for i in fig.items]
     assert "fitted circle" in titles
     assert sum(1 for t in titles if t and t.startswith("position ")) == 8
@@ -249,18 +250,19 @@ def test_certificate_gate_refuses_an_overdue_machine(db, shop, job, operator) ->
 
 
 def test_the_jobs_calculation_uses_the_subtracted_arbor_error(db, job, quality, operator) -> None:  # type: ignore[no-untyped-def]
-    from shopapp.jobs import services as jobs
+    from shopapp.jobs.queries import evaluate
+    from shopapp.jobs.runs import record_run
 
     arbor = tr.create_arbor(db, by=quality, name="Arbor C")
     jt.set_job_arbor(db, job, by=operator, arbor=arbor)
     m = tr.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 2),
                               first_run=[(20.0, 0.0), (10.0, 90.0)],
                               second_run=[(10.0, 0.0), (4.0, 90.0)])
-    jobs.record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
-                    readings=[(1, 40.0, 0.0, "g·mm"), (2, 30.0, 90.0, "g·mm")])
-    before = jobs.evaluate(db, job).verdicts
+    record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
+               readings=[(1, 40.0, 0.0, "g·mm"), (2, 30.0, 90.0, "g·mm")])
+    before = evaluate(db, job).verdicts
     jt.set_arbor_subtraction(db, job, by=operator, measurement=m)
-    after = jobs.evaluate(db, job).verdicts
+    after = evaluate(db, job).verdicts
     (v0,), (v1,) = before.values(), after.values()
     # Hand computation: arbor 15∠0 and 7∠90 off 40∠0 and 30∠90 → 25∠0 and 23∠90.
     assert v0.residual_gmm[0] == pytest.approx(40 + 0j)
@@ -271,15 +273,15 @@ def test_the_jobs_calculation_uses_the_subtracted_arbor_error(db, job, quality, 
 def test_the_rotor_history_uses_the_subtracted_arbor_error_too(db, job, quality, operator) -> None:  # type: ignore[no-untyped-def]
     """The rotor's trend history shows the same initial unbalance as the job page."""
     from shopapp.jobs import rotor_history
-    from shopapp.jobs import services as jobs
+    from shopapp.jobs.runs import record_run
 
     arbor = tr.create_arbor(db, by=quality, name="Arbor H")
     jt.set_job_arbor(db, job, by=operator, arbor=arbor)
     m = tr.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 2),
                               first_run=[(20.0, 0.0), (10.0, 90.0)],
                               second_run=[(10.0, 0.0), (4.0, 90.0)])
-    jobs.record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
-                    readings=[(1, 40.0, 0.0, "g·mm"), (2, 30.0, 90.0, "g·mm")])
+    record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
+               readings=[(1, 40.0, 0.0, "g·mm"), (2, 30.0, 90.0, "g·mm")])
     jt.set_arbor_subtraction(db, job, by=operator, measurement=m)
     (visit,) = rotor_history.build(db, job.rotor).visits
     # Hand computation: arbor 15∠0 and 7∠90 off 40∠0 and 30∠90 → 25 and 23 g·mm.

@@ -21,7 +21,26 @@ from sqlalchemy.orm import Session
 from shopapp.core import numbering
 from shopapp.core.errors import PermissionDenied, TransitionRefused, ValidationFailed
 from shopapp.jobs import calc as job_calc
-from shopapp.jobs import services as jobs
+from shopapp.jobs import states
+from shopapp.jobs.corrections import record_correction
+from shopapp.jobs.intake import ToleranceSpec, book_in
+from shopapp.jobs.queries import (
+    JobFilter,
+    evaluate,
+    filtered_jobs_stmt,
+    influence_sets_for,
+    rotor_history,
+)
+from shopapp.jobs.runs import record_run
+from shopapp.jobs.states import (
+    ALLOWED,
+    dispatch,
+    mark_certified,
+    mark_in_tolerance,
+    open_return,
+    reopen,
+    transition,
+)
 from shopapp.models import (
     JOB_STATES,
     AuditEvent,
@@ -86,42 +105,42 @@ def book(db: Session, op: Any, rtype: RotorType, machine: Any, **kw: Any) -> Job
     values: dict[str, Any] = {
         "customer": rtype.customer_id, "serial_number": kw.pop("serial_number", "FAN-001"),
         "rotor_type_id": rtype.id, "balancing_speed_rpm": 600.0, "machine_id": machine.id,
-        "tolerance": jobs.ToleranceSpec("grade", grade=6.3),
+        "tolerance": ToleranceSpec("grade", grade=6.3),
         "received_on": dt.date(2026, 3, 2),
     }
     values.update(kw)
-    return jobs.book_in(db, by=op, **values)
+    return book_in(db, by=op, **values)
 
 
 def two_plane_job(db: Session, op: Any, rtype: RotorType, machine: Any, **kw: Any) -> Job:
     """A job with initial run + two trial runs (trial masses removed in between)."""
     job = book(db, op, rtype, machine, **kw)
-    jobs.record_run(db, job, by=op, purpose="initial", speed_rpm=600,
-                    readings=readings_for(U_TRUE_G))
+    record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+               readings=readings_for(U_TRUE_G))
     t1 = np.array([cmath.rect(30.0, math.radians(0)), 0])
-    jobs.record_run(db, job, by=op, purpose="trial", speed_rpm=600,
-                    readings=readings_for(U_TRUE_G + t1), trial=(1, 30.0, 0.0, 300.0))
+    record_run(db, job, by=op, purpose="trial", speed_rpm=600,
+               readings=readings_for(U_TRUE_G + t1), trial=(1, 30.0, 0.0, 300.0))
     t2 = np.array([0, cmath.rect(30.0, math.radians(90))])
-    jobs.record_run(db, job, by=op, purpose="trial", speed_rpm=600,
-                    readings=readings_for(U_TRUE_G + t2), trial=(2, 30.0, 90.0, 300.0))
+    record_run(db, job, by=op, purpose="trial", speed_rpm=600,
+               readings=readings_for(U_TRUE_G + t2), trial=(2, 30.0, 90.0, 300.0))
     return job
 
 
 def apply_advice(db: Session, op: Any, job: Job) -> job_calc.JobCalc:
-    calc = jobs.evaluate(db, job)
+    calc = evaluate(db, job)
     assert calc.advice is not None
     for a in calc.advice.planes:
-        jobs.record_correction(db, job, by=op, run_id=calc.advice.run_id, plane=a.plane,
-                               action=a.action, mass_g=a.mass_g, angle_deg=a.angle_deg,
-                               radius_mm=a.radius_mm, advised_mass_g=a.mass_g,
-                               advised_angle_deg=a.angle_deg)
+        record_correction(db, job, by=op, run_id=calc.advice.run_id, plane=a.plane,
+                          action=a.action, mass_g=a.mass_g, angle_deg=a.angle_deg,
+                          radius_mm=a.radius_mm, advised_mass_g=a.mass_g,
+                          advised_angle_deg=a.angle_deg)
     return calc
 
 
 def passing_check(db: Session, op: Any, job: Job, left_g: np.ndarray | None = None) -> Run:
     left = np.array([0.5 + 0j, 0.3j]) if left_g is None else left_g
-    return jobs.record_run(db, job, by=op, purpose="check", speed_rpm=600,
-                           readings=readings_for(left))
+    return record_run(db, job, by=op, purpose="check", speed_rpm=600,
+                      readings=readings_for(left))
 
 
 # --------------------------------------------------------------------------- numbering
@@ -171,12 +190,12 @@ def test_bad_patterns_are_refused_with_a_message(pattern: str) -> None:
 def test_book_in_registers_a_new_customer_and_rotor_and_writes_audit(db, op, machine, shop) -> None:
     rt = shop.rotor_type()
     before = (count(db, Customer), count(db, Rotor), count(db, Job), count(db, AuditEvent))
-    job = jobs.book_in(db, by=op, customer={"name": "Invented Fans Ltd"}, serial_number="NF-1",
-                       one_off={"mass_kg": 40, "service_speed_rpm": 1500, "bearing_a_mm": 0,
-                                "bearing_b_mm": 500, "centre_of_mass_mm": 250, "plane_1_mm": 250,
-                                "radius_1_mm": 200},
-                       tolerance=jobs.ToleranceSpec("grade", grade=6.3), balancing_speed_rpm=500,
-                       machine_id=machine.id)
+    job = book_in(db, by=op, customer={"name": "Invented Fans Ltd"}, serial_number="NF-1",
+                  one_off={"mass_kg": 40, "service_speed_rpm": 1500, "bearing_a_mm": 0,
+                           "bearing_b_mm": 500, "centre_of_mass_mm": 250, "plane_1_mm": 250,
+                           "radius_1_mm": 200},
+                  tolerance=ToleranceSpec("grade", grade=6.3), balancing_speed_rpm=500,
+                  machine_id=machine.id)
     assert rt.id != job.rotor.rotor_type_id and job.rotor.rotor_type.one_off
     assert job.state == "booked_in" and job.service_speed_rpm == 1500
     assert count(db, Customer) == before[0] + 1 and count(db, Rotor) == before[1] + 1
@@ -190,15 +209,15 @@ def test_known_serial_reuses_the_rotor_and_shows_its_history(db, op, rtype, mach
     first = two_plane_job(db, op, rtype, machine)
     apply_advice(db, op, first)
     passing_check(db, op, first)
-    jobs.mark_in_tolerance(db, first, by=op)
+    mark_in_tolerance(db, first, by=op)
     first.state = "dispatched"  # certified and dispatched elsewhere
     db.flush()
-    hist = jobs.rotor_history(db, rtype.customer_id, " fan-001 ")
+    hist = rotor_history(db, rtype.customer_id, " fan-001 ")
     assert hist is not None and hist.last_job is not None and hist.last_job.id == first.id
     assert hist.last_verdict is not None and hist.last_verdict.passed
     again = book(db, op, rtype, machine, rotor_type_id=None)
     assert again.rotor_id == first.rotor_id
-    assert jobs.rotor_history(db, rtype.customer_id, "UNKNOWN") is None
+    assert rotor_history(db, rtype.customer_id, "UNKNOWN") is None
 
 
 def test_intake_refuses_a_rotor_too_heavy_for_the_machine(db, op, shop) -> None:
@@ -229,10 +248,10 @@ def test_intake_refuses_a_speed_outside_the_machine_range(db, op, rtype, shop) -
         ({"machine_id": 999999}, "machine_id"),
         ({"customer": 999999}, "customer_id"),
         ({"rotor_type_id": 999999}, "rotor_type_id"),
-        ({"tolerance": jobs.ToleranceSpec("grade", grade=7.0)}, "tolerance_grade"),
-        ({"tolerance": jobs.ToleranceSpec("4w/n")}, "journal_load_a_kg"),
-        ({"tolerance": jobs.ToleranceSpec("explicit", plane_1_gmm=-1)}, "explicit_limit_1_gmm"),
-        ({"tolerance": jobs.ToleranceSpec("magic")}, "tolerance_method"),
+        ({"tolerance": ToleranceSpec("grade", grade=7.0)}, "tolerance_grade"),
+        ({"tolerance": ToleranceSpec("4w/n")}, "journal_load_a_kg"),
+        ({"tolerance": ToleranceSpec("explicit", plane_1_gmm=-1)}, "explicit_limit_1_gmm"),
+        ({"tolerance": ToleranceSpec("magic")}, "tolerance_method"),
         ({"promised_on": dt.date(2026, 1, 1)}, "promised_on"),
         ({"kind": "return"}, "return_of_job_id"),
         ({"customer": {"name": ""}}, "new_customer_name"),
@@ -288,13 +307,13 @@ def test_every_transition_of_the_table(db, op, quality, rtype, machine, from_sta
     job = _job_in_state(db, op, rtype, machine, from_state)
     n_tr, n_audit = count(db, JobTransition), count(db, AuditEvent)
     allowed = (from_state, to_state) in ACTIONS_BY_EDGE
-    assert allowed == (to_state in jobs.ALLOWED[from_state])
+    assert allowed == (to_state in ALLOWED[from_state])
 
     def go() -> None:
         if to_state == "certified":
-            jobs.mark_certified(db, job, by=quality)
+            mark_certified(db, job, by=quality)
         else:
-            jobs.transition(db, job, to_state, by=op, reason="because", on=dt.date(2026, 4, 1))
+            transition(db, job, to_state, by=op, reason="because", on=dt.date(2026, 4, 1))
 
     if allowed:
         go()
@@ -319,27 +338,27 @@ def test_generic_transition_refuses_certified_even_from_in_tolerance(db, op, rty
                                                                      machine) -> None:
     job = _job_in_state(db, op, rtype, machine, "in_tolerance")
     with pytest.raises(TransitionRefused, match="only when quality issues"):
-        jobs.transition(db, job, "certified", by=op)
+        transition(db, job, "certified", by=op)
 
 
 def test_only_quality_marks_certified(db, op, rtype, machine) -> None:
     job = _job_in_state(db, op, rtype, machine, "in_tolerance")
     with pytest.raises(PermissionDenied):
-        jobs.mark_certified(db, job, by=op)
+        mark_certified(db, job, by=op)
 
 
 @pytest.mark.parametrize("action", ["reject", "reopen"])
 def test_reject_and_reopen_need_a_reason(db, op, rtype, machine, action) -> None:
     job = _job_in_state(db, op, rtype, machine, "in_tolerance")
     with pytest.raises(ValidationFailed) as exc:
-        getattr(jobs, action)(db, job, by=op, reason="   ")
+        getattr(states, action)(db, job, by=op, reason="   ")
     assert exc.value.field == "reason" and job.state == "in_tolerance"
 
 
 def test_reopen_counts_rework_clears_dispatch(db, op, rtype, machine) -> None:
     job = _job_in_state(db, op, rtype, machine, "dispatched")
     job.dispatched_on = dt.date(2026, 3, 9)
-    jobs.reopen(db, job, by=op, reason="customer found vibration at site")
+    reopen(db, job, by=op, reason="customer found vibration at site")
     assert job.state == "on_machine" and job.reopen_count == 1 and job.dispatched_on is None
     assert job.transitions[-1].reason == "customer found vibration at site"
 
@@ -357,21 +376,21 @@ def test_reopen_fails_loudly_when_the_certificate_link_breaks(db, op, rtype, mac
     monkeypatch.setattr(certificate_link, "void_for_reopen", broken)
     job = _job_in_state(db, op, rtype, machine, "dispatched")
     with pytest.raises(RuntimeError, match="certificate link broken"):
-        jobs.reopen(db, job, by=op, reason="customer found vibration at site")
+        reopen(db, job, by=op, reason="customer found vibration at site")
 
 
 def test_in_tolerance_is_refused_while_the_last_check_is_out(db, op, rtype, machine) -> None:
     job = two_plane_job(db, op, rtype, machine)
     with pytest.raises(TransitionRefused, match="no check run"):
-        jobs.mark_in_tolerance(db, job, by=op)
+        mark_in_tolerance(db, job, by=op)
     apply_advice(db, op, job)
     passing_check(db, op, job, left_g=np.array([15.0 + 0j, 0j]))  # 15 g at 300 mm: far out
     with pytest.raises(TransitionRefused, match="out of tolerance"):
-        jobs.mark_in_tolerance(db, job, by=op)
+        mark_in_tolerance(db, job, by=op)
     assert job.runs[-1].within_tolerance is False  # stored verdict for the shop measures
     passing_check(db, op, job)
     assert job.runs[-1].within_tolerance is True
-    jobs.mark_in_tolerance(db, job, by=op)
+    mark_in_tolerance(db, job, by=op)
     assert job.state == "in_tolerance" and job.first_in_tolerance_at is not None
 
 
@@ -379,30 +398,30 @@ def test_first_in_tolerance_at_is_kept_after_a_reopen(db, op, rtype, machine) ->
     job = two_plane_job(db, op, rtype, machine)
     apply_advice(db, op, job)
     passing_check(db, op, job)
-    jobs.mark_in_tolerance(db, job, by=op)
+    mark_in_tolerance(db, job, by=op)
     first = job.first_in_tolerance_at
-    jobs.reopen(db, job, by=op, reason="recheck")
+    reopen(db, job, by=op, reason="recheck")
     passing_check(db, op, job)
-    jobs.mark_in_tolerance(db, job, by=op)
+    mark_in_tolerance(db, job, by=op)
     assert job.first_in_tolerance_at == first
 
 
 def test_dispatch_sets_the_date_and_refuses_one_before_receipt(db, op, rtype, machine) -> None:
     job = _job_in_state(db, op, rtype, machine, "certified")
     with pytest.raises(ValidationFailed):
-        jobs.dispatch(db, job, by=op, on=dt.date(2026, 1, 1))
-    jobs.dispatch(db, job, by=op, on=dt.date(2026, 3, 20))
+        dispatch(db, job, by=op, on=dt.date(2026, 1, 1))
+    dispatch(db, job, by=op, on=dt.date(2026, 3, 20))
     assert job.dispatched_on == dt.date(2026, 3, 20)
 
 
 def test_open_return_links_to_the_dispatched_job(db, op, rtype, machine) -> None:
     job = _job_in_state(db, op, rtype, machine, "in_tolerance")
     with pytest.raises(TransitionRefused):
-        jobs.open_return(db, by=op, earlier_job=job)
+        open_return(db, by=op, earlier_job=job)
     job.state, job.dispatched_on = "dispatched", dt.date(2026, 3, 10)
     db.flush()
-    ret = jobs.open_return(db, by=op, earlier_job=job, received_on=dt.date(2026, 6, 1),
-                           notes="vibrates again")
+    ret = open_return(db, by=op, earlier_job=job, received_on=dt.date(2026, 6, 1),
+                      notes="vibrates again")
     assert ret.kind == "return" and ret.return_of_job_id == job.id
     assert ret.rotor_id == job.rotor_id and ret.tolerance_grade == 6.3
 
@@ -412,15 +431,15 @@ def test_open_return_links_to_the_dispatched_job(db, op, rtype, machine) -> None
 
 def test_first_run_moves_the_job_onto_the_machine_and_is_audited(db, op, rtype, machine) -> None:
     job = book(db, op, rtype, machine)
-    run = jobs.record_run(db, job, by=op, purpose="initial", speed_rpm=600,
-                          readings=[(1, 3.0, 370.0, "um"), (2, 2.0, -10.0, "um")])
+    run = record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+                     readings=[(1, 3.0, 370.0, "um"), (2, 2.0, -10.0, "um")])
     assert run.seq == 1 and job.state == "on_machine" and job.operator_id == op.id
     assert [r.angle_deg for r in run.readings] == pytest.approx([10.0, 350.0])
     actions = list(db.scalars(select(AuditEvent.action).where(AuditEvent.job_id == job.id)
                               .order_by(AuditEvent.id)))
     assert actions == ["book_in", "start", "record_run"]
-    second = jobs.record_run(db, job, by=op, purpose="check", speed_rpm=600,
-                             readings=[(1, 1.0, 0.0, "um"), (2, 1.0, 0.0, "um")])
+    second = record_run(db, job, by=op, purpose="check", speed_rpm=600,
+                        readings=[(1, 1.0, 0.0, "um"), (2, 1.0, 0.0, "um")])
     assert second.seq == 2
 
 
@@ -450,7 +469,7 @@ def test_bad_runs_are_refused_and_nothing_is_saved(db, op, rtype, machine, kw, f
     values.update(kw)
     before = (count(db, Run), count(db, AuditEvent))
     with pytest.raises(ValidationFailed) as exc:
-        jobs.record_run(db, job, by=op, **values)
+        record_run(db, job, by=op, **values)
     assert field in exc.value.errors, exc.value.errors
     assert (count(db, Run), count(db, AuditEvent)) == before and job.state == "booked_in"
 
@@ -467,9 +486,9 @@ def test_runs_are_refused_once_in_tolerance(db, op, rtype, machine) -> None:
 def test_record_correction_stores_what_was_applied(db, op, rtype, machine) -> None:
     job = two_plane_job(db, op, rtype, machine)
     run_id = job.runs[0].id
-    corr = jobs.record_correction(db, job, by=op, run_id=run_id, plane=2, action="add",
-                                  mass_g=12.5, angle_deg=-20.0, radius_mm=290.0,
-                                  advised_mass_g=12.0, advised_angle_deg=20.0)
+    corr = record_correction(db, job, by=op, run_id=run_id, plane=2, action="add",
+                             mass_g=12.5, angle_deg=-20.0, radius_mm=290.0,
+                             advised_mass_g=12.0, advised_angle_deg=20.0)
     assert corr.angle_deg == 340.0 and corr.applied_by_id == op.id
     ev = db.scalars(select(AuditEvent).where(AuditEvent.entity == "correction")).one()
     assert ev.job_id == job.id and ev.after["mass_g"] == 12.5
@@ -494,7 +513,7 @@ def test_bad_corrections_are_refused(db, op, rtype, machine, kw, field) -> None:
     values.update(kw)
     before = count(db, Correction)
     with pytest.raises(ValidationFailed) as exc:
-        jobs.record_correction(db, job, by=op, **values)
+        record_correction(db, job, by=op, **values)
     assert field in exc.value.errors
     assert count(db, Correction) == before
 
@@ -502,16 +521,16 @@ def test_bad_corrections_are_refused(db, op, rtype, machine, kw, field) -> None:
 def test_split_positions_get_their_angles_from_the_rotor_type(db, op, shop, machine) -> None:
     rt = shop.rotor_type(positions_1=8, first_position_1_deg=10.0)
     job = two_plane_job(db, op, rt, machine)
-    corr = jobs.record_correction(db, job, by=op, run_id=None, plane=1, action="add",
-                                  mass_g=5.0, angle_deg=30.0, radius_mm=300.0,
-                                  split=[{"position": 1, "mass_g": 3.0},
-                                         {"position": 2, "mass_g": 2.4}])
+    corr = record_correction(db, job, by=op, run_id=None, plane=1, action="add",
+                             mass_g=5.0, angle_deg=30.0, radius_mm=300.0,
+                             split=[{"position": 1, "mass_g": 3.0},
+                                    {"position": 2, "mass_g": 2.4}])
     # 8 positions from 10°: 10°, 55°, ... (360/8 = 45° apart).
     assert [p["angle_deg"] for p in corr.split] == pytest.approx([10.0, 55.0])
     with pytest.raises(ValidationFailed, match="positions 1–8"):
-        jobs.record_correction(db, job, by=op, run_id=None, plane=1, action="add", mass_g=5.0,
-                               angle_deg=30.0, radius_mm=300.0,
-                               split=[{"position": 9, "mass_g": 1.0}])
+        record_correction(db, job, by=op, run_id=None, plane=1, action="add", mass_g=5.0,
+                          angle_deg=30.0, radius_mm=300.0,
+                          split=[{"position": 9, "mass_g": 1.0}])
 
 
 # --------------------------------------------------------------------------- learning
@@ -521,16 +540,16 @@ def test_in_tolerance_two_plane_job_stores_its_coefficients(db, op, rtype, machi
     job = two_plane_job(db, op, rtype, machine)
     apply_advice(db, op, job)
     passing_check(db, op, job)
-    jobs.mark_in_tolerance(db, job, by=op)
+    mark_in_tolerance(db, job, by=op)
     s = db.scalars(select(InfluenceSet).where(InfluenceSet.source_job_id == job.id)).one()
     assert (s.rotor_type_id, s.machine_id, s.speed_rpm, s.planes, s.reading_unit) == (
         rtype.id, machine.id, 600.0, 2, "um")
     # The learned matrix is the hidden physics (trial at the correction radius).
     np.testing.assert_allclose(job_calc.stored_matrix(s), A_TRUE, rtol=1e-9)
     # Reaching tolerance again after a reopen updates the same set.
-    jobs.reopen(db, job, by=op, reason="recheck")
+    reopen(db, job, by=op, reason="recheck")
     passing_check(db, op, job)
-    jobs.mark_in_tolerance(db, job, by=op)
+    mark_in_tolerance(db, job, by=op)
     assert count(db, InfluenceSet) == 1
 
 
@@ -539,14 +558,14 @@ def test_next_job_uses_stored_coefficients_and_scores_the_prediction(db, op, rty
     first = two_plane_job(db, op, rtype, machine)
     apply_advice(db, op, first)
     passing_check(db, op, first)
-    jobs.mark_in_tolerance(db, first, by=op)
+    mark_in_tolerance(db, first, by=op)
     first.state = "dispatched"
     db.flush()
 
     u2 = np.array([cmath.rect(9.0, math.radians(310)), cmath.rect(14.0, math.radians(20))])
     job = book(db, op, rtype, machine, serial_number="FAN-002")
-    jobs.record_run(db, job, by=op, purpose="initial", speed_rpm=610, readings=readings_for(u2))
-    calc = jobs.evaluate(db, job)
+    record_run(db, job, by=op, purpose="initial", speed_rpm=610, readings=readings_for(u2))
+    calc = evaluate(db, job)
     assert calc.coefficients is not None and calc.coefficients.source == "stored"
     assert calc.advice is not None
     # One initial run suffices: the advice is −U of the second rotor (same physics).
@@ -555,14 +574,14 @@ def test_next_job_uses_stored_coefficients_and_scores_the_prediction(db, op, rty
     np.testing.assert_allclose(advised, -u2, rtol=1e-6)
     # Fit 10 % less than advised; the check run then shows what the prediction says.
     for a in calc.advice.planes:
-        jobs.record_correction(db, job, by=op, run_id=calc.advice.run_id, plane=a.plane,
-                               action="add", mass_g=0.9 * a.mass_g, angle_deg=a.angle_deg,
-                               radius_mm=a.radius_mm)
+        record_correction(db, job, by=op, run_id=calc.advice.run_id, plane=a.plane,
+                          action="add", mass_g=0.9 * a.mass_g, angle_deg=a.angle_deg,
+                          radius_mm=a.radius_mm)
     left = u2 + 0.9 * advised
     noise = np.array([0.2 + 0.1j, -0.1j])  # reading error (µm) of the check run
     v_check = A_TRUE @ left + noise
-    jobs.record_run(db, job, by=op, purpose="check", speed_rpm=610,
-                    readings=[(i + 1, *amp_ang(complex(z)), "um") for i, z in enumerate(v_check)])
+    record_run(db, job, by=op, purpose="check", speed_rpm=610,
+               readings=[(i + 1, *amp_ang(complex(z)), "um") for i, z in enumerate(v_check)])
     s = db.scalars(select(InfluenceSet)).one()
     v0 = A_TRUE @ u2
     expected = np.linalg.norm(noise) / np.linalg.norm(v0) * 100.0  # |pred − meas| / |initial|
@@ -585,13 +604,13 @@ def test_a_set_learned_later_never_re_judges_a_job(db, op, rtype, machine) -> No
     now = dt.datetime.now(dt.UTC)
     used = _stored_set(db, rtype, machine, A_TRUE, now - dt.timedelta(days=30))
     job = book(db, op, rtype, machine)
-    jobs.record_run(db, job, by=op, purpose="initial", speed_rpm=600,
-                    readings=readings_for(U_TRUE_G))
+    record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+               readings=readings_for(U_TRUE_G))
     calc = apply_advice(db, op, job)
     assert calc.coefficients is not None and calc.coefficients.source == "stored"
     assert job.influence_set_id == used.id  # fixed by the first correction from its advice
     check = passing_check(db, op, job)
-    before = jobs.evaluate(db, job).verdicts[check.id]
+    before = evaluate(db, job).verdicts[check.id]
     assert before.passed
     # Other sets with other coefficients (a quarter of the gain: the same readings would
     # mean four times the unbalance), one even dated just before the job's initial run,
@@ -599,13 +618,13 @@ def test_a_set_learned_later_never_re_judges_a_job(db, op, rtype, machine) -> No
     initial_at = job.runs[0].taken_at
     _stored_set(db, rtype, machine, A_TRUE / 4.0, initial_at - dt.timedelta(minutes=1))
     _stored_set(db, rtype, machine, A_TRUE / 4.0, now + dt.timedelta(seconds=1))
-    after = jobs.evaluate(db, job)
+    after = evaluate(db, job)
     assert after.coefficients is not None and after.coefficients.stored is not None
     assert after.coefficients.stored.id == used.id
     assert after.verdicts[check.id].rows == before.rows
     # Without the recorded set the newest set before the initial run would judge it.
     job.influence_set_id = None
-    unfixed = jobs.evaluate(db, job).verdicts[check.id]
+    unfixed = evaluate(db, job).verdicts[check.id]
     assert [r.residual_gmm for r in unfixed.rows] != [r.residual_gmm for r in before.rows]
     job.influence_set_id = used.id
     audit = db.scalars(select(AuditEvent).where(AuditEvent.action == "use_influence_set")).one()
@@ -615,13 +634,13 @@ def test_a_set_learned_later_never_re_judges_a_job(db, op, rtype, machine) -> No
 def test_without_a_recorded_set_only_sets_learned_before_the_initial_run_count(
         db, op, rtype, machine) -> None:  # type: ignore[no-untyped-def]
     job = book(db, op, rtype, machine)
-    initial = jobs.record_run(db, job, by=op, purpose="initial", speed_rpm=600,
-                              readings=readings_for(U_TRUE_G))
-    assert jobs.evaluate(db, job).coefficients is None  # µm readings and no set yet
+    initial = record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+                         readings=readings_for(U_TRUE_G))
+    assert evaluate(db, job).coefficients is None  # µm readings and no set yet
     _stored_set(db, rtype, machine, A_TRUE, initial.taken_at + dt.timedelta(minutes=5))
-    assert jobs.evaluate(db, job).coefficients is None  # learned after its initial run
+    assert evaluate(db, job).coefficients is None  # learned after its initial run
     old = _stored_set(db, rtype, machine, A_TRUE, initial.taken_at - dt.timedelta(days=1))
-    calc = jobs.evaluate(db, job)
+    calc = evaluate(db, job)
     assert calc.coefficients is not None and calc.coefficients.stored is not None
     assert calc.coefficients.stored.id == old.id
 
@@ -631,7 +650,7 @@ def test_a_stored_set_only_serves_speeds_within_five_percent(db, op, rtype, mach
                         planes=2, reading_unit="um",
                         coefficients=[[z.real, z.imag] for z in A_TRUE.ravel()]))
     db.flush()
-    sets = jobs.influence_sets_for(db, book(db, op, rtype, machine))
+    sets = influence_sets_for(db, book(db, op, rtype, machine))
     assert job_calc.nearest_influence_set(sets, speed_rpm=629, planes=2, unit="um") is not None
     assert job_calc.nearest_influence_set(sets, speed_rpm=640, planes=2, unit="um") is None
     assert job_calc.nearest_influence_set(sets, speed_rpm=600, planes=2, unit="mm/s") is None
@@ -650,8 +669,8 @@ def test_filtered_list(db, op, rtype, machine, shop) -> None:
     db.flush()
 
     def ids(**args: str) -> list[int]:
-        f, _msgs = jobs.JobFilter.from_args(args)
-        return [j.id for j in db.scalars(jobs.filtered_jobs_stmt(f)).unique()]
+        f, _msgs = JobFilter.from_args(args)
+        return [j.id for j in db.scalars(filtered_jobs_stmt(f)).unique()]
 
     assert ids() == [c.id, b.id, a.id]
     assert ids(q="bbb") == [b.id]
@@ -668,8 +687,8 @@ def test_filtered_list(db, op, rtype, machine, shop) -> None:
 
 
 def test_junk_filter_values_are_ignored_with_a_message() -> None:
-    f, messages = jobs.JobFilter.from_args({"state": "melted", "machine_id": "x1",
-                                            "received_from": "yesterday", "reworked": "2",
-                                            "kind": "odd", "q": "  ok  "})
-    assert f == jobs.JobFilter(q="ok")
+    f, messages = JobFilter.from_args({"state": "melted", "machine_id": "x1",
+                                       "received_from": "yesterday", "reworked": "2",
+                                       "kind": "odd", "q": "  ok  "})
+    assert f == JobFilter(q="ok")
     assert len(messages) == 5

@@ -67,10 +67,18 @@ def test_owner_sees_the_period_against_the_previous_one(client, login_as, hand) 
     login_as("owner")
     html = _page(client, OCT)
     assert "Shop measures · October 2026" in html
-    assert _headline_cells(html, "jobs_received")[1:3] == ["11", "1"]  # Oct 11, Sep 1 (J5)
-    assert _headline_cells(html, "rework_rate")[1:3] == ["50 %", "0 %"]  # 3/6 and 0/1
-    assert _headline_cells(html, "first_pass_rate")[1:3] == ["80 %", "0 %"]  # 4/5 and 0/1
-    assert "worse" in _headline_cells(html, "rework_rate")[3]  # rework went up
+    # cells: measure, October, its 95 % interval, September, its interval, change
+    received = _headline_cells(html, "jobs_received")
+    assert (received[1], received[3]) == ("11", "1")  # Oct 11, Sep 1 (J5)
+    rework = _headline_cells(html, "rework_rate")
+    # 2/6 (J4, J10) and 1/1 (J5, returned); Wilson 95 % intervals of 2/6 and 1/1 are
+    # 0.097–0.700 and 0.207–1 (statsmodels proportion_confint(method="wilson"))
+    assert rework[1:5] == ["33 %", "10–70 %", "100 %", "21–100 %"]
+    # 6 jobs against 1: no verdict, the counts instead (issue 17: no "worse" on 1 job)
+    assert "worse" not in rework[5] and "better" not in rework[5]
+    assert "too few jobs" in rework[5] and "2 of 6 against 1 of 1" in rework[5]
+    first = _headline_cells(html, "first_pass_rate")
+    assert (first[1], first[3]) == ("80 %", "0 %")  # 4/5 and 0/1
     assert _headline_cells(html, "turnaround_p90_wd")[1] == "5.5"
     assert "<svg" in html and "Rework by rotor type" in html and "Rework by operator" in html
     assert "cracked hub" in html and "HS-R1" in html and "due soon" in html
@@ -112,7 +120,8 @@ def test_every_csv_matches_the_page(client, login_as, hand) -> None:  # type: ig
     html = _page(client, OCT)
     for dim in ("operator", "machine", "rotor_type", "customer", "month"):
         page_rows = _table(html, f"by_{dim}")
-        resp = client.get(f"/dashboard.csv?table=by_{dim}&period=month&on=2026-10-01")
+        resp = client.get(f"/dashboard.csv?table=by_{dim}&period=month&on=2026-10-01"
+                          "&names=machine")
         assert resp.status_code == 200 and resp.mimetype == "text/csv"
         rows = list(csv.DictReader(io.StringIO(resp.get_data(as_text=True))))
         key_col = "month_key" if dim == "month" else f"{dim}_id"
@@ -147,7 +156,9 @@ def test_three_clicks_answer_which_rotor_types_and_operator_drive_rework(
     assert "Shop measures · 2026" in html and "Is it getting better?" in html
     by_rt = _table(html, "by_rotor_type")
     t1 = str(hand.rotor_types["T1"].id)
-    assert by_rt[t1]["reworked_jobs"] == "2"  # J6, J10
+    # T1 reached tolerance in 2026: J13–J16, J1, J2, J5, J6, J10; reworked within 90 days:
+    # J5 (returned as J6) and J10 (reopened)
+    assert by_rt[t1]["reworked_jobs"] == "2"
     # click 2: the rotor type's name narrows the whole dashboard to it
     focus = re.search(rf'<tr data-key="{t1}">\s*<td><a href="([^"]+)"', html.split(
         'data-table="by_rotor_type"')[1])
@@ -155,9 +166,9 @@ def test_three_clicks_answer_which_rotor_types_and_operator_drive_rework(
     narrowed = _page(client, unescape(focus.group(1)))
     assert "Showing only" in narrowed and "HS-T1 fan" in narrowed
     ops = _table(narrowed, "by_operator")
-    # T1 rework: J6 (A, return) and J10 (B, reopened)
+    # T1 rework: J5 (B, came back as return J6) and J10 (B, reopened); A's jobs none
     assert {k: v["reworked_jobs"] for k, v in ops.items()} == {
-        str(hand.users["A"].id): "1", str(hand.users["B"].id): "1"}
+        str(hand.users["A"].id): "0", str(hand.users["B"].id): "2"}
     assert "First-pass and rework rate by month" in narrowed
 
 

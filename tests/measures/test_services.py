@@ -92,10 +92,15 @@ def test_headline_figures_of_october_match_the_hand_count(report) -> None:  # ty
     # judged: J1 ✓, J2 ✗, J3 ✓, J4 ✓, J6 ✓ (J10 needed no correction) → 4/5
     assert (f.first_pass_judged, f.first_pass_jobs) == (5, 4)
     assert f.first_pass_rate == pytest.approx(0.8)
-    # reworked: J4 (reopened 10-09), J10 (reopened 10-21), J6 (return) → 3/6
-    assert f.reworked_jobs == 3
-    assert f.rework_rate == pytest.approx(0.5)
+    # reworked within 90 days of reaching tolerance: J4 (reached 10-08, reopened 10-09),
+    # J10 (reached 10-21 10:00, reopened 15:00) → 2/6. J6 is itself a return: it counts
+    # against J5, which reached tolerance in September.
+    assert f.reworked_jobs == 2
+    assert f.rework_rate == pytest.approx(2 / 6)
     assert f.rejected_jobs == 3  # J7, J11, J12
+    # left the shop: dispatched J1 J2 J3 J4 J5 J10, rejected J7 J11 J12 → 3 of 9 rejected
+    assert f.jobs_closed == 9
+    assert f.rejection_rate == pytest.approx(3 / 9)
 
 
 def test_previous_period_is_september(report) -> None:  # type: ignore[no-untyped-def]
@@ -107,7 +112,9 @@ def test_previous_period_is_september(report) -> None:  # type: ignore[no-untype
     assert p.reached_in_tolerance == 1  # J5
     assert p.correction_cycles_mean == pytest.approx(3.0)  # answers runs 1, 2, 3
     assert (p.first_pass_judged, p.first_pass_jobs) == (1, 0)  # run 2 was out
-    assert (p.reworked_jobs, p.rejected_jobs) == (0, 0)
+    # J5 came back as return J6 on 10-13, 13 days after reaching tolerance → 1 of 1
+    assert (p.reworked_jobs, p.rejected_jobs, p.jobs_closed) == (1, 0, 0)
+    assert p.rework_rate == 1.0
 
 
 def test_slices_by_operator_match_the_hand_count(report, hand) -> None:  # type: ignore[no-untyped-def]
@@ -128,8 +135,8 @@ def test_slices_by_operator_match_the_hand_count(report, hand) -> None:  # type:
     assert b.correction_cycles_mean == pytest.approx(2 / 3)  # J3 1, J4 1, J10 0
     assert (a.first_pass_judged, a.first_pass_jobs) == (3, 2)  # J2 failed
     assert (b.first_pass_judged, b.first_pass_jobs) == (2, 2)  # J10 not judged
-    assert (a.reworked_jobs, b.reworked_jobs) == (1, 2)  # A: J6; B: J4, J10
-    assert a.rework_rate == pytest.approx(1 / 3)
+    assert (a.reworked_jobs, b.reworked_jobs) == (0, 2)  # A: none (J6 counts for J5); B: J4, J10
+    assert a.rework_rate == 0.0
     assert b.rework_rate == pytest.approx(2 / 3)
     assert (a.rejected_jobs, b.rejected_jobs) == (2, 1)  # A: J7, J11; B: J12
     keys = {r.label: r.key_id for r in report.slices["operator"]}
@@ -140,7 +147,7 @@ def test_slices_by_rotor_type_machine_and_customer(report) -> None:  # type: ign
     rt = {r.label: r.figures for r in report.slices["rotor_type"]}
     t1, t2 = rt["HS-T1 fan"], rt["HS-T2 pump"]
     assert (t1.jobs_received, t2.jobs_received) == (6, 5)  # T1: J1 J2 J6 J9 J10 J12
-    assert (t1.reached_in_tolerance, t1.reworked_jobs) == (4, 2)  # J1 J2 J6 J10; J6 J10
+    assert (t1.reached_in_tolerance, t1.reworked_jobs) == (4, 1)  # J1 J2 J6 J10; J10
     assert (t2.reached_in_tolerance, t2.reworked_jobs) == (2, 1)  # J3 J4; J4
     assert (t1.rejected_jobs, t2.rejected_jobs) == (1, 2)  # J12; J7 J11
     machines = {r.label: r.figures for r in report.slices["machine"]}
@@ -166,7 +173,8 @@ def test_months_of_the_year_and_the_trend(db, hand, owner, report) -> None:  # t
     assert [trend[m].reached_in_tolerance for m in ("2026-03", "2026-09", "2026-10")] == [1, 1, 6]
     assert trend["2026-09"].first_pass_rate == 0.0  # J5 failed its first check
     assert trend["2026-06"].first_pass_rate == 1.0  # J14
-    assert trend["2026-10"].rework_rate == pytest.approx(0.5)
+    assert trend["2026-10"].rework_rate == pytest.approx(2 / 6)  # J4, J10
+    assert trend["2026-09"].rework_rate == 1.0  # J5, returned as J6
     assert trend["2026-08"].rework_rate is None  # nothing reached tolerance in August
 
 

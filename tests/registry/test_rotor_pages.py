@@ -321,7 +321,8 @@ def test_rotor_history_lists_jobs_in_order_with_readings(client, login_as, shop,
     text = client.get(f"/rotors/{rotor.id}").get_data(as_text=True)
     positions = [text.index(f"H3-{i:03d}-{rotor.id}") for i in range(3)]
     assert positions == sorted(positions)  # oldest first
-    assert "P1 80 g·mm" in text and "P1 3 g·mm" in text
+    # Readings with 3 significant figures (core.display): 80 → "80.0", 3 → "3.00".
+    assert "P1 80.0 g·mm" in text and "P1 3.00 g·mm" in text
 
 
 def test_rotor_history_query_count_is_bounded(client, login_as, shop, db, count_queries):

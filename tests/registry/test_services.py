@@ -10,7 +10,7 @@ from sqlalchemy.orm import Session
 
 from shopapp.core.errors import PermissionDenied, ValidationFailed
 from shopapp.models import AuditEvent, Customer, Machine, Rotor, RotorType
-from shopapp.registry import services as registry
+from shopapp.registry import customers, machines, queries, rotor_types, rotors
 
 # A plausible two-plane fan (invented): 120 kg, bearings 800 mm apart, planes inboard.
 GOOD: dict[str, Any] = {
@@ -46,7 +46,7 @@ def _events(db: Session, entity: str, entity_id: int) -> list[AuditEvent]:
 
 
 def test_good_geometry_has_no_errors() -> None:
-    assert registry.validate_geometry(GOOD) == {}
+    assert rotor_types.validate_geometry(GOOD) == {}
 
 
 @pytest.mark.parametrize(
@@ -85,7 +85,7 @@ def test_good_geometry_has_no_errors() -> None:
     ],
 )
 def test_bad_geometry_names_the_field(change: dict[str, Any], field: str, words: str) -> None:
-    errors = registry.validate_geometry(GOOD | change)
+    errors = rotor_types.validate_geometry(GOOD | change)
     assert field in errors, errors
     assert words in errors[field]
 
@@ -94,25 +94,25 @@ def test_overhung_rotor_within_two_spans_is_fine() -> None:
     # An overhung fan: impeller 900 mm beyond bearing B of a 500 mm span (inside 2 spans).
     values = GOOD | {"bearing_b_mm": 500.0, "centre_of_mass_mm": 1200.0,
                      "plane_1_mm": 1350.0, "plane_2_mm": 1450.0}
-    assert registry.validate_geometry(values) == {}
+    assert rotor_types.validate_geometry(values) == {}
 
 
 def test_iso_grades_from_the_series_are_accepted() -> None:
     # ISO 21940-11 grade series G 0.4 ... G 4000, each 2.5 times the last.
     for grade in (0.4, 1, 2.5, 6.3, 16, 40, 100, 250, 630, 1600, 4000):
-        assert registry.validate_geometry(GOOD | {"tolerance_grade": grade}) == {}
+        assert rotor_types.validate_geometry(GOOD | {"tolerance_grade": grade}) == {}
 
 
 def test_single_plane_rotor_drops_plane_2_method() -> None:
     values = GOOD | {"plane_2_mm": None, "radius_2_mm": None, "method_2": "add"}
-    clean, errors = registry._clean_geometry(values)
+    clean, errors = rotor_types.clean_geometry(values)
     assert errors == {}
     assert clean["method_2"] is None
 
 
 def test_positions_on_a_missing_plane_2_are_refused() -> None:
     values = GOOD | {"plane_2_mm": None, "radius_2_mm": None, "positions_2": 8}
-    assert "positions_2" in registry.validate_geometry(values)
+    assert "positions_2" in rotor_types.validate_geometry(values)
 
 
 # --------------------------------------------------------------------------- customers
@@ -120,7 +120,7 @@ def test_positions_on_a_missing_plane_2_are_refused() -> None:
 
 def test_create_customer_writes_audit_event_in_the_same_transaction(db: Session, make_user):
     op = make_user("operator")
-    c = registry.create_customer(db, by=op, name="  Northwind Fans  ", contact="R. Vale")
+    c = customers.create_customer(db, by=op, name="  Northwind Fans  ", contact="R. Vale")
     assert c.name == "Northwind Fans"
     db.flush()
     cid = c.id
@@ -136,7 +136,7 @@ def test_duplicate_customer_name_ignoring_case_is_refused(db: Session, make_user
     op = make_user("operator")
     shop.customer(name="Harbour Pumps")
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_customer(db, by=op, name="harbour pumps")
+        customers.create_customer(db, by=op, name="harbour pumps")
     assert exc.value.field == "name" and "already exists" in exc.value.message
 
 
@@ -154,20 +154,20 @@ def test_bad_customer_fields(db: Session, make_user, fields: dict[str, Any], fie
     op = make_user("operator")
     before = _count(db, Customer)
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_customer(db, by=op, **fields)
+        customers.create_customer(db, by=op, **fields)
     assert field in exc.value.errors
     assert _count(db, Customer) == before
 
 
 def test_owner_may_not_create_customers(db: Session, make_user):
     with pytest.raises(PermissionDenied):
-        registry.create_customer(db, by=make_user("owner"), name="Anything Ltd")
+        customers.create_customer(db, by=make_user("owner"), name="Anything Ltd")
 
 
 def test_update_customer_audits_before_and_after(db: Session, make_user, shop):
     op = make_user("quality")
     c = shop.customer(name="Old Name Works")
-    registry.update_customer(db, c, by=op, name="New Name Works")
+    customers.update_customer(db, c, by=op, name="New Name Works")
     db.flush()
     (event,) = _events(db, "customer", c.id)
     assert event.action == "update"
@@ -177,7 +177,7 @@ def test_update_customer_audits_before_and_after(db: Session, make_user, shop):
 
 def test_update_customer_to_its_own_name_is_not_a_duplicate(db: Session, make_user, shop):
     c = shop.customer(name="Same Name Co")
-    registry.update_customer(db, c, by=make_user("admin"), name="SAME NAME CO")
+    customers.update_customer(db, c, by=make_user("admin"), name="SAME NAME CO")
     assert c.name == "SAME NAME CO"
 
 
@@ -188,13 +188,13 @@ def test_archive_customer_hides_it_and_refuses_with_open_jobs(db: Session, make_
     assert customer is not None
     job = shop.job(rotor)  # booked_in: still in the shop
     with pytest.raises(ValidationFailed, match="open job"):
-        registry.archive_customer(db, customer, by=op)
+        customers.archive_customer(db, customer, by=op)
     job.state = "dispatched"
     db.flush()
-    registry.archive_customer(db, customer, by=op)
-    assert customer.id not in {c.id for c in db.scalars(registry.customers_stmt())}
-    assert customer.id in {c.id for c in db.scalars(registry.customers_stmt(include_archived=True))}
-    registry.unarchive_customer(db, customer, by=op)
+    customers.archive_customer(db, customer, by=op)
+    assert customer.id not in {c.id for c in db.scalars(queries.customers_stmt())}
+    assert customer.id in {c.id for c in db.scalars(queries.customers_stmt(include_archived=True))}
+    customers.unarchive_customer(db, customer, by=op)
     db.flush()
     assert [e.action for e in _events(db, "customer", customer.id)] == ["archive", "unarchive"]
 
@@ -203,14 +203,14 @@ def test_customer_search_by_name_or_contact_case_insensitive(db: Session, shop):
     shop.customer(name="Quarry Rolls", contact="Dana Quill")
     shop.customer(name="Other Works", contact="QUILL Jr")
     shop.customer(name="Unrelated")
-    names = [c.name for c in db.scalars(registry.customers_stmt("quill"))]
+    names = [c.name for c in db.scalars(queries.customers_stmt("quill"))]
     assert names == ["Other Works", "Quarry Rolls"]  # ordered by name
 
 
 def test_like_wildcards_in_search_are_literal(db: Session, shop):
     shop.customer(name="100% Balance")
     shop.customer(name="1000 Balance")
-    assert [c.name for c in db.scalars(registry.customers_stmt("0%"))] == ["100% Balance"]
+    assert [c.name for c in db.scalars(queries.customers_stmt("0%"))] == ["100% Balance"]
 
 
 # --------------------------------------------------------------------------- rotor types
@@ -219,24 +219,24 @@ def test_like_wildcards_in_search_are_literal(db: Session, shop):
 def test_create_rotor_type_and_duplicate_part_number(db: Session, make_user, shop):
     op = make_user("operator")
     customer = shop.customer()
-    rt = registry.create_rotor_type(db, by=op, customer=customer, **GOOD)
+    rt = rotor_types.create_rotor_type(db, by=op, customer=customer, **GOOD)
     assert rt.method_2 == "add"  # plane 2 takes plane 1's method when none is given
     db.flush()
     assert [e.action for e in _events(db, "rotor_type", rt.id)] == ["create"]
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_rotor_type(
+        rotor_types.create_rotor_type(
             db, by=op, customer=customer, **(GOOD | {"part_number": "fan-800"})
         )
     assert exc.value.field == "part_number"
     # The same part number at another customer is another drawing: allowed.
-    registry.create_rotor_type(db, by=op, customer=shop.customer(), **GOOD)
+    rotor_types.create_rotor_type(db, by=op, customer=shop.customer(), **GOOD)
 
 
 def test_create_rotor_type_reports_all_bad_fields_and_saves_nothing(db: Session, make_user, shop):
     customer = shop.customer()
     before = _count(db, RotorType)
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_rotor_type(
+        rotor_types.create_rotor_type(
             db, by=make_user("operator"), customer=customer,
             **(GOOD | {"mass_kg": -1, "radius_1_mm": 0, "part_number": ""}),
         )
@@ -247,16 +247,16 @@ def test_create_rotor_type_reports_all_bad_fields_and_saves_nothing(db: Session,
 def test_rotor_type_for_archived_customer_is_refused(db: Session, make_user, shop):
     customer = shop.customer(archived=True)
     with pytest.raises(ValidationFailed, match="archived"):
-        registry.create_rotor_type(db, by=make_user("operator"), customer=customer, **GOOD)
+        rotor_types.create_rotor_type(db, by=make_user("operator"), customer=customer, **GOOD)
 
 
 def test_update_rotor_type_rechecks_the_merged_geometry(db: Session, make_user, shop):
     op = make_user("operator")
     rt = shop.rotor_type()
     with pytest.raises(ValidationFailed) as exc:
-        registry.update_rotor_type(db, rt, by=op, bearing_b_mm=rt.bearing_a_mm)
+        rotor_types.update_rotor_type(db, rt, by=op, bearing_b_mm=rt.bearing_a_mm)
     assert "bearing_b_mm" in exc.value.errors
-    registry.update_rotor_type(db, rt, by=op, mass_kg=150.0)
+    rotor_types.update_rotor_type(db, rt, by=op, mass_kg=150.0)
     db.flush()
     (event,) = _events(db, "rotor_type", rt.id)
     assert event.before["mass_kg"] == 120.0 and event.after["mass_kg"] == 150.0
@@ -264,18 +264,18 @@ def test_update_rotor_type_rechecks_the_merged_geometry(db: Session, make_user, 
 
 def test_update_rotor_type_unknown_field_is_a_programming_error(db: Session, make_user, shop):
     with pytest.raises(TypeError):
-        registry.update_rotor_type(db, shop.rotor_type(), by=make_user("operator"), colour="red")
+        rotor_types.update_rotor_type(db, shop.rotor_type(), by=make_user("operator"), colour="red")
 
 
 def test_one_off_rotor_type_part_number_from_serial(db: Session, make_user, shop):
     op = make_user("operator")
     customer = shop.customer()
     geometry = {k: v for k, v in GOOD.items() if k != "part_number"}
-    rt = registry.create_one_off_rotor_type(
+    rt = rotor_types.create_one_off_rotor_type(
         db, by=op, customer=customer, serial_number=" X-77 ", **geometry
     )
     assert rt.one_off and rt.part_number == "one-off X-77"
-    again = registry.create_one_off_rotor_type(
+    again = rotor_types.create_one_off_rotor_type(
         db, by=op, customer=customer, serial_number="X-77", **geometry
     )
     assert again.part_number == "one-off X-77 (2)"
@@ -286,11 +286,11 @@ def test_rotor_types_stmt_filters(db: Session, shop):
     fan = shop.rotor_type(a, part_number="FX-1", kind="fan")
     shop.rotor_type(a, part_number="RX-1", kind="roll")
     shop.rotor_type(b, part_number="FX-2", kind="fan", archived=True)
-    assert [r.id for r in db.scalars(registry.rotor_types_stmt("fx", a.id, "fan"))] == [fan.id]
-    assert [r.part_number for r in db.scalars(registry.rotor_types_stmt("FX", kind="fan"))] == [
+    assert [r.id for r in db.scalars(queries.rotor_types_stmt("fx", a.id, "fan"))] == [fan.id]
+    assert [r.part_number for r in db.scalars(queries.rotor_types_stmt("FX", kind="fan"))] == [
         "FX-1"
     ]
-    assert len(list(db.scalars(registry.rotor_types_stmt("fx", include_archived=True)))) == 2
+    assert len(list(db.scalars(queries.rotor_types_stmt("fx", include_archived=True)))) == 2
 
 
 # --------------------------------------------------------------------------- rotors
@@ -300,23 +300,23 @@ def test_rotor_serial_unique_per_customer_ignoring_case(db: Session, make_user, 
     op = make_user("operator")
     rt = shop.rotor_type()
     customer = rt.customer
-    rotor = registry.create_rotor(db, by=op, customer=customer, rotor_type=rt, serial_number="SN-9")
+    rotor = rotors.create_rotor(db, by=op, customer=customer, rotor_type=rt, serial_number="SN-9")
     db.flush()
     assert [e.action for e in _events(db, "rotor", rotor.id)] == ["create"]
     before = _count(db, Rotor)
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_rotor(db, by=op, customer=customer, rotor_type=rt, serial_number="sn-9")
+        rotors.create_rotor(db, by=op, customer=customer, rotor_type=rt, serial_number="sn-9")
     assert exc.value.field == "serial_number" and "already has" in exc.value.message
     assert _count(db, Rotor) == before
     # The same serial at another customer is another rotor.
     rt2 = shop.rotor_type()
-    registry.create_rotor(db, by=op, customer=rt2.customer, rotor_type=rt2, serial_number="SN-9")
+    rotors.create_rotor(db, by=op, customer=rt2.customer, rotor_type=rt2, serial_number="SN-9")
 
 
 def test_rotor_type_of_another_customer_is_refused(db: Session, make_user, shop):
     rt = shop.rotor_type()
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_rotor(
+        rotors.create_rotor(
             db, by=make_user("operator"), customer=shop.customer(), rotor_type=rt,
             serial_number="A1",
         )
@@ -325,10 +325,10 @@ def test_rotor_type_of_another_customer_is_refused(db: Session, make_user, shop)
 
 def test_find_rotor_ignores_case_and_spaces(db: Session, shop):
     rotor = shop.rotor(serial_number="AB-123")
-    assert registry.find_rotor(db, rotor.customer_id, "  ab-123 ") is rotor
-    assert registry.find_rotor(db, rotor.customer_id, "AB-124") is None
-    assert registry.find_rotor(db, rotor.customer_id, "") is None
-    assert registry.find_rotor(db, rotor.customer_id + 999, "AB-123") is None
+    assert rotors.find_rotor(db, rotor.customer_id, "  ab-123 ") is rotor
+    assert rotors.find_rotor(db, rotor.customer_id, "AB-124") is None
+    assert rotors.find_rotor(db, rotor.customer_id, "") is None
+    assert rotors.find_rotor(db, rotor.customer_id + 999, "AB-123") is None
 
 
 def test_update_and_archive_rotor(db: Session, make_user, shop):
@@ -336,25 +336,25 @@ def test_update_and_archive_rotor(db: Session, make_user, shop):
     rotor = shop.rotor(serial_number="R-1")
     shop.rotor(rotor.rotor_type, serial_number="R-2")
     with pytest.raises(ValidationFailed):
-        registry.update_rotor(db, rotor, by=op, serial_number="r-2")
-    registry.update_rotor(db, rotor, by=op, serial_number="R-1b", notes="balanced in 2026")
+        rotors.update_rotor(db, rotor, by=op, serial_number="r-2")
+    rotors.update_rotor(db, rotor, by=op, serial_number="R-1b", notes="balanced in 2026")
     job = shop.job(rotor)
     with pytest.raises(ValidationFailed, match="open job"):
-        registry.archive_rotor(db, rotor, by=op)
+        rotors.archive_rotor(db, rotor, by=op)
     job.state = "rejected"
     db.flush()
-    registry.archive_rotor(db, rotor, by=op)
-    assert rotor.id not in {r.id for r in db.scalars(registry.rotors_stmt("R-1"))}
-    every = registry.rotors_stmt("R-1", include_archived=True)
+    rotors.archive_rotor(db, rotor, by=op)
+    assert rotor.id not in {r.id for r in db.scalars(queries.rotors_stmt("R-1"))}
+    every = queries.rotors_stmt("R-1", include_archived=True)
     assert rotor.id in {r.id for r in db.scalars(every)}
 
 
 def test_archived_rotor_type_takes_no_new_rotors(db: Session, make_user, shop):
     op = make_user("operator")
     rt = shop.rotor_type()
-    registry.archive_rotor_type(db, rt, by=op)
+    rotor_types.archive_rotor_type(db, rt, by=op)
     with pytest.raises(ValidationFailed, match="archived"):
-        registry.create_rotor(db, by=op, customer=rt.customer, rotor_type=rt, serial_number="Z1")
+        rotors.create_rotor(db, by=op, customer=rt.customer, rotor_type=rt, serial_number="Z1")
 
 
 # --------------------------------------------------------------------------- machines
@@ -370,8 +370,8 @@ MACHINE: dict[str, Any] = {
 
 def test_machine_needs_quality_or_admin(db: Session, make_user):
     with pytest.raises(PermissionDenied):
-        registry.create_machine(db, by=make_user("operator"), **MACHINE)
-    machine = registry.create_machine(db, by=make_user("quality"), **MACHINE)
+        machines.create_machine(db, by=make_user("operator"), **MACHINE)
+    machine = machines.create_machine(db, by=make_user("quality"), **MACHINE)
     assert machine.verification_interval_days == 365 and machine.min_mass_kg == 0.0
     db.flush()
     assert [e.action for e in _events(db, "machine", machine.id)] == ["create"]
@@ -381,7 +381,7 @@ def test_duplicate_machine_name_is_refused(db: Session, make_user, shop):
     shop.machine(name="Bay 2")
     before = _count(db, Machine)
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_machine(db, by=make_user("admin"), **(MACHINE | {"name": "BAY 2"}))
+        machines.create_machine(db, by=make_user("admin"), **(MACHINE | {"name": "BAY 2"}))
     assert exc.value.field == "name"
     assert _count(db, Machine) == before
 
@@ -404,7 +404,7 @@ def test_duplicate_machine_name_is_refused(db: Session, make_user, shop):
 )
 def test_bad_machine_fields(db: Session, make_user, change: dict[str, Any], field: str):
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_machine(db, by=make_user("quality"), **(MACHINE | change))
+        machines.create_machine(db, by=make_user("quality"), **(MACHINE | change))
     assert field in exc.value.errors
 
 
@@ -413,24 +413,24 @@ def test_archive_machine_refused_with_open_job_and_hidden_after(db: Session, mak
     machine = shop.machine()
     job = shop.job(machine_id=machine.id)
     with pytest.raises(ValidationFailed, match="open job"):
-        registry.archive_machine(db, machine, by=q)
+        machines.archive_machine(db, machine, by=q)
     job.state = "dispatched"
     db.flush()
-    registry.archive_machine(db, machine, by=q)
-    assert machine.id not in {m.id for m in db.scalars(registry.machines_stmt())}
-    registry.update_machine(db, machine, by=q, notes="spare")
-    registry.unarchive_machine(db, machine, by=q)
-    assert machine.id in {m.id for m in db.scalars(registry.machines_stmt())}
+    machines.archive_machine(db, machine, by=q)
+    assert machine.id not in {m.id for m in db.scalars(queries.machines_stmt())}
+    machines.update_machine(db, machine, by=q, notes="spare")
+    machines.unarchive_machine(db, machine, by=q)
+    assert machine.id in {m.id for m in db.scalars(queries.machines_stmt())}
 
 
 def test_unique_race_is_converted_to_a_message(db: Session, make_user, shop, monkeypatch):
     """If the pre-check misses a concurrent insert, the database's unique key still answers."""
     shop.machine(name="Race")
     monkeypatch.setattr(
-        registry, "_clean_machine", lambda s, v, x: dict(MACHINE | {"name": "Race"})
+        machines, "_clean_machine", lambda s, v, x: dict(MACHINE | {"name": "Race"})
     )
     with pytest.raises(ValidationFailed) as exc:
-        registry.create_machine(db, by=make_user("quality"), **MACHINE)
+        machines.create_machine(db, by=make_user("quality"), **MACHINE)
     assert exc.value.field == "name"
     # The outer transaction is still usable after the savepoint rolled back.
     assert _count(db, Machine) >= 1

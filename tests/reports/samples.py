@@ -87,22 +87,24 @@ def job_ready_for_certificate(  # type: ignore[no-untyped-def]
     residual is the reading itself. Uses the jobs service, as the shop floor would;
     ``mark=False`` leaves the job on the machine.
     """
-    from shopapp.jobs import services as jobs
+    from shopapp.jobs.corrections import record_correction
+    from shopapp.jobs.runs import record_run
+    from shopapp.jobs.states import mark_in_tolerance
 
     machine = machine or shop.machine()
     rt = shop.rotor_type(positions_2=8, first_position_2_deg=0.0)
     rotor = shop.rotor(rt)
     job = shop.job(rotor, machine_id=machine.id, customer_order_ref="PO-88412", **job_kw)
-    jobs.record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
-                    readings=[(p + 1, a, g, "g·mm") for p, (a, g) in enumerate(INITIAL_GMM)])
-    jobs.record_correction(db, job, by=operator, run_id=None, plane=1, action="add",
-                           mass_g=30.0, angle_deg=210.0, radius_mm=300.0)
-    jobs.record_correction(db, job, by=operator, run_id=None, plane=2, action="add",
-                           mass_g=23.3, angle_deg=20.0, radius_mm=300.0,
-                           split=[{"position": 1, "mass_g": 12.0}, {"position": 2, "mass_g": 11.6}])
-    jobs.record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
-                    readings=[(p + 1, a, g, "g·mm") for p, (a, g) in enumerate(residual)])
+    record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
+               readings=[(p + 1, a, g, "g·mm") for p, (a, g) in enumerate(INITIAL_GMM)])
+    record_correction(db, job, by=operator, run_id=None, plane=1, action="add",
+                      mass_g=30.0, angle_deg=210.0, radius_mm=300.0)
+    record_correction(db, job, by=operator, run_id=None, plane=2, action="add",
+                      mass_g=23.3, angle_deg=20.0, radius_mm=300.0,
+                      split=[{"position": 1, "mass_g": 12.0}, {"position": 2, "mass_g": 11.6}])
+    record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
+               readings=[(p + 1, a, g, "g·mm") for p, (a, g) in enumerate(residual)])
     if mark:
-        jobs.mark_in_tolerance(db, job, by=operator)
+        mark_in_tolerance(db, job, by=operator)
     db.flush()
     return job

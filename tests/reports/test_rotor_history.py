@@ -10,7 +10,9 @@ import pytest
 from shopapp.certificates import issue as certificates
 from shopapp.core.errors import NotFound, ValidationFailed
 from shopapp.jobs import rotor_history
-from shopapp.jobs import services as jobs
+from shopapp.jobs.queries import evaluate
+from shopapp.jobs.runs import record_run
+from shopapp.jobs.states import dispatch, open_return
 from shopapp.reports import rotor_history as report
 from shopapp.reports.rotor_history import Visit
 from tests.reports.samples import job_ready_for_certificate
@@ -80,8 +82,8 @@ def test_history_of_a_rotor_from_its_jobs(db, shop, make_user) -> None:
     operator, quality = make_user("operator"), make_user("quality")
     job = job_ready_for_certificate(db, shop, operator)
     cert = certificates.issue(db, job, by=quality)
-    jobs.dispatch(db, job, by=operator, on=job.received_on)
-    again = jobs.open_return(db, by=operator, earlier_job=job, received_on=job.received_on)
+    dispatch(db, job, by=operator, on=job.received_on)
+    again = open_return(db, by=operator, earlier_job=job, received_on=job.received_on)
     data = rotor_history.build(db, job.rotor)
     assert [v.job_number for v in data.visits] == [job.number, again.number]
     first, second = data.visits
@@ -111,13 +113,13 @@ def test_rotor_type_distribution(db, shop, make_user) -> None:
     job = job_ready_for_certificate(db, shop, operator)
     rt = job.rotor.rotor_type
     other = shop.job(shop.rotor(rt), machine_id=job.machine_id)
-    jobs.record_run(db, other, by=operator, purpose="initial", speed_rpm=600.0,
-                    readings=[(1, 1000.0, 10.0, "g·mm"), (2, 500.0, 20.0, "g·mm")])
+    record_run(db, other, by=operator, purpose="initial", speed_rpm=600.0,
+               readings=[(1, 1000.0, 10.0, "g·mm"), (2, 500.0, 20.0, "g·mm")])
     data = rotor_history.build_for_type(db, rt)
     assert data.jobs == 2 and len(data.serials) == 2
     # Plane 1 limit is the correction-plane limit from the ISO allocation; 9000 g·mm is
     # several times it, 1000 g·mm is below it (values chosen for that, see samples).
-    limit_1 = jobs.evaluate(db, job).tolerance.plane_limits_gmm[0]
+    limit_1 = evaluate(db, job).tolerance.plane_limits_gmm[0]
     assert 1000.0 < limit_1 < 9000.0 / 3.0
     counts = {b.label: b.count for b in data.initial_pct_bins[0]}
     assert counts["0–100 %"] == 1 and sum(counts.values()) == 2

@@ -13,7 +13,9 @@ import numpy as np
 import pytest
 from sqlalchemy import func, select
 
-from shopapp.jobs import services as jobs
+from shopapp.core.errors import ValidationFailed
+from shopapp.jobs.intake import ToleranceSpec, book_in
+from shopapp.jobs.states import mark_in_tolerance
 from shopapp.models import (
     Arbor,
     ArborErrorMeasurement,
@@ -22,7 +24,7 @@ from shopapp.models import (
     MachineVerification,
     ResidualTest,
 )
-from shopapp.traceability import services as tr
+from shopapp.traceability import arbors, keys, verifications
 
 TODAY = dt.datetime.now(dt.UTC).date()
 
@@ -44,8 +46,8 @@ def _verified(db, machine, day, passed=True):  # type: ignore[no-untyped-def]
 
 @pytest.fixture()
 def proving_rotor(db, make_user):  # type: ignore[no-untyped-def]
-    r = tr.create_proving_rotor(db, by=make_user("quality"), name="PR-web", mass_kg=10.0,
-                                planes=1, radius_1_mm=100.0, positions=8)
+    r = verifications.create_proving_rotor(db, by=make_user("quality"), name="PR-web", mass_kg=10.0,
+                                           planes=1, radius_1_mm=100.0, positions=8)
     db.commit()
     return r
 
@@ -147,12 +149,52 @@ def test_arbor_pages_and_index_runs(client, login_as, db) -> None:  # type: igno
     m = db.scalar(select(ArborErrorMeasurement).where(ArborErrorMeasurement.arbor_id == arbor.id))
     assert m.error_1_gmm == pytest.approx(8.0) and m.planes == 1
     page = _text(client.get(f"/traceability/arbors/{arbor.id}"))
-    assert "8 g·mm" in page
+    assert "8.00 g·mm" in page  # g·mm is shown with 3 significant figures (core.display)
     resp = client.post(f"/traceability/arbors/{arbor.id}/measurements", data={
         "measured_on": TODAY.isoformat(), "index_deg": "10", "second_frame": "arbor",
         "first-amp_1": "10", "first-ang_1": "0", "second-amp_1": "6", "second-ang_1": "0"})
     assert resp.status_code == 422
     assert "at least 30°" in _text(resp)
+
+
+def test_large_figures_are_plain_digits_not_scientific_notation(client, login_as, shop,  # type: ignore[no-untyped-def]
+                                                                 db) -> None:
+    # docs/architecture.md, "Numbers shown": never scientific notation. A 12 345 g·mm figure
+    # printed with "%.4g" or ":.3g" would read "1.234e+04" / "1.23e+04".
+    m = shop.machine(name="Big bay", claimed_emar_gmm_per_kg=0.5)
+    db.add(MachineVerification(machine_id=m.id, performed_on=TODAY, proving_rotor="PR big",
+                               measured_umar_gmm=12345.0, claimed_umar_gmm=23456.0,
+                               passed=True, readings={}))
+    arbor = Arbor(name="Arbor big")
+    db.add(arbor)
+    db.flush()
+    db.add(ArborErrorMeasurement(arbor_id=arbor.id, measured_on=TODAY, planes=1,
+                                 error_1_gmm=12345.0, error_1_angle_deg=0.0, readings={}))
+    db.commit()
+    login_as("quality")
+    pages = [_plain(client.get(url)) for url in (
+        f"/traceability/machines/{m.id}", f"/traceability/arbors/{arbor.id}",
+        "/traceability/arbors", f"/machines/{m.id}")]
+    assert "12345" in pages[0] and "23456" in pages[0]
+    assert "12345 g·mm" in pages[1] and "12345 g·mm" in pages[2]
+    assert "12345" in pages[3]  # the machine page's verification panel
+    for page in pages:
+        assert "e+0" not in page and "1.23e" not in page
+
+
+def test_proving_test_proposes_15_times_the_plane_claim(client, login_as, shop, db,  # type: ignore[no-untyped-def]
+                                                        proving_rotor) -> None:
+    # Claimed e_mar 0.5 g·mm/kg × 10 kg = 5 g·mm for the one-plane proving rotor; the usual
+    # test unbalance is 10–20 × the claim (from memory of the ISO 21940-21 idea), its middle
+    # 15 × 5 = 75 g·mm, i.e. 0.75 g at the 100 mm radius (hand calculation).
+    m = shop.machine(name="Bay D", claimed_emar_gmm_per_kg=0.5, claimed_urr_pct=90.0)
+    db.commit()
+    login_as("quality")
+    page = _text(client.get(f"/traceability/machines/{m.id}/proving-test"))
+    assert 'name="test_mass_g" type="text" value="0.75"' in page
+    assert 'name="claimed_umar" type="text" value="5"' in page
+    assert 'name="test_radius_mm" type="text" value="100"' in page
+    assert 'name="claimed_urr_pct" type="text" value="90"' in page
 
 
 # --------------------------------------------------------------------------- job panel
@@ -207,12 +249,13 @@ def test_residual_test_walk_compute_then_save(client, login_as, wn_job, db) -> N
     row = db.scalar(select(ResidualTest).where(ResidualTest.job_id == wn_job.id))
     assert row.valid and row.residual_gmm == pytest.approx(80.0, rel=1e-6)
     page = _text(client.get(f"/jobs/{wn_job.id}"))
-    assert "Residual 80 g·mm" in page
+    # Shown with three significant figures (shopapp.core.display, the one formatter).
+    assert "Residual 80.0 g·mm" in page
 
 
 def test_job_arbor_subtraction_and_repeat_runs(client, login_as, wn_job, db) -> None:  # type: ignore[no-untyped-def]
     user = login_as("quality")
-    arbor = tr.create_arbor(db, by=user, name="Arbor W")
+    arbor = arbors.create_arbor(db, by=user, name="Arbor W")
     db.commit()
     assert client.post(f"/traceability/jobs/{wn_job.id}/arbor",
                        data={"arbor_id": str(arbor.id)}).status_code == 302
@@ -253,7 +296,8 @@ def test_key_page_saves_the_convention(client, login_as, shop, db) -> None:  # t
     assert resp.status_code == 302
     page = _text(client.get(f"/traceability/rotor-types/{rt.id}/key"))
     # Hand computation (first principles): 0.4396 g at 100 mm, at 30° + 180°.
-    assert "add 0.44 g at 100.0 mm, 210°" in page
+    # Masses with 3 significant figures, typed lengths as typed (core.display).
+    assert "add 0.440 g at 100 mm, 210°" in page
 
 
 # --------------------------------------------------------------------------- refusals
@@ -264,9 +308,9 @@ def test_booking_in_on_an_overdue_machine_is_refused(db, shop, make_user) -> Non
     last = TODAY - dt.timedelta(days=45)
     _verified(db, m, last)
     rt = shop.rotor_type()
-    with pytest.raises(jobs.ValidationFailed) as exc:
-        jobs.book_in(db, by=make_user("operator"), customer=rt.customer_id, serial_number="X-1",
-                     rotor_type_id=rt.id, balancing_speed_rpm=600.0, machine_id=m.id)
+    with pytest.raises(ValidationFailed) as exc:
+        book_in(db, by=make_user("operator"), customer=rt.customer_id, serial_number="X-1",
+                rotor_type_id=rt.id, balancing_speed_rpm=600.0, machine_id=m.id)
     due = last + dt.timedelta(days=30)
     assert exc.value.field == "machine_id"
     assert exc.value.errors["machine_id"] == (
@@ -281,9 +325,9 @@ def test_booking_in_on_an_overdue_machine_is_refused(db, shop, make_user) -> Non
 def test_booking_in_sets_the_residual_test_for_4wn(db, shop, make_user) -> None:  # type: ignore[no-untyped-def]
     m = shop.machine()
     rt = shop.rotor_type()
-    job = jobs.book_in(db, by=make_user("operator"), customer=rt.customer_id, serial_number="X-2",
-                       rotor_type_id=rt.id, balancing_speed_rpm=600.0, machine_id=m.id,
-                       tolerance=jobs.ToleranceSpec("4w/n", journal_load_a_kg=60.0))
+    job = book_in(db, by=make_user("operator"), customer=rt.customer_id, serial_number="X-2",
+                  rotor_type_id=rt.id, balancing_speed_rpm=600.0, machine_id=m.id,
+                  tolerance=ToleranceSpec("4w/n", journal_load_a_kg=60.0))
     assert job.residual_test_required is True
 
 
@@ -323,27 +367,28 @@ def test_certificate_states_key_residual_test_and_balance_errors(db, shop, make_
 
     from shopapp.certificates import issue as certificates
     from shopapp.jobs import evidence as jt
+    from shopapp.jobs import residual_tests
     from tests.reports.samples import job_ready_for_certificate
 
     operator, quality = make_user("operator"), make_user("quality")
     job = job_ready_for_certificate(db, shop, operator, mark=False, residual_test_required=True)
-    tr.set_key_convention(db, job.rotor.rotor_type, by=operator, convention="half_key",
-                          key_width_mm=8, key_height_mm=7, key_length_mm=50, hub_length_mm=40,
-                          key_radius_mm=20, key_angle_deg=0)
-    for adv in jt.suggested_test_masses(job):
+    keys.set_key_convention(db, job.rotor.rotor_type, by=operator, convention="half_key",
+                            key_width_mm=8, key_height_mm=7, key_length_mm=50, hub_length_mm=40,
+                            key_radius_mm=20, key_angle_deg=0)
+    for adv in residual_tests.suggested_test_masses(job):
         # Simulation: a calibrated machine (g·mm), residual 5 % of the limit at 60°.
         t = adv.suggested_g * adv.radius_mm
         z = cmath.rect(0.05 * adv.limit_gmm, math.radians(60)) + t * np.exp(
             1j * np.radians(np.arange(8) * 45.0))
         amps = [abs(v) for v in z]
         angs = [math.degrees(cmath.phase(v)) % 360 for v in z]
-        jt.record_residual_test(db, job, by=operator, plane=adv.plane,
-                                test_mass_g=adv.suggested_g, positions=8, amplitudes=amps,
-                                angles_deg=angs, repeat_amplitude=amps[0],
-                                repeat_angle_deg=angs[0])
+        residual_tests.record_residual_test(db, job, by=operator, plane=adv.plane,
+                                            test_mass_g=adv.suggested_g, positions=8,
+                                            amplitudes=amps, angles_deg=angs,
+                                            repeat_amplitude=amps[0], repeat_angle_deg=angs[0])
     jt.record_error_estimate(db, job, by=operator, runs=[[(4.0, 0.0), (3.0, 0.0)]] * 2
                              + [[(4.2, 0.0), (3.0, 0.0)]])
-    jobs.mark_in_tolerance(db, job, by=operator)
+    mark_in_tolerance(db, job, by=operator)
     cert = certificates.issue(db, job, by=quality)
     text = " ".join("\n".join(p.extract_text() for p in
                               pypdf.PdfReader(io.BytesIO(cert.pdf)).pages).split())

@@ -12,7 +12,7 @@ from sqlalchemy import select
 
 from shopapp.core.errors import PermissionDenied, ValidationFailed
 from shopapp.models import ArborErrorMeasurement, AuditEvent, MachineVerification
-from shopapp.traceability import services as tr
+from shopapp.traceability import arbors, keys, verifications
 
 
 @pytest.fixture()
@@ -53,7 +53,7 @@ def _verified(db, machine, day: dt.date, passed: bool = True) -> MachineVerifica
 def test_due_date_states_at_the_boundaries(db, shop, day, state, since) -> None:  # type: ignore[no-untyped-def]
     m = shop.machine(verification_interval_days=30)
     _verified(db, m, dt.date(2026, 1, 1))
-    s = tr.machine_status(db, m, day)
+    s = verifications.machine_status(db, m, day)
     assert s.due_on == dt.date(2026, 1, 31)
     assert s.state == state
     assert s.overdue_since == since
@@ -66,35 +66,35 @@ def test_a_past_date_gets_the_standing_of_that_day(db, shop) -> None:  # type: i
     _verified(db, m, dt.date(2026, 1, 1))
     _verified(db, m, dt.date(2026, 3, 1))
     # Overdue between 1 Feb and 28 Feb; current again from the passed test on 1 Mar.
-    assert tr.machine_status(db, m, dt.date(2026, 2, 15)).state == "overdue"
-    assert tr.machine_status(db, m, dt.date(2026, 3, 1)).state == "current"
+    assert verifications.machine_status(db, m, dt.date(2026, 2, 15)).state == "overdue"
+    assert verifications.machine_status(db, m, dt.date(2026, 3, 1)).state == "current"
 
 
 def test_a_failed_test_blocks_until_a_passed_one(db, shop) -> None:  # type: ignore[no-untyped-def]
     m = shop.machine(verification_interval_days=365)
     _verified(db, m, dt.date(2026, 1, 1))
     _verified(db, m, dt.date(2026, 2, 1), passed=False)
-    s = tr.machine_status(db, m, dt.date(2026, 2, 10))
+    s = verifications.machine_status(db, m, dt.date(2026, 2, 10))
     assert s.state == "failed" and s.overdue_since == dt.date(2026, 2, 1)
-    assert tr.machine_status(db, m, dt.date(2026, 1, 31)).state == "current"
+    assert verifications.machine_status(db, m, dt.date(2026, 1, 31)).state == "current"
     _verified(db, m, dt.date(2026, 2, 12))
-    assert tr.machine_status(db, m, dt.date(2026, 2, 12)).state == "current"
+    assert verifications.machine_status(db, m, dt.date(2026, 2, 12)).state == "current"
 
 
 def test_a_machine_never_tested_counts_from_its_register_entry(db, shop) -> None:  # type: ignore[no-untyped-def]
     m = shop.machine(verification_interval_days=100)
     entered = m.created_at.astimezone(dt.UTC).date()
-    s = tr.machine_status(db, m, entered)
+    s = verifications.machine_status(db, m, entered)
     assert s.basis == "register_entry" and s.state == "current"
     assert s.due_on == entered + dt.timedelta(days=100)
-    assert tr.machine_status(db, m, entered + dt.timedelta(days=101)).state == "overdue"
+    assert verifications.machine_status(db, m, entered + dt.timedelta(days=101)).state == "overdue"
 
 
 def test_overdue_machine_is_refused_with_the_exact_message(db, shop) -> None:  # type: ignore[no-untyped-def]
     m = shop.machine(name="Hard-bearing 2", verification_interval_days=30)
     _verified(db, m, dt.date(2026, 1, 1))
-    with pytest.raises(tr.MachineNotCurrent) as exc:
-        tr.require_machine_current(db, m, dt.date(2026, 2, 3))
+    with pytest.raises(verifications.MachineNotCurrent) as exc:
+        verifications.require_machine_current(db, m, dt.date(2026, 2, 3))
     assert exc.value.message == (
         'Machine "Hard-bearing 2" is overdue for its proving test since 2026-02-01 (due '
         "2026-01-31, last passed test 2026-01-01; checked for 2026-02-03). Only a quality "
@@ -102,7 +102,7 @@ def test_overdue_machine_is_refused_with_the_exact_message(db, shop) -> None:  #
         "verification register."
     )
     assert exc.value.status == 409
-    assert tr.require_machine_current(db, m, dt.date(2026, 1, 31)).state == "due_soon"
+    assert verifications.require_machine_current(db, m, dt.date(2026, 1, 31)).state == "due_soon"
 
 
 def test_machines_due_soon_lists_due_soon_and_overdue_soonest_first(db, shop) -> None:  # type: ignore[no-untyped-def]
@@ -113,7 +113,8 @@ def test_machines_due_soon_lists_due_soon_and_overdue_soonest_first(db, shop) ->
     _verified(db, ok, on - dt.timedelta(days=10))
     _verified(db, soon, on - dt.timedelta(days=25))
     _verified(db, late, on - dt.timedelta(days=40))
-    listed = [s for s in tr.machines_due_soon(db, on) if s.machine_id in {ok.id, soon.id, late.id}]
+    listed = [s for s in verifications.machines_due_soon(db, on)
+              if s.machine_id in {ok.id, soon.id, late.id}]
     assert [(s.machine_name, s.state) for s in listed] == [("C late", "overdue"),
                                                            ("B soon", "due_soon")]
 
@@ -134,8 +135,8 @@ def _indications(residual_gmm: float, residual_deg: float, test_gmm: float, n: i
 
 @pytest.fixture()
 def proving_rotor(db, quality):  # type: ignore[no-untyped-def]
-    return tr.create_proving_rotor(db, by=quality, name="PR-10", mass_kg=10.0, planes=2,
-                                   radius_1_mm=100.0, radius_2_mm=100.0, positions=8)
+    return verifications.create_proving_rotor(db, by=quality, name="PR-10", mass_kg=10.0, planes=2,
+                                              radius_1_mm=100.0, radius_2_mm=100.0, positions=8)
 
 
 def test_proving_test_figures_from_a_simulated_machine(db, shop, quality, proving_rotor) -> None:  # type: ignore[no-untyped-def]
@@ -147,7 +148,7 @@ def test_proving_test_figures_from_a_simulated_machine(db, shop, quality, provin
     # leaves |1 − GAIN|·50 (computed here independently of the code).
     left = abs(1 - GAIN) * 50.0
     expected_urr = (1 - left / 50.0) * 100.0
-    row = tr.record_proving_test(
+    row = verifications.record_proving_test(
         db, m, by=quality, performed_on=dt.date(2026, 11, 20), proving_rotor=proving_rotor,
         test_mass_g=0.4, test_radius_mm=100.0, indicated_gmm=[a1, a2],
         indicated_angles_deg=[g1, g2], urr_before_gmm=[50.0, 50.0], urr_after_gmm=[left, left],
@@ -161,7 +162,7 @@ def test_proving_test_figures_from_a_simulated_machine(db, shop, quality, provin
     assert row.proving_rotor == "PR-10" and row.performed_by_id == quality.id
     assert db.scalar(select(AuditEvent).where(AuditEvent.entity == "machine_verification",
                                               AuditEvent.entity_id == row.id)) is not None
-    assert tr.machine_status(db, m, dt.date(2026, 11, 21)).basis == "proving_test"
+    assert verifications.machine_status(db, m, dt.date(2026, 11, 21)).basis == "proving_test"
 
 
 def test_proving_test_fails_when_the_residual_is_above_the_plane_claim(db, shop, quality,  # type: ignore[no-untyped-def]
@@ -169,8 +170,9 @@ def test_proving_test_fails_when_the_residual_is_above_the_plane_claim(db, shop,
     m = shop.machine(claimed_emar_gmm_per_kg=0.5)  # 2.5 g·mm per plane
     a1, g1 = _indications(3.1, 10.0, 40.0)
     a2, g2 = _indications(0.5, 90.0, 40.0)
-    res = tr.evaluate_proving_test(m, proving_rotor, test_mass_g=0.4, indicated_gmm=[a1, a2],
-                                   indicated_angles_deg=[g1, g2])
+    res = verifications.evaluate_proving_test(m, proving_rotor, test_mass_g=0.4,
+                                              indicated_gmm=[a1, a2],
+                                              indicated_angles_deg=[g1, g2])
     assert res.passed is False
     assert res.umar_gmm == pytest.approx(3.1, rel=1e-9)
     assert "plane 1" in res.reasons[0]
@@ -181,31 +183,51 @@ def test_proving_test_needs_the_quality_role_and_complete_readings(db, shop, ope
     m = shop.machine()
     a, g = _indications(1.0, 0.0, 40.0)
     with pytest.raises(PermissionDenied):
-        tr.record_proving_test(db, m, by=operator, performed_on=dt.date(2026, 11, 1),
-                               proving_rotor=proving_rotor, test_mass_g=0.4,
-                               indicated_gmm=[a, a], indicated_angles_deg=[g, g])
+        verifications.record_proving_test(db, m, by=operator, performed_on=dt.date(2026, 11, 1),
+                                          proving_rotor=proving_rotor, test_mass_g=0.4,
+                                          indicated_gmm=[a, a], indicated_angles_deg=[g, g])
     with pytest.raises(ValidationFailed) as exc:
-        tr.record_proving_test(db, m, by=quality, performed_on=dt.date(2026, 11, 1),
-                               proving_rotor=proving_rotor, test_mass_g=0.4,
-                               indicated_gmm=[a, [*a[:-1], "x"]])
+        verifications.record_proving_test(db, m, by=quality, performed_on=dt.date(2026, 11, 1),
+                                          proving_rotor=proving_rotor, test_mass_g=0.4,
+                                          indicated_gmm=[a, [*a[:-1], "x"]])
     assert exc.value.field == "plane_2.amplitude_8"
     with pytest.raises(ValidationFailed) as exc:
-        tr.record_proving_test(db, m, by=quality, performed_on=dt.date(2099, 1, 1),
-                               proving_rotor=proving_rotor, test_mass_g=0.4,
-                               indicated_gmm=[a, a])
+        verifications.record_proving_test(db, m, by=quality, performed_on=dt.date(2099, 1, 1),
+                                          proving_rotor=proving_rotor, test_mass_g=0.4,
+                                          indicated_gmm=[a, a])
     assert exc.value.field == "performed_on"
     assert db.scalar(select(MachineVerification).where(MachineVerification.machine_id == m.id)
                      ) is None
+
+
+def test_proposed_proving_test_splits_the_claim_between_two_planes(shop, proving_rotor  # type: ignore[no-untyped-def]
+                                                                    ) -> None:
+    # Claim 0.5 g·mm/kg × 10 kg = 5 g·mm, half per plane of the two-plane rotor = 2.5 g·mm;
+    # 15 × 2.5 g·mm (middle of the usual 10–20 ×, from memory of the ISO 21940-21 idea)
+    # = 37.5 g·mm at 100 mm → 0.375 g (hand calculation).
+    m = shop.machine(claimed_emar_gmm_per_kg=0.5)
+    d = verifications.proving_test_defaults(m, proving_rotor)
+    assert d.claimed_umar_gmm == pytest.approx(5.0)
+    assert d.test_mass_g == pytest.approx(0.375)
+    assert d.test_radius_mm == pytest.approx(100.0)
+    # The proposal keeps the test unbalance inside the range the evaluation warns about.
+    lo, hi = verifications.TEST_UNBALANCE_FACTORS
+    assert lo * 2.5 <= d.test_mass_g * 100.0 <= hi * 2.5
+    # No claim on record: nothing to propose a test mass from.
+    none = verifications.proving_test_defaults(shop.machine(claimed_emar_gmm_per_kg=None),
+                                               proving_rotor)
+    assert none.test_mass_g is None and none.claimed_umar_gmm is None
 
 
 def test_machine_without_a_claim_needs_one_given(db, shop, quality, proving_rotor) -> None:  # type: ignore[no-untyped-def]
     m = shop.machine(claimed_emar_gmm_per_kg=None)
     a, g = _indications(1.0, 0.0, 40.0)
     with pytest.raises(ValidationFailed) as exc:
-        tr.evaluate_proving_test(m, proving_rotor, test_mass_g=0.4, indicated_gmm=[a, a])
+        verifications.evaluate_proving_test(m, proving_rotor, test_mass_g=0.4, indicated_gmm=[a, a])
     assert exc.value.field == "claimed_umar_gmm"
-    res = tr.evaluate_proving_test(m, proving_rotor, test_mass_g=0.4, indicated_gmm=[a, a],
-                                   indicated_angles_deg=[g, g], claimed_umar=4.0)
+    res = verifications.evaluate_proving_test(m, proving_rotor, test_mass_g=0.4,
+                                              indicated_gmm=[a, a],
+                                              indicated_angles_deg=[g, g], claimed_umar=4.0)
     assert res.passed and res.planes[0].claim_gmm == pytest.approx(2.0)
 
 
@@ -213,7 +235,7 @@ def test_machine_without_a_claim_needs_one_given(db, shop, quality, proving_roto
 
 
 def test_arbor_error_from_simulated_index_runs(db, quality, operator) -> None:  # type: ignore[no-untyped-def]
-    arbor = tr.create_arbor(db, by=quality, name="Arbor 40 mm", mass_kg=6.0)
+    arbor = arbors.create_arbor(db, by=quality, name="Arbor 40 mm", mass_kg=6.0)
     # Simulation: rotor 90∠30° and 40∠250°, arbor 12∠300° and 7∠120° (g·mm, arbor frame);
     # second run after turning the rotor 180° on the arbor.
     u_r = [cmath.rect(90, math.radians(30)), cmath.rect(40, math.radians(250))]
@@ -224,35 +246,35 @@ def test_arbor_error_from_simulated_index_runs(db, quality, operator) -> None:  
 
     first = pairs([r + a for r, a in zip(u_r, u_a, strict=True)])
     second = pairs([-r + a for r, a in zip(u_r, u_a, strict=True)])
-    m = tr.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 3),
-                              first_run=first, second_run=second, rotor_mass_kg=20.0)
+    m = arbors.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 3),
+                                  first_run=first, second_run=second, rotor_mass_kg=20.0)
     assert m.error_1_gmm == pytest.approx(12.0, rel=1e-9)
     assert m.error_1_angle_deg == pytest.approx(300.0, abs=1e-9)
     assert m.error_2_gmm == pytest.approx(7.0, rel=1e-9)
     assert m.error_2_angle_deg == pytest.approx(120.0, abs=1e-9)
     assert m.readings["rotor_gmm"][0][0] == pytest.approx(90.0, rel=1e-9)
-    later = tr.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 20),
-                                  first_run=first, second_run=second)
-    assert tr.latest_arbor_error(db, arbor).id == later.id
-    assert tr.latest_arbor_error(db, arbor, dt.date(2026, 11, 10)).id == m.id
-    assert "more than 20 %" in tr.arbor_mass_note(m, 30.0)
-    assert tr.arbor_mass_note(m, 21.0) == ""
+    later = arbors.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 20),
+                                      first_run=first, second_run=second)
+    assert arbors.latest_arbor_error(db, arbor).id == later.id
+    assert arbors.latest_arbor_error(db, arbor, dt.date(2026, 11, 10)).id == m.id
+    assert "more than 20 %" in arbors.arbor_mass_note(m, 30.0)
+    assert arbors.arbor_mass_note(m, 21.0) == ""
 
 
 def test_arbor_needs_a_unique_name_and_bad_runs_save_nothing(db, quality, operator) -> None:  # type: ignore[no-untyped-def]
-    arbor = tr.create_arbor(db, by=quality, name="Arbor A")
+    arbor = arbors.create_arbor(db, by=quality, name="Arbor A")
     with pytest.raises(ValidationFailed) as exc:
-        tr.create_arbor(db, by=quality, name="Arbor A")
+        arbors.create_arbor(db, by=quality, name="Arbor A")
     assert exc.value.field == "name"
     with pytest.raises(PermissionDenied):
-        tr.create_arbor(db, by=operator, name="Arbor B")
+        arbors.create_arbor(db, by=operator, name="Arbor B")
     with pytest.raises(ValidationFailed) as exc:
-        tr.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 3),
-                              first_run=[(10.0, 0.0)], second_run=[(8.0, 0.0)], index_deg=5)
+        arbors.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 3),
+                                  first_run=[(10.0, 0.0)], second_run=[(8.0, 0.0)], index_deg=5)
     assert exc.value.field == "index_deg"
     with pytest.raises(ValidationFailed) as exc:
-        tr.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 3),
-                              first_run=[(10.0, 0.0)], second_run=[(-8.0, 0.0)])
+        arbors.record_arbor_error(db, arbor, by=operator, measured_on=dt.date(2026, 11, 3),
+                                  first_run=[(10.0, 0.0)], second_run=[(-8.0, 0.0)])
     assert exc.value.field == "second_run.plane_1.amplitude"
     assert db.scalar(select(ArborErrorMeasurement).where(
         ArborErrorMeasurement.arbor_id == arbor.id)) is None
@@ -263,11 +285,11 @@ def test_arbor_needs_a_unique_name_and_bad_runs_save_nothing(db, quality, operat
 
 def test_key_convention_of_a_rotor_type(db, shop, operator) -> None:  # type: ignore[no-untyped-def]
     rt = shop.rotor_type(radius_1_mm=100.0, radius_2_mm=100.0)
-    assert tr.key_info(rt).compensation is None
-    tr.set_key_convention(db, rt, by=operator, convention="half_key", key_width_mm=8,
-                          key_height_mm=7, key_length_mm=50, hub_length_mm=40, key_radius_mm=20,
-                          key_angle_deg=30)
-    info = tr.key_info(rt)
+    assert keys.key_info(rt).compensation is None
+    keys.set_key_convention(db, rt, by=operator, convention="half_key", key_width_mm=8,
+                            key_height_mm=7, key_length_mm=50, hub_length_mm=40, key_radius_mm=20,
+                            key_angle_deg=30)
+    info = keys.key_info(rt)
     # Hand computation (first principles, see shopapp.balancing.keys): ½·7.85·8·7·10/1000 g
     # at 20 mm = 43.96 g·mm; 0.4396 g at 100 mm, at 30° + 180°.
     assert info.compensation is not None
@@ -275,7 +297,7 @@ def test_key_convention_of_a_rotor_type(db, shop, operator) -> None:  # type: ig
     assert info.compensation.correction_angle_deg == pytest.approx(210.0)
     assert "half-key" in info.statement
     with pytest.raises(ValidationFailed) as exc:
-        tr.set_key_convention(db, rt, by=operator, convention="half_key", key_width_mm=-1)
+        keys.set_key_convention(db, rt, by=operator, convention="half_key", key_width_mm=-1)
     assert exc.value.field == "key_width_mm"
-    tr.set_key_convention(db, rt, by=operator, convention="none", key_width_mm=8)
-    assert rt.key_width_mm is None and tr.key_info(rt).note == ""
+    keys.set_key_convention(db, rt, by=operator, convention="none", key_width_mm=8)
+    assert rt.key_width_mm is None and keys.key_info(rt).note == ""

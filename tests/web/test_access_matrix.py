@@ -19,8 +19,10 @@ from sqlalchemy.orm import Session
 
 from shopapp.certificates import issue as certificates
 from shopapp.core.permissions import PERMISSIONS
-from shopapp.jobs import services as jobs
+from shopapp.jobs.runs import record_run
+from shopapp.jobs.states import mark_in_tolerance
 from shopapp.models import Arbor
+from shopapp.resonance import samples as resonance_samples
 
 ROLES = ("operator", "quality", "owner", "admin")
 
@@ -110,6 +112,12 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "evidence.job_index_runs": (None, "work_jobs"),
     "evidence.job_subtraction": (None, "work_jobs"),
     "evidence.repeat_runs": ("work_jobs", "work_jobs"),
+    # resonance
+    "resonance.index": ("read", None),
+    "resonance.detail": ("read", None),
+    "resonance.new_for_job": ("work_jobs", "work_jobs"),
+    "resonance.new_for_machine": ("work_jobs", "work_jobs"),
+    "resonance.loose_mass": ("read", None),
     # admin
     "admin.users": ("manage_users", "manage_users"),
     "admin.user_role": (None, "manage_users"),
@@ -161,19 +169,20 @@ def ids(db: Session, shop: Any, make_user: Callable[..., Any]) -> dict[str, Any]
     rt = shop.rotor_type()
     rotor = shop.rotor(rt)
     job = shop.job(rotor, machine=machine)
-    jobs.record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
-                    readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
-    jobs.record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
-                    readings=[(1, 50.0, 10.0, "g·mm"), (2, 40.0, 100.0, "g·mm")])
-    jobs.mark_in_tolerance(db, job, by=operator)
+    record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
+               readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
+    record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
+               readings=[(1, 50.0, 10.0, "g·mm"), (2, 40.0, 100.0, "g·mm")])
+    mark_in_tolerance(db, job, by=operator)
     cert = certificates.issue(db, job, by=quality)
     arbor = Arbor(name="Arbor A-1 (test)")
     db.add(arbor)
     db.flush()
+    run_up = resonance_samples.add_sample_run_up(db, job, by=operator)
     db.commit()
     return {"job_id": job.id, "customer_id": rt.customer_id, "machine_id": machine.id,
             "rotor_type_id": rt.id, "rotor_id": rotor.id, "user_id": operator.id,
-            "cert_id": cert.id, "arbor_id": arbor.id, "plane": 1}
+            "cert_id": cert.id, "arbor_id": arbor.id, "plane": 1, "run_up_id": run_up.id}
 
 
 def _url(app: Flask, rule: Any, ids: dict[str, Any]) -> str:

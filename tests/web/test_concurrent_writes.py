@@ -45,7 +45,7 @@ def live_app(fresh_database_url: str, tmp_path: Path) -> Iterator[Flask]:
 
 def _setup(app: Flask) -> tuple[list[str], int, int, int]:
     """Users, a rotor type, a machine and one booked job; returns names and ids."""
-    from shopapp.jobs import services as jobs
+    from shopapp.jobs import intake as jobs
 
     with app.extensions["shopapp.db"].session() as db:
         users = [factories.user(db, username=f"op{i}", role="operator", password=PASSWORD)

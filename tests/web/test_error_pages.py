@@ -6,7 +6,7 @@ from typing import Any
 
 from sqlalchemy.exc import OperationalError
 
-from shopapp.jobs import services as jobs
+from shopapp.jobs import runs as jobs
 from shopapp.models import Job
 
 

@@ -1,8 +1,8 @@
-"""Rotor-type (geometry), rotor and one-off rotor forms.
+"""Registry forms: customers, balancing machines, rotor types (geometry), rotors, one-off rotors.
 
-The forms check types (a number is a number); the registry service checks the
-rules (bearings apart, planes within bounds, ...) and its messages are put
-beside the same fields.
+The forms check types (a number is a number); the registry's use-cases check the
+rules (bearings apart, planes within bounds, ...) and their messages are put
+beside the same fields (``shopapp.core.forms.apply_errors``).
 """
 
 from __future__ import annotations
@@ -10,12 +10,83 @@ from __future__ import annotations
 from typing import Any
 
 from flask_wtf import FlaskForm
-from wtforms import StringField, TextAreaField
+from wtforms import BooleanField, StringField, TextAreaField
 from wtforms.validators import InputRequired, Length, Optional
 
+from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
+from shopapp.core.display import plain
 from shopapp.core.forms import ChoiceField, NumberField, WholeNumberField
-from shopapp.models import CORRECTION_METHODS, KEY_CONVENTIONS, ROTATIONS, ROTOR_KINDS
-from shopapp.registry.services import GEOMETRY_FIELDS, GRADE_VALUES_MM_S
+from shopapp.models import (
+    BEARING_KINDS,
+    CORRECTION_METHODS,
+    KEY_CONVENTIONS,
+    ROTATIONS,
+    ROTOR_KINDS,
+)
+from shopapp.registry.machines import MACHINE_FIELDS
+from shopapp.registry.rotor_types import GEOMETRY_FIELDS
+
+# --------------------------------------------------------------------------- customers
+
+
+class CustomerForm(FlaskForm):
+    name = StringField(
+        "Name", validators=[InputRequired("Give the customer's name."), Length(max=200)]
+    )
+    contact = StringField("Contact person", validators=[Length(max=200)])
+    email = StringField("E-mail", validators=[Length(max=200)])
+    phone = StringField("Phone", validators=[Length(max=64)])
+    address = TextAreaField("Address", validators=[Length(max=2000)])
+    notes = TextAreaField("Notes", validators=[Length(max=5000)])
+    requires_residual_test = BooleanField("Residual-unbalance test on every job by default")
+
+    def values(self) -> dict[str, object]:
+        return {
+            "name": self.name.data or "",
+            "contact": self.contact.data or "",
+            "email": self.email.data or "",
+            "phone": self.phone.data or "",
+            "address": self.address.data or "",
+            "notes": self.notes.data or "",
+            "requires_residual_test": bool(self.requires_residual_test.data),
+        }
+
+
+# --------------------------------------------------------------------------- machines
+
+BEARING_LABELS = {"hard": "hard-bearing (runs below resonance)", "soft": "soft-bearing (above it)"}
+
+
+class MachineForm(FlaskForm):
+    name = StringField(
+        "Name", validators=[InputRequired("Give the machine a name."), Length(max=100)]
+    )
+    bearing_kind = ChoiceField(
+        "Bearing kind", choices=[(k, BEARING_LABELS[k]) for k in BEARING_KINDS]
+    )
+    min_mass_kg = NumberField("Smallest rotor mass (kg)", validators=[Optional()])
+    max_mass_kg = NumberField("Largest rotor mass (kg)", validators=[InputRequired("Required.")])
+    min_speed_rpm = NumberField("Lowest balancing speed (rpm)", validators=[Optional()])
+    max_speed_rpm = NumberField(
+        "Highest balancing speed (rpm)", validators=[InputRequired("Required.")]
+    )
+    claimed_emar_gmm_per_kg = NumberField(
+        "Claimed minimum achievable residual specific unbalance (g·mm/kg)", validators=[Optional()]
+    )
+    claimed_urr_pct = NumberField("Claimed unbalance reduction ratio (%)", validators=[Optional()])
+    suspension_resonance_rpm = NumberField(
+        "Rotor-on-suspension resonance (rpm)", validators=[Optional()]
+    )
+    verification_interval_days = WholeNumberField(
+        "Verification interval (days)", validators=[Optional()], default=365
+    )
+    notes = TextAreaField("Notes", validators=[Length(max=5000)])
+
+    def values(self) -> dict[str, Any]:
+        return {name: getattr(self, name).data for name in MACHINE_FIELDS}
+
+
+# --------------------------------------------------------------------------- rotor types and rotors
 
 _REQUIRED = "Required: type a number."
 
@@ -66,7 +137,7 @@ class GeometryForm(FlaskForm):
     tolerance_grade = ChoiceField(
         "Default balance grade",
         choices=[("", "none (set on each job)")]
-        + [(f"{g:g}", f"G {g:g}") for g in GRADE_VALUES_MM_S],
+        + [(plain(g), f"G {plain(g)}") for g in GRADE_VALUES_MM_S],
         default="",
     )
     tolerance_gmm = NumberField("Or an explicit limit (g·mm)", validators=[Optional()])
@@ -96,7 +167,7 @@ class GeometryForm(FlaskForm):
             getattr(self, name).data = getattr(rotor_type, name)
         self.method_2.data = rotor_type.method_2 or ""
         grade = rotor_type.tolerance_grade
-        self.tolerance_grade.data = f"{grade:g}" if grade is not None else ""
+        self.tolerance_grade.data = plain(grade) if grade is not None else ""
 
 
 class RotorTypeForm(GeometryForm):

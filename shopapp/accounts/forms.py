@@ -1,10 +1,10 @@
-"""User administration and shop settings forms."""
+"""Accounts forms: log-in, user administration and the shop's settings."""
 
 from __future__ import annotations
 
 from flask_wtf import FlaskForm
 from wtforms import PasswordField, StringField, TextAreaField
-from wtforms.validators import EqualTo, InputRequired, Length
+from wtforms.validators import DataRequired, EqualTo, InputRequired, Length
 
 from shopapp.accounts.users import MIN_PASSWORD_LENGTH
 from shopapp.core.forms import ChoiceField, NumberField, WholeNumberField
@@ -20,6 +20,11 @@ SENSE_LABELS = {
     "with_rotation": "in the direction of rotation",
     "against_rotation": "against the direction of rotation",
 }
+
+
+class LoginForm(FlaskForm):
+    username = StringField("Username", validators=[DataRequired(), Length(max=64)])
+    password = PasswordField("Password", validators=[DataRequired(), Length(max=200)])
 
 
 class AddUserForm(FlaskForm):

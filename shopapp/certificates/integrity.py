@@ -1,0 +1,227 @@
+"""Do the stored certificates still hold what was certified? (``shopapp db check``)
+
+The database refuses changes to certificates and to the evidence of certified jobs
+(migration 0003), but a restored old backup, a file copied in by hand or someone
+with the rights to drop a trigger could still leave a shop with certificates that
+no longer agree with their own hashes or with the runs behind them. This check
+reads everything back:
+
+- every certificate: the SHA-256 of its stored certified data (canonical JSON) and
+  of its PDF equal the stored hashes; the data reads back, is canonical and names
+  the row's number and revision;
+- every issued (valid) certificate: the certified data is derived again from the
+  job's stored runs, readings and corrections (:func:`services.evidence` and
+  :func:`services.build_data`, exactly as at issue) and the values that come from
+  that evidence are compared with the certificate: the judged run, balancing speed
+  and date, the verdict, the initial and residual unbalance per plane and every
+  correction. Values that may change for honest reasons after issue (names,
+  addresses, the rotor type's description and geometry, the tolerance's limits)
+  are not compared. Angles and correction details are compared only while the
+  shop's angle convention and unit are the ones printed on the certificate.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from shopapp.certificates import issue as services
+from shopapp.core.display import plain
+from shopapp.core.errors import TransitionRefused
+from shopapp.models import Certificate, Job, User
+from shopapp.reports import certificate as report
+from shopapp.reports.certificate import CertificateData, CorrectionLine, PlaneVector
+
+CHUNK = 50  # certificates read at a time (each carries its PDF)
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One thing about one certificate revision that does not agree."""
+
+    number: str
+    revision: int
+    what: str
+
+    def __str__(self) -> str:
+        return f"{self.number} revision {self.revision}: {self.what}"
+
+
+@dataclass(frozen=True)
+class IntegrityReport:
+    """What :func:`check_certificates` read and what it found."""
+
+    certificates: int
+    issued: int
+    findings: tuple[Finding, ...]
+    notes: tuple[str, ...] = ()
+
+    @property
+    def ok(self) -> bool:
+        return not self.findings
+
+
+def _short(digest: str) -> str:
+    return digest[:16] + "…"
+
+
+def _stored_checks(number: str, revision: int, data_json: str, data_sha: str, pdf: bytes,
+                   pdf_sha: str) -> tuple[list[str], CertificateData | None]:
+    """The hashes and the readability of one stored certificate."""
+    out = []
+    actual = hashlib.sha256(data_json.encode("utf-8")).hexdigest()
+    if actual != data_sha:
+        out.append(f"the certified data hashes to {_short(actual)}, the stored content hash "
+                   f"(printed on the certificate) is {_short(data_sha)}")
+    actual_pdf = hashlib.sha256(pdf).hexdigest()
+    if actual_pdf != pdf_sha:
+        out.append(f"the stored PDF hashes to {_short(actual_pdf)}, the stored PDF hash is "
+                   f"{_short(pdf_sha)}")
+    try:
+        data = CertificateData.from_json(data_json)
+    except (ValueError, TypeError, KeyError) as exc:
+        out.append(f"the certified data cannot be read ({exc.__class__.__name__}: {exc})")
+        return out, None
+    if report.canonical_json(data) != data_json:
+        out.append("the certified data is not in its canonical form (it was rewritten)")
+    if (data.number, data.revision) != (number, revision):
+        out.append(f"the certified data names {data.number} revision {data.revision}")
+    return out, data
+
+
+def _num(value: float | None, unit: str = "") -> str:
+    if value is None:
+        return "none"
+    return f"{plain(value)}{(' ' + unit) if unit else ''}"
+
+
+def _vector(v: PlaneVector | None, angles: bool) -> str:
+    if v is None:
+        return "none"
+    text = _num(v.unbalance_gmm, "g·mm")
+    return f"{text} at {plain(v.angle_deg)}°" if angles else text
+
+
+def _vectors(name: str, certified: Sequence[PlaneVector], stored: Sequence[PlaneVector],
+             angles: bool) -> list[str]:
+    out = []
+    a = {v.plane: v for v in certified}
+    b = {v.plane: v for v in stored}
+    for plane in sorted(set(a) | set(b)):
+        x, y = a.get(plane), b.get(plane)
+        same = (x is not None and y is not None and x.unbalance_gmm == y.unbalance_gmm
+                and (not angles or x.angle_deg == y.angle_deg))
+        if not same:
+            out.append(f"{name} unbalance plane {plane}: certified {_vector(x, angles)}, the "
+                       f"stored evidence gives {_vector(y, angles)}")
+    return out
+
+
+def _correction(c: CorrectionLine, angles: bool) -> str:
+    text = f"plane {c.plane} {c.action} {_num(c.mass_g, 'g')} at radius {_num(c.radius_mm, 'mm')}"
+    if angles:
+        text += f", {plain(c.angle_deg)}°" + (f" ({c.details})" if c.details else "")
+    return text
+
+
+def _corrections(certified: Sequence[CorrectionLine], stored: Sequence[CorrectionLine],
+                 angles: bool) -> list[str]:
+    a = [_correction(c, angles) for c in certified]
+    b = [_correction(c, angles) for c in stored]
+    if a == b:
+        return []
+    if len(a) != len(b):
+        return [f"corrections: {len(a)} certified, {len(b)} in the stored evidence "
+                f"(certified: {'; '.join(a) or 'none'}; stored: {'; '.join(b) or 'none'})"]
+    return [f"correction {k}: certified {x}, the stored evidence gives {y}"
+            for k, (x, y) in enumerate(zip(a, b, strict=True), start=1) if x != y]
+
+
+def evidence_differences(certified: CertificateData, derived: CertificateData) -> list[str]:
+    """What the evidence-derived values of ``derived`` change against ``certified``."""
+    angles = (certified.angle_convention == derived.angle_convention
+              and certified.unit == derived.unit)
+    out = []
+    scalars = (
+        ("judged run", certified.final_run, derived.final_run, ""),
+        ("initial run", certified.initial_run, derived.initial_run, ""),
+        ("balancing speed", certified.balancing_speed_rpm, derived.balancing_speed_rpm, "rpm"),
+        ("balanced on", certified.balanced_on, derived.balanced_on, ""),
+        ("verdict", certified.passed, derived.passed, ""),
+    )
+    for name, x, y, unit in scalars:
+        if x != y:
+            shown = [_num(v, unit) if isinstance(v, float) else str(v) for v in (x, y)]
+            out.append(f"{name}: certified {shown[0]}, the stored evidence gives {shown[1]}")
+    out += _vectors("initial", certified.initial, derived.initial, angles)
+    out += _vectors("residual", certified.residual, derived.residual, angles)
+    out += _corrections(certified.corrections, derived.corrections, angles)
+    return out
+
+
+def _derived_checks(session: Session, cert: Certificate, data: CertificateData
+                    ) -> tuple[list[str], bool]:
+    """Differences between ``data`` and the data derived again from the job's evidence.
+
+    The flag says whether angles could be compared (same display convention).
+    """
+    job = session.get(Job, cert.job_id)
+    issuer = session.get(User, cert.issued_by_id)
+    if job is None or issuer is None:
+        return ["its job or its issuer is missing from the database"], True
+    try:
+        ev = services.evidence(session, job)
+    except TransitionRefused as exc:
+        return [f"the stored evidence no longer certifies the job: {exc.message}"], True
+    derived = services.build_data(session, ev, number=cert.number, revision=cert.revision,
+                                  reason=cert.reason, issued_at=cert.issued_at,
+                                  issued_by=issuer)
+    same_convention = (data.angle_convention == derived.angle_convention
+                       and data.unit == derived.unit)
+    return evidence_differences(data, derived), same_convention
+
+
+def _chunks(ids: Sequence[int]) -> Iterator[Sequence[int]]:
+    for i in range(0, len(ids), CHUNK):
+        yield ids[i:i + CHUNK]
+
+
+def check_certificates(session: Session) -> IntegrityReport:
+    """Check every stored certificate (read only; see the module docstring)."""
+    ids = list(session.scalars(
+        select(Certificate.id).order_by(Certificate.number, Certificate.revision)
+    ))
+    findings: list[Finding] = []
+    issued = 0
+    angles_skipped = 0
+    for chunk in _chunks(ids):
+        rows = session.execute(
+            select(Certificate.id, Certificate.number, Certificate.revision, Certificate.state,
+                   Certificate.data_json, Certificate.data_sha256, Certificate.pdf,
+                   Certificate.pdf_sha256)
+            .where(Certificate.id.in_(chunk))
+            .order_by(Certificate.number, Certificate.revision)
+        ).all()
+        for cid, number, revision, state, data_json, data_sha, pdf, pdf_sha in rows:
+            problems, data = _stored_checks(number, revision, data_json, data_sha, pdf, pdf_sha)
+            if state == "issued":
+                issued += 1
+                if data is not None:
+                    cert = session.get(Certificate, cid)
+                    assert cert is not None
+                    more, compared = _derived_checks(session, cert, data)
+                    problems += more
+                    angles_skipped += 0 if compared else 1
+            findings += [Finding(number, revision, p) for p in problems]
+        session.expunge_all()  # nothing is written; keep memory flat over a long register
+    notes = []
+    if angles_skipped:
+        notes.append(f"angles and correction details were not compared on {angles_skipped} "
+                     "valid certificate(s): the shop's angle convention or unit changed after "
+                     "they were issued")
+    return IntegrityReport(len(ids), issued, tuple(findings), tuple(notes))
+

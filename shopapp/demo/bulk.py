@@ -1,0 +1,50 @@
+"""A much larger demo history for benchmarks (e.g. 100 000 jobs and 1 000 000 runs)."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+from sqlalchemy.orm import Session
+
+from shopapp.core.errors import ValidationFailed
+from shopapp.demo.loader import DemoLoad, DemoSummary, Progress, Steps
+
+
+def generate_bulk(
+    session: Session,
+    *,
+    jobs: int,
+    runs_per_job: int = 10,
+    seed: int = 1,
+    years: float = 2.0,
+    end_date: dt.date | None = None,
+    now: dt.datetime | None = None,
+    force: bool = False,
+    progress: Progress | None = None,
+    steps: Steps | None = None,
+) -> DemoSummary:
+    """A large demo history for benchmarks: about ``jobs`` jobs and ``jobs·runs_per_job`` runs.
+
+    Same shop and physics as :func:`shopapp.demo.loader.load_demo`, but
+    corrections and verdicts come from the balancing core's batch forms
+    (:func:`shopapp.balancing.influence.solve_two_plane_batch`,
+    :func:`shopapp.balancing.tolerance.judge_residuals_batch`) instead of one
+    validated call per step, jobs repeat their final run until they have
+    ``runs_per_job`` runs (a repeatability record, as a shop keeps for the
+    balance-error estimate), fleets grow with the job count, and no
+    certificates, residual-unbalance tests or arbor jobs are made (the
+    machines' proving tests are). Rows go in with bulk inserts in chunks
+    (:mod:`shopapp.demo.store`). About 100 000 jobs / 1 000 000 runs take a
+    few minutes on SQLite. The caller commits.
+    """
+    if jobs < 1:
+        raise ValidationFailed("jobs", f"must be at least 1, got {jobs}")
+    if runs_per_job < 4:
+        raise ValidationFailed(
+            "runs_per_job", f"must be at least 4 (initial, two trials, a check), got {runs_per_job}"
+        )
+    load = DemoLoad(session, seed=seed, years=years, now=now, end_date=end_date,
+                    total_jobs=jobs, runs_per_job=runs_per_job, force=force, progress=progress,
+                    steps=steps, exact=False, with_certificates=False)
+    load.shop_and_history()
+    return load.summary()

@@ -1,0 +1,153 @@
+"""How the demo writes its rows: explicit ids, bulk INSERTs in chunks, one storage format.
+
+Values go in as Python objects (aware datetimes, dates, dicts) and are stored
+by the columns' own types (:class:`shopapp.models.base.UTCDateTime` …): the
+Core ``insert(Model.__table__)``; in bulk mode on SQLite the same values are
+turned into what the driver stores by each column type's own bind processor
+and handed to ``executemany`` directly (SQLAlchemy's per-row statement
+handling is a third of the bulk time), so the storage format has one home.
+"""
+
+from __future__ import annotations
+
+import operator
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from sqlalchemy import func, insert, select, text
+from sqlalchemy.orm import Session
+
+from shopapp.models import (
+    AuditEvent,
+    Certificate,
+    Correction,
+    Customer,
+    InfluenceSet,
+    Job,
+    JobTransition,
+    Machine,
+    MachineVerification,
+    Rotor,
+    RotorType,
+    Run,
+    RunReading,
+    User,
+)
+
+CHUNK = 5000
+# Tables the generator writes with explicit ids (their sequences are moved on for PostgreSQL).
+ID_TABLES = (User, Customer, RotorType, Rotor, Machine, MachineVerification, Job,
+             JobTransition, Run, RunReading, Correction, InfluenceSet, AuditEvent, Certificate)
+
+
+class Ids:
+    """Explicit primary keys, continuing after what the database already holds."""
+
+    def __init__(self, session: Session) -> None:
+        self._next: dict[str, int] = {}
+        for model in ID_TABLES:
+            top = session.scalar(select(func.max(model.id))) or 0
+            self._next[model.__tablename__] = top + 1
+
+    def take(self, model: type[Any]) -> int:
+        name = model.__tablename__
+        value = self._next[name]
+        self._next[name] = value + 1
+        return value
+
+
+@dataclass
+class Rows:
+    """Rows collected for bulk insertion, in foreign-key order."""
+
+    jobs: list[dict[str, Any]] = field(default_factory=list)
+    transitions: list[dict[str, Any]] = field(default_factory=list)
+    runs: list[dict[str, Any]] = field(default_factory=list)
+    readings: list[dict[str, Any]] = field(default_factory=list)
+    corrections: list[dict[str, Any]] = field(default_factory=list)
+    audits: list[dict[str, Any]] = field(default_factory=list)
+
+
+class Store:
+    """Ids, the rows waiting to be written and how they are written."""
+
+    def __init__(self, session: Session, *, bulk: bool) -> None:
+        self.session = session
+        self.ids = Ids(session)
+        self.rows = Rows()
+        self.counts = {"jobs": 0, "runs": 0, "readings": 0, "corrections": 0,
+                       "transitions": 0, "audits": 0, "sets": 0}
+        self.job_states: list[str] = []
+        # Bulk mode on SQLite hands the stored values to the driver itself.
+        self.to_driver = bulk and session.get_bind().dialect.name == "sqlite"
+
+    def audit(self, at: Any, by: int | None, entity: str, entity_id: int | None,
+              action: str, after: dict[str, Any] | None = None,
+              before: dict[str, Any] | None = None, job_id: int | None = None) -> None:
+        self.rows.audits.append({
+            "id": self.ids.take(AuditEvent), "at": at, "user_id": by, "entity": entity,
+            "entity_id": entity_id, "action": action, "before": before, "after": after,
+            "job_id": job_id,
+        })
+
+    def insert(self, model: type[Any], rows: list[dict[str, Any]]) -> None:
+        """Core bulk INSERT in chunks (bulk mode on SQLite: straight to the driver)."""
+        if not rows:
+            return
+        table = model.__table__
+        if self.to_driver:
+            _insert_driver(self.session, table, rows)
+            return
+        for i in range(0, len(rows), CHUNK):
+            self.session.execute(insert(table), rows[i:i + CHUNK])
+
+    def flush_rows(self) -> None:
+        """Insert the collected job rows (foreign-key order) and forget them."""
+        rows = self.rows
+        for model, batch, name in (
+            (Job, rows.jobs, "jobs"), (JobTransition, rows.transitions, "transitions"),
+            (Run, rows.runs, "runs"), (RunReading, rows.readings, "readings"),
+            (Correction, rows.corrections, "corrections"), (AuditEvent, rows.audits, "audits"),
+        ):
+            self.insert(model, batch)
+            self.counts[name] += len(batch)
+        self.job_states.extend(r["state"] for r in rows.jobs)
+        for batch in (rows.jobs, rows.transitions, rows.runs, rows.readings, rows.corrections,
+                      rows.audits):
+            batch.clear()
+
+    def move_sequences(self) -> None:
+        """After explicit ids, move PostgreSQL's id sequences past the largest id."""
+        if self.session.get_bind().dialect.name != "postgresql":
+            return
+        for model in ID_TABLES:
+            name = model.__tablename__
+            self.session.execute(text(
+                f"SELECT setval(pg_get_serial_sequence('{name}', 'id'), "
+                f"(SELECT COALESCE(MAX(id), 0) + 1 FROM {name}), false)"
+            ))
+
+
+def _insert_driver(session: Session, table: Any, rows: list[dict[str, Any]]) -> None:
+    """executemany through the driver, each value stored as its column type stores it."""
+    dialect = session.get_bind().dialect
+    cols = list(rows[0])
+    sql = (f"INSERT INTO {table.name} ({', '.join(cols)}) "
+           f"VALUES ({', '.join('?' for _ in cols)})")
+    get = operator.itemgetter(*cols)
+    convert: list[tuple[int, Callable[[Any], Any]]] = []
+    for i, c in enumerate(cols):
+        process = table.c[c].type.dialect_impl(dialect).bind_processor(dialect)
+        if process is not None:
+            convert.append((i, process))
+    conn = session.connection()
+    for start in range(0, len(rows), CHUNK):
+        params = []
+        for row in rows[start:start + CHUNK]:
+            values = list(get(row)) if len(cols) > 1 else [get(row)]
+            for i, process in convert:
+                if values[i] is not None:
+                    values[i] = process(values[i])
+            params.append(tuple(values))
+        conn.exec_driver_sql(sql, params)

@@ -1,0 +1,330 @@
+"""Read-only queries of the jobs pages: the job with what its page shows, its computed
+state, the job list and its filters, the start-page panel, the choice lists of the
+forms and what intake shows for a known serial.
+
+Nothing here writes (docs/architecture.md, "Inside a feature package").
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, fields
+from typing import Any
+
+from sqlalchemy import Select, and_, func, or_, select
+from sqlalchemy.orm import Session, joinedload, selectinload
+
+from shopapp.core.errors import NotFound
+from shopapp.jobs import calc as job_calc
+from shopapp.jobs import evidence
+from shopapp.models import (
+    JOB_KINDS,
+    JOB_STATES,
+    AuditEvent,
+    Customer,
+    InfluenceSet,
+    Job,
+    Machine,
+    Rotor,
+    RotorType,
+    Run,
+    User,
+)
+from shopapp.registry import rotors
+
+# A rotor with a job in one of these states is still in the shop.
+OPEN_STATES = ("booked_in", "on_machine", "in_tolerance", "certified")
+
+
+# --------------------------------------------------------------------------- one job
+
+
+def load_job(session: Session, job_id: int) -> Job:
+    """A job with everything its page shows, in a fixed number of queries."""
+    stmt = (
+        select(Job)
+        .where(Job.id == job_id)
+        .options(
+            joinedload(Job.customer),
+            joinedload(Job.rotor).joinedload(Rotor.rotor_type),
+            joinedload(Job.machine),
+            joinedload(Job.operator),
+            joinedload(Job.return_of),
+            selectinload(Job.runs).selectinload(Run.readings),
+            selectinload(Job.corrections),
+            selectinload(Job.transitions),
+        )
+    )
+    job = session.scalars(stmt).unique().first()
+    if job is None:
+        raise NotFound(f"no job with id {job_id}")
+    return job
+
+
+def influence_sets_for(session: Session, job: Job) -> list[InfluenceSet]:
+    """Stored sets of the job's rotor type on the job's machine (any speed)."""
+    if job.machine_id is None:
+        return []
+    stmt = select(InfluenceSet).where(
+        InfluenceSet.rotor_type_id == job.rotor.rotor_type_id,
+        InfluenceSet.machine_id == job.machine_id,
+    ).order_by(InfluenceSet.learned_at.desc(), InfluenceSet.id.desc())
+    return list(session.scalars(stmt))
+
+
+def evaluate(session: Session, job: Job, *, drill_diameter_mm: float | None = None
+             ) -> job_calc.JobCalc:
+    """:func:`shopapp.jobs.calc.evaluate` with the job's stored sets loaded."""
+    kw: dict[str, Any] = {}
+    if drill_diameter_mm is not None:
+        kw["drill_diameter_mm"] = drill_diameter_mm
+    # A known arbor error the job subtracts (traceability); no query without an arbor.
+    kw["arbor_error_gmm"] = evidence.arbor_error_gmm(session, job)
+    return job_calc.evaluate(job, runs=job.runs, corrections=job.corrections,
+                             influence_sets=influence_sets_for(session, job), **kw)
+
+
+def job_audit_trail(session: Session, job_id: int) -> list[tuple[AuditEvent, str]]:
+    """The job's audit events, oldest first, with who did it (one query)."""
+    stmt = (
+        select(AuditEvent, User.full_name)
+        .outerjoin(User, User.id == AuditEvent.user_id)
+        .where(AuditEvent.job_id == job_id)
+        .order_by(AuditEvent.at, AuditEvent.id)
+    )
+    return [(ev, name or "system") for ev, name in session.execute(stmt)]
+
+
+def return_jobs_of(session: Session, job_id: int) -> list[Job]:
+    return list(session.scalars(
+        select(Job).where(Job.return_of_job_id == job_id).order_by(Job.id)))
+
+
+def open_job_of(session: Session, rotor_id: int) -> Job | None:
+    """The rotor's job that is still in the shop, if any."""
+    return session.scalars(select(Job).where(Job.rotor_id == rotor_id,
+                                             Job.state.in_(OPEN_STATES)).limit(1)).first()
+
+
+# --------------------------------------------------------------------------- intake
+
+
+@dataclass(frozen=True)
+class RotorHistory:
+    """What intake shows for a known serial: the rotor, its job count, last job and residual."""
+
+    rotor: Rotor
+    jobs: int
+    last_job: Job | None
+    last_verdict: job_calc.RunVerdict | None
+    open_job: Job | None
+
+
+def rotor_history(session: Session, customer_id: int, serial_number: str) -> RotorHistory | None:
+    """History of a known serial for the intake page, or None for an unknown serial."""
+    serial = "".join(ch for ch in serial_number if ord(ch) >= 32)
+    rotor = rotors.find_rotor(session, customer_id, serial)
+    if rotor is None:
+        return None
+    count = session.scalar(select(func.count()).select_from(Job).where(Job.rotor_id == rotor.id))
+    last_id = session.scalar(select(Job.id).where(Job.rotor_id == rotor.id)
+                             .order_by(Job.received_on.desc(), Job.id.desc()).limit(1))
+    last = load_job(session, last_id) if last_id is not None else None
+    verdict = None
+    if last is not None:
+        verdict = evaluate(session, last).last_check
+    return RotorHistory(rotor, count or 0, last, verdict, open_job_of(session, rotor.id))
+
+
+@dataclass(frozen=True)
+class IntakeChoices:
+    """The choices of the intake form: live customers, rotor types and machines."""
+
+    customers: Sequence[Any]
+    rotor_types: Sequence[Any]
+    machines: Sequence[Any]
+
+
+def intake_choices(session: Session) -> IntakeChoices:
+    """Customers, rotor types (with their customer's name) and machines not archived."""
+    customers = session.execute(select(Customer.id, Customer.name)
+                                .where(Customer.archived.is_(False))
+                                .order_by(Customer.name)).all()
+    types = session.execute(
+        select(RotorType.id, RotorType.part_number, RotorType.description, Customer.name)
+        .join(Customer, Customer.id == RotorType.customer_id)
+        .where(RotorType.archived.is_(False), RotorType.one_off.is_(False))
+        .order_by(Customer.name, RotorType.part_number)).all()
+    machines = session.execute(select(Machine.id, Machine.name, Machine.min_mass_kg,
+                                      Machine.max_mass_kg, Machine.max_speed_rpm)
+                               .where(Machine.archived.is_(False))
+                               .order_by(Machine.name)).all()
+    return IntakeChoices(customers, types, machines)
+
+
+# --------------------------------------------------------------------------- job list
+
+
+@dataclass
+class JobFilter:
+    """Filters of the job list (query parameters of ``/jobs``; dashboard links use them).
+
+    ``reworked``: True = reopened at least once or a return job; False = neither.
+    ``q`` searches job number, serial number and customer name (case-insensitive).
+    """
+
+    operator_id: int | None = None
+    machine_id: int | None = None
+    rotor_type_id: int | None = None
+    customer_id: int | None = None
+    rotor_id: int | None = None
+    state: str | None = None
+    kind: str | None = None
+    received_from: dt.date | None = None
+    received_to: dt.date | None = None
+    dispatched_from: dt.date | None = None
+    dispatched_to: dt.date | None = None
+    reworked: bool | None = None
+    q: str = ""
+
+    @classmethod
+    def from_args(cls, args: Mapping[str, Any]) -> tuple[JobFilter, list[str]]:
+        """Parse query parameters; junk values are dropped with a message, never an error."""
+        f = cls()
+        messages: list[str] = []
+        for fl in fields(cls):
+            raw = args.get(fl.name)
+            if raw is None or str(raw).strip() == "":
+                continue
+            # Control characters (NUL breaks PostgreSQL text) are never meaningful here.
+            text = "".join(ch for ch in str(raw) if ord(ch) >= 32).strip()[:200]
+            if not text:
+                continue
+            if fl.name.endswith("_id"):
+                if text.isdigit() and len(text) < 12:
+                    setattr(f, fl.name, int(text))
+                else:
+                    messages.append(f"{fl.name}: {text[:20]!r} is not an id; ignored")
+            elif fl.name in ("received_from", "received_to", "dispatched_from", "dispatched_to"):
+                try:
+                    setattr(f, fl.name, dt.date.fromisoformat(text))
+                except ValueError:
+                    messages.append(f"{fl.name}: {text[:20]!r} is not a date (YYYY-MM-DD); "
+                                    "ignored")
+            elif fl.name == "state":
+                if text in JOB_STATES:
+                    f.state = text
+                else:
+                    messages.append(f"state: {text[:20]!r} is not a job state; ignored")
+            elif fl.name == "kind":
+                if text in JOB_KINDS:
+                    f.kind = text
+                else:
+                    messages.append(f"kind: {text[:20]!r} is not new or return; ignored")
+            elif fl.name == "reworked":
+                if text in ("0", "1"):
+                    f.reworked = text == "1"
+                else:
+                    messages.append(f"reworked: {text[:20]!r} is not 0 or 1; ignored")
+            elif fl.name == "q":
+                f.q = text
+        return f, messages
+
+    def to_args(self) -> dict[str, str]:
+        """The filter as query parameters (for pager and links)."""
+        out: dict[str, str] = {}
+        for fl in fields(self):
+            v = getattr(self, fl.name)
+            if v is None or v == "":
+                continue
+            if isinstance(v, bool):
+                out[fl.name] = "1" if v else "0"
+            elif isinstance(v, dt.date):
+                out[fl.name] = v.isoformat()
+            else:
+                out[fl.name] = str(v)
+        return out
+
+
+def _like(text: str) -> str:
+    esc = text.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
+    return f"%{esc}%"
+
+
+def filtered_jobs_stmt(f: JobFilter) -> Select[Any]:
+    """Jobs matching ``f``, newest received first, with what the list shows eager-loaded."""
+    stmt = select(Job).options(
+        joinedload(Job.customer),
+        joinedload(Job.rotor).joinedload(Rotor.rotor_type),
+        joinedload(Job.machine),
+        joinedload(Job.operator),
+    )
+    conds: list[Any] = []
+    for name in ("operator_id", "machine_id", "customer_id", "rotor_id", "state", "kind"):
+        value = getattr(f, name)
+        if value is not None:
+            conds.append(getattr(Job, name) == value)
+    if f.rotor_type_id is not None:
+        conds.append(Job.rotor.has(Rotor.rotor_type_id == f.rotor_type_id))
+    if f.received_from is not None:
+        conds.append(Job.received_on >= f.received_from)
+    if f.received_to is not None:
+        conds.append(Job.received_on <= f.received_to)
+    if f.dispatched_from is not None:
+        conds.append(Job.dispatched_on >= f.dispatched_from)
+    if f.dispatched_to is not None:
+        conds.append(Job.dispatched_on <= f.dispatched_to)
+    if f.reworked is True:
+        conds.append(or_(Job.reopen_count > 0, Job.kind == "return"))
+    elif f.reworked is False:
+        conds.append(and_(Job.reopen_count == 0, Job.kind == "new"))
+    if f.q:
+        pat = _like(f.q)
+        conds.append(or_(
+            Job.number.ilike(pat, escape="\\"),
+            Job.rotor.has(Rotor.serial_number.ilike(pat, escape="\\")),
+            Job.customer.has(Customer.name.ilike(pat, escape="\\")),
+        ))
+    if conds:
+        stmt = stmt.where(*conds)
+    return stmt.order_by(Job.received_on.desc(), Job.id.desc())
+
+
+def filter_choices(session: Session) -> dict[str, Sequence[Any]]:
+    """The job list's filter choices: machines, operators, rotor types, customers (id, name)."""
+    return {
+        "machines": session.execute(select(Machine.id, Machine.name)
+                                    .order_by(Machine.name)).all(),
+        "operators": session.execute(select(User.id, User.full_name)
+                                     .where(User.role.in_(("operator", "quality")))
+                                     .order_by(User.full_name)).all(),
+        "rotor_types": session.execute(select(RotorType.id, RotorType.part_number)
+                                       .where(RotorType.one_off.is_(False))
+                                       .order_by(RotorType.part_number)).all(),
+        "customers": session.execute(select(Customer.id, Customer.name)
+                                     .order_by(Customer.name)).all(),
+    }
+
+
+# --------------------------------------------------------------------------- start page
+
+
+@dataclass(frozen=True)
+class HomePanel:
+    my_open: list[Job]
+    waiting: list[Job]
+
+
+def home_panel(session: Session, user: User, *, limit: int = 10) -> HomePanel:
+    """Start-page panel: the user's open jobs and the jobs waiting to start (2 queries)."""
+    base = select(Job).options(joinedload(Job.customer),
+                               joinedload(Job.rotor).joinedload(Rotor.rotor_type),
+                               joinedload(Job.machine))
+    mine = session.scalars(base.where(Job.operator_id == user.id,
+                                      Job.state.in_(("on_machine", "in_tolerance")))
+                           .order_by(Job.received_on, Job.id).limit(limit)).unique().all()
+    waiting = session.scalars(base.where(Job.state == "booked_in")
+                              .order_by(Job.promised_on.is_(None), Job.promised_on,
+                                        Job.received_on, Job.id).limit(limit)).unique().all()
+    return HomePanel(list(mine), list(waiting))

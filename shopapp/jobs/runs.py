@@ -1,0 +1,179 @@
+"""Runs: log a run of the rotor on the machine with its per-plane readings (and trial mass).
+
+A use-case (docs/architecture.md, "Inside a feature package"). The rotor's number
+of correction planes decides which readings a run needs: every plane of the
+rotor, and none beyond them.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from shopapp.balancing.phasors import normalize_deg
+from shopapp.core import audit, locks
+from shopapp.core.checks import Errors as _Errors
+from shopapp.core.checks import number as _num
+from shopapp.core.checks import text as _text
+from shopapp.core.errors import TransitionRefused
+from shopapp.core.permissions import require
+from shopapp.jobs import calc as job_calc
+from shopapp.jobs.learning import score_stored_set
+from shopapp.jobs.queries import evaluate
+from shopapp.jobs.states import REOPEN_FROM, start
+from shopapp.models import READING_UNITS, RUN_PURPOSES, Job, Run, RunReading, User
+from shopapp.registry.common import MAX_SPEED_RPM
+
+RUN_STATES = frozenset({"booked_in", "on_machine"})
+
+Reading = tuple[int, float, float, str]
+Trial = tuple[int, float, float, float]
+
+
+def _blank(value: Any) -> bool:
+    return value is None or (isinstance(value, str) and not value.strip())
+
+
+def _readings(e: _Errors, readings: Sequence[Any], planes: int
+              ) -> dict[int, tuple[float, float, str]]:
+    """Check the readings against the rotor's planes; plane → (amplitude, angle, unit)."""
+    needed = (f"Required for a {'two-plane' if planes == 2 else 'single-plane'} rotor: "
+              "type a number.")
+    clean: dict[int, tuple[float, float, str]] = {}
+    given: set[int] = set()
+    units = set()
+    for item in readings:
+        try:
+            plane, amplitude, angle, unit = item
+        except (TypeError, ValueError):
+            e.add("readings", "each reading is (plane, amplitude, angle_deg, unit)")
+            continue
+        if planes == 1 and plane == 2:
+            e.add("amplitude_2", "This rotor has one correction plane: leave plane 2 empty.")
+            continue
+        if plane not in range(1, planes + 1):
+            e.add("readings", f"plane {plane!r} does not exist: this rotor has {planes} plane(s)")
+            continue
+        if plane in given:
+            e.add("readings", f"plane {plane} is given twice")
+            continue
+        given.add(plane)
+        for field, value in ((f"amplitude_{plane}", amplitude), (f"angle_{plane}_deg", angle)):
+            if _blank(value):
+                e.add(field, needed)
+        amp = None if _blank(amplitude) else _num(e, f"amplitude_{plane}", amplitude,
+                                                   minimum=0.0, maximum=1e9)
+        ang = None if _blank(angle) else _num(e, f"angle_{plane}_deg", angle, minimum=-1e6,
+                                               maximum=1e6, unit="°")
+        if unit not in READING_UNITS:
+            e.add("unit", f"{str(unit)[:12]!r} is not a reading unit; use one of "
+                  + ", ".join(READING_UNITS))
+        units.add(unit)
+        if amp is not None and ang is not None:
+            clean[plane] = (amp, normalize_deg(ang), unit)
+    for p in range(1, planes + 1):
+        if p not in given:
+            e.add(f"amplitude_{p}", needed)
+            e.add(f"angle_{p}_deg", needed)
+    if len(units) > 1:
+        e.add("unit", "all readings of one run must be in the same unit")
+    return clean
+
+
+def _trial_columns(e: _Errors, trial: Any, planes: int) -> dict[str, Any]:
+    """The trial mass of a trial run as Run columns (plane, mass, internal angle, radius)."""
+    try:
+        t_plane, t_mass, t_angle, t_radius = trial
+    except (TypeError, ValueError):
+        t_plane = t_mass = t_angle = t_radius = None
+    if t_plane not in range(1, planes + 1):
+        e.add("trial_plane", f"must be a plane of this rotor (1–{planes})")
+    cols: dict[str, Any] = {
+        "trial_plane": t_plane,
+        "trial_mass_g": _num(e, "trial_mass_g", t_mass, above=0, maximum=1e6, unit="g"),
+        "trial_angle_deg": _num(e, "trial_angle_deg", t_angle, minimum=-1e6, maximum=1e6),
+        "trial_radius_mm": _num(e, "trial_radius_mm", t_radius, above=0, maximum=1e5,
+                                unit="mm"),
+    }
+    if cols["trial_angle_deg"] is not None:
+        cols["trial_angle_deg"] = normalize_deg(cols["trial_angle_deg"])
+    return cols
+
+
+def record_run(
+    session: Session,
+    job: Job,
+    *,
+    by: User,
+    purpose: str,
+    speed_rpm: float,
+    readings: Sequence[Reading],
+    trial: Trial | None = None,
+    earlier_trial_left_on: bool = False,
+    notes: str = "",
+) -> Run:
+    """Log a run: per-plane readings ``(plane, amplitude, angle_deg, unit)``, internal angles.
+
+    Every correction plane of the rotor needs its reading, and a single-plane
+    rotor takes none for plane 2. ``trial = (plane, mass_g, angle_deg,
+    radius_mm)`` for trial runs only. The first run moves a booked-in job onto
+    the machine. Angles are normalised to [0, 360). Errors name the form fields
+    ``amplitude_<plane>``, ``angle_<plane>_deg``, ``unit``, ``trial_*``,
+    ``speed_rpm``, ``purpose``.
+    """
+    require(by, "work_jobs")
+    if job.state not in RUN_STATES and not (purpose == "verification"
+                                            and job.state == "in_tolerance"):
+        raise TransitionRefused(f"Job {job.number} is {job.state.replace('_', ' ')}: runs are "
+                                "logged while it is booked in or on the machine"
+                                + (" (reopen it first)" if job.state in REOPEN_FROM else "."))
+    planes = job.rotor.rotor_type.planes
+    e = _Errors()
+    if purpose not in RUN_PURPOSES:
+        e.add("purpose", f"{str(purpose)[:20]!r} is not allowed; choose "
+              + ", ".join(RUN_PURPOSES))
+    speed = _num(e, "speed_rpm", speed_rpm, above=0, maximum=MAX_SPEED_RPM, unit="rpm")
+    note_text = _text(e, "notes", notes)
+    clean = _readings(e, readings, planes)
+    trial_cols: dict[str, Any] = {}
+    if purpose == "trial":
+        if trial is None:
+            e.add("trial_mass_g", "a trial run needs the trial mass, its plane, angle and radius")
+        else:
+            trial_cols = _trial_columns(e, trial, planes)
+    else:
+        if trial is not None:
+            e.add("trial_mass_g", "trial mass fields are only for trial runs")
+        if earlier_trial_left_on:
+            e.add("earlier_trial_left_on", "only for trial runs")
+    e.raise_if_any()
+    assert speed is not None
+    if job.state == "booked_in":
+        start(session, job, by=by, reason=f"first run logged ({purpose})")
+    locks.hold_row(session, job)  # the next run number is decided on the committed runs
+    seq = (session.scalar(select(func.max(Run.seq)).where(Run.job_id == job.id)) or 0) + 1
+    run = Run(job=job, seq=seq, purpose=purpose, speed_rpm=speed, notes=note_text, by_id=by.id,
+              earlier_trial_left_on=bool(earlier_trial_left_on and purpose == "trial"),
+              **trial_cols)
+    run.readings = [RunReading(plane=p, amplitude=a, angle_deg=g, unit=u)
+                    for p, (a, g, u) in sorted(clean.items())]
+    session.add(run)
+    session.flush()
+    if purpose in job_calc.CHECK_PURPOSES:
+        # Stored so the shop measures (first-pass rate) can read the verdict in SQL.
+        verdict = evaluate(session, job).verdicts.get(run.id)
+        run.within_tolerance = verdict.passed if verdict is not None and verdict.judged else None
+        session.flush()
+    audit.record(
+        session, by=by, entity="run", entity_id=run.id, action="record_run", job_id=job.id,
+        after={**audit.snapshot(run, ["seq", "purpose", "speed_rpm", "trial_plane",
+                                      "trial_mass_g", "trial_angle_deg", "trial_radius_mm",
+                                      "earlier_trial_left_on", "within_tolerance"]),
+               "readings": [[p, a, g, u] for p, (a, g, u) in sorted(clean.items())]},
+    )
+    if purpose in job_calc.CHECK_PURPOSES:
+        score_stored_set(session, job, run, by=by)
+    return run

@@ -1,0 +1,188 @@
+"""``shopapp db check``: certificates against their hashes and against the job's evidence.
+
+The database refuses these changes (migration 0003), so each test first takes the
+guards off the way an intruder with DDL rights would (drop or disable the triggers),
+changes a row, puts the guards back, and then expects the check to name the
+certificate and what differs. The expected values come from the tampering itself
+(the machine reads g·mm, so a reading *is* the residual unbalance it certifies).
+"""
+
+from __future__ import annotations
+
+import hashlib
+
+import pytest
+from click.testing import CliRunner
+from sqlalchemy import Connection, text
+from sqlalchemy.orm import Session
+
+from shopapp.certificates import issue as certificates
+from shopapp.cli import main
+from shopapp.core.database import make_engine
+from shopapp.jobs import states as jobs
+from shopapp.models import Base, Correction, Run, RunReading
+from tests import factories
+from tests.reports.samples import RESIDUAL_GMM, job_ready_for_certificate
+
+
+@pytest.fixture()
+def seeded(fresh_database_url, tmp_path, monkeypatch):  # type: ignore[no-untyped-def]
+    """Two certified jobs; the first certificate reissued (rev 1 void, rev 2 valid)."""
+    engine = make_engine(fresh_database_url)
+    Base.metadata.create_all(engine)
+    with Session(engine) as db:
+        operator = factories.user(db, username="ola", role="operator", password="long-enough-1")
+        quality = factories.user(db, username="quinn", role="quality", password="long-enough-1")
+        shop = factories.ShopFactory(db)
+        job = job_ready_for_certificate(db, shop, operator)
+        first = certificates.issue(db, job, by=quality)
+        second = certificates.reissue(db, first, by=quality, reason="order reference corrected")
+        other = certificates.issue(db, job_ready_for_certificate(db, shop, operator), by=quality)
+        check = db.query(Run).filter_by(job_id=job.id, purpose="check").one()
+        out = {
+            "number": first.number, "other": other.number, "job": job.id,
+            "check_run": check.id,
+            "reading": db.query(RunReading).filter_by(run_id=check.id, plane=1).one().id,
+            "correction": db.query(Correction).filter_by(job_id=job.id, plane=1).one().id,
+            "rev1": first.id, "rev2": second.id,
+        }
+        db.commit()
+    out["engine"] = engine
+    monkeypatch.setenv("SHOPAPP_DATABASE_URL", fresh_database_url)
+    monkeypatch.setenv("SHOPAPP_INSTANCE_PATH", str(tmp_path))
+    yield out
+    Base.metadata.drop_all(engine)
+    engine.dispose()
+
+
+def tamper(engine, tables: tuple[str, ...], *statements: tuple[str, dict]) -> None:  # type: ignore[no-untyped-def]
+    """Run ``statements`` with the triggers of ``tables`` out of the way, then put them back."""
+    with engine.begin() as conn:
+        saved = [_guards_off(conn, table) for table in tables]
+        for sql, params in statements:
+            conn.execute(text(sql), params)
+        for table, triggers in zip(tables, saved, strict=True):
+            _guards_on(conn, table, triggers)
+
+
+def _guards_off(conn: Connection, table: str) -> list[tuple[str, str]]:
+    if conn.dialect.name == "postgresql":
+        conn.execute(text(f"ALTER TABLE {table} DISABLE TRIGGER USER"))
+        return []
+    rows = [(name, sql) for name, sql in conn.execute(text(
+        "SELECT name, sql FROM sqlite_master WHERE type = 'trigger' AND tbl_name = :t"),
+        {"t": table})]
+    for name, _sql in rows:
+        conn.execute(text(f"DROP TRIGGER {name}"))
+    return rows
+
+
+def _guards_on(conn: Connection, table: str, triggers: list[tuple[str, str]]) -> None:
+    if conn.dialect.name == "postgresql":
+        conn.execute(text(f"ALTER TABLE {table} ENABLE TRIGGER USER"))
+    for _name, sql in triggers:
+        conn.execute(text(sql))
+
+
+def check():  # type: ignore[no-untyped-def]
+    return CliRunner().invoke(main, ["db", "check"], catch_exceptions=False)
+
+
+def test_a_sound_database_passes(seeded) -> None:  # type: ignore[no-untyped-def]
+    result = check()
+    assert result.exit_code == 0, result.output
+    assert "3 certificates checked (2 valid): all agree" in result.output
+
+
+def test_a_changed_reading_is_found_with_the_certificate_and_the_values(seeded) -> None:  # type: ignore[no-untyped-def]
+    certified_amplitude, angle = RESIDUAL_GMM[0]
+    tamper(seeded["engine"], ("run_reading",),
+           ("UPDATE run_reading SET amplitude = 123.5 WHERE id = :i", {"i": seeded["reading"]}))
+    result = check()
+    assert result.exit_code == 1
+    lines = [ln for ln in result.output.splitlines() if ln.startswith(seeded["number"])]
+    assert lines == [
+        f"{seeded['number']} revision 2: residual unbalance plane 1: certified "
+        f"{certified_amplitude:g} g·mm at {angle:g}°, the stored evidence gives "
+        f"123.5 g·mm at {angle:g}°"
+    ]
+    assert seeded["other"] not in result.output  # the other job's certificate is fine
+    assert "1 do not agree" in result.output
+
+
+def test_a_changed_correction_is_found(seeded) -> None:  # type: ignore[no-untyped-def]
+    tamper(seeded["engine"], ("correction",),
+           ("UPDATE correction SET mass_g = 31.5 WHERE id = :i", {"i": seeded["correction"]}))
+    result = check()
+    assert result.exit_code == 1
+    assert (f"{seeded['number']} revision 2: correction 1: certified plane 1 add 30 g at radius "
+            "300 mm, 210°, the stored evidence gives plane 1 add 31.5 g at radius 300 mm, "
+            "210°") in result.output
+
+
+def test_a_deleted_check_run_is_found(seeded) -> None:  # type: ignore[no-untyped-def]
+    run = {"i": seeded["check_run"]}
+    tamper(seeded["engine"], ("run", "run_reading"),
+           ("DELETE FROM run_reading WHERE run_id = :i", run),
+           ("DELETE FROM run WHERE id = :i", run))
+    result = check()
+    assert result.exit_code == 1
+    assert (f"{seeded['number']} revision 2: the stored evidence no longer certifies the job: "
+            in result.output)
+    assert "has no check or final run" in result.output
+
+
+def test_a_run_added_to_a_certified_job_is_found(seeded) -> None:  # type: ignore[no-untyped-def]
+    """Inserting is not refused by the database; the check still sees the new last run."""
+    engine = seeded["engine"]
+    with engine.begin() as conn:
+        conn.execute(text(
+            "INSERT INTO run (job_id, seq, purpose, speed_rpm, earlier_trial_left_on, notes, "
+            "taken_at) SELECT job_id, seq + 1, 'check', speed_rpm, earlier_trial_left_on, '', "
+            "taken_at FROM run WHERE id = :i"), {"i": seeded["check_run"]})
+        conn.execute(text(
+            "INSERT INTO run_reading (run_id, plane, amplitude, angle_deg, unit) "
+            "SELECT (SELECT max(id) FROM run), plane, amplitude, angle_deg, unit "
+            "FROM run_reading WHERE run_id = :i"), {"i": seeded["check_run"]})
+    result = check()
+    assert result.exit_code == 1
+    assert f"{seeded['number']} revision 2: judged run: certified 2, the stored evidence " \
+           "gives 3" in result.output
+
+
+def test_rewritten_certified_data_and_pdf_are_found_even_on_void_revisions(seeded) -> None:  # type: ignore[no-untyped-def]
+    engine = seeded["engine"]
+    with engine.connect() as conn:
+        data_json = conn.execute(text("SELECT data_json FROM certificate WHERE id = :i"),
+                                 {"i": seeded["rev1"]}).scalar_one()
+    forged = data_json.replace('"passed":true', '"passed":false')
+    assert forged != data_json
+    tamper(engine, ("certificate",),
+           ("UPDATE certificate SET data_json = :d WHERE id = :i",
+            {"d": forged, "i": seeded["rev1"]}),
+           ("UPDATE certificate SET pdf = :p WHERE id = :i",
+            {"p": b"%PDF-1.4 not the certificate", "i": seeded["rev2"]}))
+    result = check()
+    assert result.exit_code == 1
+    forged_hash = hashlib.sha256(forged.encode()).hexdigest()
+    assert (f"{seeded['number']} revision 1: the certified data hashes to {forged_hash[:16]}…"
+            in result.output)
+    assert f"{seeded['number']} revision 2: the stored PDF hashes to" in result.output
+    assert "2 do not agree" in result.output
+
+
+def test_reopened_and_reworked_jobs_still_pass(seeded) -> None:  # type: ignore[no-untyped-def]
+    """Rework through the application voids the certificate first: nothing to report."""
+    engine = seeded["engine"]
+    with Session(engine) as db:
+        from shopapp.models import Job, User
+
+        job = db.get(Job, seeded["job"])
+        operator = db.query(User).filter_by(username="ola").one()
+        jobs.reopen(db, job, by=operator, reason="customer reports vibration")
+        db.execute(text("UPDATE run_reading SET amplitude = 123.5 WHERE id = :i"),
+                   {"i": seeded["reading"]})
+        db.commit()
+    result = check()
+    assert result.exit_code == 0, result.output
+    assert "3 certificates checked (1 valid): all agree" in result.output
