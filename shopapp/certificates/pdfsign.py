@@ -12,6 +12,11 @@ and appends ONE incremental update (pyHanko's incremental writer) that
 So the stored file starts with the unsigned rendering byte for byte, and the
 signature's ``/ByteRange`` covers everything but its own ``/Contents``.
 
+Signing many files (the demo shop issues some 670 at its first start) costs a
+key's pyHanko signer and the size of its signature once, not per file: pyHanko
+otherwise builds a dummy signature before every real one to size the space it
+reserves. :func:`sealer_for` keeps both per signer certificate for the process.
+
 :func:`inspect` checks a file without any database: the signature with pyHanko's
 validator (trusting the certificate the signature carries, so the answer is
 "intact or not"; whether that certificate is one of this shop's is a separate
@@ -25,6 +30,7 @@ states.
 
 from __future__ import annotations
 
+import asyncio
 import dataclasses
 import datetime as dt
 import hashlib
@@ -77,11 +83,52 @@ def pdf_signer(key: ShopKey) -> signers.SimpleSigner:
     )
 
 
+@dataclass(frozen=True)
+class Sealer:
+    """A shop key made ready to sign: pyHanko's signer and the signature space it needs.
+
+    ``bytes_reserved``: hex digits kept for the signature in ``/Contents``; pyHanko's
+    own estimate (a dummy signature's DER length, doubled for hex, plus its 50 %
+    margin), made once per key instead of before every file.
+    """
+
+    key: ShopKey
+    signer: signers.SimpleSigner
+    bytes_reserved: int
+
+
+_SEALERS: dict[str, Sealer] = {}  # by signer-certificate fingerprint (a key or two per process)
+
+
+def _reserve(signer: signers.SimpleSigner) -> int:
+    """The ``bytes_reserved`` pyHanko estimates for ``signer`` (same formula, see Sealer)."""
+    dummy = asyncio.run(signer.async_sign(hashlib.sha256(b"").digest(), "sha256",
+                                          dry_run=True, use_pades=True))
+    test_len = len(dummy.dump()) * 2
+    return test_len + 2 * (test_len // 4)
+
+
+def sealer_for(key: ShopKey) -> Sealer:
+    """The :class:`Sealer` of ``key``, built on first use in this process.
+
+    Keyed by the signer certificate's fingerprint: a rotated or imported key has a new
+    certificate and gets its own; the private key must belong to that certificate
+    (:mod:`shopapp.certificates.signing` refuses a key file where it does not).
+    """
+    fingerprint = key.info.fingerprint
+    made = _SEALERS.get(fingerprint)
+    if made is None:
+        signer = pdf_signer(key)
+        made = Sealer(key, signer, _reserve(signer))
+        _SEALERS[fingerprint] = made
+    return made
+
+
 def seal(unsigned: bytes, data_json: str, key: ShopKey | None, *, reason: str) -> bytes:
     """``unsigned`` + one incremental update: the embedded data and, with a key, the signature.
 
-    Without a key (the demo shop's historical replay) the data is still embedded;
-    the file is then not signed and :func:`inspect` says so.
+    Without a key (a caller that signs nothing) the data is still embedded; the file is
+    then not signed and :func:`inspect` says so.
     """
     writer = IncrementalPdfFileWriter(io.BytesIO(unsigned))
     stream = embed.EmbeddedFileObject.from_file_data(
@@ -96,11 +143,13 @@ def seal(unsigned: bytes, data_json: str, key: ShopKey | None, *, reason: str) -
     if key is None:
         writer.write(out)
         return out.getvalue()
+    sealer = sealer_for(key)
     meta = signers.PdfSignatureMetadata(
         field_name=FIELD_NAME, subfilter=fields.SigSeedSubFilter.PADES, md_algorithm="sha256",
         reason=reason, name=key.info.subject,
     )
-    signers.sign_pdf(writer, meta, signer=pdf_signer(key), output=out)
+    signers.sign_pdf(writer, meta, signer=sealer.signer, output=out,
+                     bytes_reserved=sealer.bytes_reserved)
     return out.getvalue()
 
 

@@ -93,7 +93,14 @@ def independent_check(pdf: bytes) -> IndependentCheck:
     signer_info = info["content"]["signer_infos"][0]
     attrs = signer_info["signed_attrs"]
     digest = next(x["values"][0].native for x in attrs if x["type"].native == "message_digest")
-    cert = x509.load_der_x509_certificate(info["content"]["certificates"][0].chosen.dump())
+    # The signer's certificate is the one the SignerInfo names (issuer and serial number,
+    # RFC 5652 §5.3); a chain may come first in the set.
+    sid = signer_info["sid"].chosen
+    cert = next(
+        x509.load_der_x509_certificate(c.chosen.dump())
+        for c in info["content"]["certificates"]
+        if c.chosen.serial_number == sid["serial_number"].native
+        and c.chosen.issuer == sid["issuer"])
     to_verify = b"\x31" + attrs.dump()[1:]  # [0] IMPLICIT → SET OF
     key = cert.public_key()
     try:

@@ -7,6 +7,7 @@ signed with an imported key are checked with pyHanko's validator.
 from __future__ import annotations
 
 import datetime as dt
+import io
 import os
 import stat
 from pathlib import Path
@@ -99,6 +100,73 @@ def test_import_makes_the_shops_own_key_the_signer(app, db, shop, make_user) -> 
     assert check.signer_subject == "CN=Northgate Rotor Works (own certificate)"
     proof = pdfsign.inspect(issued.pdf, signing.known_certificates(folder))
     assert proof.proven and proof.signer_known == "current"
+
+
+def _signature_space(pdf: bytes) -> tuple[int, int]:
+    """Hex digits kept for the signature in ``/Contents`` and those its CMS uses."""
+    import pikepdf
+
+    with pikepdf.open(io.BytesIO(pdf)) as doc:
+        sig = next(f for f in doc.Root.AcroForm.Fields if f.get("/FT") == "/Sig").V
+        a, la, b, _lb = (int(x) for x in sig.ByteRange)
+        used = 2 * len(bytes(sig.Contents).rstrip(b"\0"))
+    assert a == 0
+    return b - la - 2, used  # between the ranges: "<" + hex digits + ">"
+
+
+@pytest.mark.parametrize("kind", ["generated EC P-256", "imported RSA 3072 with a CA"])
+def test_a_key_is_prepared_once_and_keeps_the_space_pyhanko_itself_reserves(
+        tmp_path: Path, kind: str) -> None:
+    """Many certificates (the demo's first start) sign with one prepared signer; the space
+    kept for the signature is the one pyHanko's own per-file estimate gives (the same
+    formula once per key), read back from the signed files with pikepdf; the signature
+    verifies with pyHanko's validator and independently (the signer picked by its
+    issuer and serial number when a CA certificate comes with it)."""
+    from pyhanko.pdf_utils.incremental_writer import IncrementalPdfFileWriter
+    from pyhanko.sign import fields, signers
+
+    from shopapp.reports import certificate as report
+    from tests.reports.samples import certificate_data
+
+    folder = tmp_path / "signing"
+    if kind.startswith("generated"):
+        key, _ = signing.load_or_create(folder, "Shop")
+    else:
+        ca_key = rsa.generate_private_key(public_exponent=65537, key_size=3072)
+        ca = _cert(ca_key, cn="Northgate Test CA", usage=None)
+        own = rsa.generate_private_key(public_exponent=65537, key_size=3072)
+        cert = _cert(own, cn="Northgate Rotor Works", issuer_key=ca_key)
+        p12 = pkcs12.serialize_key_and_certificates(
+            b"shop", own, cert, [ca], BestAvailableEncryption(b"s3cret-pass"))
+        key, _ = signing.import_pkcs12(folder, p12, "s3cret-pass")
+    again = signing.current_key(folder)  # read from the file again: another object
+    assert again is not None and again is not key
+    assert pdfsign.sealer_for(again) is pdfsign.sealer_for(key)
+    data = certificate_data()
+    unsigned = report.render(data)
+    ours = pdfsign.seal(unsigned, report.canonical_json(data), key, reason="test")
+    out = io.BytesIO()
+    signers.sign_pdf(  # pyHanko sizing the signature itself (no bytes_reserved)
+        IncrementalPdfFileWriter(io.BytesIO(unsigned)),
+        signers.PdfSignatureMetadata(field_name="Other", md_algorithm="sha256",
+                                     subfilter=fields.SigSeedSubFilter.PADES),
+        signer=pdfsign.pdf_signer(key), output=out)
+    kept, used = _signature_space(ours)
+    theirs, _ = _signature_space(out.getvalue())
+    assert kept == pdfsign.sealer_for(key).bytes_reserved
+    # pyHanko keeps 1.5 times a dummy signature; an ECDSA signature's DER varies by a few
+    # bytes from one signature to the next, so the two estimates differ by a few digits.
+    assert abs(kept - theirs) <= 16 and kept >= 1.4 * used
+    assert pdfsign.inspect(ours, signing.known_certificates(folder)).proven
+    assert independent_check(ours).signature_verifies
+
+
+def test_a_rotated_key_gets_its_own_prepared_signer(tmp_path: Path) -> None:
+    folder = tmp_path / "signing"
+    old, _ = signing.load_or_create(folder, "Shop")
+    new, _ = signing.rotate(folder, "Shop")
+    assert pdfsign.sealer_for(new) is not pdfsign.sealer_for(old)
+    assert pdfsign.sealer_for(new).key.info.fingerprint == new.info.fingerprint
 
 
 @pytest.mark.parametrize("case, field, message", [
