@@ -283,6 +283,90 @@ def test_migrated_database_keeps_certificate_triggers(fresh_database_url: str) -
         eng.dispose()
 
 
+def test_migration_0020_gives_every_existing_revision_its_own_code(fresh_database_url: str
+                                                                   ) -> None:
+    """Certificates stored before 0020 (two of them void, which the guards keep most
+    strictly) get random codes; afterwards a code can no more change than the PDF, on an
+    issued row or a void one, while voiding still works; INSERT OR REPLACE (SQLite) and
+    TRUNCATE (PostgreSQL) stay refused; the downgrade puts 0003's guards back exactly."""
+    import re
+
+    from sqlalchemy import column, insert, table
+    from sqlalchemy.orm import Session
+
+    from shopapp.models import utcnow
+    from tests import factories
+
+    before_0020 = schema._scripts().get_revision("0020").down_revision
+    schema.upgrade(fresh_database_url, before_0020)
+    eng = make_engine(fresh_database_url)
+    cert = table("certificate", *(column(c) for c in (
+        "number", "revision", "job_id", "state", "issued_by_id", "issued_at", "reason",
+        "voided_at", "voided_by_id", "void_reason", "pdf", "pdf_sha256", "data_json",
+        "data_sha256")))
+    try:
+        with eng.connect() as conn:
+            guards_before = _guards(conn)
+        with Session(eng) as db:
+            user = factories.user(db, username="quinn", role="quality",
+                                 password="long-enough-1")
+            job = factories.ShopFactory(db).job()
+            for rev in (1, 2, 3):
+                pdf = f"%PDF-1.4 rev {rev}".encode()
+                db.execute(insert(cert).values(
+                    number="BC-2025-00001", revision=rev, job_id=job.id,
+                    state="void" if rev < 3 else "issued", issued_by_id=user.id,
+                    issued_at=utcnow().replace(tzinfo=None), reason="",
+                    voided_at=utcnow().replace(tzinfo=None) if rev < 3 else None,
+                    voided_by_id=user.id if rev < 3 else None, void_reason="",
+                    pdf=pdf, pdf_sha256=hashlib.sha256(pdf).hexdigest(), data_json="{}",
+                    data_sha256=hashlib.sha256(f"{{}}{rev}".encode()).hexdigest()))
+            db.commit()
+        schema.upgrade(fresh_database_url, "head")
+        with eng.connect() as conn:
+            codes = list(conn.execute(text(
+                "SELECT verification_code FROM certificate ORDER BY revision")).scalars())
+            assert len(codes) == 3 and len(set(codes)) == 3
+            assert all(re.fullmatch(r"[A-Z2-7]{10}", c) for c in codes)
+        for revision in (3, 1):  # issued, then void
+            with eng.connect() as conn, pytest.raises(DBAPIError, match="immutable"):
+                conn.execute(text("UPDATE certificate SET verification_code = 'AAAAAAAAAA' "
+                                  "WHERE revision = :r"), {"r": revision})
+        with eng.connect() as conn, pytest.raises(DBAPIError, match="immutable"):
+            conn.execute(text(  # voiding is no way to change the code
+                "UPDATE certificate SET state = 'void', voided_at = issued_at, "
+                "voided_by_id = issued_by_id, verification_code = 'AAAAAAAAAA' "
+                "WHERE revision = 3"))
+        with eng.connect() as conn:  # voiding alone still passes
+            conn.execute(text(
+                "UPDATE certificate SET state = 'void', voided_at = issued_at, "
+                "voided_by_id = issued_by_id WHERE revision = 3"))
+        with eng.connect() as conn, pytest.raises(IntegrityError, match="verification_code"):
+            conn.execute(text(  # a new revision may not reuse a code
+                "INSERT INTO certificate (number, revision, job_id, state, issued_by_id, "
+                "issued_at, reason, void_reason, pdf, pdf_sha256, data_json, data_sha256, "
+                "verification_code) SELECT number, 4, job_id, 'issued', issued_by_id, "
+                "issued_at, '', '', pdf, :sha, '{}', data_sha256, verification_code "
+                "FROM certificate WHERE revision = 1"), {"sha": "0" * 64})
+        with eng.connect() as conn, pytest.raises(DBAPIError, match="never"):
+            if eng.dialect.name == "sqlite":
+                conn.execute(text(
+                    "INSERT OR REPLACE INTO certificate (number, revision, job_id, state, "
+                    "issued_by_id, issued_at, reason, void_reason, pdf, pdf_sha256, data_json, "
+                    "data_sha256, verification_code) SELECT number, revision, job_id, "
+                    "'issued', issued_by_id, issued_at, '', '', x'00', pdf_sha256, '{}', "
+                    "data_sha256, 'BBBBBBBBBB' FROM certificate WHERE revision = 1"))
+            else:
+                conn.execute(text("TRUNCATE certificate CASCADE"))
+        schema.downgrade(fresh_database_url, before_0020)  # and back: the column goes again
+        assert "verification_code" not in {
+            c["name"] for c in inspect(eng).get_columns("certificate")}
+        with eng.connect() as conn:
+            assert _guards(conn) == guards_before
+    finally:
+        eng.dispose()
+
+
 def _guards(conn) -> dict[str, str]:  # type: ignore[no-untyped-def]
     """Every trigger (and PostgreSQL trigger function) of the database with its SQL."""
     if conn.dialect.name == "sqlite":

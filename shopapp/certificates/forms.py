@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as dt
 
 from flask_wtf import FlaskForm
+from flask_wtf.file import FileField, FileRequired
 from wtforms import SelectField, StringField, TextAreaField
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import DataRequired, Length, Optional, ValidationError
@@ -82,6 +83,25 @@ class ZipForm(_GetForm):
 
 
 class VerifyForm(_GetForm):
+    """The public check: the number, and the verification code printed beside it."""
+
+    n = StringField("Certificate number", validators=[Optional(), Length(max=40)])
+    c = StringField("Verification code", validators=[Optional(), Length(max=100)])
+
+    def validate_n(self, field: StringField) -> None:
+        if not (field.data or "").strip():
+            raise ValidationError("enter the certificate number (e.g. BC-2026-00017)")
+
+
+class HashForm(_GetForm):
+    """The older search box: a number or a SHA-256 hash (links printed before issue 15)."""
+
     q = StringField("Certificate number or SHA-256 hash",
                     validators=[DataRequired(message="enter a number or a hash"),
                                 Length(max=100)])
+
+
+class UploadForm(FlaskForm):
+    """A certificate PDF to check (POST, CSRF-protected)."""
+
+    file = FileField("Certificate PDF", validators=[FileRequired(message="choose the PDF file")])

@@ -21,8 +21,16 @@ Rules (issue 5):
 
 The certified data is a :class:`~shopapp.reports.certificate.CertificateData`;
 its canonical JSON and the PDF rendered from it are stored with their SHA-256.
-Re-rendering the stored JSON gives the stored PDF bytes again. Finding and
-verifying certificates is :mod:`shopapp.certificates.register`.
+
+Issue 15, certificates that prove themselves: each revision gets a random
+verification code (printed with the number, and in the verify address and its
+QR code); the rendered PDF gets the canonical JSON attached as
+``certificate-data.json`` and is signed with the shop's key
+(:mod:`shopapp.certificates.pdfsign`, :mod:`shopapp.certificates.signing`); the
+stored bytes and ``pdf_sha256`` are those of the signed file. Re-rendering the
+stored JSON gives the unsigned rendering, which the stored file starts with byte
+for byte (for certificates issued before signing: the whole stored file).
+Finding and verifying certificates is :mod:`shopapp.certificates.register`.
 """
 
 from __future__ import annotations
@@ -31,13 +39,21 @@ import datetime as dt
 import hashlib
 import re
 from dataclasses import dataclass
+from pathlib import Path
+from urllib.parse import quote, urlsplit
 
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session, selectinload
 
 from shopapp.balancing.phasors import amplitude_angle
-from shopapp.certificates.queries import CERTIFIABLE_STATES, by_number, job_certificates
-from shopapp.core import locks
+from shopapp.certificates import pdfsign, signing
+from shopapp.certificates.queries import (
+    CERTIFIABLE_STATES,
+    by_number,
+    code_taken,
+    job_certificates,
+)
+from shopapp.core import audit, locks
 from shopapp.core.display import ShopDisplay, fixed, plain, quantity
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
@@ -66,6 +82,7 @@ from shopapp.models import (
     ShopSettings,
     User,
 )
+from shopapp.models.certificates import new_verification_code
 from shopapp.reports import certificate as report
 from shopapp.reports.certificate import CertificateData, CorrectionLine, LimitLine, PlaneVector
 from shopapp.traceability import services as traceability
@@ -76,8 +93,6 @@ MIN_REASON_LENGTH = 5
 MAX_REASON_LENGTH = 1000
 REISSUABLE_JOB_STATES = ("certified", "dispatched")
 KIND_WORDS = {"hard": "hard-bearing", "soft": "soft-bearing"}
-
-
 
 # --------------------------------------------------------------------------- reading a job
 
@@ -241,6 +256,9 @@ def build_data(
     reason: str,
     issued_at: dt.datetime,
     issued_by: User,
+    verification_code: str = "",
+    verify_url: str = "",
+    signed_by: str = "",
 ) -> CertificateData:
     """The certified data of one revision (rounded as stored)."""
     job = ev.job
@@ -323,6 +341,9 @@ def build_data(
         issued_by_name=issued_by.full_name,
         notes=tuple(notes),
         tolerance_notes=tol.notes,
+        verification_code=verification_code,
+        verify_url=verify_url,
+        signed_by=signed_by,
         **job_traceability.certificate_fields(session, job, ev.calc, to_shop=show.unb,
                                               to_display_deg=show.angle, as_of=ev.as_of),
     )
@@ -351,10 +372,13 @@ def next_number(session: Session, year: int) -> str:
 
 
 def _store(
-    session: Session, data: CertificateData, job: Job, *, by: User, issued_at: dt.datetime
+    session: Session, data: CertificateData, job: Job, *, by: User, issued_at: dt.datetime,
+    key: signing.ShopKey | None,
 ) -> Certificate:
     text = report.canonical_json(data)
-    pdf = report.render(data)
+    unsigned = report.render(data)
+    pdf = pdfsign.seal(unsigned, text, key,
+                       reason=f"Balance certificate {data.number} revision {data.revision}")
     cert = Certificate(
         number=data.number,
         revision=data.revision,
@@ -367,10 +391,55 @@ def _store(
         pdf_sha256=hashlib.sha256(pdf).hexdigest(),
         data_json=text,
         data_sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(),
+        verification_code=data.verification_code,
     )
     session.add(cert)
     session.flush()
     return cert
+
+
+# --------------------------------------------------------------------------- publishing
+
+
+def public_base(base_url: str | None) -> str:
+    """The shop's public address (config ``BASE_URL``) without a trailing slash; "" when unset.
+
+    Raises :class:`ValidationFailed` (field ``BASE_URL``) for anything but an
+    http(s) address without query or fragment.
+    """
+    base = (base_url or "").strip().rstrip("/")
+    if not base:
+        return ""
+    parts = urlsplit(base)
+    if parts.scheme not in ("http", "https") or not parts.netloc or parts.query or parts.fragment:
+        raise ValidationFailed("BASE_URL", f"{base!r} is not a web address such as "
+                                           "https://balancing.example.com; fix the setting")
+    return base
+
+
+def verify_url(base: str, number: str, code: str) -> str:
+    """``<base>/verify?n=<number>&c=<code>`` (only the path when ``base`` is empty)."""
+    return f"{base}/verify?n={quote(number)}&c={quote(code)}"
+
+
+def _fresh_code(session: Session) -> str:
+    code = new_verification_code()
+    while code_taken(session, code):  # 50 random bits: a repeat is all but impossible
+        code = new_verification_code()
+    return code
+
+
+def _signer(session: Session, signing_dir: Path | None, by: User) -> signing.ShopKey | None:
+    """The shop key (made on first use, which is audited); None without a signing folder."""
+    if signing_dir is None:
+        return None
+    key, made = signing.load_or_create(signing_dir, get_settings(session).shop_name)
+    if made:
+        info = key.info
+        audit.record(session, by=by, entity="signing_key", entity_id=None, action="create",
+                     after={"subject": info.subject, "fingerprint": info.fingerprint,
+                            "valid_until": info.not_after.isoformat()})
+    return key
 
 
 def _now() -> dt.datetime:
@@ -408,15 +477,20 @@ def certificate_data(cert: Certificate) -> CertificateData:
 
 
 def rerender(cert: Certificate) -> bytes:
-    """The PDF rendered again from the stored data (equal to ``cert.pdf`` byte for byte)."""
+    """The unsigned PDF rendered again from the stored data.
+
+    The stored file starts with these bytes exactly (the embedded data and the
+    signature are one incremental update after them); for a certificate issued
+    before signing it is the whole stored file.
+    """
     return report.render(certificate_data(cert))
 
 
 # --------------------------------------------------------------------------- use-cases
 
 
-def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None = None
-          ) -> Certificate:
+def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None = None,
+          signing_dir: Path | None = None, base_url: str = "") -> Certificate:
     """Issue a certificate for ``job`` and mark the job certified.
 
     Refused (each with its own message) for a role other than quality, a job not
@@ -427,8 +501,15 @@ def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None
     ``issued_at``: a past moment for loading historical records (the demo
     shop); the job is then judged as it stood at that moment and the
     transition is dated then. Default: now.
+
+    ``signing_dir``: the instance's signing folder
+    (:func:`shopapp.certificates.signing.signing_folder`); the PDF is signed with the
+    shop key there (made on first use). None only where nothing is signed: the demo
+    shop's historical replay. ``base_url``: the shop's public address (config
+    ``BASE_URL``) printed in the verify address; "" prints the path only.
     """
     require(by, "issue_certificates")
+    base = public_base(base_url)
     locks.hold_row(session, job)  # two quality users issuing at once: the second sees the first
     historical = issued_at is not None
     issued_at = _moment(issued_at, "issued_at")
@@ -452,9 +533,13 @@ def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None
                   "was voided")
     else:
         number, revision, reason = next_number(session, issued_at.year), 1, ""
+    key = _signer(session, signing_dir, by)
+    code = _fresh_code(session)
     data = build_data(session, ev, number=number, revision=revision, reason=reason,
-                      issued_at=issued_at, issued_by=by)
-    cert = _store(session, data, job, by=by, issued_at=issued_at)
+                      issued_at=issued_at, issued_by=by, verification_code=code,
+                      verify_url=verify_url(base, number, code),
+                      signed_by=key.info.subject if key else "")
+    cert = _store(session, data, job, by=by, issued_at=issued_at, key=key)
     job_states.mark_certified(session, job, by=by, at=issued_at if historical else None)
     _audit(session, by=by, entity_id=cert.id, action="issue", after=_summary(cert),
            job_id=job.id, at=issued_at if historical else None)
@@ -462,16 +547,19 @@ def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None
 
 
 def reissue(session: Session, certificate: Certificate, *, by: User, reason: str,
-            issued_at: dt.datetime | None = None) -> Certificate:
+            issued_at: dt.datetime | None = None, signing_dir: Path | None = None,
+            base_url: str = "") -> Certificate:
     """A new revision of ``certificate`` (same number, revision + 1) from the job's data now.
 
     The old revision is voided with "superseded by revision n". Only the latest
     revision of a certified or dispatched job can be reissued; the job must
     still meet every condition of :func:`issue` except its state.
-    ``issued_at``: a past moment for historical records, as for :func:`issue`.
+    ``issued_at``, ``signing_dir``, ``base_url``: as for :func:`issue`; the new
+    revision gets its own verification code.
     """
     require(by, "issue_certificates")
     text = _reason(reason)
+    base = public_base(base_url)
     historical = issued_at is not None
     issued_at = _moment(issued_at, "issued_at")
     job = certificate.job
@@ -491,11 +579,15 @@ def reissue(session: Session, certificate: Certificate, *, by: User, reason: str
     at = issued_at if historical else None
     ev = evidence(session, job, as_of=at)
     revision = certificate.revision + 1
+    key = _signer(session, signing_dir, by)
+    code = _fresh_code(session)
     data = build_data(session, ev, number=certificate.number, revision=revision, reason=text,
-                      issued_at=issued_at, issued_by=by)
+                      issued_at=issued_at, issued_by=by, verification_code=code,
+                      verify_url=verify_url(base, certificate.number, code),
+                      signed_by=key.info.subject if key else "")
     if certificate.state == "issued":
         _void(session, certificate, by=by, reason=f"superseded by revision {revision}", at=at)
-    cert = _store(session, data, job, by=by, issued_at=issued_at)
+    cert = _store(session, data, job, by=by, issued_at=issued_at, key=key)
     _audit(session, by=by, entity_id=cert.id, action="reissue", before=_summary(certificate),
            after=_summary(cert), job_id=job.id, at=at)
     return cert

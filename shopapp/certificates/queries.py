@@ -52,6 +52,43 @@ def by_number(session: Session, number: str, revision: int | None = None) -> Cer
     return cert
 
 
+def code_taken(session: Session, code: str) -> bool:
+    """Whether a revision already has this verification code."""
+    return session.scalar(
+        select(func.count()).select_from(Certificate)
+        .where(Certificate.verification_code == code)
+    ) != 0
+
+
+def by_number_and_code(session: Session, number: str, code: str) -> Certificate | None:
+    """The revision of ``number`` whose verification code is ``code`` (PDF bytes not loaded)."""
+    return session.scalars(
+        select(Certificate)
+        .where(Certificate.number == number, Certificate.verification_code == code)
+        .options(defer(Certificate.pdf)).limit(1)
+    ).first()
+
+
+def by_number_and_hash_prefix(session: Session, number: str, prefix: str
+                              ) -> Certificate | None:
+    """The revision of ``number`` whose content or PDF hash starts with ``prefix``
+    (lower-case hex; the footer of older certificates prints the first 16 digits)."""
+    pattern = prefix + "%"
+    return session.scalars(
+        select(Certificate)
+        .where(Certificate.number == number,
+               Certificate.data_sha256.like(pattern) | Certificate.pdf_sha256.like(pattern))
+        .options(defer(Certificate.pdf)).order_by(Certificate.revision.desc()).limit(1)
+    ).first()
+
+
+def number_exists(session: Session, number: str) -> bool:
+    """Whether any revision has this number."""
+    return session.scalar(
+        select(func.count()).select_from(Certificate).where(Certificate.number == number)
+    ) != 0
+
+
 def certification_queue(session: Session, *, limit: int = 10) -> tuple[list[Job], int]:
     """Jobs in tolerance waiting for a certificate (oldest first) and how many there are."""
     waiting = Job.state.in_(CERTIFIABLE_STATES)

@@ -1,9 +1,19 @@
 """The certificate register: search, the public verification, the audit ZIP.
 
-Verification answers by number (the latest revision) or by a SHA-256 of the PDF
-or of the certified data (both printed on the certificate); a PDF file is checked
-by the hash of its bytes. The audit export is every certificate issued in a date
-range, as one ZIP with an ``index.csv``.
+The public verification never opens the register to someone who only guesses
+(issue 15). It answers
+
+- a number alone: only whether a certificate with that number exists;
+- a number with its verification code (printed on the certificate and in its
+  QR code), or with the content or PDF hash or their first 16+ hex digits (the
+  footer of certificates issued before the codes prints the first 16): the
+  revision's state and its identification lines (customer, rotor, serial);
+- a full SHA-256 (content or PDF hash) alone, or a PDF file whose bytes are a
+  stored certificate: the same.
+
+A number with a wrong code gets the same answer as a number that does not
+exist. The audit export is every certificate issued in a date range, as one ZIP
+with an ``index.csv``.
 """
 
 from __future__ import annotations
@@ -23,13 +33,21 @@ from sqlalchemy import ColumnElement, Select, and_, func, select
 from sqlalchemy.orm import Session, defer, joinedload
 
 from shopapp.certificates.issue import certificate_data
-from shopapp.certificates.queries import latest_revision
+from shopapp.certificates.queries import (
+    by_number_and_code,
+    by_number_and_hash_prefix,
+    latest_revision,
+    number_exists,
+)
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.pagination import Page, paginate
 from shopapp.models import Certificate, Customer, Job, Rotor, RotorType
 from shopapp.reports import certificate as report
 
 HASH_RE = re.compile(r"^[0-9a-f]{64}$")
+CODE_RE = re.compile(r"^[A-Z2-7]{10}$")  # shopapp.models.certificates.new_verification_code
+HASH_PREFIX_RE = re.compile(r"^[0-9a-f]{16,64}$")
+NUMBER_MAX_LENGTH = 40
 MAX_ZIP_CERTIFICATES = 2000  # one audit ZIP is built in memory: ~20 kB a certificate
 
 
@@ -40,7 +58,8 @@ MAX_ZIP_CERTIFICATES = 2000  # one audit ZIP is built in memory: ~20 kB a certif
 class Verification:
     """The answer of the public verification page.
 
-    ``status``: ``"valid"``, ``"void"``, ``"superseded"`` or ``"unknown"``.
+    ``status``: ``"valid"``, ``"void"``, ``"superseded"``, ``"unknown"``, or
+    ``"exists"`` (a number alone: nothing more is told).
     ``lines`` are the certificate's first printed lines (nothing more is shown).
     """
 
@@ -53,10 +72,19 @@ class Verification:
     voided_on: str | None = None
     void_reason: str = ""
     lines: tuple[tuple[str, str], ...] = ()
+    with_code: bool = False  # the question held a code or hash beside the number
 
     @property
     def message(self) -> str:
+        if self.status == "exists":
+            return (f"A certificate numbered {self.number} is in this shop's register. Enter "
+                    "the verification code printed on it (beside the QR code) to see whether "
+                    "this revision is valid and what it certifies.")
         if self.status == "unknown":
+            if self.with_code:
+                return ("No certificate matches this number and code. Check both against the "
+                        "certificate; a document that does not match was not issued by this "
+                        "shop, or it has been altered.")
             return ("No certificate matches this number or hash. The document was not issued "
                     "by this shop, or it has been altered.")
         head = f"{self.number} revision {self.revision}"
@@ -90,11 +118,37 @@ def _answer(session: Session, query: str, cert: Certificate, matched_by: str) ->
     )
 
 
-def verify(session: Session, query: str) -> Verification:
-    """Look a certificate up by number (its latest revision) or by a SHA-256.
+def _by_hash(session: Session, query: str, h: str) -> Verification:
+    cert = session.scalars(
+        select(Certificate)
+        .where((Certificate.pdf_sha256 == h) | (Certificate.data_sha256 == h))
+        .options(defer(Certificate.pdf)).order_by(Certificate.revision.desc()).limit(1)
+    ).first()
+    if cert is None:
+        return Verification(query=query, status="unknown")
+    return _answer(session, query, cert, "PDF hash" if cert.pdf_sha256 == h else "content hash")
 
-    A 64-hex-digit query is matched against the PDF hash and the data hash
-    (printed on the certificate); anything else is taken as a number.
+
+def _number(number: str, field: str) -> str:
+    n = (number or "").strip().upper()
+    if not n:
+        raise ValidationFailed(field, "enter the certificate number (e.g. BC-2026-00017)")
+    if len(n) > NUMBER_MAX_LENGTH:
+        raise ValidationFailed(field, f"is too long for a certificate number (at most "
+                                      f"{NUMBER_MAX_LENGTH} characters)")
+    return n
+
+
+def _exists(session: Session, query: str, number: str) -> Verification:
+    if number_exists(session, number):
+        return Verification(query=query, status="exists", number=number)
+    return Verification(query=query, status="unknown")
+
+
+def verify(session: Session, query: str) -> Verification:
+    """One search box: a 64-hex-digit SHA-256 (the content or the PDF hash) shows the
+    revision it belongs to; anything else is taken as a number and answers only whether
+    it exists (:func:`check` with a code shows more).
     """
     q = (query or "").strip()
     if not q:
@@ -102,23 +156,39 @@ def verify(session: Session, query: str) -> Verification:
     if len(q) > 100:
         raise ValidationFailed("q", "is too long for a number or a hash")
     if HASH_RE.match(q.lower()):
-        h = q.lower()
-        cert = session.scalars(
-            select(Certificate)
-            .where((Certificate.pdf_sha256 == h) | (Certificate.data_sha256 == h))
-            .options(defer(Certificate.pdf)).order_by(Certificate.revision.desc()).limit(1)
-        ).first()
-        if cert is None:
-            return Verification(query=q, status="unknown")
-        return _answer(session, q, cert, "PDF hash" if cert.pdf_sha256 == h else "content hash")
-    number = q.upper()
-    cert = session.scalars(
-        select(Certificate).where(Certificate.number == number)
-        .options(defer(Certificate.pdf)).order_by(Certificate.revision.desc()).limit(1)
-    ).first()
+        return _by_hash(session, q, q.lower())
+    return _exists(session, q, _number(q, "q"))
+
+
+def normalized_code(code: str) -> str:
+    """A typed code without spaces or dashes: upper case, or lower case when it is hex."""
+    text = re.sub(r"[\s-]+", "", code or "")
+    return text.lower() if HASH_PREFIX_RE.match(text.lower()) else text.upper()
+
+
+def check(session: Session, number: str, code: str = "") -> Verification:
+    """The public question: ``number`` alone, or ``number`` with its code.
+
+    ``code``: the verification code, or the content or PDF hash (at least its first 16
+    hex digits). A wrong code answers exactly like a number that does not exist.
+    """
+    n = _number(number, "n")
+    c = normalized_code(code)
+    query = f"{n} {c}".strip()
+    if not c:
+        return _exists(session, query, n)
+    if CODE_RE.match(c):
+        cert = by_number_and_code(session, n, c)
+        how = "number and verification code"
+    elif HASH_PREFIX_RE.match(c):
+        cert = by_number_and_hash_prefix(session, n, c)
+        how = "number and hash"
+    else:
+        raise ValidationFailed("c", "a verification code has 10 characters (letters A-Z and "
+                                    "digits 2-7); a hash at least its first 16 hex digits")
     if cert is None:
-        return Verification(query=q, status="unknown")
-    return _answer(session, q, cert, "number")
+        return Verification(query=query, status="unknown", with_code=True)
+    return _answer(session, query, cert, how)
 
 
 _CLAIM_RE = re.compile(rb"shopapp-certificate (BC-\d{4}-\d+) rev (\d+) data-sha256 ([0-9a-f]{64})")

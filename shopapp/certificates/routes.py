@@ -1,9 +1,12 @@
 """Certificate pages: register and search, one certificate, downloads, issue, reissue,
-void, rotor history PDFs, and the public verification page ``/verify`` (no login)."""
+void, rotor history PDFs, the job traveller and rotor tag, the signing key page, and the
+public verification page ``/verify`` (no login, rate-limited, a PDF may be uploaded)."""
 
 from __future__ import annotations
 
+import datetime as dt
 from collections.abc import Callable
+from pathlib import Path
 from typing import Any
 
 from flask import (
@@ -21,14 +24,17 @@ from flask_login import current_user
 from werkzeug.routing import BuildError
 
 from shopapp.certificates import issue as issuing
-from shopapp.certificates import queries, register
+from shopapp.certificates import papers, pdfsign, queries, register, signing
 from shopapp.certificates.forms import (
+    HashForm,
     IssueForm,
     ReasonForm,
     RegisterSearchForm,
+    UploadForm,
     VerifyForm,
     ZipForm,
 )
+from shopapp.certificates.ratelimit import SlidingWindowLimit
 from shopapp.charts.svg import to_svg
 from shopapp.core.errors import NotFound, ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
@@ -39,9 +45,67 @@ from shopapp.core.web import acting_user, get_or_404, page_size, requires
 from shopapp.jobs import rotor_history
 from shopapp.models import Certificate, Job, Rotor, RotorType, User
 from shopapp.reports import certificate as certificate_report
+from shopapp.reports import job_papers
 from shopapp.reports import rotor_history as history_report
 
 bp = Blueprint("certificates", __name__, template_folder="templates")
+
+MAX_UPLOAD_BYTES = 20 * 1024 * 1024  # a certificate PDF is ~20 kB; 20 MB is generous
+_FORM_OVERHEAD = 64 * 1024  # multipart boundaries, the CSRF token
+VERIFY_REQUESTS_PER_MINUTE = 30  # per client address and server process (config overrides)
+DEFAULT_TAG_SIZE = "62x29"  # mm, config ROTOR_TAG_SIZE_MM overrides
+_LIMIT_KEY = "shopapp.verify_limit"
+
+
+def _signing_dir() -> Path:
+    return signing.signing_folder(current_app.instance_path)
+
+
+def _base_url() -> str:
+    return str(current_app.config.get("BASE_URL") or "")
+
+
+@bp.record_once
+def _install_verify_guard(state: Any) -> None:
+    """Before anything reads the body of a /verify request (the CSRF check and the
+    control-character guard read the form): the rate limit, then the upload size cap.
+
+    Inserted first in the app's before-request list for that reason. The limit counts
+    per client address in this process only (see :mod:`shopapp.certificates.ratelimit`);
+    behind a reverse proxy every client has the proxy's address unless the proxy's
+    forwarded address is trusted (not configured here).
+    """
+    app = state.app
+    per_minute = int(app.config.get("VERIFY_REQUESTS_PER_MINUTE") or VERIFY_REQUESTS_PER_MINUTE)
+    app.extensions[_LIMIT_KEY] = SlidingWindowLimit(per_minute, 60.0)
+
+    def guard():  # type: ignore[no-untyped-def]
+        if request.endpoint != "certificates.verify":
+            return None
+        wait = current_app.extensions[_LIMIT_KEY].hit(request.remote_addr or "unknown")
+        if wait:
+            page = render_template(
+                "error.html", status=429, title="Too many checks",
+                message=f"This address asked more than {per_minute} times in a minute. "
+                        f"Try again in {wait} seconds.")
+            return page, 429, {"Retry-After": str(wait)}
+        if request.method == "POST":
+            cap = MAX_UPLOAD_BYTES + _FORM_OVERHEAD
+            if (request.content_length or 0) > cap:
+                return _too_large(None)  # refused before a byte of the body is read
+            request.max_content_length = cap  # a body without a declared length
+        return None
+
+    app.before_request_funcs.setdefault(None, []).insert(0, guard)
+
+
+@bp.errorhandler(413)
+def _too_large(_exc: Any):  # type: ignore[no-untyped-def]
+    return render_template(
+        "error.html", status=413, title="File too large",
+        message=f"The file is larger than {MAX_UPLOAD_BYTES // (1024 * 1024)} MB; a "
+                "certificate PDF is far smaller. Choose the certificate file itself.",
+    ), 413
 
 
 def _pdf(data: bytes, filename: str, *, inline: bool = False) -> Response:
@@ -143,7 +207,8 @@ def issue(job_id: int):  # type: ignore[no-untyped-def]
     if not form.validate_on_submit():
         abort(400, description="The form expired; reload the page and try again.")
     try:
-        cert = issuing.issue(sess, job, by=acting_user())
+        cert = issuing.issue(sess, job, by=acting_user(), signing_dir=_signing_dir(),
+                             base_url=_base_url())
         sess.commit()
     except ServiceError as exc:
         sess.rollback()
@@ -192,7 +257,9 @@ def _with_reason(cert_id: int, action: str,
 def reissue(cert_id: int):  # type: ignore[no-untyped-def]
     return _with_reason(
         cert_id, "reissue",
-        lambda cert, by, reason: issuing.reissue(db_session(), cert, by=by, reason=reason),
+        lambda cert, by, reason: issuing.reissue(db_session(), cert, by=by, reason=reason,
+                                                 signing_dir=_signing_dir(),
+                                                 base_url=_base_url()),
         lambda old, new: (f"Revision {new.revision} of {new.number} issued; revision "
                           f"{old.revision} is void."),
     )
@@ -235,22 +302,120 @@ def rotor_type_history_pdf(rotor_type_id: int):  # type: ignore[no-untyped-def]
 # --------------------------------------------------------------------------- public verification
 
 
-@bp.get("/verify")
+def _known_signers() -> list[signing.SignerCertificate] | None:
+    """The shop's signer certificates; None when there are none, or the key file is damaged
+    (the public page then names the signer without comparing; the signing page says why)."""
+    try:
+        return signing.known_certificates(_signing_dir()) or None
+    except signing.SigningKeyBroken:
+        current_app.logger.exception("signing key unreadable")
+        return None
+
+
+@bp.route("/verify", methods=["GET", "POST"])
 def verify():  # type: ignore[no-untyped-def]
-    """Public: anyone holding a certificate may check it (GET, read-only, no login)."""
-    form = VerifyForm(request.args if "q" in request.args else None)
-    result = None
+    """Public: anyone holding a certificate may check it (no login).
+
+    GET ``n`` (+ ``c``): the number alone says only whether it exists; with its code
+    the state and the identification lines. GET ``q``: the older search box (a hash,
+    or a number). POST: an uploaded PDF (CSRF token required), checked by its bytes
+    against the register and by its own signature and embedded data.
+    """
+    sess = db_session()
+    has_query = "n" in request.args or "c" in request.args
+    form = VerifyForm(request.args if has_query else None)
+    hash_form = HashForm(request.args if "q" in request.args else None)
+    upload = UploadForm()
+    result: register.Verification | None = None
+    proof: pdfsign.FileProof | None = None
+    remark = ""
     status = 200
-    if "q" in request.args:
-        if form.validate():
-            try:
-                result = register.verify(db_session(), form.q.data or "")
-            except ValidationFailed as exc:
-                form.q.errors = [exc.errors.get("q", exc.message)]
+    try:
+        if request.method == "POST":
+            if upload.validate_on_submit():
+                pdf = upload.file.data.read(MAX_UPLOAD_BYTES + 1)
+                if len(pdf) > MAX_UPLOAD_BYTES:
+                    return _too_large(None)
+                result, remark = register.verify_file(sess, pdf)
+                proof = pdfsign.inspect(pdf, _known_signers())
+            else:
                 status = 422
-        else:
-            status = 422
-    return render_template("certificates/verify.html", form=form, result=result), status
+        elif "q" in request.args:
+            if hash_form.validate():
+                result = register.verify(sess, hash_form.q.data or "")
+            else:
+                status = 422
+        elif has_query:
+            if form.validate():
+                result = register.check(sess, form.n.data or "", form.c.data or "")
+            else:
+                status = 422
+    except ValidationFailed as exc:
+        target = {"n": form.n, "c": form.c, "q": hash_form.q}.get(exc.field, form.n)
+        target.errors = [exc.errors.get(exc.field, exc.message)]
+        status = 422
+    return render_template("certificates/verify.html", form=form, hash_form=hash_form,
+                           upload=upload, result=result, proof=proof, remark=remark,
+                           max_mb=MAX_UPLOAD_BYTES // (1024 * 1024)), status
+
+
+# --------------------------------------------------------------------------- signing key
+
+
+@bp.get("/certificates/signing")
+@requires("view_signing_key")
+def signing_page():  # type: ignore[no-untyped-def]
+    """Read-only: which key signs the certificates now, and the retired ones."""
+    problem = ""
+    try:
+        overview = signing.overview(_signing_dir())
+    except signing.SigningKeyBroken as exc:
+        overview, problem = None, exc.message
+    base_problem = ""
+    try:
+        base = issuing.public_base(_base_url())
+    except ValidationFailed as exc:
+        base, base_problem = "", exc.message
+    return render_template("certificates/signing.html", overview=overview, problem=problem,
+                           base=base, base_problem=base_problem,
+                           now=dt.datetime.now(dt.UTC),
+                           warn_days=signing.EXPIRY_WARNING_DAYS)
+
+
+# --------------------------------------------------------------------------- job papers
+
+
+def _job_url(job: Job) -> str:
+    """The job page's address for a QR code: ``BASE_URL`` + its path (the path alone when
+    BASE_URL is not set; then no QR code is printed)."""
+    path = job_link(job) or f"/jobs/{job.id}"
+    try:
+        return issuing.public_base(_base_url()) + path
+    except ValidationFailed:
+        return path
+
+
+@bp.get("/jobs/<int:job_id>/traveller.pdf")
+@requires("read")
+def job_traveller(job_id: int):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = get_or_404(sess, Job, job_id)
+    data = papers.traveller(sess, job, by=acting_user(), job_url=_job_url(job))
+    return _pdf(job_papers.render_traveller(data), f"traveller-{job.number}.pdf", inline=True)
+
+
+@bp.get("/jobs/<int:job_id>/rotor-tag.pdf")
+@requires("read")
+def rotor_tag(job_id: int):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = get_or_404(sess, Job, job_id)
+    setting = str(current_app.config.get("ROTOR_TAG_SIZE_MM") or DEFAULT_TAG_SIZE)
+    try:
+        size = job_papers.parse_tag_size(setting)
+    except ValueError as exc:
+        raise ValidationFailed("ROTOR_TAG_SIZE_MM", str(exc)) from None
+    data = papers.rotor_tag(sess, job, by=acting_user(), job_url=_job_url(job), size_mm=size)
+    return _pdf(job_papers.render_tag(data), f"rotor-tag-{job.number}.pdf", inline=True)
 
 
 # --------------------------------------------------------------------------- panels

@@ -18,6 +18,7 @@ import click
 from flask import current_app
 from flask.cli import with_appcontext
 
+from shopapp.certificates import signing
 from shopapp.cli.common import Day, app_db, one_line_errors
 from shopapp.demo import bulk as demo_bulk
 from shopapp.demo import loader as demo
@@ -30,6 +31,13 @@ LOGINS_FILE = "first-logins.txt"
 
 def instance_folder() -> Path:
     return Path(current_app.instance_path)
+
+
+def demo_signing() -> tuple[Path, str]:
+    """What the demo's certificates are signed and addressed with: the instance's signing
+    folder and the shop's BASE_URL, as the certificate pages use them."""
+    return (signing.signing_folder(current_app.instance_path),
+            str(current_app.config.get("BASE_URL") or ""))
 
 
 def write_logins(lines: list[str]) -> Path:
@@ -101,7 +109,8 @@ def demo_group() -> None:
     help="Load the demo shop: users, customers, rotor types, machines and YEARS of jobs "
     "simulated with the balancing core. Refuses a database that already has customers or jobs "
     "unless --force, which adds the demo shop beside them under distinct names and deletes "
-    "nothing. Prints the logins.",
+    "nothing. Its certificates are signed with the instance's key (instance/signing, made at "
+    "the first one) and print the verify address on BASE_URL. Prints the logins.",
 )
 @click.option("--seed", type=int, default=1, show_default=True,
               help="Same seed, same shop and history (passwords are new each time).")
@@ -112,7 +121,7 @@ def demo_group() -> None:
 @click.option("--jobs-per-year", type=click.IntRange(min=1, max=100_000), default=None,
               help=f"New jobs per year (default {demo.DEFAULT_JOBS_PER_YEAR}).")
 @click.option("--no-certificates", is_flag=True,
-              help="Skip the certificate PDFs (much faster).")
+              help="Skip the signed certificate PDFs (much faster).")
 @click.option("--force", is_flag=True,
               help="Add the demo shop beside existing data (distinct names; nothing deleted).")
 @with_appcontext
@@ -129,12 +138,14 @@ def load(seed: int, years: float, end_date: dt.date | None, jobs_per_year: int |
     write_status(instance_folder(), "loading",
                  f"The demo shop is still loading ({command}); its pages fill in when it is "
                  "done.")
+    signing_dir, base_url = demo_signing()
     try:
         with app_db().session() as sess:
             logins = demo.load_demo(
                 sess, seed=seed, years=years, progress=bars.message, steps=bars,
                 end_date=end_date, jobs_per_year=jobs_per_year,
-                force=force, certificates=not no_certificates,
+                force=force, certificates=not no_certificates, signing_dir=signing_dir,
+                base_url=base_url,
             )
     except BaseException as exc:
         report_failure(f"The demo shop did not load: {reason_of(exc)}. Nothing of it was "

@@ -26,6 +26,7 @@ from shopapp.balancing.numtext import short
 from shopapp.cli.common import app_db, one_line_errors
 from shopapp.cli.demo import (
     LOGINS_FILE,
+    demo_signing,
     instance_folder,
     print_logins,
     reason_of,
@@ -90,7 +91,9 @@ def _load_demo() -> None:
     sess = app_db().sessionmaker()
     try:
         try:
-            load = demo.DemoLoad(sess, seed=SEED, years=YEARS, progress=click.echo)
+            signing_dir, base_url = demo_signing()
+            load = demo.DemoLoad(sess, seed=SEED, years=YEARS, progress=click.echo,
+                                 signing_dir=signing_dir, base_url=base_url)
             logins = load.shop_and_history()
             sess.commit()
         except BaseException as exc:

@@ -56,6 +56,8 @@ KEY_TYPES: dict[str, type] = {
     # Reverse proxies in front of shopapp whose X-Forwarded-For is believed (0: none, the
     # client is the connection's address). The log-in throttle counts per client address.
     "TRUSTED_PROXIES": int,
+    "VERIFY_REQUESTS_PER_MINUTE": int,  # /verify rate limit per client address and process
+    "ROTOR_TAG_SIZE_MM": str,  # rotor tag label, width x height in mm, e.g. "62x29"
     # The owner's view (shopapp.measures.costs): money per machine hour, the longest
     # gap between two runs counted in full as machine time, and the money unit shown.
     "MACHINE_HOURLY_RATE": float,

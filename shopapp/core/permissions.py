@@ -16,6 +16,7 @@ PERMISSIONS: dict[str, frozenset[str]] = {
     "edit_machines": frozenset({"quality", "admin"}),
     "verify_machines": frozenset({"quality"}),
     "issue_certificates": frozenset({"quality"}),
+    "view_signing_key": frozenset({"quality", "admin"}),
     "view_dashboard": frozenset({"owner", "quality", "admin"}),
     "manage_users": frozenset({"admin"}),
     "edit_settings": frozenset({"admin"}),

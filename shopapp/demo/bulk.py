@@ -45,6 +45,7 @@ def generate_bulk(
         )
     load = DemoLoad(session, seed=seed, years=years, now=now, end_date=end_date,
                     total_jobs=jobs, runs_per_job=runs_per_job, force=force, progress=progress,
-                    steps=steps, exact=False, with_certificates=False)
+                    steps=steps, exact=False, with_certificates=False,
+                    signing_dir=None)
     load.shop_and_history()
     return load.summary()

@@ -24,11 +24,13 @@ import random
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from pathlib import Path
 
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from shopapp.balancing.numtext import short
+from shopapp.certificates import issue as cert_service
 from shopapp.core.errors import ValidationFailed
 from shopapp.demo import physics as ph
 from shopapp.demo.days import at
@@ -109,13 +111,22 @@ class DemoLoad:
         The balancing core's per-call functions (the demo) or their batch forms (bulk).
     with_certificates : bool
         Certificates for the certified and dispatched jobs (PDFs; the slowest part).
+    signing_dir : Path or None
+        The instance's signing folder
+        (:func:`shopapp.certificates.signing.signing_folder`): the certificates are
+        signed with the shop key there (made at the first one). None signs nothing
+        (only for tests that stub the PDF); the commands always pass the folder.
+    base_url : str
+        The shop's ``BASE_URL``, printed in each certificate's verify address and QR
+        code ("" prints the path only, no QR code).
 
     Raises
     ------
     DemoRefused
         The database holds customers or jobs and ``force`` is not set.
     ValidationFailed
-        ``years`` out of range, ``now`` without a time zone.
+        ``years`` out of range, ``now`` without a time zone, ``base_url`` not a web
+        address.
     """
 
     def __init__(self, session: Session, *, seed: int = 1, years: float = 2.0,
@@ -123,11 +134,14 @@ class DemoLoad:
                  jobs_per_year: int | None = None, total_jobs: int | None = None,
                  runs_per_job: int | None = None, force: bool = False,
                  progress: Progress | None = None, steps: Steps | None = None,
-                 exact: bool = True, with_certificates: bool = True) -> None:
+                 exact: bool = True, with_certificates: bool = True,
+                 signing_dir: Path | None, base_url: str = "") -> None:
         self.t0 = time.perf_counter()
         if not (0 < years <= 10):
             raise ValidationFailed("years",
                                    f"must be more than 0 and at most 10, got {short(years)}")
+        self.base_url = cert_service.public_base(base_url)  # refused now, not at job 1
+        self.signing_dir = signing_dir
         self.session = session
         self.end_at = history_end(now, end_date)
         self.say = progress or (lambda _msg: None)
@@ -161,7 +175,8 @@ class DemoLoad:
         self.history.write()
         self.say("demo: traceability records")
         self._keep = keep_shared_rows(self.session)
-        self.replay = Replay(self.session, shop, self.history)
+        self.replay = Replay(self.session, shop, self.history, signing_dir=self.signing_dir,
+                             base_url=self.base_url)
         self.replay.evidence()
         return self.logins
 
@@ -220,6 +235,8 @@ def load_demo(
     force: bool = False,
     steps: Steps | None = None,
     certificates: bool = True,
+    signing_dir: Path | None,
+    base_url: str = "",
 ) -> list[Login]:
     """Load the whole demo shop in the caller's transaction; return its logins.
 
@@ -228,7 +245,8 @@ def load_demo(
     """
     load = DemoLoad(session, seed=seed, years=years, now=now, end_date=end_date,
                     jobs_per_year=jobs_per_year, force=force, progress=progress, steps=steps,
-                    with_certificates=certificates)
+                    with_certificates=certificates, signing_dir=signing_dir,
+                    base_url=base_url)
     logins = load.shop_and_history()
     if certificates:
         load.advance(load.certificates())

@@ -7,7 +7,9 @@ arbor's error history from index runs, key conventions on two rotor types,
 the jobs balanced on the arbor, the residual-unbalance tests of the jobs
 that require one (:meth:`Replay.evidence`); then every certificate through
 :func:`shopapp.certificates.issue.issue` / ``reissue`` / ``void`` with its
-historical time (:meth:`Replay.certificates`, the slow part: a PDF each).
+historical time (:meth:`Replay.certificates`, the slow part: a PDF each),
+signed with the instance's key like any other certificate (the signature's own
+time is the moment of the load; the certificate states when it was issued).
 
 Each job is put in the state it had at that moment (from the transitions
 written for it) so the services judge it as they would have, then given
@@ -22,6 +24,7 @@ from __future__ import annotations
 import datetime as dt
 import time
 from collections.abc import Callable
+from pathlib import Path
 from typing import Any
 
 from sqlalchemy import select
@@ -59,8 +62,13 @@ def _date_new_audits(session: Session, moment: dt.datetime) -> None:
 class Replay:
     """Writes the collected operations of a history through the services (module docstring)."""
 
-    def __init__(self, session: Session, shop: Shop, history: History) -> None:
+    def __init__(self, session: Session, shop: Shop, history: History, *,
+                 signing_dir: Path | None, base_url: str) -> None:
         self.session = session
+        # Passed to issue and reissue as a web page passes them: signed with the instance's
+        # key, the verify address (and its QR code) on the shop's BASE_URL.
+        self.signing_dir = signing_dir
+        self.base_url = base_url
         self.shop = shop
         self.history = history
         ordered = sorted(history.ops, key=lambda o: (o[0], o[1]))
@@ -257,7 +265,8 @@ class Replay:
                 if job.id in self.reissued and not cert_queries.job_certificates(s, job):
                     # The first copy carried the customer's order reference mistyped.
                     job.customer_order_ref = order_ref[:-1] + "0"
-                cert_service.issue(s, job, by=quality, issued_at=moment)
+                cert_service.issue(s, job, by=quality, issued_at=moment,
+                                   signing_dir=self.signing_dir, base_url=self.base_url)
                 job.customer_order_ref = order_ref
                 self.slice_issued += 1
             else:
@@ -266,7 +275,8 @@ class Replay:
                     return
                 if data["what"] == "reissue":
                     cert_service.reissue(s, cert, by=quality, reason=data["reason"],
-                                         issued_at=moment)
+                                         issued_at=moment, signing_dir=self.signing_dir,
+                                         base_url=self.base_url)
                     self.slice_issued += 1
                 else:
                     # The history already reopened the job: void as a reopen does

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import secrets
 from typing import Any
 
 from sqlalchemy import (
@@ -24,6 +25,15 @@ from shopapp.models.base import Base, IntPK, Timestamp, UTCDateTime, one_of
 from shopapp.models.jobs import Job
 
 CERTIFICATE_STATES = ("issued", "void")
+# The verification code printed on a certificate: random, never derived from its number.
+VERIFICATION_CODE_ALPHABET = "ABCDEFGHIJKLMNOPQRSTUVWXYZ234567"  # RFC 4648 base32
+VERIFICATION_CODE_LENGTH = 10  # 50 random bits
+
+
+def new_verification_code() -> str:
+    """A fresh random verification code (``secrets``; 10 base32 characters)."""
+    return "".join(secrets.choice(VERIFICATION_CODE_ALPHABET)
+                   for _ in range(VERIFICATION_CODE_LENGTH))
 
 
 class Certificate(Base):
@@ -68,6 +78,11 @@ class Certificate(Base):
     pdf_sha256: Mapped[str] = mapped_column(String(64), nullable=False, unique=True)
     data_json: Mapped[str] = mapped_column(Text, nullable=False)
     data_sha256: Mapped[str] = mapped_column(String(64), nullable=False, index=True)
+    # Printed on the certificate (and in its QR code) beside the number: /verify shows the
+    # certified details only for the number together with this code (migration 0020).
+    verification_code: Mapped[str] = mapped_column(
+        String(16), nullable=False, unique=True, default=new_verification_code
+    )
 
     job: Mapped[Job] = relationship()
 
@@ -94,15 +109,17 @@ class AuditEvent(Base):
     after: Mapped[dict[str, Any] | None] = mapped_column(JSON)
 
 
-# --- database-level immutability (the same SQL as migrations 0001 and 0003) -----------------
+# --- database-level immutability (the same SQL as migrations 0001, 0003 and 0020) ----------
 # An issued certificate changes only by being voided (state, voided_at, voided_by_id,
 # void_reason, all at once); a void one never changes; no certificate is deleted, replaced
 # (SQLite's INSERT OR REPLACE) or truncated (PostgreSQL). The evidence of a job with a
 # valid certificate (its runs, their readings, its corrections) is neither updated nor
 # deleted: reopening the job voids the certificate first (shopapp.jobs.certificate_link).
-_CONTENT_COLUMNS = (
+# The builders below are the one home of the certificate guards' SQL: create_all uses them
+# with the columns of today's model, migration 0020 with the column lists it froze.
+CONTENT_COLUMNS = (
     "id", "number", "revision", "job_id", "issued_by_id", "issued_at", "reason",
-    "pdf", "pdf_sha256", "data_json", "data_sha256",
+    "pdf", "pdf_sha256", "data_json", "data_sha256", "verification_code",
 )
 _VOID_COLUMNS = ("voided_at", "voided_by_id", "void_reason")
 IMMUTABLE_MESSAGE = (
@@ -136,21 +153,28 @@ _SQLITE_CERTIFIED_RUNS = (
     "WHERE certificate.state = 'issued' AND run.id IN ({ids})"
 )
 
-SQLITE_CERTIFICATE_TRIGGERS = (
-    "CREATE TRIGGER certificate_immutable BEFORE UPDATE ON certificate "
-    f"WHEN OLD.state = 'void' OR {_changed(_CONTENT_COLUMNS, 'IS NOT')} "
-    f"OR (NEW.state = 'issued' AND ({_changed(_VOID_COLUMNS, 'IS NOT')})) "
-    f"BEGIN SELECT RAISE(ABORT, '{IMMUTABLE_MESSAGE}'); END",
-    "CREATE TRIGGER certificate_no_delete BEFORE DELETE ON certificate "
-    "BEGIN SELECT RAISE(ABORT, 'certificates are never deleted'); END",
-    # INSERT OR REPLACE deletes the row it collides with without firing the DELETE trigger
-    # unless recursive_triggers is on (shopapp turns it on; a plain sqlite3 client does not).
-    "CREATE TRIGGER certificate_no_replace BEFORE INSERT ON certificate "
-    "WHEN EXISTS (SELECT 1 FROM certificate WHERE id = NEW.id OR (number = NEW.number AND "
-    "revision = NEW.revision) OR pdf_sha256 = NEW.pdf_sha256) "
-    "BEGIN SELECT RAISE(ABORT, 'certificates are never replaced: one with this id, number and "
-    "revision or PDF exists already'); END",
-)
+
+def sqlite_certificate_triggers(content_columns: tuple[str, ...]) -> tuple[str, ...]:
+    """The SQLite triggers on the certificate table; ``content_columns`` never change."""
+    return (
+        "CREATE TRIGGER certificate_immutable BEFORE UPDATE ON certificate "
+        f"WHEN OLD.state = 'void' OR {_changed(content_columns, 'IS NOT')} "
+        f"OR (NEW.state = 'issued' AND ({_changed(_VOID_COLUMNS, 'IS NOT')})) "
+        f"BEGIN SELECT RAISE(ABORT, '{IMMUTABLE_MESSAGE}'); END",
+        "CREATE TRIGGER certificate_no_delete BEFORE DELETE ON certificate "
+        "BEGIN SELECT RAISE(ABORT, 'certificates are never deleted'); END",
+        # INSERT OR REPLACE deletes the row it collides with without firing the DELETE
+        # trigger unless recursive_triggers is on (shopapp turns it on; a plain sqlite3
+        # client does not).
+        "CREATE TRIGGER certificate_no_replace BEFORE INSERT ON certificate "
+        "WHEN EXISTS (SELECT 1 FROM certificate WHERE id = NEW.id OR (number = NEW.number AND "
+        "revision = NEW.revision) OR pdf_sha256 = NEW.pdf_sha256) "
+        "BEGIN SELECT RAISE(ABORT, 'certificates are never replaced: one with this id, number "
+        "and revision or PDF exists already'); END",
+    )
+
+
+SQLITE_CERTIFICATE_TRIGGERS = sqlite_certificate_triggers(CONTENT_COLUMNS)
 SQLITE_EVIDENCE_TRIGGERS = (
     *_sqlite_evidence("run", "job_id", _SQLITE_CERTIFIED_JOBS),
     *_sqlite_evidence("run_reading", "run_id", _SQLITE_CERTIFIED_RUNS),
@@ -158,13 +182,23 @@ SQLITE_EVIDENCE_TRIGGERS = (
 )
 
 _PG_RAISE = "USING ERRCODE = 'integrity_constraint_violation'"
+
+
+def postgres_certificate_guard(content_columns: tuple[str, ...]) -> str:
+    """The PostgreSQL function behind the row trigger ``certificate_immutable``."""
+    return (
+        "CREATE OR REPLACE FUNCTION certificate_guard() RETURNS trigger AS $$ BEGIN "
+        f"IF TG_OP = 'DELETE' THEN RAISE EXCEPTION 'certificates are never deleted' "
+        f"{_PG_RAISE}; END IF; "
+        f"IF OLD.state = 'void' OR {_changed(content_columns, 'IS DISTINCT FROM')} "
+        f"OR (NEW.state = 'issued' AND ({_changed(_VOID_COLUMNS, 'IS DISTINCT FROM')})) "
+        f"THEN RAISE EXCEPTION '{IMMUTABLE_MESSAGE}' {_PG_RAISE}; END IF; RETURN NEW; END; "
+        "$$ LANGUAGE plpgsql"
+    )
+
+
 POSTGRES_CERTIFICATE_TRIGGERS = (
-    "CREATE OR REPLACE FUNCTION certificate_guard() RETURNS trigger AS $$ BEGIN "
-    f"IF TG_OP = 'DELETE' THEN RAISE EXCEPTION 'certificates are never deleted' {_PG_RAISE}; "
-    f"END IF; IF OLD.state = 'void' OR {_changed(_CONTENT_COLUMNS, 'IS DISTINCT FROM')} "
-    f"OR (NEW.state = 'issued' AND ({_changed(_VOID_COLUMNS, 'IS DISTINCT FROM')})) "
-    f"THEN RAISE EXCEPTION '{IMMUTABLE_MESSAGE}' {_PG_RAISE}; END IF; RETURN NEW; END; "
-    "$$ LANGUAGE plpgsql",
+    postgres_certificate_guard(CONTENT_COLUMNS),
     "CREATE TRIGGER certificate_immutable BEFORE UPDATE OR DELETE ON certificate "
     "FOR EACH ROW EXECUTE FUNCTION certificate_guard()",
     "CREATE OR REPLACE FUNCTION certificate_no_truncate() RETURNS trigger AS $$ BEGIN "

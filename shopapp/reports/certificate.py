@@ -44,9 +44,14 @@ from shopapp.reports.common import (
     styles,
 )
 from shopapp.reports.drawing import to_drawing
+from shopapp.reports.qr import qr_drawing
 from shopapp.reports.traceability_section import ErrorLine, ResidualTestLine
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
+# Schema 2 (issue 15) added the verification code and the verify URL printed with a QR
+# code. Data of schema 1 (certificates issued before) is stored, hashed and drawn without
+# them, exactly as it was, so their stored JSON, content hash and PDF bytes stay the same.
+SCHEMA_2_FIELDS = ("verification_code", "verify_url", "signed_by")
 SIGNIFICANT_DIGITS = 6  # stored precision of every float in the certified data
 
 COVERAGE_STATEMENT = (
@@ -164,12 +169,25 @@ class CertificateData:
     residual_tests: tuple[ResidualTestLine, ...] = ()
     balance_errors: tuple[ErrorLine, ...] = ()
     error_rule: str = ""
+    # Schema 2: the random code /verify asks for with the number, and the address printed
+    # (and drawn as a QR code) to check this revision: "<base>/verify?n=<number>&c=<code>",
+    # only the path when the shop has no BASE_URL.
+    verification_code: str = ""
+    verify_url: str = ""
+    signed_by: str = ""  # subject of the shop's signer certificate; "" when not signed
 
     # --- serialisation -------------------------------------------------------------
 
     def to_dict(self) -> dict[str, Any]:
-        """Plain dict (tuples as lists) with every float rounded to the stored precision."""
-        return _rounded(dataclasses.asdict(self))
+        """Plain dict (tuples as lists) with every float rounded to the stored precision.
+
+        Schema 1 data has no schema-2 keys (its stored JSON stays byte for byte).
+        """
+        out = _rounded(dataclasses.asdict(self))
+        if self.schema < 2:
+            for key in SCHEMA_2_FIELDS:
+                out.pop(key)
+        return out
 
     @classmethod
     def from_dict(cls, raw: dict[str, Any]) -> CertificateData:
@@ -541,19 +559,69 @@ def _closing_section(data: CertificateData, content_hash: str) -> list[Flowable]
             f"Revision {data.revision} replaces the earlier revisions of {data.number}, which "
             f"are void. Reason: {data.revision_reason or 'not stated'}."
         ), st.body))
-    out.append(keep(
-        Paragraph("7  Check that this document is genuine", st.heading),
-        Paragraph(esc("Content hash (SHA-256 of the certified data):"), st.body),
-        Paragraph(esc(content_hash), st.mono),
-        Paragraph(esc(
-            f"Enter the certificate number {data.number} or this hash on the shop's "
-            "verification page (/verify on the shop's shopapp server, no login needed), or run "
-            "'shopapp report verify FILE.pdf' on the PDF file. The page states whether this "
-            "revision is valid, void or superseded. The hash changes if any certified value "
-            "changes."
-        ), st.body),
-    ))
+    if data.schema < 2:
+        out.append(keep(
+            Paragraph("7  Check that this document is genuine", st.heading),
+            Paragraph(esc("Content hash (SHA-256 of the certified data):"), st.body),
+            Paragraph(esc(content_hash), st.mono),
+            Paragraph(esc(
+                f"Enter the certificate number {data.number} or this hash on the shop's "
+                "verification page (/verify on the shop's shopapp server, no login needed), or "
+                "run 'shopapp report verify FILE.pdf' on the PDF file. The page states whether "
+                "this revision is valid, void or superseded. The hash changes if any certified "
+                "value changes."
+            ), st.body),
+        ))
+    else:
+        out.append(_check_section(data, content_hash))
     return out
+
+
+QR_SIZE = 30 * mm
+
+
+def has_qr(data: CertificateData) -> bool:
+    """A QR code is printed when the verify address is a whole URL (the shop set BASE_URL)."""
+    return data.schema >= 2 and data.verify_url.startswith(("https://", "http://"))
+
+
+def _signature_words(data: CertificateData) -> str:
+    attached = ("carries the certified data as the attached file certificate-data.json, whose "
+                "SHA-256 is the content hash above")
+    if not data.signed_by:
+        return (f"This PDF {attached}. It is not digitally signed: check it on the address "
+                "above.")
+    return (f"This PDF is digitally signed by the shop ({data.signed_by}) and {attached}. "
+            "'shopapp report verify FILE.pdf' checks the signature and the attached data "
+            "without a connection to the shop; any change to the file breaks the signature.")
+
+
+def _check_section(data: CertificateData, content_hash: str) -> Flowable:
+    """Section 7 of schema 2: the verify address (and its QR code), number and code, the
+    content hash, and what the digital signature and the attached data are."""
+    st = styles()
+    where = ("Scan the code or open this address" if has_qr(data)
+             else "Open this address on the shop's shopapp server")
+    text: list[Flowable] = [
+        Paragraph(esc(f"{where} (no login needed):"), st.body),
+        Paragraph(esc(data.verify_url), st.mono),
+        Paragraph(esc(f"Certificate number {data.number}, verification code "
+                      f"{data.verification_code}. The page states whether this revision is "
+                      "valid, void or superseded; it shows the certified details only with "
+                      "the number and this code."), st.body),
+        Spacer(1, 1.5 * mm),
+        Paragraph(esc("Content hash (SHA-256 of the certified data):"), st.small),
+        Paragraph(esc(content_hash), st.mono),
+        Paragraph(esc(_signature_words(data)), st.small),
+    ]
+    if has_qr(data):
+        body: Flowable = Table([[qr_drawing(data.verify_url, QR_SIZE), text]],
+                               colWidths=[QR_SIZE + 4 * mm, _CONTENT_WIDTH - QR_SIZE - 4 * mm])
+        body.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
+                                  ("LEFTPADDING", (0, 0), (-1, -1), 0),
+                                  ("RIGHTPADDING", (0, 0), (-1, -1), 0)]))
+        return keep(Paragraph("7  Check that this document is genuine", st.heading), body)
+    return keep(Paragraph("7  Check that this document is genuine", st.heading), *text)
 
 
 def meta(data: CertificateData, content_hash: str | None = None) -> DocumentMeta:
@@ -569,7 +637,10 @@ def meta(data: CertificateData, content_hash: str | None = None) -> DocumentMeta
                  f"{content_hash}",
         header_left=f"{data.shop_name} · balance certificate",
         header_right=f"{data.number} revision {data.revision} · serial {data.serial_number}",
-        footer_left=f"content hash {content_hash[:16]}… · verify at /verify",
+        footer_left=(f"content hash {content_hash[:16]}… · verify at /verify"
+                     if data.schema < 2 else
+                     f"verification code {data.verification_code} · content hash "
+                     f"{content_hash[:16]}… · see section 7"),
     )
 
 

@@ -132,13 +132,13 @@ def test_replace_is_refused_even_without_the_pragma(fresh_database_url, backend)
         assert "pdf_sha256" in cols
         # Foreign keys are off in a plain client (its default): no job or user is needed.
         row = ("BC-2026-00001", 1, 1, "issued", 1, "2026-01-01 00:00:00", "", "", b"%PDF",
-               "a" * 64, "{}", "b" * 64)
+               "a" * 64, "{}", "b" * 64, "AAAAAAAAAA")
         sql = ("INSERT {verb} INTO certificate (number, revision, job_id, state, issued_by_id, "
-               "issued_at, reason, void_reason, pdf, pdf_sha256, data_json, data_sha256) "
-               "VALUES (?,?,?,?,?,?,?,?,?,?,?,?)")
+               "issued_at, reason, void_reason, pdf, pdf_sha256, data_json, data_sha256, "
+               "verification_code) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)")
         con.execute(sql.format(verb=""), row)
         assert con.execute("PRAGMA recursive_triggers").fetchone()[0] == 0
-        forged = (*row[:6], "forged", "", b"%PDF", "c" * 64, "{}", "d" * 64)
+        forged = (*row[:6], "forged", "", b"%PDF", "c" * 64, "{}", "d" * 64, "BBBBBBBBBB")
         with pytest.raises(sqlite3.IntegrityError, match="never replaced"):
             con.execute(sql.format(verb="OR REPLACE"), forged)
         assert con.execute("SELECT reason FROM certificate").fetchall() == [("",)]

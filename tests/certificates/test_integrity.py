@@ -17,17 +17,21 @@ from sqlalchemy import Connection, text
 from sqlalchemy.orm import Session
 
 from shopapp.certificates import issue as certificates
+from shopapp.certificates import pdfsign, signing
 from shopapp.cli import main
 from shopapp.core.database import make_engine
 from shopapp.jobs import states as jobs
 from shopapp.models import Base, Correction, Run, RunReading
 from tests import factories
+from tests.certificates.signed import BASE
 from tests.reports.samples import RESIDUAL_GMM, job_ready_for_certificate
 
 
 @pytest.fixture()
 def seeded(fresh_database_url, tmp_path, monkeypatch):  # type: ignore[no-untyped-def]
-    """Two certified jobs; the first certificate reissued (rev 1 void, rev 2 valid)."""
+    """Two certified jobs; the first certificate reissued (rev 1 void, rev 2 valid); all
+    signed with the instance's key as the certificate pages sign them (issue 15)."""
+    signed = {"signing_dir": signing.signing_folder(tmp_path), "base_url": BASE}
     engine = make_engine(fresh_database_url)
     Base.metadata.create_all(engine)
     with Session(engine) as db:
@@ -35,9 +39,11 @@ def seeded(fresh_database_url, tmp_path, monkeypatch):  # type: ignore[no-untype
         quality = factories.user(db, username="quinn", role="quality", password="long-enough-1")
         shop = factories.ShopFactory(db)
         job = job_ready_for_certificate(db, shop, operator)
-        first = certificates.issue(db, job, by=quality)
-        second = certificates.reissue(db, first, by=quality, reason="order reference corrected")
-        other = certificates.issue(db, job_ready_for_certificate(db, shop, operator), by=quality)
+        first = certificates.issue(db, job, by=quality, **signed)
+        second = certificates.reissue(db, first, by=quality, reason="order reference corrected",
+                                      **signed)
+        other = certificates.issue(db, job_ready_for_certificate(db, shop, operator),
+                                   by=quality, **signed)
         check = db.query(Run).filter_by(job_id=job.id, purpose="check").one()
         out = {
             "number": first.number, "other": other.number, "job": job.id,
@@ -169,6 +175,36 @@ def test_rewritten_certified_data_and_pdf_are_found_even_on_void_revisions(seede
             in result.output)
     assert f"{seeded['number']} revision 2: the stored PDF hashes to" in result.output
     assert "2 do not agree" in result.output
+
+
+def test_the_pdf_hash_is_of_the_signed_file_and_finds_a_stripped_signature(  # type: ignore[no-untyped-def]
+        seeded, tmp_path) -> None:
+    """Issue 15 keeps one rule for the PDF hash: ``pdf_sha256`` is the SHA-256 of the stored
+    (signed) bytes, not of the unsigned rendering they start with; the check hashes what is
+    stored. A certificate whose file was swapped for its unsigned rendering (the signature
+    stripped) no longer agrees."""
+    engine = seeded["engine"]
+    with Session(engine) as db:
+        from shopapp.models import Certificate
+
+        known = signing.known_certificates(signing.signing_folder(tmp_path))
+        for cert in db.query(Certificate):
+            unsigned = certificates.rerender(cert)
+            assert pdfsign.inspect(cert.pdf, known).proven  # signed, intact, data attached
+            assert cert.pdf.startswith(unsigned) and len(cert.pdf) > len(unsigned)
+            assert cert.pdf_sha256 == hashlib.sha256(cert.pdf).hexdigest()
+            assert cert.pdf_sha256 != hashlib.sha256(unsigned).hexdigest()
+            if cert.id == seeded["rev2"]:
+                stripped = unsigned
+    tamper(engine, ("certificate",),
+           ("UPDATE certificate SET pdf = :p WHERE id = :i",
+            {"p": stripped, "i": seeded["rev2"]}))
+    result = check()
+    assert result.exit_code == 1
+    stripped_hash = hashlib.sha256(stripped).hexdigest()
+    assert (f"{seeded['number']} revision 2: the stored PDF hashes to {stripped_hash[:16]}…"
+            in result.output)
+    assert "1 do not agree" in result.output
 
 
 def test_reopened_and_reworked_jobs_still_pass(seeded) -> None:  # type: ignore[no-untyped-def]

@@ -140,8 +140,12 @@ def test_verify_page_is_public_and_answers_each_state(client, db, shop, make_use
         assert resp.status_code == 200
         return resp.get_data(as_text=True)
 
+    # Issue 15: the number alone answers only that it exists; number + code shows the state.
     page = ask(first.number)
-    assert "Valid" in page and f"{first.number} revision 1 is valid" in page
+    assert "Number found" in page and "revision 1 is valid" not in page
+    page = client.get("/verify", query_string={"n": first.number,
+                                               "c": first.verification_code}).get_data(as_text=True)
+    assert "Genuine and valid" in page and f"{first.number} revision 1 is valid" in page
     assert "Quinn" not in page  # only the first lines, not who signed
     second = certificates.reissue(db, first, by=quality, reason="order reference corrected")
     db.commit()
@@ -149,8 +153,8 @@ def test_verify_page_is_public_and_answers_each_state(client, db, shop, make_use
     certificates.void(db, second, by=quality, reason="rotor scrapped by the customer")
     db.commit()
     page = ask(second.data_sha256)
-    assert "Void" in page and "rotor scrapped by the customer" in page
-    assert "Unknown" in ask("BC-1990-00001")
+    assert "Genuine, void" in page and "rotor scrapped by the customer" in page
+    assert "Not found" in ask("BC-1990-00001")
     assert client.get("/verify").status_code == 200  # the empty form
     assert client.get("/verify", query_string={"q": ""}).status_code == 422
 

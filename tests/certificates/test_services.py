@@ -50,8 +50,13 @@ def test_issue_stores_pdf_data_and_hashes_and_certifies_the_job(db, shop, people
     assert cert.number.startswith(f"BC-{cert.issued_at.year}-") and cert.revision == 1
     assert cert.pdf_sha256 == hashlib.sha256(cert.pdf).hexdigest()
     assert cert.data_sha256 == hashlib.sha256(cert.data_json.encode("utf-8")).hexdigest()
-    # The stored data re-renders to the stored bytes (reproducible PDF).
-    assert certificates.rerender(cert) == cert.pdf
+    # The stored data re-renders to the unsigned rendering, and the stored file starts with
+    # it byte for byte (issue 15: the embedded data and, when signed, the signature follow
+    # as one incremental update, so the whole stored file can no longer equal a rendering;
+    # tests/certificates/test_signed_pdf.py checks that the signature covers all of it).
+    unsigned = certificates.rerender(cert)
+    assert cert.pdf[:len(unsigned)] == unsigned and len(cert.pdf) > len(unsigned)
+    assert certificates.rerender(cert) == unsigned  # reproducible
     events = db.query(AuditEvent).filter_by(entity="certificate", entity_id=cert.id).all()
     assert [e.action for e in events] == ["issue"]
     text = _pdf_text(cert.pdf)
@@ -236,13 +241,18 @@ def test_numbers_count_up_within_the_year(db, shop, people) -> None:
 def test_verify_valid_void_superseded_unknown(db, shop, people) -> None:
     operator, quality = people
     first = certificates.issue(db, job_ready_for_certificate(db, shop, operator), by=quality)
+    # Issue 15: a number alone only says that it exists (no state, no lines); the state and
+    # lines need the number with its verification code (or a hash).
     v = register.verify(db, first.number.lower())
+    assert v.status == "exists" and v.revision is None and v.lines == ()
+    v = register.check(db, first.number.lower(), first.verification_code.lower())
     assert v.status == "valid" and v.revision == 1
     assert dict(v.lines)["Certificate"] == f"{first.number} revision 1"
     second = certificates.reissue(db, first, by=quality, reason="serial number typo fixed")
     assert register.verify(db, first.pdf_sha256).status == "superseded"
     assert "superseded by revision 2" in register.verify(db, first.pdf_sha256).message
-    assert register.verify(db, first.number).revision == 2  # number → latest revision
+    assert register.check(db, first.number, second.verification_code).revision == 2
+    assert register.check(db, first.number, first.verification_code).status == "superseded"
     certificates.void(db, second, by=quality, reason="rotor scrapped by the customer")
     v = register.verify(db, second.data_sha256.upper())
     assert v.status == "void" and v.void_reason == "rotor scrapped by the customer"

@@ -14,6 +14,7 @@ import hashlib
 import itertools
 from collections import Counter
 from collections.abc import Iterator
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -59,13 +60,24 @@ END = dt.date(2026, 3, 27)  # a Friday
 SEED = 7
 
 
+BASE_URL = "https://demo-shop.example.test"
+
+
 @pytest.fixture(scope="module")
-def demo_conn(engine: Engine) -> Iterator[tuple[Connection, list[tuple[str, str, str]]]]:
+def signing_dir(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The demo's instance signing folder (empty: the load makes the key)."""
+    return tmp_path_factory.mktemp("instance") / "signing"
+
+
+@pytest.fixture(scope="module")
+def demo_conn(engine: Engine, signing_dir: Path
+              ) -> Iterator[tuple[Connection, list[tuple[str, str, str]]]]:
     """One demo load for the whole module, on a transaction rolled back at the end."""
     conn = engine.connect()
     outer = conn.begin()
     sess = Session(bind=conn, join_transaction_mode="create_savepoint")
-    logins = demo.load_demo(sess, seed=SEED, years=0.5, jobs_per_year=360, end_date=END)
+    logins = demo.load_demo(sess, seed=SEED, years=0.5, jobs_per_year=360, end_date=END,
+                            signing_dir=signing_dir, base_url=BASE_URL)
     sess.commit()
     sess.close()
     yield conn, logins
@@ -468,8 +480,69 @@ def test_certified_jobs_hold_one_valid_certificate_some_reissued_some_void(ds: S
     assert any(c.revision > 1 for c in certs)
     sample = certs[0]
     assert hashlib.sha256(sample.pdf).hexdigest() == sample.pdf_sha256
-    assert cert_service.rerender(sample) == sample.pdf
-    assert register.verify(ds, sample.number).status in ("valid", "superseded", "void")
+    # Issue 15: the stored file starts with the reproducible rendering (attached data
+    # follows); a number alone only says it exists, number + code gives the state.
+    unsigned = cert_service.rerender(sample)
+    assert sample.pdf[:len(unsigned)] == unsigned
+    assert register.verify(ds, sample.number).status == "exists"
+    assert register.check(ds, sample.number, sample.verification_code).status in (
+        "valid", "superseded", "void")
+
+
+def _qr_texts(pdf: bytes) -> list[str]:
+    """The QR codes of the last page, read by PDFium (pypdfium2) and zxing-cpp."""
+    import pypdfium2 as pdfium
+    import zxingcpp
+
+    doc = pdfium.PdfDocument(pdf)
+    try:
+        image = doc[len(doc) - 1].render(scale=300 / 72).to_pil()
+    finally:
+        doc.close()
+    return [r.text for r in zxingcpp.read_barcodes(image)
+            if r.format == zxingcpp.BarcodeFormat.QRCode]
+
+
+def test_the_demo_certificates_are_signed_with_the_instance_key_and_verify(
+        ds: Session, signing_dir: Path) -> None:
+    """Issue 15's done-when on the demo shop: each certificate is signed with the
+    instance's key (made once, at the first certificate), verifies by itself, and its QR
+    code opens its verify address on BASE_URL. Checked with pyHanko's validator
+    (pdfsign.inspect), an independent pikepdf + asn1crypto + cryptography check of the
+    CMS signature, and PDFium + zxing-cpp reading the QR code."""
+    from urllib.parse import parse_qs, urlsplit
+
+    from shopapp.certificates import issue as cert_service
+    from shopapp.certificates import pdfsign, signing
+    from tests.certificates.signed import independent_check
+
+    key = signing.current_key(signing_dir)
+    assert key is not None
+    known = signing.known_certificates(signing_dir)
+    assert [k.fingerprint for k in known] == [key.info.fingerprint]
+    made = list(ds.scalars(select(AuditEvent).where(AuditEvent.entity == "signing_key")))
+    assert [e.action for e in made] == ["create"]
+    certs = list(ds.scalars(select(Certificate).order_by(Certificate.id)))
+    assert len(certs) > 50
+    # pyHanko's validation costs a little each: the first and last issued, every revision
+    # after the first and every void one, and every tenth of the rest.
+    sample = [c for k, c in enumerate(certs)
+              if k in (0, len(certs) - 1) or c.revision > 1 or c.state == "void" or k % 10 == 0]
+    for cert in sample:
+        proof = pdfsign.inspect(cert.pdf, known)
+        assert proof.proven, (cert.number, cert.revision, proof.lines())
+        assert proof.signer_known == "current"
+        assert proof.data_json == cert.data_json.encode("utf-8")
+        data = cert_service.certificate_data(cert)
+        assert data.signed_by == key.info.subject
+        url = urlsplit(data.verify_url)
+        assert f"{url.scheme}://{url.netloc}" == BASE_URL and url.path == "/verify"
+        assert parse_qs(url.query) == {"n": [cert.number], "c": [cert.verification_code]}
+    one = sample[-1]
+    check = independent_check(one.pdf)
+    assert check.covers_whole_file and check.digest_matches and check.signature_verifies
+    assert check.signer_subject == key.certificate.subject.rfc4514_string()
+    assert _qr_texts(one.pdf) == [cert_service.certificate_data(one).verify_url]
 
 
 # --------------------------------------------------------------------------- refusals, seed
@@ -478,7 +551,7 @@ def test_certified_jobs_hold_one_valid_certificate_some_reissued_some_void(ds: S
 def test_a_second_load_is_refused_and_writes_nothing(ds: Session) -> None:
     before = ds.scalar(select(func.count()).select_from(Job))
     with pytest.raises(demo.DemoRefused, match="--force"):
-        demo.load_demo(ds, seed=SEED, years=0.5, end_date=END)
+        demo.load_demo(ds, seed=SEED, years=0.5, end_date=END, signing_dir=None)
     assert ds.scalar(select(func.count()).select_from(Job)) == before
 
 
@@ -486,7 +559,7 @@ def test_force_adds_a_second_shop_beside_and_the_seed_repeats_it(ds: Session) ->
     names = sorted(ds.scalars(select(Customer.name)))
     first = _fingerprint(ds, tag="")
     demo.load_demo(ds, seed=SEED, years=0.5, jobs_per_year=360, end_date=END, force=True,
-                   certificates=False)
+                   certificates=False, signing_dir=None)
     assert sorted(ds.scalars(select(Customer.name).where(~Customer.name.like("%[demo 2]")))) \
         == names
     assert _fingerprint(ds, tag=" [demo 2]") == first
@@ -559,6 +632,6 @@ def test_bad_parameters_are_refused_with_the_field() -> None:
     from shopapp.core.errors import ValidationFailed
 
     with pytest.raises(ValidationFailed, match="years"):
-        demo.load_demo(None, years=0)  # type: ignore[arg-type]
+        demo.load_demo(None, years=0, signing_dir=None)  # type: ignore[arg-type]
     with pytest.raises(ValidationFailed, match="runs_per_job"):
         bulk.generate_bulk(None, jobs=10, runs_per_job=2)  # type: ignore[arg-type]

@@ -22,6 +22,7 @@ from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import Session
 
 from shopapp.certificates import issue as cert_service
+from shopapp.certificates import pdfsign
 from shopapp.cli import main
 from shopapp.core.database import SQLITE_IMMEDIATE, make_engine
 from shopapp.core.errors import ServiceError, ValidationFailed
@@ -43,10 +44,13 @@ first_start_cli = importlib.import_module("shopapp.cli.first_start")
 
 @pytest.fixture()
 def quick_certificates(monkeypatch: pytest.MonkeyPatch) -> None:
-    """A certificate's PDF is its certified JSON (unique per certificate, no drawing)."""
+    """A certificate's PDF is its certified JSON (unique per certificate, no drawing), and
+    sealing passes it through (a stub is no PDF to sign; tests/demo/test_simulator.py
+    loads the demo with real, signed PDFs)."""
     monkeypatch.setattr(certificate_report, "render",
                         lambda data: b"%PDF stub\n" + certificate_report.canonical_json(
                             data).encode())
+    monkeypatch.setattr(pdfsign, "seal", lambda unsigned, data_json, key, reason: unsigned)
 
 
 def _session(connection: Connection) -> Session:
@@ -81,7 +85,7 @@ def test_the_demo_loads_for_every_seed_and_start_time_and_never_dates_after_now(
     monkeypatch.setattr(cert_service, "_now", lambda: now)
     monkeypatch.setattr(demo_shop, "hash_password", lambda pw: "not-a-hash")  # speed only
     ds = _session(connection)
-    demo.load_demo(ds, seed=seed, years=0.25, now=now)
+    demo.load_demo(ds, seed=seed, years=0.25, now=now, signing_dir=None)
     ds.flush()
     assert _after(ds, now) == []
     jobs = list(ds.scalars(select(Job)))
@@ -97,7 +101,8 @@ def test_a_history_ending_at_a_given_moment_keeps_the_jobs_of_that_morning_open(
     """Before 07:30 nothing of the end day has happened; by 23:59 its jobs were booked."""
     early = dt.datetime(2026, 3, 27, 0, 30, tzinfo=dt.UTC)
     ds = _session(connection)
-    demo.load_demo(ds, seed=2, years=0.25, now=early, certificates=False)
+    demo.load_demo(ds, seed=2, years=0.25, now=early, certificates=False,
+                   signing_dir=None)
     assert ds.scalar(select(func.count()).select_from(Job).where(
         Job.received_on == early.date())) == 0
     assert ds.scalar(select(func.max(Job.created_at))) < early
@@ -112,7 +117,7 @@ def test_certificates_in_slices_leave_alone_a_job_a_person_changed(
         connection: Connection, quick_certificates: None) -> None:
     now = dt.datetime(2026, 3, 27, 12, 45, tzinfo=dt.UTC)
     ds = _session(connection)
-    load = demo.DemoLoad(ds, seed=4, years=0.25, now=now)
+    load = demo.DemoLoad(ds, seed=4, years=0.25, now=now, signing_dir=None)
     load.shop_and_history()
     ds.commit()
     total = load.certificates_total

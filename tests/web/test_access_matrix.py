@@ -35,6 +35,7 @@ POLICY: dict[str, frozenset[str]] = {
     "edit_machines": frozenset({"quality", "admin"}),
     "verify_machines": frozenset({"quality"}),
     "issue_certificates": frozenset({"quality"}),
+    "view_signing_key": frozenset({"quality", "admin"}),
     "view_dashboard": frozenset({"owner", "quality", "admin"}),
     "manage_users": frozenset({"admin"}),
     "edit_settings": frozenset({"admin"}),
@@ -49,7 +50,7 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "auth.logout": (None, "login"),
     "auth.home": ("login", None),
     "auth.own_password": ("login", "login"),
-    "certificates.verify": (PUBLIC, None),
+    "certificates.verify": (PUBLIC, PUBLIC),
     # registries
     "customers.index": ("read", None),
     "customers.detail": ("read", None),
@@ -91,6 +92,9 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "certificates.void": ("issue_certificates", "issue_certificates"),
     "certificates.rotor_history_pdf": ("read", None),
     "certificates.rotor_type_history_pdf": ("read", None),
+    "certificates.signing_page": ("view_signing_key", None),
+    "certificates.job_traveller": ("read", None),
+    "certificates.rotor_tag": ("read", None),
     # owner's view
     "dashboard.index": ("view_dashboard", None),
     "dashboard.csv": ("view_dashboard", None),
