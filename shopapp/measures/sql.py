@@ -63,15 +63,43 @@ from shopapp.core.sqltime import (
 from shopapp.core.sqltime import (
     year_month as year_month,
 )
+from shopapp.jobs.facts import REWORK_FROM_STATES as REWORK_FROM_STATES
 from shopapp.measures.periods import Period, Scope
-from shopapp.models import Job, JobTransition, Rotor
+from shopapp.models import Job, JobFact, JobTransition, Rotor
 
 # Any SELECT, whatever its columns (SQLAlchemy types a Select by its column tuple).
 AnySelect: TypeAlias = "Select[*tuple[Any, ...]]"
 # A column expression or an ORM attribute: what a measure family selects.
 Column: TypeAlias = "SQLColumnExpression[Any]"
 
-REWORK_FROM_STATES: tuple[str, ...] = ("in_tolerance", "certified", "dispatched")
+
+
+def fact_dims() -> dict[str, Column]:
+    """The slice columns of a job's facts, by the name they carry in every family's rows."""
+    return {
+        "operator_id": JobFact.operator_id,
+        "machine_id": JobFact.machine_id,
+        "rotor_type_id": JobFact.rotor_type_id,
+        "customer_id": JobFact.customer_id,
+    }
+
+
+def scoped_facts(stmt: AnySelect, scope: Scope) -> AnySelect:
+    """``stmt`` (over job_fact) restricted to ``scope``."""
+    for name, col in fact_dims().items():
+        value = getattr(scope, name)
+        if value is not None:
+            stmt = stmt.where(col == value)
+    return stmt
+
+
+def fact_select(columns: dict[str, Column], month: Column) -> AnySelect:
+    """SELECT of the job's slice columns, its month (``'YYYY-MM'`` already) and ``columns``,
+    FROM job_fact: one small row per job, no join."""
+    cols = [label(n, c) for n, c in fact_dims().items()]
+    cols.append(label("month", month))
+    cols.extend(label(n, c) for n, c in columns.items())
+    return select(*cols).select_from(JobFact)
 
 
 def job_dims() -> dict[str, Column]:
