@@ -18,7 +18,7 @@ from typing import Any
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-import bench_shop  # noqa: E402
+import bench_shop
 
 GROWTH_GOAL = 1.5
 PER_PAGE = 25
