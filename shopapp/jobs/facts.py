@@ -24,10 +24,11 @@ from __future__ import annotations
 from collections.abc import Iterable
 from typing import Any
 
-from sqlalchemy import Connection, Select, case, delete, false, func, insert, select, true
+from sqlalchemy import Connection, Select, Table, case, delete, false, func, insert, select, true
 from sqlalchemy import event as sa_event
 from sqlalchemy.orm import Session, aliased
 from sqlalchemy.orm.attributes import get_history
+from sqlalchemy.orm.base import PASSIVE_NO_INITIALIZE
 
 from shopapp.core.sqltime import day_number, work_day_index_of_day, year_month
 from shopapp.jobs import calc as job_calc
@@ -145,7 +146,7 @@ def facts_select() -> Select[Any]:
 
 def _write(conn: Connection, job_ids: Iterable[int] | None) -> int:
     """Replace the facts of ``job_ids`` (every job when None); the rows written."""
-    target = JobFact.__table__
+    target: Table = JobFact.__table__  # type: ignore[assignment]  # declared as FromClause
     names = list(target.c.keys())
     if job_ids is None:
         conn.execute(delete(target))
@@ -213,7 +214,7 @@ def _touched_jobs(session: Session) -> set[int]:
                 job_ids.add(obj.id)
             # A return names an earlier job whose rework it is (also a name it no longer
             # holds, when the link was changed).
-            h = get_history(obj, "return_of_job_id", passive=True)
+            h = get_history(obj, "return_of_job_id", passive=PASSIVE_NO_INITIALIZE)
             job_ids.update(i for i in (*(h.added or ()), *(h.unchanged or ()),
                                        *(h.deleted or ())) if i is not None)
         elif isinstance(obj, RunReading):
