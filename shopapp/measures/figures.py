@@ -189,15 +189,21 @@ def _wip(
     session: Session, p: Period, scope: Scope, dims: Sequence[str], as_of: dt.date
 ) -> Grouped:
     day_after = utc_start(as_of + dt.timedelta(days=1))
-    base = scoped_facts(
-        fact_select({"age": work_day_index_py(as_of) - F.received_wd_index}, F.received_month)
-        .where(
-            F.received_on <= as_of,
-            or_(F.dispatched_on.is_(None), F.dispatched_on > as_of),
-            or_(F.rejected_at.is_(None), F.rejected_at >= day_after),
-        ),
-        scope,
-    )
+    # Three disjoint parts, each served by an index: jobs still open today (the partial
+    # index ix_job_fact_open), jobs dispatched after ``as_of``, jobs rejected after it and
+    # never dispatched. Together: received by then, not dispatched and not rejected by then.
+    parts = [
+        and_(F.dispatched_on.is_(None), F.rejected_at.is_(None)),
+        and_(F.dispatched_on > as_of, or_(F.rejected_at.is_(None), F.rejected_at >= day_after)),
+        and_(F.dispatched_on.is_(None), F.rejected_at >= day_after),
+    ]
+    age = {"age": work_day_index_py(as_of) - F.received_wd_index}
+    union = union_all(*(
+        scoped_facts(fact_select(age, F.received_month).where(F.received_on <= as_of, part),
+                     scope)
+        for part in parts
+    )).subquery("wip")
+    base = select(*union.c)
     h = histogram(long_form(base, dims, ["age"]), "age", {})
     return grouped(
         session,
