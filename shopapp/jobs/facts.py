@@ -145,20 +145,21 @@ def facts_select() -> Select[Any]:
 
 
 def _write(conn: Connection, job_ids: Iterable[int] | None) -> int:
-    """Replace the facts of ``job_ids`` (every job when None); the rows written."""
+    """Replace the facts of ``job_ids`` (every job when None); how many jobs were asked
+    for (every job's count when None)."""
     target: Table = JobFact.__table__  # type: ignore[assignment]  # declared as FromClause
     names = list(target.c.keys())
     if job_ids is None:
         conn.execute(delete(target))
-        return conn.execute(insert(target).from_select(names, facts_select())).rowcount or 0
+        conn.execute(insert(target).from_select(names, facts_select()))
+        # Counted, not rowcount: drivers need not report it for INSERT ... SELECT.
+        return conn.scalar(select(func.count()).select_from(target)) or 0
     ids = sorted(set(job_ids))
-    written = 0
     for i in range(0, len(ids), _CHUNK):
         chunk = ids[i:i + _CHUNK]
         conn.execute(delete(target).where(target.c.job_id.in_(chunk)))
-        written += conn.execute(insert(target).from_select(
-            names, facts_select().where(Job.id.in_(chunk)))).rowcount or 0
-    return written
+        conn.execute(insert(target).from_select(names, facts_select().where(Job.id.in_(chunk))))
+    return len(ids)
 
 
 def refresh_job_fact(session: Session, job: Job | int) -> None:
