@@ -97,8 +97,9 @@ def _bring_up_to_date(app: Any) -> float:
     start = time.perf_counter()
     with app.app_context():
         database = get_database()
-        Base.metadata.create_all(database.engine)
+        # Table by table: the metadata's own create hooks (triggers) exist already.
         for table in Base.metadata.sorted_tables:
+            table.create(database.engine, checkfirst=True)
             for index in table.indexes:
                 index.create(database.engine, checkfirst=True)
         with database.session() as sess:
