@@ -32,6 +32,7 @@ from sqlalchemy.sql import ColumnElement
 
 from shopapp.measures.periods import Period, Scope
 from shopapp.measures.sql import (
+    Column,
     Grouped,
     day_number,
     epoch_seconds,
@@ -197,7 +198,7 @@ def _wip(
         and_(F.dispatched_on > as_of, or_(F.rejected_at.is_(None), F.rejected_at >= day_after)),
         and_(F.dispatched_on.is_(None), F.rejected_at >= day_after),
     ]
-    age = {"age": work_day_index_py(as_of) - F.received_wd_index}
+    age: dict[str, Column] = {"age": work_day_index_py(as_of) - F.received_wd_index}
     union = union_all(*(
         scoped_facts(fact_select(age, F.received_month).where(F.received_on <= as_of, part),
                      scope)
