@@ -17,6 +17,7 @@ from sqlalchemy.orm import Session, joinedload, selectinload
 
 from shopapp.core.checks import QUERY_AHEAD_DAYS, day_refusal, plain_digits
 from shopapp.core.errors import NotFound
+from shopapp.core.pagination import Page, paginate_ids
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import evidence
 from shopapp.models import (
@@ -274,21 +275,23 @@ def _like(text: str) -> str:
     return f"%{esc}%"
 
 
-def filtered_jobs_stmt(f: JobFilter) -> Select[Any]:
-    """Jobs matching ``f``, newest received first, with what the list shows eager-loaded."""
-    stmt = select(Job).options(
-        joinedload(Job.customer),
-        joinedload(Job.rotor).joinedload(Rotor.rotor_type),
-        joinedload(Job.machine),
-        joinedload(Job.operator),
-    )
+def _conditions(f: JobFilter) -> list[Any]:
+    """The WHERE conditions of ``f`` on the job table.
+
+    Searches and the rotor-type filter resolve against the small customer and rotor tables
+    first (uncorrelated ``IN (SELECT id ...)``: one pass over those tables, then index
+    lookups in job), never a lookup per job. The job number is searched only when the text
+    holds a digit: every job number holds its running number, so a text without digits can
+    only match the pattern's fixed letters (``J-``), which every job shares.
+    """
     conds: list[Any] = []
     for name in ("operator_id", "machine_id", "customer_id", "rotor_id", "state", "kind"):
         value = getattr(f, name)
         if value is not None:
             conds.append(getattr(Job, name) == value)
     if f.rotor_type_id is not None:
-        conds.append(Job.rotor.has(Rotor.rotor_type_id == f.rotor_type_id))
+        conds.append(Job.rotor_id.in_(
+            select(Rotor.id).where(Rotor.rotor_type_id == f.rotor_type_id)))
     if f.received_from is not None:
         conds.append(Job.received_on >= f.received_from)
     if f.received_to is not None:
@@ -303,14 +306,46 @@ def filtered_jobs_stmt(f: JobFilter) -> Select[Any]:
         conds.append(and_(Job.reopen_count == 0, Job.kind == "new"))
     if f.q:
         pat = _like(f.q)
-        conds.append(or_(
-            Job.number.ilike(pat, escape="\\"),
-            Job.rotor.has(Rotor.serial_number.ilike(pat, escape="\\")),
-            Job.customer.has(Customer.name.ilike(pat, escape="\\")),
-        ))
-    if conds:
-        stmt = stmt.where(*conds)
-    return stmt.order_by(Job.received_on.desc(), Job.id.desc())
+        arms = [
+            Job.rotor_id.in_(select(Rotor.id).where(Rotor.serial_number.ilike(pat, escape="\\"))),
+            Job.customer_id.in_(select(Customer.id).where(Customer.name.ilike(pat, escape="\\"))),
+        ]
+        if any(ch.isdigit() for ch in f.q):
+            arms.append(Job.number.ilike(pat, escape="\\"))
+        conds.append(or_(*arms))
+    return conds
+
+
+# Newest received first; the index ix_job_received_id (received_on, id) serves this order.
+_NEWEST_FIRST = (Job.received_on.desc(), Job.id.desc())
+
+
+def filtered_jobs_stmt(f: JobFilter) -> Select[Any]:
+    """Jobs matching ``f``, newest received first, with what the list shows eager-loaded."""
+    return (_with_list_columns(select(Job)).where(*_conditions(f)).order_by(*_NEWEST_FIRST))
+
+
+def _with_list_columns(stmt: Select[Any]) -> Select[Any]:
+    return stmt.options(
+        joinedload(Job.customer),
+        joinedload(Job.rotor).joinedload(Rotor.rotor_type),
+        joinedload(Job.machine),
+        joinedload(Job.operator),
+    )
+
+
+def job_page(session: Session, f: JobFilter, *, page: int, per_page: int) -> Page[Job]:
+    """One page of the job list: the page's ids from the job table alone (index order,
+    bounded count), then those jobs with what the list shows (three queries)."""
+    ids_stmt = select(Job.id).where(*_conditions(f)).order_by(*_NEWEST_FIRST)
+
+    def load(ids: list[int]) -> list[Job]:
+        jobs = session.scalars(_with_list_columns(select(Job)).where(Job.id.in_(ids))).unique()
+        by_id = {j.id: j for j in jobs}
+        return [by_id[i] for i in ids]
+
+    return paginate_ids(session, ids_stmt, load, page=page, per_page=per_page,
+                        args=f.to_args())
 
 
 def filter_choices(session: Session) -> dict[str, Sequence[Any]]:

@@ -23,7 +23,7 @@ from shopapp.core.display import ShopDisplay, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import apply_errors
-from shopapp.core.pagination import page_number, paginate
+from shopapp.core.pagination import page_number
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
 from shopapp.core.web import acting_user, get_or_404, once, page_size, requires, saved_row
@@ -57,9 +57,8 @@ PAST_TENSE = {"add": "added", "remove": "removed"}
 def index():  # type: ignore[no-untyped-def]
     sess = db_session()
     f, messages = queries.JobFilter.from_args(request.args)
-    page = paginate(sess, queries.filtered_jobs_stmt(f),
-                    page=page_number(request.args.get("page")), per_page=page_size(),
-                    args=f.to_args())
+    page = queries.job_page(sess, f, page=page_number(request.args.get("page")),
+                            per_page=page_size())
     return render_template("jobs/index.html", page=page, f=f, messages=messages,
                            states=JOB_STATES, kinds=JOB_KINDS, **queries.filter_choices(sess))
 

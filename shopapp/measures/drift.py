@@ -38,23 +38,22 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-from sqlalchemy import case, func, select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.jobs import calc as job_calc
 from shopapp.measures.periods import EVERYTHING, Period, Scope
-from shopapp.measures.sql import scoped
+from shopapp.measures.sql import scoped_facts
 from shopapp.measures.stats import StatisticsInputError, Trend, trend
 from shopapp.models import (
     Customer,
     Job,
+    JobFact,
     Machine,
     MachineVerification,
     Rotor,
     RotorType,
-    Run,
-    RunReading,
 )
 from shopapp.reports.shop_month import MachineStatus
 
@@ -169,48 +168,43 @@ class Drift:
 def _visit_rows(session: Session, p: Period, scope: Scope) -> list[Any]:
     """The last :data:`DRIFT_VISITS` visits of every rotor with three or more visits whose
     latest was received in ``p``: per visit its first initial run's plane readings."""
-    candidates = scoped(
-        select(Job.rotor_id).select_from(Job).join(Rotor, Rotor.id == Job.rotor_id)
-        .where(Job.received_on <= p.end).group_by(Job.rotor_id)
-        .having(func.count() >= 3, func.max(Job.received_on) >= p.start),
+    F = JobFact
+    # Rotors with a visit in the period (index on received_on), their visits counted through
+    # (rotor_id, received_on): the cost follows the period, not the whole history.
+    in_period = scoped_facts(
+        select(F.rotor_id).where(F.received_on.between(p.start, p.end)), scope)
+    candidates = scoped_facts(
+        select(F.rotor_id).where(F.received_on <= p.end, F.rotor_id.in_(in_period))
+        .group_by(F.rotor_id)
+        .having(func.count() >= 3, func.max(F.received_on) >= p.start),
         scope,
     )
     ranked = (
-        select(Job.id.label("job_id"), Job.rotor_id, Job.number, Job.received_on,
-               *(getattr(Job, c).label(c) for c in _JOB_TOLERANCE_COLUMNS),
-               func.row_number().over(partition_by=Job.rotor_id,
-                                      order_by=(Job.received_on.desc(), Job.id.desc()))
+        select(F.job_id, F.rotor_id, F.received_on, F.initial_amplitude_1.label("amp1"),
+               F.initial_amplitude_2.label("amp2"), F.initial_unit.label("unit"),
+               F.initial_unit_max.label("unit_max"), F.initial_units.label("units"),
+               func.row_number().over(partition_by=F.rotor_id,
+                                      order_by=(F.received_on.desc(), F.job_id.desc()))
                .label("rn"))
-        .where(Job.received_on <= p.end, Job.rotor_id.in_(candidates))
+        .where(F.received_on <= p.end, F.rotor_id.in_(candidates))
         .subquery("ranked")
     )
-    first_initial = (
-        select(Run.id).where(Run.job_id == ranked.c.job_id, Run.purpose == "initial",
-                             Run.struck_at.is_(None))
-        .order_by(Run.seq).limit(1).correlate(ranked).scalar_subquery()
-    )
-    visits = (select(ranked, first_initial.label("run_id")).where(ranked.c.rn <= DRIFT_VISITS)
-              .cte("drift_visits").prefix_with("MATERIALIZED"))
-    v = visits.c
+    v = ranked.c
+    # A visit whose first initial run has no readings is left out (units = 0).
     stmt = (
         select(
-            v.rotor_id, v.job_id, v.number, v.received_on,
-            *(v[c] for c in _JOB_TOLERANCE_COLUMNS),
+            v.rotor_id, v.job_id, Job.number, v.received_on,
+            *(getattr(Job, c).label(c) for c in _JOB_TOLERANCE_COLUMNS),
             Rotor.serial_number, Rotor.rotor_type_id, Customer.name.label("customer"),
             RotorType.part_number.label("part_number"),
-            func.max(case((RunReading.plane == 1, RunReading.amplitude))).label("amp1"),
-            func.max(case((RunReading.plane == 2, RunReading.amplitude))).label("amp2"),
-            func.min(RunReading.unit).label("unit"),
-            func.max(RunReading.unit).label("unit_max"),
+            v.amp1, v.amp2, v.unit, v.unit_max,
         )
-        .select_from(visits)
-        .join(RunReading, RunReading.run_id == v.run_id)
+        .select_from(ranked)
+        .join(Job, Job.id == v.job_id)
         .join(Rotor, Rotor.id == v.rotor_id)
         .join(Customer, Customer.id == Rotor.customer_id)
         .join(RotorType, RotorType.id == Rotor.rotor_type_id)
-        .group_by(v.rotor_id, v.job_id, v.number, v.received_on,
-                  *(v[c] for c in _JOB_TOLERANCE_COLUMNS), Rotor.serial_number,
-                  Rotor.rotor_type_id, Customer.name, RotorType.part_number)
+        .where(v.rn <= DRIFT_VISITS, v.units > 0)
         .order_by(v.rotor_id, v.received_on, v.job_id)
     )
     return list(session.execute(stmt))

@@ -18,41 +18,38 @@ from typing import Any
 from sqlalchemy import (
     Float,
     Integer,
+    and_,
     case,
     cast,
-    false,
     func,
     literal_column,
     or_,
     select,
-    true,
     union_all,
 )
-from sqlalchemy.orm import Session, aliased
+from sqlalchemy.orm import Session
 from sqlalchemy.sql import ColumnElement
 
 from shopapp.measures.periods import Period, Scope
 from shopapp.measures.sql import (
-    REWORK_FROM_STATES,
+    Column,
     Grouped,
-    base_select,
     day_number,
-    days_cte,
     epoch_seconds,
-    from_days,
+    fact_select,
     grouped,
     histogram,
     int_div,
     long_form,
     pct_hist,
     rejections,
-    scoped,
+    scoped_facts,
     utc_start,
-    work_day_index_of_day,
     work_day_index_py,
+    year_month,
 )
 from shopapp.measures.stats import Rate
-from shopapp.models import Correction, Customer, Job, JobTransition, Machine, RotorType, Run, User
+from shopapp.models import Customer, JobFact, Machine, RotorType, User
 
 DIMENSIONS: tuple[str, ...] = ("operator", "machine", "rotor_type", "customer", "month")
 DIMENSION_LABELS: dict[str, str] = {
@@ -152,10 +149,15 @@ class SliceRow:
         return int(self.key) if self.key is not None and self.dimension != "month" else None
 
 
+# Every family reads the per-job facts (shopapp.jobs.facts: one row per job, kept in step
+# with the job), so a period's figures cost what the period holds, not all history.
+F = JobFact
+
+
 def _received(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
-    base = scoped(
-        base_select({"job_id": Job.id}, Job.received_on)
-        .where(Job.received_on.between(p.start, p.end)),
+    base = scoped_facts(
+        fact_select({"job_id": F.job_id}, F.received_month)
+        .where(F.received_on.between(p.start, p.end)),
         scope,
     )
     long = long_form(base, dims, ["job_id"])
@@ -163,19 +165,11 @@ def _received(session: Session, p: Period, scope: Scope, dims: Sequence[str]) ->
 
 
 def _dispatched(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
-    hit = case(
-        (Job.promised_on.is_(None), None),
-        (Job.dispatched_on <= Job.promised_on, 1),
-        else_=0,
-    )
-    days = days_cte(scoped(
-        base_select({"r": day_number(Job.received_on), "d": day_number(Job.dispatched_on),
-                     "hit": hit}, Job.dispatched_on)
-        .where(Job.dispatched_on.between(p.start, p.end)),
+    base = scoped_facts(
+        fact_select({"wd": F.turnaround_wd, "hit": F.promised_hit}, F.dispatched_month)
+        .where(F.dispatched_on.between(p.start, p.end)),
         scope,
-    ))
-    turnaround = work_day_index_of_day(days.c.d) - work_day_index_of_day(days.c.r)
-    base = from_days(days, {"wd": turnaround, "hit": days.c.hit})
+    )
     long = long_form(base, dims, ["wd", "hit"])
     h = histogram(long, "wd", {"pj": func.count(long.c.hit),
                                 "ph": func.coalesce(func.sum(long.c.hit), 0)})
@@ -196,21 +190,21 @@ def _wip(
     session: Session, p: Period, scope: Scope, dims: Sequence[str], as_of: dt.date
 ) -> Grouped:
     day_after = utc_start(as_of + dt.timedelta(days=1))
-    # An uncorrelated NOT IN: one pass over the rejections, not one lookup per open job.
-    rejected_by_then = Job.id.in_(
-        select(JobTransition.job_id).where(
-            JobTransition.to_state == "rejected", JobTransition.at < day_after
-        )
-    )
-    days = days_cte(scoped(
-        base_select({"r": day_number(Job.received_on)}, Job.received_on).where(
-            Job.received_on <= as_of,
-            or_(Job.dispatched_on.is_(None), Job.dispatched_on > as_of),
-            ~rejected_by_then,
-        ),
-        scope,
-    ))
-    base = from_days(days, {"age": work_day_index_py(as_of) - work_day_index_of_day(days.c.r)})
+    # Three disjoint parts, each served by an index: jobs still open today (the partial
+    # index ix_job_fact_open), jobs dispatched after ``as_of``, jobs rejected after it and
+    # never dispatched. Together: received by then, not dispatched and not rejected by then.
+    parts = [
+        and_(F.dispatched_on.is_(None), F.rejected_at.is_(None)),
+        and_(F.dispatched_on > as_of, or_(F.rejected_at.is_(None), F.rejected_at >= day_after)),
+        and_(F.dispatched_on.is_(None), F.rejected_at >= day_after),
+    ]
+    age: dict[str, Column] = {"age": work_day_index_py(as_of) - F.received_wd_index}
+    union = union_all(*(
+        scoped_facts(fact_select(age, F.received_month).where(F.received_on <= as_of, part),
+                     scope)
+        for part in parts
+    )).subquery("wip")
+    base = select(*union.c)
     h = histogram(long_form(base, dims, ["age"]), "age", {})
     return grouped(
         session,
@@ -223,41 +217,22 @@ def _wip(
     )
 
 
-def _first_rework(today: dt.date) -> tuple[Any, Any]:
-    """Per job, by ``today``: its first reopening from a finished state (``at``) and the
-    day its first customer return came in (``received_on``), as two grouped subqueries.
+def _reworked_later(today: dt.date) -> ColumnElement[int]:
+    """1 when the job was reworked within :data:`REWORK_WINDOW_DAYS` days of first reaching
+    in_tolerance and by ``today``: reopened, or come back as a customer return.
 
-    Every reopening comes after the job first reached ``in_tolerance`` (only a finished
-    job can be reopened), so the first one decides whether the job came back within the
-    window; one pass over the few reopenings and returns, not one lookup per job.
+    The facts keep the first reopening and the first return; a later one can only be later,
+    so "the first one up to today is within the window" is "the first one is by today and
+    within the window" (every reopening comes after the job first reached in_tolerance).
     """
-    reopened = (
-        select(JobTransition.job_id.label("job_id"), func.min(JobTransition.at).label("at"))
-        .where(JobTransition.to_state == "on_machine",
-               JobTransition.from_state.in_(REWORK_FROM_STATES),
-               JobTransition.at < utc_start(today + dt.timedelta(days=1)))
-        .group_by(JobTransition.job_id)
-        .subquery("first_reopen")
-    )
-    later = aliased(Job)
-    returned = (
-        select(later.return_of_job_id.label("job_id"),
-               func.min(later.received_on).label("received_on"))
-        .where(later.kind == "return", later.return_of_job_id.is_not(None),
-               later.received_on <= today)
-        .group_by(later.return_of_job_id)
-        .subquery("first_return")
-    )
-    return reopened, returned
-
-
-def _reworked_later(reached: Any, reopened: Any, returned: Any) -> ColumnElement[int]:
-    """1 when the job (which first reached in_tolerance at ``reached``) was reworked within
-    :data:`REWORK_WINDOW_DAYS` days of it: reopened, or come back as a customer return."""
+    reached = F.first_in_tolerance_at
     in_window = or_(
-        epoch_seconds(reopened.c.at) - epoch_seconds(reached) <= REWORK_WINDOW_DAYS * 86400,
-        day_number(returned.c.received_on) - int_div(epoch_seconds(reached), 86400)
-        <= REWORK_WINDOW_DAYS,
+        and_(F.first_reopen_at < utc_start(today + dt.timedelta(days=1)),
+             epoch_seconds(F.first_reopen_at) - epoch_seconds(reached)
+             <= REWORK_WINDOW_DAYS * 86400),
+        and_(F.first_return_on <= today,
+             day_number(F.first_return_on) - int_div(epoch_seconds(reached), 86400)
+             <= REWORK_WINDOW_DAYS),
     )
     return case((in_window, 1), else_=0)
 
@@ -266,45 +241,10 @@ def _tolerance_cohort(
     session: Session, p: Period, scope: Scope, dims: Sequence[str], today: dt.date
 ) -> Grouped:
     """Jobs that first reached in_tolerance in ``p``: count, cycles, first pass, rework."""
-    reached = Job.first_in_tolerance_at
-    before_tol = Correction.applied_at <= reached
-    # Correction steps: distinct runs answered; a correction without a run stands alone.
-    cycles = (
-        select(func.count(func.distinct(func.coalesce(Correction.run_id, -Correction.id))))
-        .where(Correction.job_id == Job.id, before_tol)
-        .correlate(Job)
-        .scalar_subquery()
-    )
-    answered = aliased(Run)
-    first_step_seq = (
-        select(func.min(answered.seq))
-        .select_from(Correction)
-        .join(answered, answered.id == Correction.run_id)
-        .where(Correction.job_id == Job.id, before_tol)
-        .correlate(Job)
-        .scalar_subquery()
-    )
-    check = aliased(Run)
-    first_check_verdict = (
-        select(case((check.within_tolerance == true(), 1),
-                    (check.within_tolerance == false(), 0), else_=None))
-        .where(
-            check.job_id == Job.id,
-            check.seq > first_step_seq,
-            check.purpose.in_(CHECK_PURPOSES),
-            check.struck_at.is_(None),  # a struck-out run counts for nothing
-        )
-        .order_by(check.seq)
-        .limit(1)
-        .correlate(Job)
-        .scalar_subquery()
-    )
-    reopened, returned = _first_rework(today)
-    base = scoped(
-        base_select({"job_id": Job.id, "cycles": cycles, "fp": first_check_verdict,
-                     "rw": _reworked_later(reached, reopened, returned)}, reached)
-        .outerjoin(reopened, reopened.c.job_id == Job.id)
-        .outerjoin(returned, returned.c.job_id == Job.id)
+    reached = F.first_in_tolerance_at
+    base = scoped_facts(
+        fact_select({"job_id": F.job_id, "cycles": F.correction_cycles, "fp": F.first_pass,
+                     "rw": _reworked_later(today)}, F.tolerance_month)
         .where(reached >= utc_start(p.start), reached < utc_start(p.end + dt.timedelta(days=1))),
         scope,
     )
@@ -325,13 +265,15 @@ def _tolerance_cohort(
 def _closed(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
     """Jobs that left the shop in ``p``: dispatched or rejected; and those rejected."""
     rej = rejections(p).subquery("rej")
-    rejected = scoped(
-        base_select({"job_id": Job.id, "rej": literal_column("1", Integer)}, rej.c.at)
-        .join(rej, rej.c.job_id == Job.id), scope
+    rejected = scoped_facts(
+        fact_select({"job_id": F.job_id, "rej": literal_column("1", Integer)},
+                    year_month(rej.c.at))
+        .join(rej, rej.c.job_id == F.job_id), scope
     )
-    dispatched = scoped(
-        base_select({"job_id": Job.id, "rej": literal_column("0", Integer)}, Job.dispatched_on)
-        .where(Job.dispatched_on.between(p.start, p.end)), scope
+    dispatched = scoped_facts(
+        fact_select({"job_id": F.job_id, "rej": literal_column("0", Integer)},
+                    F.dispatched_month)
+        .where(F.dispatched_on.between(p.start, p.end)), scope
     )
     events = union_all(rejected, dispatched).subquery("closed")
     long = long_form(select(*events.c), dims, ["job_id", "rej"])

@@ -30,17 +30,18 @@ from shopapp.measures.sql import (
     reopenings,
     return_reason,
     scoped,
+    scoped_facts,
     utc_start,
 )
 from shopapp.models import (
     Customer,
     Job,
+    JobFact,
     Machine,
     MachineVerification,
     Rotor,
     RotorType,
     Run,
-    RunReading,
 )
 from shopapp.reports.shop_month import MachineStatus, ReasonCount, WorseningRotor
 
@@ -105,66 +106,42 @@ def rotors_getting_worse(
 ) -> list[WorseningRotor]:
     """Rotors whose initial unbalance rose over their last ``visits`` visits (see module doc).
 
-    ROW_NUMBER over each rotor's jobs (newest first) keeps its last ``visits`` visits;
-    only those visits' first initial runs are read, then one row per rotor holds the
-    amplitudes side by side (conditional aggregation) to compare them.
+    ROW_NUMBER over each candidate rotor's job facts (newest first) keeps its last
+    ``visits`` visits with their first initial run's reading (kept in the facts), then one
+    row per rotor holds the amplitudes side by side (conditional aggregation).
     """
     if visits < 2:
         raise ValidationFailed("visits", f"{visits} visits cannot show a rise; use 2 or more")
-    # Only rotors with enough visits, the latest in the period, can qualify.
-    candidates = scoped(
-        select(Job.rotor_id)
-        .select_from(Job)
-        .join(Rotor, Rotor.id == Job.rotor_id)
-        .where(Job.received_on <= p.end)
-        .group_by(Job.rotor_id)
-        .having(func.count() >= visits, func.max(Job.received_on) >= p.start),
+    F = JobFact
+    # Only rotors with enough visits, the latest in the period, can qualify: those with a
+    # visit in the period (index on received_on), their visits counted through
+    # (rotor_id, received_on) — never the whole history.
+    in_period = scoped_facts(
+        select(F.rotor_id).where(F.received_on.between(p.start, p.end)), scope)
+    candidates = scoped_facts(
+        select(F.rotor_id)
+        .where(F.received_on <= p.end, F.rotor_id.in_(in_period))
+        .group_by(F.rotor_id)
+        .having(func.count() >= visits, func.max(F.received_on) >= p.start),
         scope,
     )
     ranked = (
         select(
-            Job.id.label("job_id"),
-            Job.rotor_id.label("rotor_id"),
-            Job.number.label("number"),
-            Job.received_on.label("received_on"),
+            F.job_id, F.rotor_id, F.received_on,
+            F.initial_amplitude.label("amp"), F.initial_unit.label("unit"),
+            F.initial_units.label("units"),
             func.row_number()
-            .over(partition_by=Job.rotor_id, order_by=(Job.received_on.desc(), Job.id.desc()))
+            .over(partition_by=F.rotor_id, order_by=(F.received_on.desc(), F.job_id.desc()))
             .label("rn"),
         )
-        .where(Job.received_on <= p.end, Job.rotor_id.in_(candidates))
+        .where(F.received_on <= p.end, F.rotor_id.in_(candidates))
         .subquery("ranked_visits")
     )
-    last = select(ranked).where(ranked.c.rn <= visits).cte("last_visits").prefix_with(
-        "MATERIALIZED"
-    )
-    # Each visit's first initial run: one index lookup per visit (run has (job_id, seq)).
-    first_initial = (
-        select(Run.id)
-        .where(Run.job_id == last.c.job_id, Run.purpose == "initial", Run.struck_at.is_(None))
-        .order_by(Run.seq)
-        .limit(1)
-        .correlate(last)
-        .scalar_subquery()
-    )
-    visit_runs = (
-        select(last, first_initial.label("run_id"))
-        .cte("visit_runs")
-        .prefix_with("MATERIALIZED")
-    )
-    per_visit = (
-        select(
-            visit_runs.c.rotor_id, visit_runs.c.rn, visit_runs.c.number,
-            visit_runs.c.received_on,
-            func.max(RunReading.amplitude).label("amp"),
-            func.min(RunReading.unit).label("unit"),
-            func.count(func.distinct(RunReading.unit)).label("units"),
-        )
-        .select_from(visit_runs)
-        .join(RunReading, RunReading.run_id == visit_runs.c.run_id)
-        .group_by(visit_runs.c.rotor_id, visit_runs.c.rn, visit_runs.c.number,
-                  visit_runs.c.received_on)
-        .subquery("per_visit")
-    )
+    # A visit whose first initial run has no readings cannot be compared (count < visits).
+    per_visit = (select(ranked, Job.number)
+                 .join(Job, Job.id == ranked.c.job_id)
+                 .where(ranked.c.rn <= visits, ranked.c.units > 0)
+                 .subquery("per_visit"))
     v = per_visit.c
 
     def at(k: int, col: Any) -> ColumnElement[Any]:

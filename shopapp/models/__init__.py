@@ -2,6 +2,7 @@
 
 from shopapp.models.base import Base, utcnow
 from shopapp.models.certificates import CERTIFICATE_STATES, AuditEvent, Certificate
+from shopapp.models.facts import JobFact
 from shopapp.models.jobs import (
     CORRECTION_ACTIONS,
     JOB_KINDS,
@@ -95,6 +96,7 @@ __all__ = [
     "Customer",
     "InfluenceSet",
     "Job",
+    "JobFact",
     "JobTransition",
     "LoginThrottle",
     "Machine",

@@ -74,6 +74,8 @@ class Job(Base):
             name="explicit_given",
         ),
         Index("ix_job_state_received", "state", "received_on"),
+        # The job list: newest received first, the id in the index too (deep pages).
+        Index("ix_job_received_id", "received_on", "id"),
     )
 
     id: Mapped[IntPK]

@@ -1,0 +1,239 @@
+"""Per-job facts for the shop measures, kept in step with the job in the same transaction.
+
+A :class:`~shopapp.models.JobFact` row holds what the measures count of one job (its
+slice keys, days, turnaround, first time in tolerance, correction cycles, first-pass
+verdict, rework dates and first initial reading), so a period's figures read one row
+per job of the period instead of aggregating every job's runs on every request
+(definitions: :mod:`shopapp.measures.services`; the SQL below computes them exactly as
+those definitions say, with the same date arithmetic, :mod:`shopapp.core.sqltime`).
+
+How the facts stay true:
+
+- every flush of an ORM session that adds, changes or deletes a job, run, reading,
+  correction or transition refreshes the facts of the jobs concerned (and of the job
+  a customer return names) before the flush ends, in the same transaction — so every
+  jobs use-case, present or to come, keeps them without a call of its own;
+- :func:`refresh_job_fact` does the same for given jobs, for code that writes those
+  tables without the ORM (bulk inserts);
+- :func:`rebuild` recomputes every row from scratch (``shopapp measures rebuild``, the
+  bulk demo generator, migration 0014).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from typing import Any
+
+from sqlalchemy import Connection, Select, Table, case, delete, false, func, insert, select, true
+from sqlalchemy import event as sa_event
+from sqlalchemy.orm import Session, aliased
+from sqlalchemy.orm.attributes import get_history
+from sqlalchemy.orm.base import PASSIVE_NO_INITIALIZE
+
+from shopapp.core.sqltime import day_number, work_day_index_of_day, year_month
+from shopapp.jobs import calc as job_calc
+from shopapp.models import Correction, Job, JobFact, JobTransition, Rotor, Run, RunReading
+
+# A move back to on_machine from one of these is a reopening (rework).
+REWORK_FROM_STATES: tuple[str, ...] = ("in_tolerance", "certified", "dispatched")
+_CHUNK = 500  # job ids per statement (SQLite allows 32 766 bound values; stay far below)
+
+
+def facts_select() -> Select[Any]:
+    """SELECT of every :class:`JobFact` column, one row per job (FROM job JOIN rotor)."""
+    reached = Job.first_in_tolerance_at
+    before_tol = Correction.applied_at <= reached
+    # Correction steps: distinct runs answered; a correction without a run stands alone.
+    cycles = (
+        select(func.count(func.distinct(func.coalesce(Correction.run_id, -Correction.id))))
+        .where(Correction.job_id == Job.id, before_tol)
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    answered = aliased(Run)
+    first_step_seq = (
+        select(func.min(answered.seq))
+        .select_from(Correction)
+        .join(answered, answered.id == Correction.run_id)
+        .where(Correction.job_id == Job.id, before_tol)
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    check = aliased(Run)
+    first_pass = (
+        select(case((check.within_tolerance == true(), 1),
+                    (check.within_tolerance == false(), 0), else_=None))
+        .where(check.job_id == Job.id, check.seq > first_step_seq,
+               check.purpose.in_(job_calc.CHECK_PURPOSES),
+               check.struck_at.is_(None))  # a struck-out run counts for nothing
+        .order_by(check.seq)
+        .limit(1)
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    first_reopen = (
+        select(func.min(JobTransition.at))
+        .where(JobTransition.job_id == Job.id, JobTransition.to_state == "on_machine",
+               JobTransition.from_state.in_(REWORK_FROM_STATES))
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    rejected = (
+        select(func.min(JobTransition.at))
+        .where(JobTransition.job_id == Job.id, JobTransition.to_state == "rejected")
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    later = aliased(Job)
+    first_return = (
+        select(func.min(later.received_on))
+        .where(later.return_of_job_id == Job.id, later.kind == "return")
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    # The first initial run (lowest seq, not struck out) and its readings.
+    first_initial = (
+        select(Run.id).where(Run.job_id == Job.id, Run.purpose == "initial",
+                             Run.struck_at.is_(None))
+        .order_by(Run.seq).limit(1).correlate(Job).scalar_subquery()
+    )
+
+    def reading(agg: Any, plane: int | None = None) -> Any:
+        where = [RunReading.run_id == first_initial]
+        if plane is not None:
+            where.append(RunReading.plane == plane)
+        return select(agg).where(*where).correlate(Job).scalar_subquery()
+
+    hit = case(
+        (Job.dispatched_on.is_(None), None),
+        (Job.promised_on.is_(None), None),
+        (Job.dispatched_on <= Job.promised_on, 1),
+        else_=0,
+    )
+    received_wdi = work_day_index_of_day(day_number(Job.received_on))
+    turnaround = work_day_index_of_day(day_number(Job.dispatched_on)) - received_wdi
+    columns: dict[str, Any] = {
+        "job_id": Job.id,
+        "operator_id": Job.operator_id,
+        "machine_id": Job.machine_id,
+        "rotor_type_id": Rotor.rotor_type_id,
+        "customer_id": Job.customer_id,
+        "rotor_id": Job.rotor_id,
+        "kind": Job.kind,
+        "received_on": Job.received_on,
+        "received_month": year_month(Job.received_on),
+        "received_wd_index": received_wdi,
+        "dispatched_on": Job.dispatched_on,
+        "dispatched_month": year_month(Job.dispatched_on),
+        "turnaround_wd": turnaround,
+        "promised_hit": hit,
+        "rejected_at": rejected,
+        "first_in_tolerance_at": reached,
+        "tolerance_month": year_month(reached),
+        "correction_cycles": cycles,
+        "first_pass": first_pass,
+        "first_reopen_at": first_reopen,
+        "first_return_on": first_return,
+        "initial_amplitude": reading(func.max(RunReading.amplitude)),
+        "initial_amplitude_1": reading(func.max(RunReading.amplitude), 1),
+        "initial_amplitude_2": reading(func.max(RunReading.amplitude), 2),
+        "initial_unit": reading(func.min(RunReading.unit)),
+        "initial_unit_max": reading(func.max(RunReading.unit)),
+        "initial_units": reading(func.count(func.distinct(RunReading.unit))),
+    }
+    assert list(columns) == JobFact.__table__.c.keys(), "facts_select out of step with JobFact"
+    return (select(*(c.label(n) for n, c in columns.items()))
+            .select_from(Job).join(Rotor, Rotor.id == Job.rotor_id))
+
+
+def _write(conn: Connection, job_ids: Iterable[int] | None) -> int:
+    """Replace the facts of ``job_ids`` (every job when None); how many jobs were asked
+    for (every job's count when None)."""
+    target: Table = JobFact.__table__  # type: ignore[assignment]  # declared as FromClause
+    names = list(target.c.keys())
+    if job_ids is None:
+        conn.execute(delete(target))
+        conn.execute(insert(target).from_select(names, facts_select()))
+        # Counted, not rowcount: drivers need not report it for INSERT ... SELECT.
+        return conn.scalar(select(func.count()).select_from(target)) or 0
+    ids = sorted(set(job_ids))
+    for i in range(0, len(ids), _CHUNK):
+        chunk = ids[i:i + _CHUNK]
+        conn.execute(delete(target).where(target.c.job_id.in_(chunk)))
+        conn.execute(insert(target).from_select(names, facts_select().where(Job.id.in_(chunk))))
+    return len(ids)
+
+
+def refresh_job_fact(session: Session, job: Job | int) -> None:
+    """Recompute one job's facts now, in the session's transaction (flushes first)."""
+    session.flush()
+    job_id = job if isinstance(job, int) else job.id
+    _write(session.connection(), _with_returned(session.connection(), {job_id}))
+
+
+def refresh_job_facts(session: Session, job_ids: Iterable[int]) -> None:
+    """:func:`refresh_job_fact` for many jobs, in chunks (after bulk inserts)."""
+    session.flush()
+    conn = session.connection()
+    _write(conn, _with_returned(conn, set(job_ids)))
+
+
+def rebuild(session_or_conn: Session | Connection) -> int:
+    """Recompute every job's facts from scratch; the number of jobs."""
+    if isinstance(session_or_conn, Session):
+        session_or_conn.flush()
+        conn = session_or_conn.connection()
+    else:
+        conn = session_or_conn
+    return _write(conn, None)
+
+
+def _with_returned(conn: Connection, job_ids: set[int]) -> set[int]:
+    """``job_ids`` and the jobs their customer returns name (a return is the earlier
+    job's rework)."""
+    out = set(job_ids)
+    ids = sorted(job_ids)
+    for i in range(0, len(ids), _CHUNK):
+        out.update(conn.scalars(select(Job.return_of_job_id).where(
+            Job.id.in_(ids[i:i + _CHUNK]), Job.return_of_job_id.is_not(None))))
+    return out
+
+
+# --------------------------------------------------------------------------- the flush hook
+
+_WATCHED = (Job, Run, RunReading, Correction, JobTransition)
+
+
+def _touched_jobs(session: Session) -> set[int]:
+    """Jobs whose facts may have changed in the flush that just ran (ids, one query at most
+    for readings whose run is not loaded)."""
+    job_ids: set[int] = set()
+    run_ids: set[int] = set()
+    for obj in (*session.new, *session.dirty, *session.deleted):
+        if not isinstance(obj, _WATCHED):
+            continue
+        if isinstance(obj, Job):
+            if obj.id is not None:
+                job_ids.add(obj.id)
+            # A return names an earlier job whose rework it is (also a name it no longer
+            # holds, when the link was changed).
+            h = get_history(obj, "return_of_job_id", passive=PASSIVE_NO_INITIALIZE)
+            job_ids.update(i for i in (*(h.added or ()), *(h.unchanged or ()),
+                                       *(h.deleted or ())) if i is not None)
+        elif isinstance(obj, RunReading):
+            if obj.run_id is not None:
+                run_ids.add(obj.run_id)
+        elif obj.job_id is not None:
+            job_ids.add(obj.job_id)
+    if run_ids:
+        job_ids.update(session.connection().scalars(
+            select(Run.job_id).where(Run.id.in_(sorted(run_ids)))))
+    return job_ids
+
+
+@sa_event.listens_for(Session, "after_flush")
+def _refresh_after_flush(session: Session, _flush_context: Any) -> None:
+    job_ids = _touched_jobs(session)
+    if job_ids:
+        _write(session.connection(), job_ids)
+
