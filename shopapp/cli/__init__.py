@@ -14,11 +14,12 @@ from shopapp.cli.demo import demo_group
 from shopapp.cli.first_start import first_start
 from shopapp.cli.report import report_group
 from shopapp.cli.serve import serve
+from shopapp.cli.tokens import token_group
 from shopapp.cli.users import user_group
 
 COMMANDS: tuple[click.Command, ...] = (
     db_group, user_group, serve, first_start, calc_command, demo_group, report_group,
-    backup_command, restore_command,
+    backup_command, restore_command, token_group,
 )
 
 
