@@ -110,7 +110,7 @@ def book_in(call: Call) -> Any:
         customer_order_ref=b.customer_order_ref, notes=b.notes)
     call.session.flush()
     return (job_detail(call, job.id), 201,
-            {"Location": url_for("api_jobs.get_job", job_id=job.id)})
+            {"Location": url_for(".get_job", job_id=job.id)})
 
 
 @operation(bp, "POST", "/jobs/<int:job_id>/state", summary="Change a job's state",
@@ -151,7 +151,7 @@ def log_run(call: Call, job_id: int) -> Any:
                           speed_rpm=b.speed_rpm, readings=readings, trial=trial,
                           earlier_trial_left_on=b.earlier_trial_left_on, notes=b.notes)
     return (RunOut.model_validate(run), 201,
-            {"Location": url_for("api_jobs.get_job", job_id=job_id)})
+            {"Location": url_for(".get_job", job_id=job_id)})
 
 
 @operation(bp, "GET", "/jobs/<int:job_id>/advice", summary="Correction advice for a job",
@@ -199,4 +199,4 @@ def record_correction(call: Call, job_id: int) -> Any:
     split = data.pop("split")
     corr = corrections.record_correction(call.session, job, by=call.by, split=split, **data)
     return (CorrectionOut.model_validate(corr), 201,
-            {"Location": url_for("api_jobs.get_job", job_id=job_id)})
+            {"Location": url_for(".get_job", job_id=job_id)})

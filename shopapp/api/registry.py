@@ -43,7 +43,7 @@ def create_customer(call: Call) -> Any:
     """Names are unique, ignoring case (the registry's rule)."""
     customer = customers.create_customer(call.session, by=call.by, **call.body.model_dump())
     return (CustomerOut.model_validate(customer), 201,
-            {"Location": url_for("api_registry.get_customer", customer_id=customer.id)})
+            {"Location": url_for(".get_customer", customer_id=customer.id)})
 
 
 @operation(bp, "PATCH", "/customers/<int:customer_id>", summary="Edit a customer",
