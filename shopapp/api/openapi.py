@@ -57,7 +57,7 @@ def _query_parameters(model: type[BaseModel]) -> list[dict[str, Any]]:
     return params
 
 
-def _operation(op: Operation, refs: dict[tuple[type[BaseModel], str], Any]) -> dict[str, Any]:
+def _operation(op: Operation, refs: dict[Any, Any]) -> dict[str, Any]:
     out: dict[str, Any] = {"operationId": op.endpoint.split(".", 1)[1], "summary": op.summary,
                            "tags": [op.tag]}
     if op.description:

@@ -16,7 +16,7 @@ rule of the trade; these models check only shapes.
 from __future__ import annotations
 
 import datetime as dt
-from typing import Annotated, Any, Generic, Literal, TypeVar
+from typing import Annotated, Generic, Literal, TypeVar
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
@@ -32,13 +32,12 @@ def _plain_text(value: str) -> str:
     return value
 
 
-def _text(max_length: int) -> Any:
-    return Annotated[str, Field(max_length=max_length), AfterValidator(_plain_text)]
-
-
-Name = _text(200)
-ShortText = _text(100)
-LongText = _text(5000)
+_Plain = AfterValidator(_plain_text)
+Name = Annotated[str, Field(max_length=200), _Plain]
+ShortText = Annotated[str, Field(max_length=100), _Plain]
+LongText = Annotated[str, Field(max_length=5000), _Plain]
+Phone = Annotated[str, Field(max_length=64), _Plain]
+Address = Annotated[str, Field(max_length=2000), _Plain]
 Id = Annotated[int, Field(ge=1, le=MAX_ID)]
 # Readings and masses: finite (NaN/inf refused by the model config), bounded so that
 # no number can overflow a column; the use-cases apply the trade's own limits.
@@ -106,8 +105,8 @@ class CustomerIn(In):
     name: Name
     contact: Name = ""
     email: Name = ""
-    phone: _text(64) = ""  # type: ignore[valid-type]
-    address: _text(2000) = ""  # type: ignore[valid-type]
+    phone: Phone = ""
+    address: Address = ""
     notes: LongText = ""
     requires_residual_test: bool = False
 
@@ -116,8 +115,8 @@ class CustomerPatch(In):
     name: Name | None = None
     contact: Name | None = None
     email: Name | None = None
-    phone: _text(64) | None = None  # type: ignore[valid-type]
-    address: _text(2000) | None = None  # type: ignore[valid-type]
+    phone: Phone | None = None
+    address: Address | None = None
     notes: LongText | None = None
     requires_residual_test: bool | None = None
 
@@ -284,7 +283,7 @@ class ToleranceIn(In):
 class NewCustomerIn(In):
     name: Name
     contact: Name = ""
-    phone: _text(64) = ""  # type: ignore[valid-type]
+    phone: Phone = ""
 
 
 class OneOffIn(In):
@@ -422,3 +421,118 @@ class CorrectionIn(In):
     drill_diameter_mm: Number | None = None
     drill_depth_mm: Number | None = None
     drill_holes: int | None = Field(None, ge=1, le=1000)
+
+
+# --------------------------------------------------------------------------- rotor types, rotors
+
+
+class RegistryListQuery(PageQuery):
+    q: ShortText | None = Field(None, description="searches part number / serial, description")
+    customer_id: Id | None = None
+    include_archived: bool = False
+
+
+class RotorListQuery(RegistryListQuery):
+    rotor_type_id: Id | None = None
+
+
+class RotorTypePatch(In):
+    """Fields of a rotor type; the registry checks the geometry as a whole."""
+
+    part_number: ShortText | None = None
+    description: Name | None = None
+    kind: ShortText | None = None
+    rotation: ShortText | None = None
+    key_convention: ShortText | None = None
+    notes: LongText | None = None
+    mass_kg: Number | None = None
+    service_speed_rpm: Number | None = None
+    first_critical_rpm: Number | None = None
+    bearing_a_mm: Number | None = None
+    bearing_b_mm: Number | None = None
+    centre_of_mass_mm: Number | None = None
+    plane_1_mm: Number | None = None
+    plane_2_mm: Number | None = None
+    radius_1_mm: Number | None = None
+    radius_2_mm: Number | None = None
+    method_1: ShortText | None = None
+    method_2: ShortText | None = None
+    positions_1: int | None = Field(None, ge=0, le=10_000)
+    positions_2: int | None = Field(None, ge=0, le=10_000)
+    first_position_1_deg: Number | None = None
+    first_position_2_deg: Number | None = None
+    density_g_cm3: Number | None = None
+    tolerance_grade: Number | None = None
+    tolerance_gmm: Number | None = None
+    key_width_mm: Number | None = None
+    key_height_mm: Number | None = None
+    key_length_mm: Number | None = None
+    hub_length_mm: Number | None = None
+    key_radius_mm: Number | None = None
+    key_angle_deg: Number | None = None
+
+
+class RotorTypeIn(RotorTypePatch):
+    customer_id: Id
+    part_number: ShortText
+
+
+class RotorTypeOut(Out):
+    id: int
+    customer_id: int
+    one_off: bool
+    archived: bool
+    part_number: str
+    description: str
+    kind: str
+    rotation: str
+    key_convention: str
+    notes: str
+    mass_kg: float
+    service_speed_rpm: float
+    first_critical_rpm: float | None
+    bearing_a_mm: float
+    bearing_b_mm: float
+    centre_of_mass_mm: float
+    plane_1_mm: float
+    plane_2_mm: float | None
+    radius_1_mm: float
+    radius_2_mm: float | None
+    method_1: str
+    method_2: str | None
+    positions_1: int | None
+    positions_2: int | None
+    first_position_1_deg: float
+    first_position_2_deg: float
+    density_g_cm3: float | None
+    tolerance_grade: float | None
+    tolerance_gmm: float | None
+    key_width_mm: float | None
+    key_height_mm: float | None
+    key_length_mm: float | None
+    hub_length_mm: float | None
+    key_radius_mm: float | None
+    key_angle_deg: float | None
+    planes: int
+
+
+class RotorIn(In):
+    rotor_type_id: Id
+    serial_number: ShortText
+    notes: LongText = ""
+
+
+class RotorPatch(In):
+    rotor_type_id: Id | None = None
+    serial_number: ShortText | None = None
+    notes: LongText | None = None
+
+
+class RotorOut(Out):
+    id: int
+    customer_id: int
+    rotor_type_id: int
+    serial_number: str
+    notes: str
+    archived: bool
+    created_at: dt.datetime
