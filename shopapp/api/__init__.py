@@ -10,14 +10,14 @@ from __future__ import annotations
 
 from flask import Blueprint, Flask, Response, current_app, jsonify, render_template
 
-from shopapp.api import jobs, registry
+from shopapp.api import calc, certificates, jobs, measures, registry
 from shopapp.api.errors import register_error_handlers
 from shopapp.api.openapi import document
 from shopapp.api.operations import API_PREFIX, OPERATIONS
 from shopapp.core.extensions import csrf
 
 bp = Blueprint("api", __name__, url_prefix=API_PREFIX, template_folder="templates")
-RESOURCES = (registry.bp, jobs.bp)
+RESOURCES = (registry.bp, jobs.bp, certificates.bp, measures.bp, calc.bp)
 
 
 @bp.get("/openapi.json")

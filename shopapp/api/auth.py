@@ -12,7 +12,7 @@ from __future__ import annotations
 from flask import g, request
 
 from shopapp.accounts import api_tokens
-from shopapp.core.extensions import db_session, get_database
+from shopapp.core.extensions import get_database
 from shopapp.models import User
 
 
@@ -36,23 +36,23 @@ def _bearer() -> str:
 
 
 def current_api_user() -> User:
-    """The user whose working token this request carries; raises :class:`Unauthorized`."""
+    """The user whose working token this request carries (loaded, not attached to the
+    request's session); raises :class:`Unauthorized`."""
     if "api_user" in g:
         return g.api_user
-    found = None
     secret = _bearer()
     database = get_database()
-    # Looked up in a session of its own, so that the request's session (opened next,
-    # as a writer for a POST) starts clean.
+    # Looked up in a session of its own: the request's session is opened only by the
+    # operations that use the database (a POST's one takes the write lock up front).
     with database.session() as sess:
         found = api_tokens.check_secret(sess, secret)
-    if found is None:
+        user = sess.get(User, found.user_id) if found is not None else None
+        if user is not None:
+            sess.expunge(user)
+    if found is None or user is None or not user.active:
         raise Unauthorized("the API token is unknown, revoked, or its user is inactive")
     if found.stale:
         with database.write_session() as sess:
             api_tokens.touch(sess, found.token_id)
-    user = db_session().get(User, found.user_id)
-    if user is None or not user.active:
-        raise Unauthorized("the API token's user is inactive")
     g.api_user = user
     return user

@@ -66,10 +66,16 @@ def json_error(status: int, message: str, fields: Mapping[str, str] | None = Non
 class Call:
     """What a handler gets: the request's session, the acting user and the parsed input."""
 
-    session: Session
+    db: Session | None
     user: User | None
     query: Any = None
     body: Any = None
+
+    @property
+    def session(self) -> Session:
+        """The request's session (operations declared ``uses_db=False`` have none)."""
+        assert self.db is not None, "this operation is declared without the database"
+        return self.db
 
     @property
     def by(self) -> User:
@@ -94,6 +100,7 @@ class Operation:
     media_type: str = "application/json"
     description: str = ""
     field_names: Mapping[str, str] = field(default_factory=dict)
+    uses_db: bool = True
 
     @property
     def path(self) -> str:
@@ -106,7 +113,7 @@ class Operation:
 
     @property
     def writes(self) -> bool:
-        return self.method in WRITE_METHODS
+        return self.method in WRITE_METHODS and self.uses_db
 
 
 OPERATIONS: list[Operation] = []
@@ -204,7 +211,16 @@ def _run(op: Operation, handler: Handler, path_args: dict[str, Any]) -> Response
     key = _idempotency_key() if op.writes and user is not None else None
     query = _parse_query(op.query)
     body = _parse_body(op.body)
+    if not op.uses_db:
+        # A stateless calculation: no session, so no write lock for a POST.
+        try:
+            return _reply(handler(Call(None, user, query, body), **path_args), op)
+        except ServiceError as exc:
+            return _service_error(exc, op.field_names)
     session = db_session()
+    if user is not None:
+        # The token's user, loaded by auth in its own session, joins this one unchanged.
+        user = session.merge(user, load=False)
     fingerprint = ""
     if key is not None:
         assert user is not None
@@ -245,34 +261,35 @@ def operation(
     response: type[BaseModel] | None = None, query: type[BaseModel] | None = None,
     body: type[BaseModel] | None = None, status: int = 200, errors: tuple[int, ...] = (),
     media_type: str = "application/json", description: str = "",
-    field_names: Mapping[str, str] | None = None,
+    field_names: Mapping[str, str] | None = None, uses_db: bool = True,
+    endpoint: str | None = None,
 ) -> Callable[[Handler], Handler]:
     """Declare an API operation on ``bp`` (see the module docstring for its steps)."""
     if action is not None and action not in PERMISSIONS:
         raise ValueError(f"unknown permission {action!r}")
 
     def decorator(handler: Handler) -> Handler:
-        endpoint = handler.__name__
+        name = endpoint or handler.__name__
         found = set(errors)
         if body is not None:
             found |= {400, 422}
         if query is not None:
             found.add(422)
-        if method in WRITE_METHODS:
+        if method in WRITE_METHODS and uses_db:
             found |= {400, 409}
         if action is not None:
             found |= set(AUTH_ERRORS)
-        op = Operation(method, rule, f"{bp.name}.{endpoint}", summary, tag, action, query,
+        op = Operation(method, rule, f"{bp.name}.{name}", summary, tag, action, query,
                        body, response, status, tuple(sorted(found)), media_type,
                        description or (handler.__doc__ or "").strip(),
-                       dict(field_names or {}))
+                       dict(field_names or {}), uses_db)
         OPERATIONS.append(op)
 
         @functools.wraps(handler)
         def view(**path_args: Any) -> Response:
             return _run(op, handler, path_args)
 
-        bp.add_url_rule(rule, endpoint, view, methods=[method])
+        bp.add_url_rule(rule, name, view, methods=[method])
         return handler
 
     return decorator

@@ -16,9 +16,9 @@ rule of the trade; these models check only shapes.
 from __future__ import annotations
 
 import datetime as dt
-from typing import Annotated, Generic, Literal, TypeVar
+from typing import Annotated, Any, Generic, Literal, TypeVar
 
-from pydantic import AfterValidator, BaseModel, ConfigDict, Field
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, RootModel
 
 from shopapp.core.web import MAX_ID
 from shopapp.models import JOB_KINDS, JOB_STATES, READING_UNITS, RUN_PURPOSES
@@ -536,3 +536,68 @@ class RotorOut(Out):
     notes: str
     archived: bool
     created_at: dt.datetime
+
+
+# --------------------------------------------------------------------------- free-form objects
+
+
+class JsonObject(RootModel[dict[str, Any]]):
+    """A JSON object whose keys are documented elsewhere (a calculation's request or
+    answer: see ``shopapp calc --help``; the shop measures: README, "Shop measures")."""
+
+
+# --------------------------------------------------------------------------- certificates
+
+
+class CertificateListQuery(PageQuery):
+    """The certificate register's search (same names as its page)."""
+
+    number: ShortText = ""
+    customer: ShortText = ""
+    serial: ShortText = ""
+    rotor_type: ShortText = ""
+    date_from: dt.date | None = None
+    date_to: dt.date | None = None
+    state: Literal["", "issued", "void"] = ""
+
+
+class CertificateOut(Out):
+    id: int
+    number: str
+    revision: int
+    job_id: int
+    state: str
+    issued_by_id: int
+    issued_at: dt.datetime
+    reason: str
+    voided_at: dt.datetime | None
+    void_reason: str
+    pdf_sha256: str
+    data_sha256: str
+
+
+class VerifyQuery(In):
+    q: ShortText = Field(description="a certificate number, or the SHA-256 of its PDF or data")
+
+
+class VerificationOut(Out):
+    query: str
+    status: Literal["valid", "void", "superseded", "unknown"]
+    message: str
+    matched_by: str
+    number: str
+    revision: int | None
+    latest_revision: int | None
+    voided_on: str | None
+    void_reason: str
+    lines: list[tuple[str, str]]
+
+
+# --------------------------------------------------------------------------- measures
+
+
+class ShopMeasuresQuery(In):
+    month: Annotated[str, Field(pattern=r"^\d{4}-\d{2}$", description="YYYY-MM")]
+    as_of: dt.date | None = Field(None, description="count work in progress and machine "
+                                                    "verification as of this day (default "
+                                                    "today)")
