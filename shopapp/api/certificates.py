@@ -57,4 +57,4 @@ def verify(call: Call) -> VerificationOut:
     public /verify page."""
     v = register.verify(call.session, call.query.q)
     return VerificationOut.model_validate({**v.__dict__, "message": v.message,
-                                           "lines": list(v.lines)})
+                                           "lines": [{"label": a, "value": b} for a, b in v.lines]})

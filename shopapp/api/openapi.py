@@ -20,7 +20,7 @@ from shopapp.core.web import MAX_ID
 
 REF = "#/components/schemas/{model}"
 ERROR_TEXT = {
-    400: "Bad request (not JSON, a bad header)",
+    400: "Bad request (not JSON, a bad header, a control character in the query)",
     401: "No working API token",
     403: "The token's role may not do this",
     404: "No such row",

@@ -270,7 +270,8 @@ def operation(
 
     def decorator(handler: Handler) -> Handler:
         name = endpoint or handler.__name__
-        found = set(errors)
+        # 400: the app-wide request guard refuses control characters in any query string.
+        found = set(errors) | {400}
         if body is not None:
             found |= {400, 422}
         if query is not None:

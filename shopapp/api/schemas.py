@@ -580,6 +580,11 @@ class VerifyQuery(In):
     q: ShortText = Field(description="a certificate number, or the SHA-256 of its PDF or data")
 
 
+class PrintedLine(BaseModel):
+    label: str
+    value: str
+
+
 class VerificationOut(Out):
     query: str
     status: Literal["valid", "void", "superseded", "unknown"]
@@ -590,7 +595,7 @@ class VerificationOut(Out):
     latest_revision: int | None
     voided_on: str | None
     void_reason: str
-    lines: list[tuple[str, str]]
+    lines: list[PrintedLine] = Field(description="the certificate's first printed lines")
 
 
 # --------------------------------------------------------------------------- measures

@@ -221,3 +221,18 @@ def test_customer_create_and_edit(api_as, db) -> None:
     assert edited.get_json()["contact"] == "Night shift"
     assert edited.get_json()["name"] == "Millrace Blowers"
 
+
+
+@pytest.mark.parametrize("text", ["1", "9", "10", "2147483647", "2147483646", "999999999",
+                                  "2147483648", "9999999999", "59322893347", "0", "01", "-1"])
+def test_ids_out_of_range_are_404_for_every_method(api_as, text) -> None:
+    """Python's own comparison with 2³¹−1 is the reference for which ids exist at all."""
+    api = api_as("operator")
+    in_range = text.isdigit() and not text.startswith("0") and 1 <= int(text) <= 2**31 - 1
+    for method in ("GET", "PATCH"):
+        resp = api.client.open(f"/api/v1/customers/{text}", method=method, json={},
+                               headers=api.headers())
+        assert resp.status_code == 404, (text, method)
+        assert resp.is_json
+        if in_range:
+            assert "No customer with id" in resp.get_json()["error"]["message"]
