@@ -32,11 +32,11 @@ class ApiToken(Base):
     prefix: Mapped[str] = mapped_column(String(16), nullable=False)
     created_at: Mapped[Timestamp]
     created_by_id: Mapped[int | None] = mapped_column(
-        ForeignKey("user_account.id", ondelete="SET NULL"))
+        ForeignKey("user_account.id", ondelete="SET NULL"), index=True)
     last_used_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime())
     revoked_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime())
     revoked_by_id: Mapped[int | None] = mapped_column(
-        ForeignKey("user_account.id", ondelete="SET NULL"))
+        ForeignKey("user_account.id", ondelete="SET NULL"), index=True)
 
     user: Mapped[User] = relationship(foreign_keys=[user_id])
 
@@ -53,7 +53,7 @@ class ApiIdempotentReply(Base):
 
     # Keys are per user: two people's scripts may pick the same key.
     user_id: Mapped[int] = mapped_column(ForeignKey("user_account.id", ondelete="CASCADE"),
-                                         primary_key=True)
+                                         primary_key=True, index=True)
     key: Mapped[str] = mapped_column(String(200), primary_key=True)
     # SHA-256 of method, path and body: the same key with another request is a conflict.
     request_sha256: Mapped[str] = mapped_column(String(64), nullable=False)

@@ -45,6 +45,10 @@ def upgrade() -> None:
     )
     with op.batch_alter_table("api_token") as batch:
         batch.create_index(batch.f("ix_api_token_user_id"), ["user_id"], unique=False)
+        batch.create_index(batch.f("ix_api_token_created_by_id"), ["created_by_id"],
+                           unique=False)
+        batch.create_index(batch.f("ix_api_token_revoked_by_id"), ["revoked_by_id"],
+                           unique=False)
     op.create_table(
         "api_idempotent_reply",
         sa.Column("user_id", sa.Integer(), nullable=False),
@@ -60,10 +64,17 @@ def upgrade() -> None:
                                 ondelete="CASCADE"),
         sa.PrimaryKeyConstraint("user_id", "key", name=op.f("pk_api_idempotent_reply")),
     )
+    with op.batch_alter_table("api_idempotent_reply") as batch:
+        batch.create_index(batch.f("ix_api_idempotent_reply_user_id"), ["user_id"],
+                           unique=False)
 
 
 def downgrade() -> None:
+    with op.batch_alter_table("api_idempotent_reply") as batch:
+        batch.drop_index(batch.f("ix_api_idempotent_reply_user_id"))
     op.drop_table("api_idempotent_reply")
     with op.batch_alter_table("api_token") as batch:
+        batch.drop_index(batch.f("ix_api_token_revoked_by_id"))
+        batch.drop_index(batch.f("ix_api_token_created_by_id"))
         batch.drop_index(batch.f("ix_api_token_user_id"))
     op.drop_table("api_token")
