@@ -6,13 +6,15 @@ flash message, which would sit in the session cookie), and only its hash is kept
 
 from __future__ import annotations
 
+from typing import Any
+
 from flask import Blueprint, flash, redirect, render_template, request, url_for
 from flask_wtf import FlaskForm
 from wtforms import StringField
 from wtforms.validators import InputRequired, Length
 
 from shopapp.accounts import api_tokens
-from shopapp.core.errors import ServiceError
+from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import ConfirmForm, apply_errors
 from shopapp.core.web import acting_user, get_or_404, requires
@@ -27,7 +29,7 @@ class TokenForm(FlaskForm):
 
 
 def _page(owner: User, form: TokenForm | None = None, *, secret: str = "", status: int = 200,
-          loose: list[str] | None = None):  # type: ignore[no-untyped-def]
+          loose: list[str] | None = None) -> Any:
     sess = db_session()
     by = acting_user()
     return render_template(
@@ -37,7 +39,7 @@ def _page(owner: User, form: TokenForm | None = None, *, secret: str = "", statu
         secret=secret, loose=loose or []), status
 
 
-def _create(owner: User):  # type: ignore[no-untyped-def]
+def _create(owner: User) -> Any:
     form = TokenForm()
     if not form.validate_on_submit():
         return _page(owner, form, status=422)
@@ -46,31 +48,32 @@ def _create(owner: User):  # type: ignore[no-untyped-def]
         made = api_tokens.create_token(sess, by=acting_user(), user=owner,
                                        name=form.name.data or "")
         sess.commit()
+    except ValidationFailed as exc:
+        sess.rollback()
+        return _page(owner, form, status=422, loose=list(apply_errors(form, exc)))
     except ServiceError as exc:
         sess.rollback()
-        loose = apply_errors(form, exc) if hasattr(exc, "errors") else [exc.message]
-        return _page(owner, form, status=422 if hasattr(exc, "errors") else exc.status,
-                     loose=list(loose))
+        return _page(owner, form, status=exc.status, loose=[exc.message])
     return _page(owner, secret=made.secret, status=201)
 
 
 @bp.route("/account/api-tokens", methods=["GET", "POST"], endpoint="mine")
 @requires("read")
-def mine():  # type: ignore[no-untyped-def]
+def mine() -> Any:
     owner = acting_user()
     return _create(owner) if request.method == "POST" else _page(owner)
 
 
 @bp.route("/admin/users/<int:user_id>/api-tokens", methods=["GET", "POST"], endpoint="of_user")
 @requires("manage_users")
-def of_user(user_id: int):  # type: ignore[no-untyped-def]
+def of_user(user_id: int) -> Any:
     owner = get_or_404(db_session(), User, user_id)
     return _create(owner) if request.method == "POST" else _page(owner)
 
 
 @bp.post("/api-tokens/<int:token_id>/revoke", endpoint="revoke")
 @requires("read")
-def revoke(token_id: int):  # type: ignore[no-untyped-def]
+def revoke(token_id: int) -> Any:
     sess = db_session()
     form = ConfirmForm()
     token = get_or_404(sess, ApiToken, token_id)

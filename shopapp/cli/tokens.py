@@ -9,6 +9,7 @@ from __future__ import annotations
 import click
 from flask.cli import with_appcontext
 from sqlalchemy import select
+from sqlalchemy.orm import Session
 
 from shopapp.accounts import api_tokens
 from shopapp.cli.common import app_db, one_line_errors
@@ -17,7 +18,7 @@ from shopapp.core.errors import NotFound
 from shopapp.models import User
 
 
-def _user(sess, username: str) -> User:  # type: ignore[no-untyped-def]
+def _user(sess: Session, username: str) -> User:
     user = sess.scalars(select(User).where(User.username == username)).first()
     if user is None:
         raise NotFound(f"no user called {username!r} (see `shopapp user list`)")
