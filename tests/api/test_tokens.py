@@ -61,6 +61,15 @@ def test_session_cookie_is_not_a_login_for_the_api(client, login_as) -> None:
     resp = client.get("/api/v1/jobs")
     assert resp.status_code == 401
     assert resp.is_json
+    assert "Set-Cookie" not in resp.headers
+
+
+def test_api_answers_set_no_cookie(api_as) -> None:
+    api = api_as("operator")
+    for resp in (api.get("/jobs"), api.post("/customers", json={"name": "Kiln Road Fans"}),
+                 api.post("/customers", json={})):
+        assert resp.status_code in (200, 201, 422)
+        assert "Set-Cookie" not in resp.headers
 
 
 def test_api_writes_need_no_csrf_token_but_a_bearer_token(api_as) -> None:
