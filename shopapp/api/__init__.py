@@ -8,7 +8,10 @@ document and the docs page are generated from those declarations.
 
 from __future__ import annotations
 
-from flask import Blueprint, Flask, Response, current_app, jsonify, render_template
+from typing import Any
+
+from flask import Blueprint, Flask, Request, Response, current_app, jsonify, render_template
+from flask.sessions import SessionInterface, SessionMixin
 
 from shopapp.api import calc, certificates, jobs, measures, registry
 from shopapp.api.errors import register_error_handlers
@@ -36,8 +39,28 @@ for _resource in RESOURCES:
 register_error_handlers(bp)
 
 
+class WithoutSessionUnderApi(SessionInterface):
+    """The app's own session interface, except under /api (known paths or not): there a
+    null session, so a
+    page login's cookie is neither read (it authorises nothing) nor refreshed, and an
+    accidental write to the session fails loudly instead of setting a cookie."""
+
+    def __init__(self, inner: SessionInterface) -> None:
+        self.inner = inner
+
+    def open_session(self, app: Flask, request: Request) -> SessionMixin | None:
+        if request.path == "/api" or request.path.startswith("/api/"):
+            return self.make_null_session(app)
+        return self.inner.open_session(app, request)
+
+    def save_session(self, app: Flask, session: SessionMixin, response: Any) -> None:
+        self.inner.save_session(app, session, response)
+
+
 def register_api(app: Flask) -> None:
-    """Mount the API; it takes no CSRF token (no cookie can authorise it)."""
+    """Mount the API; it takes no CSRF token and no session cookie (only a bearer token
+    authorises it, and a cross-site form cannot send one)."""
     for blueprint in (bp, *RESOURCES):
         csrf.exempt(blueprint)
+    app.session_interface = WithoutSessionUnderApi(app.session_interface)
     app.register_blueprint(bp)

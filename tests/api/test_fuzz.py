@@ -6,7 +6,7 @@ response must match the document (status code, content type, body schema), and a
 refused request (4xx) must leave every table as it was. The real rows of a small shop
 are put in the path half of the time, so that the handlers run, not only the 404s.
 
-Bounded: ``SHOPAPP_API_FUZZ_EXAMPLES`` examples per operation and mode (default 6),
+Bounded: ``SHOPAPP_API_FUZZ_EXAMPLES`` examples per operation and mode (default 4),
 about a minute per backend on two cores.
 """
 
@@ -33,7 +33,7 @@ from shopapp.certificates import issue as certificates
 from shopapp.models import Base
 from tests.reports.samples import job_ready_for_certificate
 
-EXAMPLES = int(os.environ.get("SHOPAPP_API_FUZZ_EXAMPLES", "6"))
+EXAMPLES = int(os.environ.get("SHOPAPP_API_FUZZ_EXAMPLES", "4"))
 CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
           response_schema_conformance]
 
