@@ -122,11 +122,10 @@ Handler = Callable[..., Any]
 
 
 def _pydantic_fields(exc: ValidationError, prefix: str) -> dict[str, str]:
+    """Field → message; a body that is not an object at all is the field ``body``."""
     out: dict[str, str] = {}
     for err in exc.errors(include_url=False):
         loc = ".".join(str(part) for part in err["loc"]) or prefix
-        if prefix == "query" or not loc:
-            loc = loc or prefix
         out.setdefault(loc, err["msg"])
     return out
 

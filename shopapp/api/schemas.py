@@ -83,7 +83,7 @@ class PageQuery(In):
 class Page(BaseModel, Generic[T]):
     items: list[T]
     total: int = Field(description="rows matching the filters, all pages")
-    page: int = Field(description="this page's number (a page past the last gives the last)")
+    page: int = Field(description="this page's number (a page past the last is empty)")
     size: int
     pages: int
 

@@ -82,6 +82,12 @@ def test_list_filters_like_the_page_and_pages_with_a_total(api_as, db, rtype, ma
     db.commit()
     page = api.get("/jobs", query_string={"size": 2, "page": 2}).get_json()
     assert (page["total"], page["pages"], page["page"], len(page["items"])) == (5, 3, 2, 2)
+    last = api.get("/jobs", query_string={"size": 2, "page": 3}).get_json()
+    past = api.get("/jobs", query_string={"size": 2, "page": 4}).get_json()
+    assert len(last["items"]) == 1 and (past["page"], past["items"]) == (4, [])
+    every = [j["id"] for p in (1, 2, 3)
+             for j in api.get("/jobs", query_string={"size": 2, "page": p}).get_json()["items"]]
+    assert sorted(every) == sorted(ids)
     rejected = api.get("/jobs", query_string={"state": "rejected"}).get_json()
     assert [j["id"] for j in rejected["items"]] == [ids[0]]
     found = api.get("/jobs", query_string={"q": "s-3"}).get_json()
