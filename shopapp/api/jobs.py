@@ -19,6 +19,7 @@ from shopapp.api.schemas import (
     JobListQuery,
     JobOut,
     Page,
+    ReturnIn,
     RunIn,
     RunOut,
     StateIn,
@@ -132,6 +133,20 @@ def change_state(call: Call, job_id: int) -> JobDetail:
         states.reopen(call.session, job, by=call.by, reason=b.reason)
     call.session.flush()
     return job_detail(call, job_id)
+
+
+@operation(bp, "POST", "/jobs/<int:job_id>/return", summary="Open a customer return of a "
+           "dispatched job", tag="jobs", action="work_jobs", body=ReturnIn, response=JobDetail,
+           status=201, errors=(404,))
+def open_return(call: Call, job_id: int) -> Any:
+    """A new job of kind ``return`` linked to this dispatched job, with its rotor, tolerance,
+    speeds and machine (the job page's return form)."""
+    earlier = get_or_404(call.session, Job, job_id)
+    b: ReturnIn = call.body
+    job = states.open_return(call.session, by=call.by, earlier_job=earlier,
+                             received_on=b.received_on, notes=b.notes)
+    call.session.flush()
+    return (job_detail(call, job.id), 201, {"Location": url_for(".get_job", job_id=job.id)})
 
 
 @operation(bp, "POST", "/jobs/<int:job_id>/runs", summary="Log a run with its readings",

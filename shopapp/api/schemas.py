@@ -606,3 +606,8 @@ class ShopMeasuresQuery(In):
     as_of: dt.date | None = Field(None, description="count work in progress and machine "
                                                     "verification as of this day (default "
                                                     "today)")
+
+
+class ReturnIn(In):
+    received_on: dt.date | None = Field(None, description="default today")
+    notes: LongText = Field("", description="what the customer reports")

@@ -32,6 +32,7 @@ EXPECTED: dict[tuple[str, str], str | None] = {
     ("GET", "/api/v1/jobs/{job_id}"): "read",
     ("POST", "/api/v1/jobs"): "work_jobs",
     ("POST", "/api/v1/jobs/{job_id}/state"): "work_jobs",
+    ("POST", "/api/v1/jobs/{job_id}/return"): "work_jobs",
     ("POST", "/api/v1/jobs/{job_id}/runs"): "work_jobs",
     ("GET", "/api/v1/jobs/{job_id}/advice"): "read",
     ("POST", "/api/v1/jobs/{job_id}/corrections"): "work_jobs",

@@ -242,3 +242,19 @@ def test_ids_out_of_range_are_404_for_every_method(api_as, text) -> None:
         assert resp.is_json
         if in_range:
             assert "No customer with id" in resp.get_json()["error"]["message"]
+
+
+def test_return_of_a_dispatched_job_only(api_as, db, rtype, machine) -> None:
+    api = api_as("operator")
+    job_id = book(api, rtype, machine).get_json()["id"]
+    early = api.post(f"/jobs/{job_id}/return", json={"notes": "vibrates again"})
+    assert early.status_code == 409
+    job = db.get(Job, job_id)
+    job.state, job.dispatched_on = "dispatched", job.received_on
+    db.commit()
+    back = api.post(f"/jobs/{job_id}/return", json={"notes": "vibrates again"})
+    assert back.status_code == 201, back.get_json()
+    body = back.get_json()
+    assert (body["kind"], body["return_of_job_id"], body["rotor"]["id"]) == (
+        "return", job_id, job.rotor_id)
+    assert count(db, Job) == 2
