@@ -93,9 +93,11 @@ def register_request_guards(app: Flask) -> None:
 
 
 def register_blueprints(app: Flask) -> None:
+    from shopapp.api import register_api
     from shopapp.web import register_web
 
     register_web(app)
+    register_api(app)
 
 
 def register_errorhandlers(app: Flask) -> None:

@@ -16,11 +16,12 @@ from shopapp.cli.measures import measures_group
 from shopapp.cli.report import report_group
 from shopapp.cli.serve import serve
 from shopapp.cli.signing import signing_group
+from shopapp.cli.tokens import token_group
 from shopapp.cli.users import user_group
 
 COMMANDS: tuple[click.Command, ...] = (
     db_group, user_group, serve, first_start, calc_command, demo_group, report_group,
-    signing_group, backup_command, restore_command, measures_group,
+    signing_group, backup_command, restore_command, measures_group, token_group,
 )
 
 

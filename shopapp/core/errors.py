@@ -46,3 +46,29 @@ class AlreadySaved(Exception):
     def __init__(self, target: str) -> None:
         super().__init__(target)
         self.target = target
+
+
+# The JSON API's one error shape (``{"error": {"code", "message", "fields"}}``), here so
+# that the API's own handlers and the app-wide ones (unknown ``/api/…`` paths are
+# answered before any API code runs) build the very same body.
+ERROR_CODES: dict[int, str] = {
+    400: "bad_request",
+    401: "unauthorized",
+    403: "forbidden",
+    404: "not_found",
+    405: "method_not_allowed",
+    409: "conflict",
+    413: "too_large",
+    415: "unsupported_media_type",
+    422: "invalid",
+    429: "too_many_requests",
+    500: "server_error",
+    503: "busy",
+}
+
+
+def error_body(status: int, message: str, fields: dict[str, str] | None = None
+               ) -> dict[str, dict[str, object]]:
+    """The API's error body for ``status``; ``fields`` maps a request field to its message."""
+    return {"error": {"code": ERROR_CODES.get(status, f"http_{status}"), "message": message,
+                      "fields": dict(fields or {})}}

@@ -1,5 +1,6 @@
 """ORM models (SQLAlchemy 2, typed). Import from here."""
 
+from shopapp.models.api import ApiIdempotentReply, ApiToken
 from shopapp.models.base import Base, utcnow
 from shopapp.models.certificates import CERTIFICATE_STATES, AuditEvent, Certificate
 from shopapp.models.facts import JobFact
@@ -84,6 +85,8 @@ __all__ = [
     "THROTTLE_KINDS",
     "TOLERANCE_METHODS",
     "UNBALANCE_DISPLAY_UNITS",
+    "ApiIdempotentReply",
+    "ApiToken",
     "Arbor",
     "ArborErrorMeasurement",
     "ArborErrorSubtraction",

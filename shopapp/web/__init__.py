@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from flask import Blueprint, Flask
 
-from shopapp.accounts import admin_routes, auth_routes
+from shopapp.accounts import admin_routes, auth_routes, token_routes
 from shopapp.certificates import routes as certificate_routes
 from shopapp.jobs import evidence_routes
 from shopapp.jobs import routes as job_routes
@@ -26,6 +26,7 @@ BLUEPRINTS: tuple[Blueprint, ...] = (
     rotor_routes.bp,
     machine_routes.bp,
     admin_routes.bp,
+    token_routes.bp,
     job_routes.bp,
     evidence_routes.bp,
     certificate_routes.bp,

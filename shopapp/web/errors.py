@@ -15,7 +15,7 @@ from flask_wtf.csrf import CSRFError
 from sqlalchemy.exc import DBAPIError, OperationalError
 from werkzeug.exceptions import HTTPException
 
-from shopapp.core.errors import AlreadySaved, ServiceError
+from shopapp.core.errors import AlreadySaved, ServiceError, error_body
 from shopapp.core.extensions import discard_db_session
 from shopapp.core.web import ALREADY_SAVED_MESSAGE
 
@@ -30,6 +30,9 @@ def _wants_json() -> bool:
 
 
 def _page(status: int, title: str, message: str, *, plain: bool = False):  # type: ignore[no-untyped-def]
+    if request.path.startswith("/api/"):
+        # Paths under /api that match no API route: the API's one error shape.
+        return error_body(status, message or title), status
     if _wants_json():
         return {"error": {"code": status, "title": title, "message": message}}, status
     template = "error_plain.html" if plain else "error.html"

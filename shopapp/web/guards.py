@@ -24,8 +24,28 @@ _QUERY_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
 _FORM_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
 
 
+def up_to_pattern(limit: int) -> str:
+    """A regular expression for the whole numbers 1 … ``limit`` (no sign, no leading zero)."""
+    digits = str(limit)
+    parts = [rf"[1-9]\d{{0,{len(digits) - 2}}}"] if len(digits) > 1 else []
+    for i, ch in enumerate(digits):
+        low = 1 if i == 0 else 0
+        if int(ch) > low:
+            rest = len(digits) - i - 1
+            parts.append(digits[:i] + f"[{low}-{int(ch) - 1}]" + (rf"\d{{{rest}}}" if rest else ""))
+    parts.append(digits)
+    return "(?:" + "|".join(parts) + ")"
+
+
 class BoundedId(IntegerConverter):
-    """``<int:…>`` for row ids: 1 … 2³¹−1, anything else does not match (404)."""
+    """``<int:…>`` for row ids: 1 … 2³¹−1, anything else does not match (404).
+
+    The bound is in the pattern itself, not only in the conversion: a number that matches
+    the pattern but fails conversion would make Werkzeug answer another method's rule on
+    the same path with 405 instead of 404.
+    """
+
+    regex = up_to_pattern(MAX_ID)
 
     def __init__(self, map: Any, *args: Any, **kwargs: Any) -> None:
         kwargs.setdefault("min", 1)

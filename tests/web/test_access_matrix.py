@@ -17,6 +17,7 @@ import pytest
 from flask import Flask
 from sqlalchemy.orm import Session
 
+from shopapp.accounts import api_tokens
 from shopapp.certificates import issue as certificates
 from shopapp.core.permissions import PERMISSIONS
 from shopapp.jobs.runs import record_run
@@ -130,6 +131,14 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "admin.end_lock": (None, "manage_users"),
     "admin.settings": ("edit_settings", "edit_settings"),
     "admin.job_number_sample": ("edit_settings", None),
+    # API tokens: everyone their own; an admin anyone's (the use-case refuses the rest)
+    "api_tokens.mine": ("read", "read"),
+    "api_tokens.of_user": ("manage_users", "manage_users"),
+    "api_tokens.revoke": (None, "read"),
+    # the JSON API's description is public; its operations are walked, role by role,
+    # with bearer tokens in tests/api/test_access_matrix.py
+    "api.openapi_json": (PUBLIC, None),
+    "api.docs": (PUBLIC, None),
 }
 
 # GET answers other than 200 that are right for an allowed visitor (noted per endpoint).
@@ -141,7 +150,9 @@ ALSO_FINE: dict[str, set[int]] = {
 
 
 def _rules(app: Flask) -> list[Any]:
-    return [r for r in app.url_map.iter_rules() if r.endpoint != "static"]
+    # API operations (bearer token, no session) have their own matrix in tests/api.
+    return [r for r in app.url_map.iter_rules()
+            if r.endpoint != "static" and not r.endpoint.startswith("api.api_")]
 
 
 def test_the_policy_written_here_is_the_apps() -> None:
@@ -184,11 +195,12 @@ def ids(db: Session, shop: Any, make_user: Callable[..., Any]) -> dict[str, Any]
     db.add(arbor)
     db.flush()
     run_up = resonance_samples.add_sample_run_up(db, job, by=operator)
+    token = api_tokens.create_token(db, by=operator, user=operator, name="matrix").token
     db.commit()
     return {"job_id": job.id, "customer_id": rt.customer_id, "machine_id": machine.id,
             "rotor_type_id": rt.id, "rotor_id": rotor.id, "user_id": operator.id,
             "cert_id": cert.id, "arbor_id": arbor.id, "plane": 1, "run_up_id": run_up.id,
-            "run_id": initial.id}
+            "run_id": initial.id, "token_id": token.id}
 
 
 def _url(app: Flask, rule: Any, ids: dict[str, Any]) -> str:

@@ -17,7 +17,7 @@ that the migrated guards equal those ``create_all`` makes and that the downgrade
 0003's guards back.
 
 Revision ID: 0020
-Revises: 0014
+Revises: 0015
 Create Date: 2026-12-02
 """
 
@@ -36,7 +36,7 @@ from shopapp.models.certificates import (
 )
 
 revision: str = "0020"
-down_revision: str | None = "0014"
+down_revision: str | None = "0015"
 branch_labels: str | Sequence[str] | None = None
 depends_on: str | Sequence[str] | None = None
 

@@ -13,7 +13,7 @@ from dataclasses import asdict
 from typing import Any
 
 from shopapp.balancing.errors import BalancingInputError
-from shopapp.cli.calc_input import (
+from shopapp.core.calc.input import (
     Request,
     Response,
     as_list,
