@@ -14,7 +14,15 @@ import secrets
 from typing import Any, TypeVar
 
 from flask_wtf import FlaskForm
-from wtforms import DateField, Field, FloatField, HiddenField, IntegerField, SelectField, StringField
+from wtforms import (
+    DateField,
+    Field,
+    FloatField,
+    HiddenField,
+    IntegerField,
+    SelectField,
+    StringField,
+)
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import ValidationError
 
