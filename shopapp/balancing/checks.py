@@ -13,6 +13,7 @@ from collections.abc import Iterable
 import numpy as np
 
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 
 
 def finite(field: str, value: float) -> float:
@@ -30,7 +31,7 @@ def positive(field: str, value: float) -> float:
     """Return ``value`` as a float, refusing zero, negatives, NaN and infinity."""
     out = finite(field, value)
     if out <= 0.0:
-        raise BalancingInputError(field, f"must be greater than zero, got {out:g}")
+        raise BalancingInputError(field, f"must be greater than zero, got {short(out)}")
     return out
 
 
@@ -38,7 +39,7 @@ def non_negative(field: str, value: float) -> float:
     """Return ``value`` as a float, refusing negatives, NaN and infinity."""
     out = finite(field, value)
     if out < 0.0:
-        raise BalancingInputError(field, f"must not be negative, got {out:g}")
+        raise BalancingInputError(field, f"must not be negative, got {short(out)}")
     return out
 
 

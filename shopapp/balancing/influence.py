@@ -31,6 +31,7 @@ import numpy as np
 
 from shopapp.balancing.checks import finite, finite_array, positive, whole
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.balancing.phasors import amplitude_angle, phasor
 
 # Common practice, no source: a trial run should change the reading by at least
@@ -254,8 +255,9 @@ def _max_mass_warnings(masses_g: Sequence[float], max_mass_g: float | None) -> t
     for i, m in enumerate(masses_g):
         if m > limit:
             out.append(
-                f"Plane {i + 1}: correction {m:.3g} g is larger than the {limit:.3g} g the rotor "
-                "can take at this radius; check the readings or correct at a larger radius."
+                f"Plane {i + 1}: correction {short(m, 3)} g is larger than the "
+                f"{short(limit, 3)} g the rotor can take at this radius; check the readings "
+                "or correct at a larger radius."
             )
     return tuple(out)
 
@@ -269,7 +271,8 @@ def _tolerance_check(
     worst = float(np.max(np.abs(readings)))
     if worst > tol:
         return False, (
-            f"Predicted residual reading {worst:.3g} is still above the tolerance {tol:.3g}.",
+            f"Predicted residual reading {short(worst, 3)} is still above the tolerance "
+            f"{short(tol, 3)}.",
         )
     return True, ()
 
@@ -291,7 +294,7 @@ def mass_at_radius(mass_g: float, from_radius_mm: float, to_radius_mm: float) ->
     """
     m = finite("mass_g", mass_g)
     if m < 0.0:
-        raise BalancingInputError("mass_g", f"must not be negative, got {m:g}")
+        raise BalancingInputError("mass_g", f"must not be negative, got {short(m)}")
     r1 = positive("from_radius_mm", from_radius_mm)
     r2 = positive("to_radius_mm", to_radius_mm)
     return m * r1 / r2
@@ -670,7 +673,7 @@ def trial_mass_advice(
     frac = positive("force_fraction", force_fraction)
     if frac > 0.5:
         raise BalancingInputError(
-            "force_fraction", f"must be at most 0.5 of the static load, got {frac:g}"
+            "force_fraction", f"must be at most 0.5 of the static load, got {short(frac)}"
         )
     omega = 2.0 * math.pi * speed / 60.0
     load_n = mass / n_planes * STANDARD_GRAVITY_M_S2
@@ -679,7 +682,7 @@ def trial_mass_advice(
     warnings: list[str] = []
     if not 0.05 <= frac <= 0.10:
         warnings.append(
-            f"Force fraction {frac:g} is outside the usual 0.05–0.10 (common practice)."
+            f"Force fraction {short(frac)} is outside the usual 0.05–0.10 (common practice)."
         )
     return TrialMassAdvice(
         mass_g=mass_g,

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import math
 
+HUGE = 1e15  # beyond any quantity a balancing shop measures (g·mm², rpm, g)
+
 
 def figures(value: float, sig: int = 3, *, trim: bool = False) -> str:
     """``value`` with ``sig`` significant figures and never an exponent.
@@ -27,6 +29,9 @@ def figures(value: float, sig: int = 3, *, trim: bool = False) -> str:
     if v == 0:
         return "0"
     mag = abs(v)
+    if mag >= HUGE:
+        # Only hostile or broken input gets here (1e300 would print 301 digits).
+        return f"more than {HUGE:.0f}" if v > 0 else f"less than -{HUGE:.0f}"
     if mag >= 10 ** (sig - 1):
         return f"{v:.0f}"
     decimals = max(0, sig - 1 - math.floor(math.log10(mag)))

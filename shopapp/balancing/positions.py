@@ -19,6 +19,7 @@ import numpy as np
 
 from shopapp.balancing.checks import finite, finite_array, positive, positive_array, whole
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.balancing.phasors import amplitude_angle, normalize_deg, phasor
 
 # A part smaller than this fraction of the correction is treated as zero, so a
@@ -151,8 +152,9 @@ def split_to_positions(
     warnings = []
     if total > 1.2 * m:
         warnings.append(
-            f"The two parts add up to {total:.3g} g for a {m:.3g} g correction because the "
-            f"positions are {spacing:g}° apart; more positions would waste less mass."
+            f"The two parts add up to {short(total, 3)} g for a {short(m, 3)} g correction "
+            "because the "
+            f"positions are {short(spacing)}° apart; more positions would waste less mass."
         )
     return SplitResult(parts=tuple(parts), total_mass_g=total, warnings=tuple(warnings))
 
@@ -292,12 +294,12 @@ def choose_weights(
     warnings = []
     if not parts:
         warnings.append(
-            f"No combination of the available sizes comes closer than leaving the {m:.3g} g "
+            f"No combination of the available sizes comes closer than leaving the {short(m, 3)} g "
             "correction off; smaller weights are needed."
         )
     elif r_mass > 0.1 * m:
         warnings.append(
-            f"The available sizes leave {r_mass:.3g} g ({100 * r_mass / m:.0f} % of the "
+            f"The available sizes leave {short(r_mass, 3)} g ({100 * r_mass / m:.0f} % of the "
             "correction) uncorrected."
         )
     return WeightChoice(

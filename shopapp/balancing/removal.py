@@ -34,6 +34,7 @@ from scipy.optimize import brentq
 
 from shopapp.balancing.checks import finite, non_negative, positive, whole
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.balancing.phasors import normalize_deg
 
 DEFAULT_POINT_ANGLE_DEG = 118.0  # standard general-purpose twist-drill point
@@ -132,7 +133,7 @@ def _point_angle(point_angle_deg: float) -> float:
     p = finite("point_angle_deg", point_angle_deg)
     if not 0.0 < p < 180.0:
         raise BalancingInputError(
-            "point_angle_deg", f"must be between 0 and 180 degrees, got {p:g}"
+            "point_angle_deg", f"must be between 0 and 180 degrees, got {short(p)}"
         )
     return p
 
@@ -230,7 +231,7 @@ def drill_depth(
         h = 0.0
         surface = 2.0 * t * tan_half
         warnings.append(
-            f"The drill point alone removes more than {m:.3g} g: the hole stays a cone "
+            f"The drill point alone removes more than {short(m, 3)} g: the hole stays a cone "
             f"{surface:.2f} mm across at the surface; a smaller drill gives a better-defined hole."
         )
     return HoleDepth(
@@ -383,22 +384,24 @@ def drill_plan(
     most = whole("max_holes", max_holes, 1)
     spread_max = positive("max_spread_deg", max_spread_deg)
     if spread_max > 180.0:
-        raise BalancingInputError("max_spread_deg", f"must be at most 180°, got {spread_max:g}")
+        raise BalancingInputError("max_spread_deg",
+                                  f"must be at most 180°, got {short(spread_max)}")
     if most > 36:
         raise BalancingInputError("max_holes", f"at most 36 holes are considered, got {most}")
     if direction not in HOLE_DIRECTIONS:
         raise BalancingInputError("direction", f"{str(direction)[:20]!r} is not radial or axial")
     if direction == "radial" and limit >= r:
         raise BalancingInputError(
-            "max_depth_mm", f"a radial hole {limit:g} mm deep would reach the axis from "
-            f"a {r:g} mm radius")
+            "max_depth_mm", f"a radial hole {short(limit)} mm deep would reach the axis from "
+            f"a {short(r)} mm radius")
     pitch_radius = r - limit if direction == "radial" else r
     chord = d + web
     if chord > 2.0 * pitch_radius:
         raise BalancingInputError(
             "radius_mm",
-            f"{pitch_radius:g} mm is too small a radius to place two {d:g} mm holes with a "
-            f"{web:g} mm web",
+            f"{short(pitch_radius)} mm is too small a radius to place two {short(d)} mm holes "
+            "with a "
+            f"{short(web)} mm web",
         )
     pitch = math.degrees(2.0 * math.asin(chord / (2.0 * pitch_radius)))
     for n in range(1, most + 1):
@@ -406,9 +409,9 @@ def drill_plan(
         if offsets[-1] - offsets[0] > spread_max + 1e-9:
             raise BalancingInputError(
                 "max_depth_mm",
-                f"{n} holes of {d:g} mm at {pitch:.1f}° pitch would spread wider than "
-                f"{spread_max:g}° at {r:g} mm and {_holes(n - 1)} would be deeper than "
-                f"{limit:g} mm; add mass instead (or use a larger drill)",
+                f"{n} holes of {short(d)} mm at {pitch:.1f}° pitch would spread wider than "
+                f"{short(spread_max)}° at {short(r)} mm and {_holes(n - 1)} would be deeper than "
+                f"{short(limit)} mm; add mass instead (or use a larger drill)",
             )
         gain = sum(math.cos(math.radians(o)) for o in offsets)
         if direction == "radial":
@@ -426,7 +429,7 @@ def drill_plan(
             warnings = list(hole.warnings)
             if n > 1:
                 warnings.append(
-                    f"One hole would exceed the {limit:g} mm depth limit; {n} holes at "
+                    f"One hole would exceed the {short(limit)} mm depth limit; {n} holes at "
                     f"{pitch:.1f}° pitch are needed."
                 )
             return DrillPlan(
@@ -447,6 +450,6 @@ def drill_plan(
             )
     raise BalancingInputError(
         "max_depth_mm",
-        f"even {_holes(most)} of {d:g} mm would be deeper than {limit:g} mm; "
+        f"even {_holes(most)} of {short(d)} mm would be deeper than {short(limit)} mm; "
         "add mass instead (or use a larger drill)",
     )

@@ -31,6 +31,7 @@ import numpy as np
 
 from shopapp.balancing.checks import finite, finite_array, positive
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.balancing.phasors import amplitude_angle
 from shopapp.balancing.planes import transfer_matrix
 from shopapp.balancing.units import G_PER_LB, G_PER_OZ, MM_PER_IN
@@ -175,7 +176,7 @@ def balance_grade(grade: float | str) -> BalanceGrade:
     for g in GRADES:
         if math.isclose(value, g.grade_mm_s, rel_tol=1e-9):
             return g
-    allowed = ", ".join(f"{g:g}" for g in GRADE_VALUES_MM_S)
+    allowed = ", ".join(f"{short(g)}" for g in GRADE_VALUES_MM_S)
     raise BalancingInputError(
         "grade_mm_s", f"unknown balance grade {raw!r}; ISO 21940-11 grades are {allowed}"
     )
@@ -598,7 +599,7 @@ def customer_tolerance(
             raise BalancingInputError("radius_mm", "a radius is needed with the mass")
         p1 = positive("mass_g", mass_g) * positive("radius_mm", radius_mm)
         p2 = p1
-        note = f"customer limit {mass_g:g} g at {radius_mm:g} mm per plane"
+        note = f"customer limit {short(mass_g)} g at {short(radius_mm)} mm per plane"
     else:
         if plane_1_gmm is None:
             raise BalancingInputError(

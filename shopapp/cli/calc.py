@@ -18,6 +18,7 @@ from typing import Any
 import click
 
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.core.calc.input import Response
 from shopapp.core.calc.input import path as _path
 from shopapp.core.calc.kinds import KINDS, run
@@ -38,7 +39,7 @@ def _flatten(obj: Any, prefix: str = "") -> Iterator[tuple[str, str]]:
         for k, value in enumerate(obj):
             yield from _flatten(value, _path(prefix, k))
     elif isinstance(obj, float):
-        yield prefix, f"{obj:.6g}"
+        yield prefix, f"{short(obj)}"
     elif obj is None:
         yield prefix, "-"
     else:

@@ -18,6 +18,7 @@ import click
 from flask import current_app
 from flask.cli import with_appcontext
 
+from shopapp.balancing.numtext import short
 from shopapp.certificates import signing
 from shopapp.cli.common import Day, app_db, one_line_errors
 from shopapp.demo import bulk as demo_bulk
@@ -129,7 +130,7 @@ def demo_group() -> None:
 def load(seed: int, years: float, end_date: dt.date | None, jobs_per_year: int | None,
          no_certificates: bool, force: bool) -> None:
     bars = _Bars()
-    command = (f"shopapp demo load --seed {seed} --years {years:g}"
+    command = (f"shopapp demo load --seed {seed} --years {short(years)}"
                + (f" --end {end_date.isoformat()}" if end_date else "")
                + (f" --jobs-per-year {jobs_per_year}" if jobs_per_year else "")
                + (" --no-certificates" if no_certificates else "") + (" --force" if force else ""))

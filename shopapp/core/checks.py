@@ -11,6 +11,7 @@ import datetime as dt
 import math
 from typing import Any
 
+from shopapp.balancing.numtext import short
 from shopapp.core.errors import ValidationFailed
 
 MAX_TEXT = 5000
@@ -52,11 +53,11 @@ def number(e: Errors, field: str, value: Any, *, required: bool = True,
     if not math.isfinite(out):
         e.add(field, f"must be a finite number, got {str(value)[:40]!r}")
     elif above is not None and out <= above:
-        e.add(field, f"must be greater than {above:g}{suffix}, got {out:g}")
+        e.add(field, f"must be greater than {short(above)}{suffix}, got {short(out)}")
     elif minimum is not None and out < minimum:
-        e.add(field, f"must not be below {minimum:g}{suffix}, got {out:g}")
+        e.add(field, f"must not be below {short(minimum)}{suffix}, got {short(out)}")
     elif maximum is not None and out > maximum:
-        e.add(field, f"must be at most {maximum:g}{suffix}, got {out:g}")
+        e.add(field, f"must be at most {short(maximum)}{suffix}, got {short(out)}")
     elif abs(out) > MAX_DERIVED:
         # No shop quantity comes near it; products of such inputs overflow to infinity.
         e.add(field, f"{TOO_LARGE}; check for a typing error")

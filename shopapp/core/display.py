@@ -57,6 +57,15 @@ def number(value: Any, sig: int = 3, *, trim: bool = False) -> str:
     return NOTHING if v is None else figures(v, sig, trim=trim)
 
 
+def p_text(p_value: Any) -> str:
+    """A test's p-value as ``p = 0.023`` (two significant figures) or ``p < 0.001``
+    (never an exponent)."""
+    v = _finite(p_value)
+    if v is None:
+        return f"p {NOTHING}"
+    return "p < 0.001" if v < 0.001 else f"p = {figures(v, 2, trim=True)}"
+
+
 def fixed(value: Any, decimals: int) -> str:
     """``value`` with a fixed number of decimals (an en dash when there is none)."""
     v = _finite(value)

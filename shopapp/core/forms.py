@@ -106,7 +106,7 @@ class AngleField(NumberField):
     def check(self, raw: str, value: float) -> float:
         if not 0.0 <= value <= 360.0:
             raise ValueError(f"{raw}° is outside 0–360°: type the angle as shown (it is not "
-                             f"wrapped to {value % 360.0:g}° for you).")
+                             f"wrapped to {short(value % 360.0)}° for you).")
         return value
 
 

@@ -26,6 +26,7 @@ from sqlalchemy.orm import Session
 from shopapp.balancing import balance_errors as errors_core
 from shopapp.balancing.arbor import subtract_arbor_error
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import derived_row
@@ -420,9 +421,9 @@ def certificate_fields(
     out["key_compensation"] = ""
     if comp is not None and comp.correction_mass_g > 0 and comp.correction_angle_deg is not None:
         out["key_compensation"] = (
-            f"Key {comp.key_mass_g:.3g} g; the key is {abs(comp.piece_length_mm):g} mm "
+            f"Key {short(comp.key_mass_g, 3)} g; the key is {short(abs(comp.piece_length_mm))} mm "
             f"{'longer' if comp.piece_length_mm > 0 else 'shorter'} than the hub: compensate "
-            f"with {comp.correction_mass_g:.3g} g at {comp.correction_radius_mm:g} mm, "
+            f"with {short(comp.correction_mass_g, 3)} g at {short(comp.correction_radius_mm)} mm, "
             f"{to_display_deg(comp.correction_angle_deg):.0f}° (half-key convention, "
             "½·ρ·b·h·(L_key − L_hub)·r_key).")
     out["arbor"] = ""
@@ -432,7 +433,7 @@ def certificate_fields(
         if arbor is not None:
             if sub is not None:
                 m = sub.measurement
-                errs = "; ".join(f"plane {p} {to_shop(abs(v)):.3g}"
+                errs = "; ".join(f"plane {p} {short(to_shop(abs(v)), 3)}"
                                  for p, v in enumerate(traceability.arbor_error_vector(m), 1))
                 out["arbor"] = (f"Balanced on shop arbor {arbor.name}; its error measured on "
                                 f"{m.measured_on} by index balancing ({errs}) was subtracted "
@@ -474,7 +475,7 @@ def certificate_fields(
                 errors.append(ErrorLine(
                     plane=p, delta_u_gmm=v.delta_u_gmm, delta_u_shop=to_shop(v.delta_u_gmm),
                     random_shop=to_shop(randoms[p - 1] or 0.0),
-                    systematic=", ".join(f"{k} {to_shop(x):.3g}" for k, x in parts.items()),
+                    systematic=", ".join(f"{k} {short(to_shop(x), 3)}" for k, x in parts.items()),
                     residual_shop=to_shop(v.residual_gmm), limit_shop=to_shop(v.limit_gmm),
                     effective_limit_shop=to_shop(v.effective_limit_gmm),
                     negligible=v.negligible, passed=v.passed, rule=v.rule))

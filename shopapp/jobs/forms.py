@@ -20,6 +20,7 @@ from wtforms import (
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import InputRequired, Length, NumberRange, Optional
 
+from shopapp.balancing.numtext import short
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import forms
 from shopapp.core.checks import PROMISE_AHEAD_DAYS, plain_digits
@@ -206,8 +207,8 @@ class DrillForm(FlaskForm):
 
     drill_mm = NumberField("Drill diameter for the depth (mm)", validators=[
         Optional(), NumberRange(min=MIN_DRILL_MM, max=MAX_DRILL_MM,
-                                message=f"Drill diameter must be between {MIN_DRILL_MM:g} and "
-                                        f"{MAX_DRILL_MM:g} mm.")])
+                                message=f"Drill diameter must be between {short(MIN_DRILL_MM)} and "
+                                        f"{short(MAX_DRILL_MM)} mm.")])
 
 
 class StrikeForm(FlaskForm):

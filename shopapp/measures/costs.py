@@ -51,6 +51,7 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import Session
 
+from shopapp.balancing.numtext import short
 from shopapp.core.errors import ValidationFailed
 from shopapp.measures.periods import EVERYTHING, Period, Scope
 from shopapp.measures.sql import (
@@ -94,12 +95,12 @@ def cost_settings(config: Mapping[str, Any]) -> CostSettings:
         minutes = _number("MACHINE_IDLE_MINUTES", idle)
         if not 1.0 <= minutes <= 24 * 60:
             raise ValidationFailed("MACHINE_IDLE_MINUTES",
-                                   f"{minutes:g} minutes; give 1 to 1440 minutes")
+                                   f"{short(minutes)} minutes; give 1 to 1440 minutes")
         out["idle_minutes"] = minutes
     if rate not in (None, ""):
         money = _number("MACHINE_HOURLY_RATE", rate)
         if money < 0:
-            raise ValidationFailed("MACHINE_HOURLY_RATE", f"{money:g} is below zero")
+            raise ValidationFailed("MACHINE_HOURLY_RATE", f"{short(money)} is below zero")
         out["hourly_rate"] = money
     return CostSettings(**out)
 

@@ -42,6 +42,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.core.display import p_text
 from shopapp.jobs import calc as job_calc
 from shopapp.measures.periods import EVERYTHING, Period, Scope
 from shopapp.measures.sql import scoped_facts
@@ -333,7 +334,7 @@ def _machine_drift(machine_id: int, name: str, done: Sequence[ProvingTest], due_
         if line.crosses(claim, before_x=until):
             warning = (f"the line through the proving tests reaches the claim by "
                        f"{max(due_on, today).isoformat()}, the next due date "
-                       f"(slope p = {line.p_value:.2g})")
+                       f"(slope {p_text(line.p_value)})")
     return MachineDrift(machine_id, name, tuple(done), claim, due_on, line, warning)
 
 

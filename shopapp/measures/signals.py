@@ -22,6 +22,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from shopapp.core.display import p_text
 from shopapp.measures.figures import RATES, Figures, SliceRow
 from shopapp.measures.stats import (
     HIGHER_IS_BETTER,
@@ -93,7 +94,7 @@ def change_text(name: str, comparison: Comparison) -> str:
         if min(a.denominator, b.denominator) == 0:
             return f"nothing to compare: {counts}"
         return f"too few jobs: {counts} (fewer than {MIN_JOBS_TO_COMPARE})"
-    tested = f"{TEST_WORDS[comparison.test]}, p = {comparison.p_value:.2g}"
+    tested = f"{TEST_WORDS[comparison.test]}, {p_text(comparison.p_value)}"
     return f"{comparison.verdict}: {counts} ({tested})"
 
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from shopapp.core.display import NOTHING, fixed, number, percent
+from shopapp.core.display import NOTHING, fixed, number, p_text, percent
 from shopapp.measures.costs import ReworkCost
 from shopapp.measures.drift import UNIT_TEXT, Drift, MachineDrift, RotorDrift
 from shopapp.measures.figures import RATES, REWORK_WINDOW_DAYS, Figures
@@ -141,7 +141,7 @@ def rotor_drift_text(d: RotorDrift) -> str:
     verdict = "rising beyond chance" if d.rising else "rising, but chance could explain it"
     return (f"Rotor {d.serial_number} ({d.rotor_type}, {d.customer}): initial unbalance "
             f"{values} {unit}{limit_words} over {len(d.visits)} visits, about "
-            f"{number(d.slope_per_year, trim=True)} {unit} a year (p = {d.p_value:.2g}, "
+            f"{number(d.slope_per_year, trim=True)} {unit} a year ({p_text(d.p_value)}, "
             f"{verdict}); a visit every {fixed(d.mean_interval_days, 0)} days on average.")
 
 

@@ -44,3 +44,20 @@ def test_short_prints_what_g_meant(value: float, sig: int, expected: str) -> Non
 def test_non_finite_values_name_themselves_and_pages_show_a_dash() -> None:
     assert (figures(math.inf), figures(-math.inf), figures(math.nan)) == ("inf", "-inf", "nan")
     assert number(math.nan) == "–" and number(None) == "–"
+
+
+def test_absurd_magnitudes_are_named_not_spelt_out() -> None:
+    # Hostile input such as 1e300 would otherwise print 301 digits in a refusal message
+    # (common practice, no source: no shop quantity reaches 10^15).
+    assert figures(1e300) == "more than 1000000000000000"
+    assert short(-2.5e17) == "less than -1000000000000000"
+    assert figures(999_999_999_999_999.0, 3) == "999999999999999"
+
+
+def test_p_values_print_without_an_exponent() -> None:
+    from shopapp.core.display import p_text
+
+    # Convention of reporting very small p-values as a bound (common practice, no source).
+    assert p_text(3.2e-9) == "p < 0.001"
+    assert p_text(0.0234) == "p = 0.023"
+    assert p_text(0.5) == "p = 0.5"

@@ -15,6 +15,7 @@ from contextlib import contextmanager
 from typing import Any
 
 from shopapp.balancing.errors import BalancingInputError
+from shopapp.balancing.numtext import short
 from shopapp.balancing.phasors import phasor
 
 Request = dict[str, Any]
@@ -82,7 +83,7 @@ def integer(obj: Request, key: str, parent: str = "") -> int:
     """Required whole number ``obj[key]``."""
     value = number(obj, key, parent)
     if value != int(value):
-        raise BalancingInputError(path(parent, key), f"must be a whole number, got {value:g}")
+        raise BalancingInputError(path(parent, key), f"must be a whole number, got {short(value)}")
     return int(value)
 
 
