@@ -109,9 +109,15 @@ def downgrade() -> None:
         # the other struck columns, so it is dropped first.
         for table, column in (("run", "struck_reason"), ("run", "struck_by_id"),
                               ("run", "struck_at"),
-                              ("rotor_type", "permitted_balancing_speed_rpm"),
                               ("machine", "reading_planes"), ("machine", "reading_unit")):
             op.execute(f"ALTER TABLE {table} DROP COLUMN {column}")
+        # rotor_type has no guard triggers, so a batch copy is safe; and a later batch
+        # copy (0013) may have made the inline CHECK a table CHECK that plain DROP COLUMN
+        # refuses to leave behind.
+        with op.batch_alter_table("rotor_type") as batch:
+            batch.drop_constraint(op.f("ck_rotor_type_permitted_balancing_speed_rpm_positive"),
+                                  type_="check")
+            batch.drop_column("permitted_balancing_speed_rpm")
         return
     op.drop_constraint("ck_run_struck_complete", "run", type_="check")
     op.drop_constraint("fk_run_struck_by_id_user_account", "run", type_="foreignkey")
