@@ -217,16 +217,16 @@ def dispatch(session: Session, job: Job, *, by: User, on: dt.date | None = None)
     """
     require(by, "work_jobs")
     _check_allowed(job, "dispatched")
-    if certificate_link.current_certificate(session, job) is None:
-        raise _refuse(job, "dispatched", "It has no valid certificate: quality must issue "
-                                         "a new revision first.")
-    day = on or today()
+    day = on or today()  # the typed field first: its message goes beside it
     refusal = day_refusal(day, today=today())
     if refusal is not None:
         raise ValidationFailed("dispatched_on", refusal)
     if day < job.received_on:
         raise ValidationFailed("dispatched_on", f"{day.isoformat()} is before the job was "
                                f"received ({job.received_on.isoformat()})")
+    if certificate_link.current_certificate(session, job) is None:
+        raise _refuse(job, "dispatched", "It has no valid certificate: quality must issue "
+                                         "a new revision first.")
     _move(session, job, "dispatched", by=by, action="dispatch", extra={"dispatched_on": day})
     return job
 

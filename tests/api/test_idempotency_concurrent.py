@@ -45,7 +45,7 @@ def test_the_same_key_sent_at_once_logs_one_run(live_app: Flask) -> None:
     with database.session() as db:
         user = factories.user(db, username="op.api", role="operator", password=PASSWORD)
         shop = factories.ShopFactory(db)
-        machine = shop.machine(min_speed_rpm=100.0)
+        machine = shop.machine(min_speed_rpm=100.0, reading_unit="um")
         rtype = shop.rotor_type()
         db.flush()
         job = intake.book_in(db, by=user, customer=rtype.customer_id, serial_number="S-1",

@@ -35,7 +35,7 @@ def readings(u_g: np.ndarray) -> list[dict[str, float]]:
 
 @pytest.fixture()
 def machine(shop):  # type: ignore[no-untyped-def]
-    return shop.machine(min_speed_rpm=100.0)
+    return shop.machine(min_speed_rpm=100.0, reading_unit="um")
 
 
 @pytest.fixture()

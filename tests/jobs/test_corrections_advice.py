@@ -155,12 +155,12 @@ def test_trial_mass_warning_only_when_the_job_has_trial_runs(db, shop, machine,
     assert any("every trial mass has been removed" in w for w in calc.advice.warnings)
 
 
-def test_no_trial_mass_warning_when_stored_coefficients_answer(db, shop, machine,
-                                                                make_user) -> None:
+def test_no_trial_mass_warning_when_stored_coefficients_answer(db, shop, make_user) -> None:
     # A repeat job corrected from stored coefficients has no trial runs of its own, so the
     # trial-mass warning is wrong there (it was shown for every stored-set job before).
     user = make_user("operator")
     rtype = shop.rotor_type()
+    machine = shop.machine(min_speed_rpm=100.0, reading_unit="um")  # readings_for logs µm
     first = with_trials(db, user, booked(db, user, rtype, machine, serial="LEARN-1"))
     calc = evaluate(db, first)
     assert calc.advice is not None

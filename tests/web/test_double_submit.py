@@ -45,7 +45,7 @@ def _count(db: Any, model: Any, *where: Any) -> int:
 
 @pytest.fixture()
 def job(db, shop) -> Job:  # type: ignore[no-untyped-def]
-    machine = shop.machine(min_speed_rpm=100.0)
+    machine = shop.machine(min_speed_rpm=100.0, reading_unit="um")
     j = shop.job(machine=machine, balancing_speed_rpm=600.0)
     db.commit()
     return j
@@ -107,7 +107,7 @@ def test_correction_posted_twice_stores_one_correction(client, login_as, db, job
 
 def test_book_in_posted_twice_opens_one_job_and_leads_to_it(client, login_as, db, shop) -> None:
     login_as("operator")
-    machine = shop.machine(min_speed_rpm=100.0)
+    machine = shop.machine(min_speed_rpm=100.0, reading_unit="um")
     rtype = shop.rotor_type()
     db.commit()
     page = client.get("/jobs/new").get_data(as_text=True)
@@ -166,7 +166,7 @@ def test_same_form_posted_at_the_same_moment_is_stored_exactly_once(live_app, tw
     with live_app.extensions["shopapp.db"].session() as db:
         factories.user(db, username="op", role="operator", password=PASSWORD)
         shop = factories.ShopFactory(db)
-        machine = shop.machine(min_speed_rpm=100.0)
+        machine = shop.machine(min_speed_rpm=100.0, reading_unit="um")
         job_id = shop.job(machine=machine, balancing_speed_rpm=600.0).id
         db.commit()
     c: ShopClient = live_app.test_client()  # type: ignore[assignment]

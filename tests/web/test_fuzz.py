@@ -128,7 +128,7 @@ def _seed(db: Any, shop: Any, make_user: Any) -> dict[str, list[int]]:
     quality = make_user("quality")
     operator = make_user("operator")
     victim = make_user("operator")  # the admin pages' user rows point here, not at us
-    machine = shop.machine(min_speed_rpm=100.0)
+    machine = shop.machine(min_speed_rpm=100.0, reading_unit="um")
     job = shop.job(machine=machine, balancing_speed_rpm=600.0, state="on_machine")
     db.flush()
     job_runs.record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
