@@ -42,3 +42,9 @@ def figures(value: float, sig: int = 3, *, trim: bool = False) -> str:
 def short(value: float, sig: int = 6) -> str:
     """What ``f"{value:g}"`` meant to print, without its exponent (``1234567``, ``0.25``)."""
     return figures(value, sig, trim=True)
+
+
+def p_text(p_value: float) -> str:
+    """A test's p-value as ``p = 0.023`` (two significant figures) or ``p < 0.001``
+    (never an exponent; tiny p-values are reported as a bound)."""
+    return "p < 0.001" if p_value < 0.001 else f"p = {figures(p_value, 2, trim=True)}"

@@ -18,6 +18,7 @@ import datetime as dt
 import math
 from typing import Any, overload
 
+from shopapp.balancing import numtext
 from shopapp.balancing.numtext import figures
 from shopapp.balancing.phasors import from_display_deg, to_display_deg
 from shopapp.balancing.units import convert_unbalance
@@ -63,7 +64,7 @@ def p_text(p_value: Any) -> str:
     v = _finite(p_value)
     if v is None:
         return f"p {NOTHING}"
-    return "p < 0.001" if v < 0.001 else f"p = {figures(v, 2, trim=True)}"
+    return numtext.p_text(v)
 
 
 def fixed(value: Any, decimals: int) -> str:

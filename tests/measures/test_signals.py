@@ -130,7 +130,7 @@ def test_a_real_first_pass_gain_is_called_better_with_the_z_test_of_statsmodels(
     assert change.comparison is not None and change.comparison.test == "z_pooled"
     _z, p_ref = proportions_ztest([165, 12], [165, 40])  # pooled, two-sided
     assert change.comparison.p_value == pytest.approx(p_ref, rel=1e-9)
-    assert change.text.startswith("better: 165 of 165 against 12 of 40 (z-test, p = ")
+    assert change.text.startswith("better: 165 of 165 against 12 of 40 (z-test, p < 0.001)")
 
 
 # ------------------------------------------------------------------ funnels

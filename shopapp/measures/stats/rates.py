@@ -8,7 +8,7 @@ from typing import Any, Literal
 
 from scipy import stats
 
-from shopapp.balancing.numtext import short
+from shopapp.balancing.numtext import p_text
 from shopapp.measures.stats.base import (
     _Z95,
     MIN_EXPECTED_COUNT,
@@ -266,7 +266,7 @@ def compare_rates(
     p_value = min(1.0, max(0.0, p_value))
     assert a.value is not None and b.value is not None and difference is not None
     change = f"from {_percent(a.value)} to {_percent(b.value)}"
-    tested = f"({test_words}, p = {short(p_value, 3)})"
+    tested = f"({test_words}, {p_text(p_value)})"
     if p_value < level and difference != 0.0:
         verdict: Verdict = "better" if (difference > 0.0) == higher_is_better else "worse"
         return result(
