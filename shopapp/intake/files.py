@@ -27,6 +27,7 @@ from typing import Any
 
 from shopapp.balancing.phasors import from_display_deg
 from shopapp.core.checks import day_refusal
+from shopapp.core.display import plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.forms import parse_number
 from shopapp.models import READING_UNITS, RUN_PURPOSES
@@ -240,7 +241,7 @@ def clean_row(where: str, raw: Mapping[str, Any], layout: Layout, *,
                 continue
             if name in ANGLE_FIELDS:
                 if not 0.0 <= number <= 360.0:
-                    row.errors.append(f"{name}: {number:g}° is out of range (0–360°)")
+                    row.errors.append(f"{name}: {plain(number)}° is out of range (0–360°)")
                     continue
                 number = from_display_deg(number, sense=layout.angle_sense,
                                           zero_deg=layout.angle_zero_deg)
@@ -248,7 +249,7 @@ def clean_row(where: str, raw: Mapping[str, Any], layout: Layout, *,
                 number *= 60.0
             if name == "trial_plane":
                 if number not in (1.0, 2.0):
-                    row.errors.append(f"trial_plane: {number:g} is not a plane (1 or 2)")
+                    row.errors.append(f"trial_plane: {plain(number)} is not a plane (1 or 2)")
                     continue
                 number = int(number)
             values[name] = number

@@ -28,6 +28,7 @@ from sqlalchemy.orm import Session
 
 from shopapp.core import audit
 from shopapp.core.display import date as show_date
+from shopapp.core.display import plain
 from shopapp.core.errors import PermissionDenied, ServiceError, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.intake import files
@@ -165,7 +166,7 @@ def _record(session: Session, row: files.Row, job: Job, machine: Machine | None,
 
 def _summary(v: dict[str, Any]) -> str:
     planes = 2 if v.get("amplitude_2") is not None else 1
-    return (f"{v.get('purpose')} run at {v.get('speed_rpm'):g} rpm, "
+    return (f"{v.get('purpose')} run at {plain(v.get('speed_rpm'))} rpm, "
             f"{planes} plane(s) in {v.get('unit')}")
 
 
