@@ -120,3 +120,18 @@ def save_mapping(session: Session, machine: Machine, values: Mapping[str, Any], 
     audit.record(session, by=by, entity="machine_mapping", entity_id=mapping.id,
                  action="save_mapping", before=before, after=audit.snapshot(mapping, fields))
     return mapping
+
+
+def machine_choices(session: Session) -> list[tuple[str, str]]:
+    """The machines in service as (id, name) choices, with "none" first."""
+    rows = session.execute(select(Machine.id, Machine.name).where(Machine.archived.is_(False))
+                           .order_by(Machine.name)).all()
+    return [("", "— (an exchange file names its jobs)")] + [(str(i), n) for i, n in rows]
+
+
+def machine_or_none(session: Session, machine_id: str | int | None) -> Machine | None:
+    """The machine with this id (from a form), or None for none given or unknown."""
+    text = str(machine_id if machine_id is not None else "").strip()
+    if not text.isdigit() or len(text) > 9:
+        return None
+    return session.get(Machine, int(text))
