@@ -84,10 +84,13 @@ class Layout:
     reading_unit: str | None = None
     columns: Mapping[str, str] = field(default_factory=lambda: {f: f for f in FIELDS})
     name: str = f"{FORMAT_NAME} CSV"
+    # Our own format: a field may be left out of the header, an unknown one is refused
+    # (a misspelt field is never ignored). A mapping names exactly the columns it reads.
+    ours: bool = False
 
 
 # The exchange CSV: comma, decimal point, UTF-8, shopapp's angles, our column names.
-EXCHANGE_CSV = Layout(skip_rows=1)
+EXCHANGE_CSV = Layout(skip_rows=1, ours=True)
 
 
 @dataclass
@@ -316,8 +319,16 @@ def parse_csv(data: bytes, layout: Layout) -> ParsedFile:
     try:
         header = [h.strip() for h in next(reader)]
         index: dict[str, int] = {}
+        if layout.ours:
+            unknown = [h for h in header if h not in FIELDS]
+            if unknown:
+                raise refuse(f"line {header_at + 1}: unknown column(s) "
+                             f"{', '.join(repr(h) for h in unknown[:5])}; the columns are "
+                             + ", ".join(FIELDS))
+            if len(set(header)) != len(header):
+                raise refuse(f"line {header_at + 1}: a column is named twice")
         for ours, theirs in layout.columns.items():
-            if not theirs:
+            if not theirs or (layout.ours and theirs not in header):
                 continue
             if theirs not in header:
                 raise refuse(f"line {header_at + 1}: no column {theirs!r} (for {ours}) in the "

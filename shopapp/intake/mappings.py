@@ -132,6 +132,6 @@ def machine_choices(session: Session) -> list[tuple[str, str]]:
 def machine_or_none(session: Session, machine_id: str | int | None) -> Machine | None:
     """The machine with this id (from a form), or None for none given or unknown."""
     text = str(machine_id if machine_id is not None else "").strip()
-    if not text.isdigit() or len(text) > 9:
+    if not (text.isascii() and text.isdigit() and len(text) <= 9):
         return None
     return session.get(Machine, int(text))

@@ -13,6 +13,7 @@ from typing import Any
 
 from flask import (
     Blueprint,
+    abort,
     current_app,
     flash,
     redirect,
@@ -73,15 +74,25 @@ def _upload_form(job: Job | None) -> UploadForm:
 @requires("work_jobs")
 def upload():  # type: ignore[no-untyped-def]
     sess = db_session()
-    job = get_or_404(sess, Job, int(request.args["job"])) if (
-        request.args.get("job", "").isdigit()) else None
+    ident = _job_id(request.args.get("job"))
+    job = get_or_404(sess, Job, ident) if ident is not None else None
     return render_template("intake/upload.html", form=_upload_form(job), job=job,
                            max_bytes=files.MAX_FILE_BYTES)
 
 
+def _job_id(raw: Any) -> int | None:
+    """A job id from a form or the query string; None when there is none (404 if junk)."""
+    text = str(raw or "").strip()
+    if not text:
+        return None
+    if not (text.isascii() and text.isdigit() and len(text) <= 9):
+        abort(404)
+    return int(text)
+
+
 def _job_of(form: Any) -> Job | None:
-    raw = str(form.job_id.data or "")
-    return get_or_404(db_session(), Job, int(raw)) if raw.isdigit() else None
+    ident = _job_id(form.job_id.data)
+    return get_or_404(db_session(), Job, ident) if ident is not None else None
 
 
 @bp.post("/import/preview")
