@@ -91,6 +91,8 @@ def _one(path: Path, machine_name: str, username: str) -> str:
     """Import one ready file in its own transaction, then move it; what happened, in words."""
     try:
         data = files.read_bytes(path)
+    except FileNotFoundError:
+        return f"{path.name}: gone before it was read (moved by someone else?); skipped"
     except ValidationFailed as exc:
         sha = imports.sha256_of(path.name.encode())  # never read whole: named by its name
         folder.move_refused(path, sha, exc.errors.get("file", exc.message))

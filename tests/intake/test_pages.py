@@ -96,6 +96,9 @@ def test_operator_previews_then_imports_on_the_job_page(client, login_as, db, sh
     assert done.status_code == 302 and done.location.endswith(f"/jobs/{job.id}#runs")
     assert [r.seq for r in db.scalars(select(Run).where(Run.job_id == job.id))] == [1, 2]
     assert db.scalars(select(ImportedFile)).one().source == "upload"
+    trail = text(client.get(f"/jobs/{job.id}")).split('id="audit"', 1)[1]
+    assert "run import run" in trail
+    assert '"file": "exchange-runs.csv"' in trail and '"line": "line 3"' in trail
     twice = client.post("/import/confirm", data=fields)  # the same form again
     assert twice.status_code == 303  # "This form was already saved" (core.web.once)
     assert len(db.scalars(select(Run)).all()) == 2
