@@ -12,6 +12,7 @@ from pathlib import Path
 import click
 from flask.cli import with_appcontext
 from sqlalchemy import select
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from shopapp.cli.common import app_db, one_line_errors
@@ -99,16 +100,21 @@ def _one(path: Path, machine_name: str, username: str) -> str:
         return f"{path.name}: refused: {exc.errors.get('file', exc.message)}"
     sha = imports.sha256_of(data)
     refused: imports.ImportPlan | None = None
-    with app_db().write_session() as sess:
-        by, machine = _user(sess, username), _machine(sess, machine_name)
-        earlier = imports.already_imported(sess, sha)
-        if earlier is None:
-            try:
-                plan = imports.import_file(sess, data, file_name=path.name, machine=machine,
-                                           by=by, source="watch")
-            except imports.ImportRefused as exc:
-                sess.rollback()
-                refused = exc.plan
+    try:
+        with app_db().write_session() as sess:
+            by, machine = _user(sess, username), _machine(sess, machine_name)
+            earlier = imports.already_imported(sess, sha)
+            if earlier is None:
+                try:
+                    plan = imports.import_file(sess, data, file_name=path.name,
+                                               machine=machine, by=by, source="watch")
+                except imports.ImportRefused as exc:
+                    sess.rollback()
+                    refused = exc.plan
+    except IntegrityError:
+        # Another watcher of the same folder imported these bytes first (the hash is
+        # unique): this one's transaction is rolled back; the next scan moves the file.
+        return f"{path.name}: imported by another process meanwhile; moved at the next scan"
     # Moved only after the commit: a stop before this line re-imports nothing (the hash
     # is stored) and the next scan only moves the file.
     if refused is not None:
