@@ -4,6 +4,7 @@ from shopapp.models.api import ApiIdempotentReply, ApiToken
 from shopapp.models.base import Base, utcnow
 from shopapp.models.certificates import CERTIFICATE_STATES, AuditEvent, Certificate
 from shopapp.models.facts import JobFact
+from shopapp.models.intake import ImportedFile, MachineMapping
 from shopapp.models.jobs import (
     CORRECTION_ACTIONS,
     JOB_KINDS,
@@ -97,12 +98,14 @@ __all__ = [
     "Certificate",
     "Correction",
     "Customer",
+    "ImportedFile",
     "InfluenceSet",
     "Job",
     "JobFact",
     "JobTransition",
     "LoginThrottle",
     "Machine",
+    "MachineMapping",
     "MachineVerification",
     "NumberLock",
     "ProvingRotor",

@@ -74,6 +74,11 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "machines.new": ("edit_machines", "edit_machines"),
     "machines.edit": ("edit_machines", "edit_machines"),
     "machines.archive": (None, "edit_machines"),
+    # intake (issue 14 part 2)
+    "intake.mapping": ("edit_machines", "edit_machines"),
+    "intake.upload": ("work_jobs", None),
+    "intake.preview": (None, "work_jobs"),
+    "intake.confirm": (None, "work_jobs"),
     # jobs
     "jobs.index": ("read", None),
     "jobs.detail": ("read", None),
