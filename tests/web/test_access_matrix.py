@@ -34,6 +34,7 @@ POLICY: dict[str, frozenset[str]] = {
     "strike_runs": frozenset({"operator", "quality"}),
     "edit_registry": frozenset({"operator", "quality", "admin"}),
     "edit_machines": frozenset({"quality", "admin"}),
+    "import_history": frozenset({"quality", "admin"}),
     "verify_machines": frozenset({"quality"}),
     "issue_certificates": frozenset({"quality"}),
     "view_signing_key": frozenset({"quality", "admin"}),
