@@ -40,6 +40,8 @@ class Kind:
     numeric: tuple[str, ...]  # columns read as numbers (decimal comma allowed in ; files)
     permission: str
     example: tuple[dict[str, str], ...]
+    # The key of a row whose ``key`` cells are empty (a past job without its old number).
+    alt_key: tuple[str, ...] = ()
 
 
 KINDS: dict[str, Kind] = {
@@ -84,6 +86,7 @@ KINDS: dict[str, Kind] = {
                   "number": "OLD-2019-117", "received_on": "2019-03-04",
                   "dispatched_on": "2019-03-08", "residual_unit": "g·mm", "residual_1": "95",
                   "residual_2": "80", "verdict": "pass"},),
+        alt_key=("customer", "serial_number", "received_on", "dispatched_on"),
     ),
 }
 KIND_NAMES = tuple(KINDS)

@@ -205,15 +205,18 @@ def _run(session: Session, by: User, spec: Kind, sheet: Sheet, batch: ImportBatc
     handler = _HANDLERS[spec.name]
     for row in sheet.rows:
         values = _clean_cells(spec, sheet, row)
-        key_cells = tuple((values.get(c) or "").strip().lower() for c in spec.key)
-        key = " / ".join(v for v in key_cells if v) or "(no key)"
+        key_columns = spec.key
+        if spec.alt_key and not any((values.get(c) or "").strip() for c in key_columns):
+            key_columns = spec.alt_key
+        key_cells = tuple((values.get(c) or "").strip().lower() for c in key_columns)
+        key = " / ".join(v for v in key_cells if v)[:120] or "(no key)"
         note = _formula_note(spec, values)
         if row.problem is not None:
             report.rows.append(RowResult(row.line, key, "refused", "", row.problem))
         elif any(key_cells) and key_cells in seen:
             report.rows.append(RowResult(
-                row.line, key, "refused", spec.key[-1],
-                f"duplicate of line {seen[key_cells]} (same {' and '.join(spec.key)})"))
+                row.line, key, "refused", key_columns[-1],
+                f"duplicate of line {seen[key_cells]} (same {', '.join(key_columns)})"))
         else:
             if any(key_cells):
                 seen[key_cells] = row.line
