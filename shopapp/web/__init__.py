@@ -11,6 +11,7 @@ from flask import Blueprint, Flask
 
 from shopapp.accounts import admin_routes, auth_routes, token_routes
 from shopapp.certificates import routes as certificate_routes
+from shopapp.imports import routes as import_routes
 from shopapp.jobs import evidence_routes
 from shopapp.jobs import routes as job_routes
 from shopapp.measures import routes as measure_routes
@@ -33,6 +34,7 @@ BLUEPRINTS: tuple[Blueprint, ...] = (
     measure_routes.bp,
     traceability_routes.bp,
     resonance_routes.bp,
+    import_routes.bp,
 )
 
 
