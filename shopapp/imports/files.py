@@ -36,7 +36,6 @@ from shopapp.core.errors import ValidationFailed
 MAX_FILE_BYTES = 20 * 1024 * 1024  # 20 MB: about 100 000 rows of a wide rotor-type sheet
 MAX_XLSX_UNPACKED_BYTES = 200 * 1024 * 1024
 MAX_ROWS = 100_000
-MAX_CELL_CHARS = 10_000  # longer than any field the shop keeps (notes: 5000)
 FORMATS = ("csv", "xlsx")
 _ZIP_MAGIC = b"PK\x03\x04"
 
@@ -161,7 +160,6 @@ def _read_csv(data: bytes) -> tuple[tuple[str, ...], list[SourceRow], str]:
     text = _decode(data)
     first = text.split("\n", 1)[0]
     delimiter = _delimiter(first)
-    csv.field_size_limit(MAX_CELL_CHARS)
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
     rows: list[SourceRow] = []
     columns: tuple[str, ...] = ()

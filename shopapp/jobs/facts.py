@@ -24,6 +24,7 @@ count the shop's own work in shopapp, and such a job has only a final residual.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Iterable
 from typing import Any
 
@@ -51,6 +52,7 @@ REWORK_FROM_STATES: tuple[str, ...] = ("in_tolerance", "certified", "dispatched"
 _CHUNK = 500  # job ids per statement (SQLite allows 32 766 bound values; stay far below)
 
 
+@functools.cache  # built once: the flush hook calls it for every flush that touches a job
 def facts_select(*, imported_table: bool = True) -> Select[Any]:
     """SELECT of every :class:`JobFact` column, one row per job (FROM job JOIN rotor).
 

@@ -149,20 +149,23 @@ def record_past_job(
         job_calc.job_tolerance(job, rt)
     except BalancingInputError as exc:
         raise ValidationFailed(exc.field, exc.message) from None
-    if wanted_number:
-        job.number = wanted_number
-        session.add(job)
-        session.flush()
-    else:
-        _insert_numbered(session, job)
+    # The job, its imported row and its transition go in one flush: the facts hook then
+    # sees the job as imported at once (one refresh, no facts row in between).
     session.add(ImportedJob(
-        job_id=job.id, batch_id=batch.id if batch is not None else None, source_row=source_row,
+        job=job, batch_id=batch.id if batch is not None else None, source_row=source_row,
         residual_1_gmm=clean_res[0], residual_2_gmm=clean_res[1],
         residual_1_angle_deg=clean_ang[0], residual_2_angle_deg=clean_ang[1],
         passed=bool(passed)))
     session.add(JobTransition(job=job, from_state=None, to_state="dispatched",
                               reason="imported past job", by_id=by.id))
-    session.flush()
+    if wanted_number:
+        job.number = wanted_number
+        session.add(job)
+        session.flush()
+    else:
+        # The pending job has no number yet: no autoflush until it is given one.
+        with session.no_autoflush:
+            _insert_numbered(session, job)
     audit.record(session, by=by, entity="job", entity_id=job.id, action="import",
                  after=audit.snapshot(job), job_id=job.id)
     return job

@@ -10,10 +10,15 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 from sqlalchemy import Boolean, CheckConstraint, Float, ForeignKey, Integer, String
-from sqlalchemy.orm import Mapped, mapped_column
+from sqlalchemy.orm import Mapped, mapped_column, relationship
 
 from shopapp.models.base import Base, IntPK, Timestamp, angle_range, one_of
+
+if TYPE_CHECKING:
+    from shopapp.models.jobs import Job
 
 IMPORT_KINDS = ("customers", "rotor-types", "rotors", "jobs")
 
@@ -68,3 +73,6 @@ class ImportedJob(Base):
     residual_2_angle_deg: Mapped[float | None] = mapped_column(Float)
     # The verdict written in the old records (True: in tolerance), not judged again here.
     passed: Mapped[bool] = mapped_column(Boolean, nullable=False)
+
+    # Set at creation, so the job and this row are inserted in one flush (one facts refresh).
+    job: Mapped[Job] = relationship()
