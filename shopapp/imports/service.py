@@ -50,7 +50,7 @@ _FALSE = ("no", "n", "false", "0", "")
 _FIELD_COLUMN = {"rotor_type_id": "part_number", "customer_id": "customer",
                  "machine_id": "machine", "tolerance_method": "tolerance_grade",
                  "explicit_limit_1_gmm": "tolerance_gmm_1",
-                 "explicit_limit_2_gmm": "tolerance_gmm_2", "archived": "customer"}
+                 "explicit_limit_2_gmm": "tolerance_gmm_2"}
 
 
 @dataclass(frozen=True)
