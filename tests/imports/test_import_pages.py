@@ -90,7 +90,11 @@ def test_past_jobs_page_and_the_imported_job_page(client, login_as, db) -> None:
     assert "3 rows: 3 create" in text
     assert client.post("/imports/jobs/apply", data=confirm_fields(text)).status_code == 302
     job = db.scalars(select(Job).where(Job.number == "OLD-2019-014")).one()
-    assert client.get(f"/jobs/{job.id}").status_code == 200
+    page = client.get(f"/jobs/{job.id}")
+    assert page.status_code == 200
+    # jobs.csv line 2: 12.5 and 10 g·mm, pass.
+    assert "Imported past job" in page.get_data(as_text=True)
+    assert "verdict pass" in page.get_data(as_text=True)
 
 
 def test_a_post_without_csrf_token_is_refused(client, login_as, db) -> None:

@@ -155,3 +155,20 @@ def test_imported_jobs_change_no_shop_measure(db, make_user) -> None:
     assert [lists.rotors_getting_worse(db, p, visits=2) for p in periods] == worse_before
     # The facts hold exactly the shop's own jobs (counted by hand: all minus imported).
     assert db.scalar(select(func.count()).select_from(JobFact)) == jobs_before
+
+
+def test_an_imported_job_is_never_reopened_or_returned(db, registry, make_user) -> None:
+    """Issue 14: imported jobs never count as rework and never get a certificate; a
+    reopening or a customer return would make them rework (common practice, no source)."""
+    from shopapp.core.errors import TransitionRefused
+    from shopapp.jobs import states
+
+    service.apply(db, by=registry, kind="jobs", sheet=sheet("jobs.csv"))
+    job = db.scalars(select(Job).where(Job.number == "OLD-2019-014")).one()
+    operator = make_user("operator")
+    assert "reopen" not in states.allowed_actions(job)
+    assert "return" not in states.allowed_actions(job)
+    with pytest.raises(TransitionRefused, match="past job imported from old records"):
+        states.reopen(db, job, by=operator, reason="vibration came back")
+    with pytest.raises(TransitionRefused, match="past job imported from old records"):
+        states.open_return(db, by=operator, earlier_job=job)
