@@ -262,7 +262,7 @@ def _clean_cells(spec: Kind, sheet: Sheet, row: SourceRow) -> dict[str, str | No
 
 def _formula_note(spec: Kind, values: Mapping[str, str | None]) -> str:
     """A note when a text cell starts like a spreadsheet formula: it is stored as text and
-    never run (shopapp's own CSV exports put a quote before such a cell)."""
+    never run (the dashboard's CSV export puts an apostrophe before such a cell)."""
     for name, v in values.items():
         if v and name not in spec.numeric and v.lstrip().startswith(_FORMULA_START):
             return f"{name} starts with {v.lstrip()[0]!r}: kept as text, never run"
