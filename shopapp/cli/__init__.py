@@ -12,6 +12,7 @@ from shopapp.cli.common import cli_app
 from shopapp.cli.db import db_group
 from shopapp.cli.demo import demo_group
 from shopapp.cli.first_start import first_start
+from shopapp.cli.imports import import_command
 from shopapp.cli.intake import intake_group
 from shopapp.cli.measures import measures_group
 from shopapp.cli.report import report_group
@@ -24,6 +25,7 @@ COMMANDS: tuple[click.Command, ...] = (
     db_group, user_group, serve, first_start, calc_command, demo_group, report_group,
     signing_group, backup_command, restore_command, measures_group, token_group,
     intake_group,
+    import_command,
 )
 
 

@@ -17,10 +17,14 @@ How the facts stay true:
   tables without the ORM (bulk inserts);
 - :func:`rebuild` recomputes every row from scratch (``shopapp measures rebuild``, the
   bulk demo generator, migration 0014).
+
+Imported past jobs (an ``imported_job`` row, :mod:`shopapp.imports`) get no row: the measures
+count the shop's own work in shopapp, and such a job has only a final residual.
 """
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Iterable
 from typing import Any
 
@@ -32,15 +36,29 @@ from sqlalchemy.orm.base import PASSIVE_NO_INITIALIZE
 
 from shopapp.core.sqltime import day_number, work_day_index_of_day, year_month
 from shopapp.jobs import calc as job_calc
-from shopapp.models import Correction, Job, JobFact, JobTransition, Rotor, Run, RunReading
+from shopapp.models import (
+    Correction,
+    ImportedJob,
+    Job,
+    JobFact,
+    JobTransition,
+    Rotor,
+    Run,
+    RunReading,
+)
 
 # A move back to on_machine from one of these is a reopening (rework).
 REWORK_FROM_STATES: tuple[str, ...] = ("in_tolerance", "certified", "dispatched")
 _CHUNK = 500  # job ids per statement (SQLite allows 32 766 bound values; stay far below)
 
 
-def facts_select() -> Select[Any]:
-    """SELECT of every :class:`JobFact` column, one row per job (FROM job JOIN rotor)."""
+@functools.cache  # built once: the flush hook calls it for every flush that touches a job
+def facts_select(*, imported_table: bool = True) -> Select[Any]:
+    """SELECT of every :class:`JobFact` column, one row per job (FROM job JOIN rotor).
+
+    ``imported_table=False`` only for migration 0014, which fills the facts at a revision
+    before ``imported_job`` exists (0022): no job can be an imported one there.
+    """
     reached = Job.first_in_tolerance_at
     before_tol = Correction.applied_at <= reached
     # Correction steps: distinct runs answered; a correction without a run stands alone.
@@ -142,18 +160,27 @@ def facts_select() -> Select[Any]:
         "initial_units": reading(func.count(func.distinct(RunReading.unit))),
     }
     assert list(columns) == JobFact.__table__.c.keys(), "facts_select out of step with JobFact"
-    return (select(*(c.label(n) for n, c in columns.items()))
+    # A past job imported from spreadsheets (Job.imported) has no facts row: it has no
+    # runs, corrections or transitions of its own, so every measure (first pass, rework,
+    # turnaround, work in progress, rotors getting worse) leaves it out by construction.
+    stmt = (select(*(c.label(n) for n, c in columns.items()))
             .select_from(Job).join(Rotor, Rotor.id == Job.rotor_id))
+    if not imported_table:
+        return stmt
+    return stmt.where(~select(ImportedJob.job_id).where(ImportedJob.job_id == Job.id)
+                      .correlate(Job).exists())
 
 
-def _write(conn: Connection, job_ids: Iterable[int] | None) -> int:
+def _write(conn: Connection, job_ids: Iterable[int] | None, *,
+           imported_table: bool = True) -> int:
     """Replace the facts of ``job_ids`` (every job when None); how many jobs were asked
     for (every job's count when None)."""
     target: Table = JobFact.__table__  # type: ignore[assignment]  # declared as FromClause
     names = list(target.c.keys())
     if job_ids is None:
         conn.execute(delete(target))
-        conn.execute(insert(target).from_select(names, facts_select()))
+        conn.execute(insert(target).from_select(
+            names, facts_select(imported_table=imported_table)))
         # Counted, not rowcount: drivers need not report it for INSERT ... SELECT.
         return conn.scalar(select(func.count()).select_from(target)) or 0
     ids = sorted(set(job_ids))
@@ -178,14 +205,17 @@ def refresh_job_facts(session: Session, job_ids: Iterable[int]) -> None:
     _write(conn, _with_returned(conn, set(job_ids)))
 
 
-def rebuild(session_or_conn: Session | Connection) -> int:
-    """Recompute every job's facts from scratch; the number of jobs."""
+def rebuild(session_or_conn: Session | Connection, *, imported_table: bool = True) -> int:
+    """Recompute every job's facts from scratch; the number of jobs.
+
+    ``imported_table=False``: migration 0014 only (:func:`facts_select`).
+    """
     if isinstance(session_or_conn, Session):
         session_or_conn.flush()
         conn = session_or_conn.connection()
     else:
         conn = session_or_conn
-    return _write(conn, None)
+    return _write(conn, None, imported_table=imported_table)
 
 
 def _with_returned(conn: Connection, job_ids: set[int]) -> set[int]:
@@ -201,7 +231,8 @@ def _with_returned(conn: Connection, job_ids: set[int]) -> set[int]:
 
 # --------------------------------------------------------------------------- the flush hook
 
-_WATCHED = (Job, Run, RunReading, Correction, JobTransition)
+# ImportedJob: its row, added after the job's first flush, takes the job's facts away.
+_WATCHED = (Job, Run, RunReading, Correction, JobTransition, ImportedJob)
 
 
 def _touched_jobs(session: Session) -> set[int]:

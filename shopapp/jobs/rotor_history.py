@@ -89,7 +89,7 @@ def _jobs(session: Session, where: object) -> list[Job]:
         .options(joinedload(Job.return_of), joinedload(Job.machine),
                  joinedload(Job.rotor).joinedload(Rotor.rotor_type),
                  selectinload(Job.runs).selectinload(Run.readings),
-                 selectinload(Job.corrections))
+                 selectinload(Job.corrections), selectinload(Job.imported_record))
         .order_by(Job.received_on, Job.id)
     ).unique())
 
@@ -136,6 +136,16 @@ def _visit(job: Job, sets: Sequence[InfluenceSet], certificate: str,
         if limits:
             residual_pct = [100.0 * abs(u) / lim
                             for u, lim in zip(calc.last_check.residual_gmm, limits, strict=True)]
+    record = job.imported_record
+    if record is not None:
+        # A past job from spreadsheets: no runs, so no initial reading (it stays out of
+        # the growth note and of rotors getting worse); its final residual and verdict
+        # are the old records', shown against this job's tolerance.
+        passed = record.passed
+        if limits:
+            given = (record.residual_1_gmm, record.residual_2_gmm)[:planes]
+            residual_pct = [None if u is None else 100.0 * u / lim
+                            for u, lim in zip(given, limits, strict=True)]
     initial_pct = [None if u is None or not limits else 100.0 * u / limits[k]
                    for k, u in enumerate(initial_gmm)]
     mass = [0.0] * planes
@@ -160,6 +170,7 @@ def _visit(job: Job, sets: Sequence[InfluenceSet], certificate: str,
         correction_steps=_steps(job),
         correction_mass_g=tuple(mass),
         certificate=certificate,
+        imported=record is not None,
     )
 
 

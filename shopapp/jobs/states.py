@@ -53,6 +53,12 @@ ALLOWED: dict[str, frozenset[str]] = {
 REOPEN_FROM = frozenset({"in_tolerance", "certified", "dispatched"})
 
 
+# A past job imported from spreadsheets (shopapp.jobs.past_jobs) is a record of old work:
+# never reworked or returned, so it never counts as rework and never gets a certificate.
+_IMPORTED = ("Job {number} is a past job imported from old records and cannot be {what}; "
+             "book the rotor in as a new job.")
+
+
 def _refuse(job: Job, to_state: str, why: str = "") -> TransitionRefused:
     allowed = sorted(ALLOWED[job.state])
     nxt = ", ".join(allowed) if allowed else "nothing (it is closed)"
@@ -259,6 +265,8 @@ def reopen(session: Session, job: Job, *, by: User, reason: str) -> Job:
     (:func:`shopapp.jobs.certificate_link.void_for_reopen`).
     """
     require(by, "work_jobs")
+    if job.imported:
+        raise TransitionRefused(_IMPORTED.format(number=job.number, what="reopened"))
     _check_allowed(job, "on_machine", REOPEN_FROM)
     text = _reason(reason, "reopening is rework, say why")
     was = job.state
@@ -283,9 +291,9 @@ def allowed_actions(job: Job) -> list[str]:
         out.append("dispatch")
     if "rejected" in nxt:
         out.append("reject")
-    if job.state in REOPEN_FROM:
+    if job.state in REOPEN_FROM and not job.imported:
         out.append("reopen")
-    if job.state == "dispatched":
+    if job.state == "dispatched" and not job.imported:
         out.append("return")
     return out
 
@@ -300,6 +308,9 @@ def open_return(session: Session, *, by: User, earlier_job: Job, received_on: dt
     Copies the rotor, tolerance, speeds and machine of the earlier job.
     """
     require(by, "work_jobs")
+    if earlier_job.imported:
+        raise TransitionRefused(_IMPORTED.format(number=earlier_job.number,
+                                                 what="the earlier job of a return"))
     if earlier_job.state != "dispatched":
         raise TransitionRefused(f"Job {earlier_job.number} is {earlier_job.state}: only a "
                                 "dispatched job can come back as a return.")

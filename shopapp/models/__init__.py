@@ -4,6 +4,7 @@ from shopapp.models.api import ApiIdempotentReply, ApiToken
 from shopapp.models.base import Base, utcnow
 from shopapp.models.certificates import CERTIFICATE_STATES, AuditEvent, Certificate
 from shopapp.models.facts import JobFact
+from shopapp.models.imports import IMPORT_KINDS, ImportBatch, ImportedJob
 from shopapp.models.intake import ImportedFile, MachineMapping
 from shopapp.models.jobs import (
     CORRECTION_ACTIONS,
@@ -70,6 +71,7 @@ __all__ = [
     "CERTIFICATE_STATES",
     "CORRECTION_ACTIONS",
     "CORRECTION_METHODS",
+    "IMPORT_KINDS",
     "JOB_KINDS",
     "JOB_STATES",
     "KEY_CONVENTIONS",
@@ -98,7 +100,9 @@ __all__ = [
     "Certificate",
     "Correction",
     "Customer",
+    "ImportBatch",
     "ImportedFile",
+    "ImportedJob",
     "InfluenceSet",
     "Job",
     "JobFact",

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from sqlalchemy import (
     JSON,
@@ -31,6 +31,9 @@ from shopapp.models.base import (
     utcnow,
 )
 from shopapp.models.registry import READING_UNITS, Customer, Machine, Rotor
+
+if TYPE_CHECKING:
+    from shopapp.models.imports import ImportedJob
 
 JOB_STATES = ("booked_in", "on_machine", "in_tolerance", "certified", "dispatched", "rejected")
 JOB_KINDS = ("new", "return")
@@ -149,6 +152,15 @@ class Job(Base):
     transitions: Mapped[list[JobTransition]] = relationship(
         back_populates="job", order_by="JobTransition.id"
     )
+    # A past job brought over from spreadsheets (shopapp.imports) has this row: its final
+    # residual and old verdict. No column on job: adding one would rebuild the table on
+    # SQLite and drop the evidence triggers that name it (migrations 0012, 0013, 0020).
+    imported_record: Mapped[ImportedJob | None] = relationship(viewonly=True)
+
+    @property
+    def imported(self) -> bool:
+        """A past job imported from spreadsheets (no runs; left out of the measures)."""
+        return self.imported_record is not None
 
 
 class JobTransition(Base):

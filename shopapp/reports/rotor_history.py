@@ -59,6 +59,9 @@ class Visit:
     correction_steps: int
     correction_mass_g: tuple[float, ...]  # total mass fitted or removed per plane
     certificate: str
+    # A past job imported from spreadsheets: no initial reading, its residual and
+    # verdict are the old records' (shopapp.imports).
+    imported: bool = False
 
 
 @dataclass(frozen=True)
@@ -187,6 +190,8 @@ def render(data: RotorHistoryData) -> bytes:
                 mark.append(f"return of {v.return_of}")
             if v.reopen_count:
                 mark.append(f"reopened ×{v.reopen_count}")
+            if v.imported:
+                mark.append("imported (old records)")
             if v.passed is False:
                 mark.append("last check out")
             rows.append([str(i), v.job_number, v.received_on, v.finished_on or v.state,

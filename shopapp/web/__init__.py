@@ -11,6 +11,7 @@ from flask import Blueprint, Flask
 
 from shopapp.accounts import admin_routes, auth_routes, token_routes
 from shopapp.certificates import routes as certificate_routes
+from shopapp.imports import routes as import_routes
 from shopapp.intake import routes as intake_routes
 from shopapp.jobs import evidence_routes
 from shopapp.jobs import routes as job_routes
@@ -35,6 +36,7 @@ BLUEPRINTS: tuple[Blueprint, ...] = (
     traceability_routes.bp,
     resonance_routes.bp,
     intake_routes.bp,
+    import_routes.bp,
 )
 
 

@@ -34,6 +34,7 @@ POLICY: dict[str, frozenset[str]] = {
     "strike_runs": frozenset({"operator", "quality"}),
     "edit_registry": frozenset({"operator", "quality", "admin"}),
     "edit_machines": frozenset({"quality", "admin"}),
+    "import_history": frozenset({"quality", "admin"}),
     "verify_machines": frozenset({"quality"}),
     "issue_certificates": frozenset({"quality"}),
     "view_signing_key": frozenset({"quality", "admin"}),
@@ -127,6 +128,13 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "resonance.new_for_job": ("work_jobs", "work_jobs"),
     "resonance.new_for_machine": ("work_jobs", "work_jobs"),
     "resonance.loose_mass": ("read", None),
+    # imports from spreadsheets (templates for anyone; registry kinds and past jobs)
+    "imports.index": ("read", None),
+    "imports.template": ("read", None),
+    "imports.registry": ("edit_registry", "edit_registry"),
+    "imports.registry_apply": (None, "edit_registry"),
+    "imports.jobs": ("import_history", "import_history"),
+    "imports.jobs_apply": (None, "import_history"),
     # admin
     "admin.users": ("manage_users", "manage_users"),
     "admin.user_role": (None, "manage_users"),
