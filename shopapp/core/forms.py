@@ -25,6 +25,7 @@ from wtforms import (
 )
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import ValidationError
+from wtforms.widgets import TextInput
 
 from shopapp.balancing.numtext import short
 from shopapp.core.checks import day_refusal
@@ -75,9 +76,24 @@ def parse_number(raw: str) -> float:
     return value
 
 
+def _with_inputmode(kwargs: dict[str, Any], mode: str) -> dict[str, Any]:
+    kwargs["render_kw"] = {"inputmode": mode, **(kwargs.get("render_kw") or {})}
+    return kwargs
+
+
 class NumberField(FloatField):
     """A decimal number; empty is None; NaN, infinity and ambiguous separators are refused
-    (:func:`parse_number`)."""
+    (:func:`parse_number`).
+
+    Drawn as a text input with a decimal keypad, not ``type="number"``: a browser's
+    number input drops what its locale does not parse ("41,5" became 415 in an English
+    browser, "abc" arrived empty), so the server never saw what was typed.
+    """
+
+    widget = TextInput()
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **_with_inputmode(kwargs, "decimal"))
 
     def process_formdata(self, valuelist: list[Any]) -> None:
         raw = _raw(valuelist)
@@ -111,7 +127,13 @@ class AngleField(NumberField):
 
 
 class WholeNumberField(IntegerField):
-    """A whole number; empty is None; decimals, junk and more than 9 digits are refused."""
+    """A whole number; empty is None; decimals, junk and more than 9 digits are refused.
+    A text input with a numeric keypad, for the reason given at :class:`NumberField`."""
+
+    widget = TextInput()
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **_with_inputmode(kwargs, "numeric"))
 
     def process_formdata(self, valuelist: list[Any]) -> None:
         raw = _raw(valuelist)

@@ -11,6 +11,7 @@ from wtforms.validators import Length, Optional, Regexp
 
 from shopapp.core.forms import AngleField, ChoiceField, OnceForm, WholeNumberField
 from shopapp.intake.files import FIELDS
+from shopapp.jobs.forms import UNIT_LABELS
 from shopapp.models import READING_UNITS
 
 FIELD_LABELS: dict[str, str] = {
@@ -58,7 +59,7 @@ class MappingForm(FlaskForm):
     speed_unit = ChoiceField("Speed unit", choices=[("rpm", "rpm"), ("Hz", "Hz")])
     reading_unit = ChoiceField("Amplitude unit when there is no unit column",
                                choices=[("", "— (the export has a unit column)")]
-                               + [(u, u) for u in READING_UNITS])
+                               + [(u, UNIT_LABELS[u]) for u in READING_UNITS])
     preview = SubmitField("Preview")
     save = SubmitField("Save mapping")
 

@@ -78,3 +78,14 @@ def test_angles_outside_a_turn_are_refused_not_wrapped(app, typed: str, wrapped:
     assert form.angle.data is None
     assert "outside 0–360°" in form.angle.errors[0]
     assert f"not wrapped to {wrapped}°" in form.angle.errors[0]
+
+
+def test_number_inputs_reach_the_server_as_typed(app) -> None:
+    # A browser's type="number" input drops "41,5" to 415 or "abc" to "" under an English
+    # locale (HTML's valid floating-point number has no comma), so the server's decimal-comma
+    # rule never saw it. The field is a text input with a decimal keypad instead.
+    with app.test_request_context():
+        form = _Form(formdata=None)
+        html = str(form.value()) + str(form.angle())
+    assert 'type="number"' not in html
+    assert html.count('type="text"') == 2 and html.count('inputmode="decimal"') == 2
