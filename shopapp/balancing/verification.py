@@ -80,12 +80,16 @@ class ResidualVerification:
     warnings: tuple[str, ...]
 
 
+INDICATION_TOLERANCE = 0.10  # indicated / known test unbalance may differ from 1 by this
+
+
 @dataclass(frozen=True)
 class MinimumResidualTest:
     """Result of :func:`minimum_achievable_residual`.
 
     ``indication_ratio`` is the test unbalance the machine indicated (fitted
-    circle radius, g·mm) over the one fitted (1.0 for a machine that reads true).
+    circle radius, g·mm) over the one fitted (1.0 for a machine that reads true);
+    ``passed`` needs it within ``INDICATION_TOLERANCE`` of 1 as well as U_mar ≤ claim.
     ``specific_gmm_per_kg`` is ``U_mar / rotor mass`` (g·mm/kg = µm) when the
     proving-rotor mass was given.
     """
@@ -339,17 +343,23 @@ def minimum_achievable_residual(
     fit = verify_residual(test_unbalance_gmm, positions_deg, indicated_gmm, indicated_angles_deg)
     indication = fit.circle_radius / fit.test_unbalance_gmm
     warnings = list(fit.warnings)
-    if abs(indication - 1.0) > 0.1:
+    if abs(indication - 1.0) > INDICATION_TOLERANCE:
         warnings.append(
             f"The machine indicated the test unbalance as {100 * indication:.0f} % of its "
             "known value; check the machine's calibration (plane separation, radius, speed)."
         )
     umar = fit.residual_gmm
+    # A machine that does not read a known unbalance true cannot prove its U_mar either:
+    # the test fails, whatever the residual (the ±10 % band is ours, common practice).
+    reads_true = abs(indication - 1.0) <= INDICATION_TOLERANCE
+    if not reads_true:
+        warnings.append("The test fails: the machine must indicate the known test unbalance "
+                        f"within ±{100 * INDICATION_TOLERANCE:.0f} % before its U_mar counts.")
     return MinimumResidualTest(
         umar_gmm=umar,
         specific_gmm_per_kg=None if mass is None else umar / mass,
         claimed_umar_gmm=claimed,
-        passed=umar <= claimed,
+        passed=umar <= claimed and reads_true,
         indication_ratio=indication,
         fit=fit,
         warnings=tuple(warnings),

@@ -201,6 +201,13 @@ def test_proving_test_flags_a_machine_that_misreads_the_test_unbalance() -> None
                                     claimed_umar_gmm=5.0)
     assert r.indication_ratio == pytest.approx(0.8, rel=1e-9)
     assert any("calibration" in w for w in r.warnings)
+    # A residual within the claim does not make the test pass while the machine misreads
+    # a known unbalance (common practice, no source: calibrate before proving U_mar).
+    assert r.umar_gmm <= 5.0 and r.passed is False
+    lightly_off = 0.95 * (2.0 + 30.0 * np.exp(1j * np.radians(theta)))
+    ok = minimum_achievable_residual(30.0, theta, np.abs(lightly_off),
+                                     np.degrees(np.angle(lightly_off)), claimed_umar_gmm=5.0)
+    assert ok.passed is True  # 5 % off stays within the ±10 % band
 
 
 def test_unbalance_reduction_ratio() -> None:
