@@ -213,7 +213,9 @@ def apply_errors(form: FlaskForm, exc: ValidationFailed,
     ``customer``. Returns the messages for which the form has no field (shown
     above the form).
     """
-    fields = {f.name: f for f in form}
+    # A prefixed form (``run-speed_rpm``) is matched by the field's own name too: the
+    # use-cases name their fields without the page's prefix.
+    fields = {**{f.short_name: f for f in form}, **{f.name: f for f in form}}
     loose: list[str] = []
     for name, message in exc.errors.items():
         field = (mapping or {}).get(name)

@@ -391,3 +391,25 @@ def test_shop_measures_judge_first_pass_without_the_struck_check(db, op, shop, c
     f = period_figures(db, Period(today, today), by=make_user("owner"), today=today)
     assert f.reached_in_tolerance == 1  # type: ignore[union-attr]
     assert (f.first_pass_judged, f.first_pass_jobs) == (1, 0)  # type: ignore[union-attr]
+
+
+def test_a_use_case_refusal_goes_beside_the_prefixed_field(client, login_as, db, shop,
+                                                           calibrated) -> None:
+    """Walk finding: the run form's fields are prefixed ("run-speed_rpm"), the use-case
+    names "speed_rpm"; the refusal was shown above the page as "speed rpm: …"."""
+    import re
+
+    user = login_as("operator")
+    job = book(db, user, calibrated, shop.rotor_type())
+    db.commit()
+    resp = client.post(f"/jobs/{job.id}/runs", data={
+        "run-purpose": "initial", "run-speed_rpm": "-5", "run-unit": "g·mm",
+        "run-amplitude_1": "300", "run-angle_1_deg": "10",
+        "run-amplitude_2": "10", "run-angle_2_deg": "0"})
+    body = resp.get_data(as_text=True)
+    assert resp.status_code == 422
+    assert "speed rpm:" not in body
+    beside = re.search(r'<div class="field has-error">\s*<label for="run-speed_rpm".*?</div>',
+                       body, re.S)
+    assert beside is not None and 'class="error"' in beside.group(0)
+    assert _rows(db, job) == 0
