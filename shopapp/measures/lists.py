@@ -116,15 +116,20 @@ def rotors_getting_worse(
     # Only rotors with enough visits, the latest in the period, can qualify: those with a
     # visit in the period (index on received_on), their visits counted through
     # (rotor_id, received_on) — never the whole history.
-    in_period = scoped_facts(
+    # Each step is a materialised CTE joined, not a nested IN: PostgreSQL without fresh
+    # statistics once planned the IN as a subplan re-run per fact row (minutes on a test
+    # shop); a CTE is evaluated once on either database.
+    in_period = (scoped_facts(
         select(F.rotor_id).where(F.received_on.between(p.start, p.end)), scope)
-    candidates = scoped_facts(
+        .distinct().cte("worse_in_period").prefix_with("MATERIALIZED"))
+    candidates = (scoped_facts(
         select(F.rotor_id)
-        .where(F.received_on <= p.end, F.rotor_id.in_(in_period))
+        .join(in_period, in_period.c.rotor_id == F.rotor_id)
+        .where(F.received_on <= p.end)
         .group_by(F.rotor_id)
         .having(func.count() >= visits, func.max(F.received_on) >= p.start),
         scope,
-    )
+    ).cte("worse_candidates").prefix_with("MATERIALIZED"))
     ranked = (
         select(
             F.job_id, F.rotor_id, F.received_on,
@@ -134,7 +139,8 @@ def rotors_getting_worse(
             .over(partition_by=F.rotor_id, order_by=(F.received_on.desc(), F.job_id.desc()))
             .label("rn"),
         )
-        .where(F.received_on <= p.end, F.rotor_id.in_(candidates))
+        .join(candidates, candidates.c.rotor_id == F.rotor_id)
+        .where(F.received_on <= p.end)
         .subquery("ranked_visits")
     )
     # A visit whose first initial run has no readings cannot be compared (count < visits).
