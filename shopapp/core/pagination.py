@@ -15,7 +15,7 @@ T = TypeVar("T")
 MAX_PER_PAGE = 200
 # A long list counts its rows up to here and then says "more than": counting every row of
 # a 100 000-job history on each page costs more than the page itself.
-COUNT_LIMIT = 10_000
+COUNT_LIMIT = 2_000
 
 
 @dataclass

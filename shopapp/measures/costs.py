@@ -222,7 +222,7 @@ def machine_seconds(
     if idle_seconds <= 0:
         raise ValidationFailed("idle_seconds", "must be longer than zero")
     start, stop = utc_start(p.start), utc_start(p.end + dt.timedelta(days=1))
-    ran = (select(Run.job_id).where(Run.taken_at >= start, Run.taken_at < stop,
+    ran = (select(Run.job_id).distinct().where(Run.taken_at >= start, Run.taken_at < stop,
                                     Run.struck_at.is_(None))
            .cte("ran").prefix_with("MATERIALIZED"))
     is_reopen = and_(JobTransition.to_state == "on_machine",
@@ -233,36 +233,40 @@ def machine_seconds(
     # the segment a run belongs to (0: before any reopening).
     events = union_all(
         select(Run.job_id.label("job_id"), Run.taken_at.label("at"),
-               literal_column("1", Integer).label("is_run"), Run.id.label("event_id"))
+               literal_column("1", Integer).label("is_run"), Run.id.label("event_id"),
+               cast(literal_column("NULL"), String).label("reason"))
         .where(Run.job_id.in_(select(ran.c.job_id)), Run.struck_at.is_(None)),
         select(JobTransition.job_id, JobTransition.at, literal_column("0", Integer),
-               JobTransition.id).where(is_reopen),
+               JobTransition.id, JobTransition.reason).where(is_reopen),
     ).subquery("events")
     e = events.c
-    segment = func.sum(1 - e.is_run).over(partition_by=e.job_id,
-                                          order_by=(e.at, e.is_run, e.event_id),
+    order = (e.at, e.is_run, e.event_id)
+    segment = func.sum(1 - e.is_run).over(partition_by=e.job_id, order_by=order,
                                           rows=(None, 0))
-    numbered = (select(e.job_id, e.at, e.is_run, e.event_id, segment.label("seg"))
+    numbered = (select(e.job_id, e.at, e.is_run, e.event_id, e.reason, segment.label("seg"))
                 .cte("numbered").prefix_with("MATERIALIZED"))
     n = numbered.c
-    runs = (select(n.job_id, n.at.label("taken_at"), n.event_id.label("run_id"), n.seg,
-                   epoch_seconds(n.at).label("t"))
-            .where(n.is_run == 1).subquery("visit_runs"))
+    # The reopening that opened a segment is its first event, so the segment's reason is
+    # carried by a window, not looked up by a join (a join on (job, segment) against the
+    # ranked reopenings was planned by SQLite as a scan per run: 122 s for a year at
+    # 100 000 jobs).
+    seg_reason = func.first_value(n.reason).over(partition_by=(n.job_id, n.seg),
+                                                 order_by=(n.at, n.is_run, n.event_id))
+    reasoned = select(n.job_id, n.at, n.is_run, n.event_id, n.seg,
+                      seg_reason.label("seg_reason")).subquery("reasoned")
+    r = reasoned.c
+    runs = (select(r.job_id, r.at.label("taken_at"), r.event_id.label("run_id"), r.seg,
+                   r.seg_reason, epoch_seconds(r.at).label("t"))
+            .where(r.is_run == 1).subquery("visit_runs"))
     previous_t = func.lag(runs.c.t).over(partition_by=(runs.c.job_id, runs.c.seg),
                                          order_by=(runs.c.t, runs.c.run_id))
-    gaps = select(runs.c.job_id, runs.c.seg, runs.c.taken_at,
+    gaps = select(runs.c.job_id, runs.c.seg, runs.c.seg_reason, runs.c.taken_at,
                   (runs.c.t - previous_t).label("gap")).subquery("gaps")
-    # The k-th reopening of a job opened segment k: its reason is the segment's reason.
-    ranked = select(
-        JobTransition.job_id, JobTransition.reason,
-        func.row_number().over(partition_by=JobTransition.job_id,
-                               order_by=(JobTransition.at, JobTransition.id)).label("rank"),
-    ).where(is_reopen).subquery("reopen_ranked")
     idle = literal_column(str(int(idle_seconds)), Integer)
     counted = case((gaps.c.gap.is_(None), 0), (gaps.c.gap > idle, idle), else_=gaps.c.gap)
     is_rework = or_(gaps.c.seg > 0, Job.kind == "return")
     reason = case(
-        (gaps.c.seg > 0, reopen_reason(ranked.c.reason)),
+        (gaps.c.seg > 0, reopen_reason(gaps.c.seg_reason)),
         (Job.kind == "return", return_reason(Job.notes)),
         else_="",
     )
@@ -277,7 +281,6 @@ def machine_seconds(
         .select_from(gaps)
         .join(Job, Job.id == gaps.c.job_id)
         .join(Rotor, Rotor.id == Job.rotor_id)
-        .outerjoin(ranked, and_(ranked.c.job_id == gaps.c.job_id, ranked.c.rank == gaps.c.seg))
         .where(gaps.c.taken_at >= start, gaps.c.taken_at < stop),
         scope,
     ).cte("machine_time").prefix_with("MATERIALIZED")

@@ -211,14 +211,29 @@ def _visit_rows(session: Session, p: Period, scope: Scope) -> list[Any]:
     return list(session.execute(stmt))
 
 
-def _percent_of_limit(row: Any, rt: RotorType | None) -> float | None:
+Limits = dict[tuple[Any, ...], tuple[float, ...] | None]
+
+
+def _plane_limits(row: Any, rt: RotorType, known: Limits) -> tuple[float, ...] | None:
+    """The job's plane limits, worked out once per rotor type and tolerance inputs (a
+    shop's visits share a handful of them: 23 000 visits, a few hundred sets)."""
+    inputs = tuple(getattr(row, c) for c in _JOB_TOLERANCE_COLUMNS)
+    key = (rt.id, *inputs)
+    if key not in known:
+        job = Job(**dict(zip(_JOB_TOLERANCE_COLUMNS, inputs, strict=True)))  # never added
+        try:
+            known[key] = job_calc.job_tolerance(job, rt).plane_limits_gmm
+        except BalancingInputError:
+            known[key] = None
+    return known[key]
+
+
+def _percent_of_limit(row: Any, rt: RotorType | None, known: Limits) -> float | None:
     """The larger plane reading as % of that plane's limit (g·mm readings only)."""
     if rt is None or row.unit != GMM or row.unit_max != GMM:
         return None
-    job = Job(**{c: getattr(row, c) for c in _JOB_TOLERANCE_COLUMNS})  # transient: never added
-    try:
-        limits = job_calc.job_tolerance(job, rt).plane_limits_gmm
-    except BalancingInputError:
+    limits = _plane_limits(row, rt, known)
+    if limits is None:
         return None
     shares = [100.0 * amp / lim for amp, lim in zip((row.amp1, row.amp2), limits, strict=False)
               if amp is not None and lim > 0]
@@ -241,12 +256,13 @@ def rotor_drift(
     for row in rows:
         by_rotor[row.rotor_id].append(row)
     out: list[RotorDrift] = []
+    known: Limits = {}
     for rotor_rows in by_rotor.values():
         visits = [
             RotorVisit(r.number, _as_date(r.received_on),
                        r.unit if r.unit == r.unit_max else "mixed",
                        max(a for a in (r.amp1, r.amp2) if a is not None),
-                       _percent_of_limit(r, types.get(r.rotor_type_id)))
+                       _percent_of_limit(r, types.get(r.rotor_type_id), known))
             for r in rotor_rows
         ]
         drift = _rotor_trend(rotor_rows[-1], visits)
