@@ -9,7 +9,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from shopapp.balancing.numtext import short
 from shopapp.measures.stats.base import (
@@ -101,11 +101,6 @@ class Trend:
         }
 
 
-def _series(name: str, values: Any) -> np.ndarray:
-    seq = _nonempty(name, values)
-    return np.array([_real(f"{name}[{i}]", v) for i, v in enumerate(seq)], dtype=float)
-
-
 def trend(xs: Sequence[float], ys: Sequence[float]) -> Trend:
     """Ordinary least-squares line through ``(xs, ys)`` and the test of its slope.
 
@@ -139,32 +134,39 @@ def trend(xs: Sequence[float], ys: Sequence[float]) -> Trend:
         Empty or too short series, lengths that differ, non-numbers, NaN or
         infinity, all xs equal.
     """
-    x = _series("xs", xs)
-    y = _series("ys", ys)
-    if y.size != x.size:
-        raise StatisticsInputError("ys", f"has {y.size} values but xs has {x.size}")
-    n = int(x.size)
+    # Plain floats, not arrays: the owner's dashboard fits one short line per rotor
+    # (thousands of them), where array set-up cost more than the arithmetic.
+    x = [_real(f"xs[{i}]", v) for i, v in enumerate(_nonempty("xs", xs))]
+    y = [_real(f"ys[{i}]", v) for i, v in enumerate(_nonempty("ys", ys))]
+    if len(y) != len(x):
+        raise StatisticsInputError("ys", f"has {len(y)} values but xs has {len(x)}")
+    n = len(x)
     if n < 3:
         raise StatisticsInputError("xs", f"need at least 3 points for a trend, got {n}")
-    with np.errstate(all="ignore"):  # overflow is caught below, as a field error
-        dx = x - x.mean()
-        sxx = float(dx @ dx)
+    try:
+        x_mean, y_mean = math.fsum(x) / n, math.fsum(y) / n
+        dx = [v - x_mean for v in x]
+        sxx = math.fsum(d * d for d in dx)
         if sxx == 0.0:
             raise StatisticsInputError("xs", "all x values are equal; no slope can be fitted")
         if not math.isfinite(sxx):
             raise StatisticsInputError("xs", "values too large to fit a line")
-        slope = float(dx @ (y - y.mean())) / sxx
-        intercept = float(y.mean()) - slope * float(x.mean())
-        residuals = y - (intercept + slope * x)
-        s2 = float(residuals @ residuals) / (n - 2)
+        slope = math.fsum(d * (w - y_mean) for d, w in zip(dx, y, strict=True)) / sxx
+        intercept = y_mean - slope * x_mean
+        s2 = math.fsum((w - (intercept + slope * v)) ** 2 for v, w in zip(x, y, strict=True))
+        s2 /= n - 2
         stderr = math.sqrt(s2 / sxx) if math.isfinite(s2) else math.inf
+    except OverflowError:  # ** 2 of a huge float; caught as a field error like inf
+        raise StatisticsInputError("ys", "values too large to fit a line") from None
     if not (math.isfinite(slope) and math.isfinite(intercept) and math.isfinite(stderr)):
         raise StatisticsInputError("ys", "values too large to fit a line")
     if stderr > 0.0:
-        p_value = float(2.0 * stats.t.sf(abs(slope / stderr), n - 2))
+        # 2·P(T_{n−2} > |t|) with Student's t CDF (scipy.special.stdtr: the same function
+        # scipy.stats.t.sf uses, without its per-call set-up).
+        p_value = float(2.0 * special.stdtr(n - 2, -abs(slope / stderr)))
     else:
         p_value = 0.0 if slope != 0.0 else 1.0
-    return Trend(slope, intercept, stderr, p_value, n, float(x.min()), float(x.max()))
+    return Trend(slope, intercept, stderr, p_value, n, min(x), max(x))
 
 
 # --------------------------------------------------------------- machine time
