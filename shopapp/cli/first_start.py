@@ -94,7 +94,7 @@ def _load_demo() -> None:
             signing_dir, base_url = demo_signing()
             load = demo.DemoLoad(sess, seed=SEED, years=YEARS, progress=click.echo,
                                  signing_dir=signing_dir, base_url=base_url)
-            logins = load.shop_and_history()
+            logins = load.people_and_machines()
             sess.commit()
         except BaseException as exc:
             sess.rollback()
@@ -102,11 +102,25 @@ def _load_demo() -> None:
                            f"kept; to load it run: shopapp demo load --seed {SEED} "
                            f"--years {short(YEARS)}")
             raise
+        write_status(folder, "loading", "The demo shop is still loading: its jobs of the last "
+                     f"{short(YEARS)} years are being written (seconds). Until then the lists, "
+                     "the dashboard and the papers are incomplete; please leave the demo "
+                     "jobs alone until this note goes.")
+        print_logins("demo shop: log in with (role, username, password); its jobs are still "
+                     "being written, the pages say so until they are:", logins)
+        try:
+            load.history_rows()
+            sess.commit()
+        except BaseException as exc:
+            sess.rollback()
+            report_failure(f"The demo shop's jobs did not load: {reason_of(exc)} (its people "
+                           "and machines are kept). To start again from an empty database "
+                           f"(this deletes everything in it): {RESET}")
+            raise
         total = load.certificates_total
         _loading_certificates(load)
-        print_logins("demo shop ready to use; log in with (role, username, password):", logins)
-        click.echo(f"the certificates of the historical jobs ({total}) are issued in the "
-                   "background now; the pages say so until it is done")
+        click.echo(f"demo jobs written; the certificates of the historical jobs ({total}) are "
+                   "issued in the background now; the pages say so until it is done")
         try:
             while load.certificates_remaining:
                 _certificate_slice(sess, load)

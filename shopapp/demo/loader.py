@@ -164,10 +164,26 @@ class DemoLoad:
 
     def shop_and_history(self) -> list[Login]:
         """The shop, its jobs and their traceability records (flushed); the logins."""
+        logins = self.people_and_machines()
+        self.history_rows()
+        return logins
+
+    def people_and_machines(self) -> list[Login]:
+        """The shop's people, machines, customers and rotors (flushed); the logins.
+
+        A first start commits this step on its own, so the logins are printed within
+        seconds, before the jobs are simulated.
+        """
         shop = self.shop
         self.say(f"demo: setting up {shop.shop_name} ({shop.start.isoformat()} to "
                  f"{self.end_at.isoformat(sep=' ')})")
         self.logins = shop.setup()
+        return self.logins
+
+    def history_rows(self) -> None:
+        """The jobs, their runs and traceability records and the job facts (flushed); after
+        :meth:`people_and_machines`."""
+        shop = self.shop
         self.say(f"demo: planning about {self.n_new} jobs")
         plans = plan(shop, self.n_new, self.history.runs_per_job)
         self.say(f"demo: simulating {len(plans)} jobs on the balancing machines")
@@ -182,7 +198,6 @@ class DemoLoad:
         # The rows above went in as bulk inserts, past the flush hook that keeps job facts.
         self.say("demo: job facts for the shop measures")
         job_facts.rebuild(self.session)
-        return self.logins
 
     @property
     def certificates_total(self) -> int:

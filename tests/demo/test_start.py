@@ -242,14 +242,20 @@ def test_first_start_prints_the_logins_before_the_certificates_then_says_ready(
     engine.dispose()
     assert result.exit_code == 0, result.output
     out = result.output
+    # The logins come before the jobs are simulated (seconds), not after them.
     assert out.index("log in with (role, username, password)") < out.index(
+        "demo: simulating") < out.index("demo jobs written") < out.index(
         "demo shop fully loaded")
     logins = (tmp_path / "first-logins.txt").read_text().splitlines()
     assert len(logins) == 6 and all("  " + line in out for line in logins)
     states = [s[0] for s in seen]
     assert states[0] == "loading" and states[-1] == "ready" and states.count("ready") == 1
-    # Before the history is committed: nothing to trip over (no users, no jobs yet).
+    # Before the people are committed: nothing to trip over (no users, no jobs yet).
     assert seen[0][2:] == (0, 0, 0)
+    # Then the people and the note that the jobs are still being written, before the
+    # logins are printed: whoever logs in at once is told.
+    assert seen[1][0] == "loading" and seen[1][2:] == (6, 0, 0)
+    assert "jobs" in seen[1][1] and "being written" in seen[1][1]
     # While certificates are issued: users and jobs are there, and the note says the
     # certificates are still coming.
     slices = [s for s in seen if "certificates" in s[1] and s[0] == "loading"]
