@@ -3,8 +3,8 @@
 On the kept bench shops (:mod:`bench_shop`, 100 000 and 1 000 jobs), as the operator,
 side by side in one run: ``/jobs`` page 1, a deep page (half-way down the list: page
 2000 of 4000 at 100 000 jobs, page 20 of 40 at 1 000) and a search by customer name
-(``/jobs?q=`` with the first word of a customer's name). Each ratio 100 k / 1 k has the
-goal ≤ 1.5.
+(``/jobs?q=`` with the first word of a customer's name). Each ratio 100 k / 1 k has its
+goal in ``GOALS``.
 """
 
 from __future__ import annotations
@@ -20,7 +20,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 import bench_shop
 
-GROWTH_GOAL = 1.5
+# The issue's goals for a deep page and a search (≤ 2×); the first page, ours (≤ 1.5×).
+GOALS = {"page1": 1.5, "deep": 2.0, "search": 2.0}
 PER_PAGE = 25
 
 
@@ -50,8 +51,8 @@ def bench_joblist(jobs: int = 100_000, small: int = 1_000, repeats: int = 5) -> 
                             **{f"{k}_s": t for k, t in times[n].items()}}
         app.extensions["shopapp.db"].dispose()
     out["ratios"] = [bench_shop.ratio(f"joblist_{k}_{jobs}_over_{small}",
-                                      times[jobs][k] / times[small][k], GROWTH_GOAL)
-                     for k in ("page1", "deep", "search")]
+                                      times[jobs][k] / times[small][k], goal)
+                     for k, goal in GOALS.items()]
     return out
 
 

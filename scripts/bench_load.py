@@ -1,8 +1,10 @@
 """``scripts/bench load``: a busy shop against a real server, side by side with its floor.
 
-Starts ``shopapp serve`` (waitress, 4 threads) on a free loopback port over a
-fresh database — SQLite in a temp folder, and PostgreSQL too when
-``SHOPAPP_BENCH_POSTGRES_URL`` names an empty database — with the invented demo
+Starts ``shopapp serve`` (waitress, 4 threads), and gunicorn with 2 workers when it is
+installed (the ``dev`` extra), on a free loopback port over a fresh database — SQLite in
+a temp folder, and PostgreSQL too when ``SHOPAPP_BENCH_POSTGRES_URL`` names an empty
+database (refused when it holds tables; emptied of the bench's tables between servers)
+— with the invented demo
 shop (a short history, no certificates). Then USERS operators, each logged in on
 its own cookie jar, run a fixed mix for a bounded time: job page, job list,
 dashboard (as owner), start page, and a run posted on their own open job. The
@@ -11,8 +13,9 @@ load settings is the floor.
 
 Prints one JSON object per backend: requests, errors (any status other than
 200/302), req/s, p50/p95/p99 in ms, runs posted vs stored (lost rows), whether
-each job's run numbers are gapless, peak RSS of the server, and the ratio
-p95(load) / median(single user) with its goal (≤ 4) and whether it is met.
+each job's run numbers are gapless, peak RSS of the server (all its processes), and the
+ratio p95(load) / median(single user) with its goal (≤ 4) and whether it is met; ``main``
+returns those ratios, the errors and the lost rows (goal 0) for ``scripts/bench all``.
 Only loopback addresses are used; every loop is bounded in count and time.
 """
 
@@ -36,8 +39,14 @@ import urllib.request
 from pathlib import Path
 from typing import Any
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+import bench_shop
+
 ROOT = Path(__file__).resolve().parent.parent
 SHOPAPP = str(ROOT / ".venv" / "bin" / "shopapp")
+GUNICORN = ROOT / ".venv" / "bin" / "gunicorn"
+SERVERS = {"waitress": "waitress, 4 threads", "gunicorn": "gunicorn, 2 sync workers"}
 USERS = int(os.environ.get("SHOPAPP_BENCH_USERS", "8"))
 SECONDS = float(os.environ.get("SHOPAPP_BENCH_SECONDS", "20"))
 MAX_REQUESTS_PER_USER = 2000
@@ -258,32 +267,46 @@ def _stored_runs(url: str, job_ids: list[int]) -> tuple[int, bool]:
 
 
 def _rss_kb(pid: int) -> int:
+    """Peak resident memory of ``pid`` and its child processes (gunicorn's workers), kB;
+    read while they still run."""
+    total = 0
     try:
         for line in Path(f"/proc/{pid}/status").read_text().splitlines():
             if line.startswith("VmHWM:"):
-                return int(line.split()[1])
-    except OSError:
-        pass
-    return 0
+                total += int(line.split()[1])
+        children = Path(f"/proc/{pid}/task/{pid}/children").read_text().split()
+    except OSError:  # the process ended: nothing left to read
+        return total
+    return total + sum(_rss_kb(int(c)) for c in children)
 
 
-def bench(backend: str, url: str) -> dict[str, Any]:
+def _start(kind: str, port: int, env: dict[str, str]) -> subprocess.Popen[bytes]:
+    if kind == "waitress":
+        cmd = [SHOPAPP, "serve", "--host", "127.0.0.1", "--port", str(port), "--threads", "4"]
+    else:
+        cmd = [str(GUNICORN), "--workers", "2", "--bind", f"127.0.0.1:{port}",
+               "shopapp:create_app()"]
+    return subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+
+
+def bench(backend: str, url: str, kind: str = "waitress") -> dict[str, Any]:
     with tempfile.TemporaryDirectory(prefix="shopapp-bench-load-") as tmp:
         instance = Path(tmp)
         env = _env(instance, url)
         _prepare(env)
         port = _free_port()
-        server = subprocess.Popen([SHOPAPP, "serve", "--host", "127.0.0.1", "--port", str(port),
-                                   "--threads", "4"], env=env, stdout=subprocess.DEVNULL,
-                                  stderr=subprocess.DEVNULL)
+        server = _start(kind, port, env)
         base = f"http://127.0.0.1:{port}"
         try:
-            for _ in range(200):
+            deadline = time.monotonic() + 120
+            while time.monotonic() < deadline:
                 try:
-                    urllib.request.urlopen(base + "/healthz", timeout=2)
+                    urllib.request.urlopen(base + "/healthz", timeout=5)
                     break
-                except (urllib.error.URLError, ConnectionError):
-                    time.sleep(0.1)
+                # Refused before the socket is bound; a read timeout while gunicorn's
+                # workers still import the app (the master accepts already).
+                except OSError:
+                    time.sleep(0.2)
             probe = Client(base)
             probe.login("bench0")
             jobs = _book_jobs(url, probe, USERS)
@@ -299,7 +322,7 @@ def bench(backend: str, url: str) -> dict[str, Any]:
     posted = single["runs_posted"] + load["runs_posted"]
     ratio = round(load["p95_ms"] / single["median_ms"], 2) if single["median_ms"] else None
     return {"load": {
-        "backend": backend, "server": "waitress, 4 threads", "users": USERS,
+        "backend": backend, "server": SERVERS[kind], "users": USERS,
         "seconds": SECONDS, "single_user": single, "under_load": load,
         "floor_healthz_median_ms": floor_ms,
         "runs_posted": posted, "runs_stored": after - before,
@@ -311,17 +334,67 @@ def bench(backend: str, url: str) -> dict[str, Any]:
     }}
 
 
-def main() -> None:
-    with tempfile.TemporaryDirectory(prefix="shopapp-bench-db-") as tmp:
-        print(json.dumps(bench("sqlite", f"sqlite:///{tmp}/bench.sqlite3")))
+def _ratios(result: dict[str, Any]) -> list[dict[str, Any]]:
+    r = result["load"]
+    name = f"load_{r['backend']}_{r['server'].split(',')[0]}"
+    errors = r["single_user"]["errors"] + r["under_load"]["errors"]
+    out = [bench_shop.ratio(f"{name}_errors", errors, 0),
+           bench_shop.ratio(f"{name}_lost_rows", r["lost_rows"], 0)]
+    if r["p95_over_single_median"] is not None:
+        out.append(bench_shop.ratio(f"{name}_p95_over_single_median",
+                                    r["p95_over_single_median"], GOAL_P95_RATIO))
+    return out
+
+
+def main() -> dict[str, Any]:
+    """Print one JSON object per backend and server; return their ratios and goals."""
+    kinds = ["waitress"] + (["gunicorn"] if GUNICORN.is_file() else [])
+    if len(kinds) == 1:
+        print(json.dumps({"load": {"server": SERVERS["gunicorn"],
+                                   "skipped": "gunicorn is not installed (pip install -e "
+                                              "'.[dev]')"}}))
+    backends = [("sqlite", None)]
     pg = os.environ.get("SHOPAPP_BENCH_POSTGRES_URL")
     if pg:
-        print(json.dumps(bench("postgresql", pg)))
+        backends.append(("postgresql", pg))
     else:
         print(json.dumps({"load": {"backend": "postgresql",
                                    "skipped": "set SHOPAPP_BENCH_POSTGRES_URL to an empty "
                                               "database to measure it"}}))
+    results = []
+    for backend, url in backends:
+        for n, kind in enumerate(kinds):
+            if url is None:
+                with tempfile.TemporaryDirectory(prefix="shopapp-bench-db-") as tmp:
+                    result = bench(backend, f"sqlite:///{tmp}/bench.sqlite3", kind)
+            else:
+                _empty(url, first=n == 0)
+                result = bench(backend, url, kind)
+            print(json.dumps(result))
+            results.append(result)
+    return {"runs": results, "ratios": [x for r in results for x in _ratios(r)]}
+
+
+def _empty(url: str, first: bool) -> None:
+    """A fresh shop for each server in the PostgreSQL bench database: before the first
+    run it must hold no table (the bench refuses to touch a database in use); between
+    runs the tables the bench created are dropped."""
+    from sqlalchemy import create_engine, inspect, text
+
+    from shopapp.models import Base
+
+    eng = create_engine(url.replace("postgresql://", "postgresql+psycopg://", 1))
+    try:
+        tables = inspect(eng).get_table_names()
+        if first and tables:
+            raise SystemExit(f"scripts/bench load: SHOPAPP_BENCH_POSTGRES_URL holds {len(tables)} "
+                             "tables; give it an empty database of its own")
+        Base.metadata.drop_all(eng)
+        with eng.begin() as conn:
+            conn.execute(text("DROP TABLE IF EXISTS alembic_version"))
+    finally:
+        eng.dispose()
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    main()
