@@ -164,7 +164,7 @@ def test_a_control_character_in_the_intake_is_refused_and_nothing_saved(
     login_as("operator")
     before = (count(db, Job), count(db, Rotor), count(db, AuditEvent))
     resp = client.post("/jobs/new", data=intake_data(rtype, machine, serial_number="A\x00B"))
-    assert resp.status_code == 400 and "serial_number" in text(resp)
+    assert resp.status_code == 422 and "Serial number contains a control character" in text(resp)
     assert (count(db, Job), count(db, Rotor), count(db, AuditEvent)) == before
 
 
