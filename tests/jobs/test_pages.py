@@ -439,6 +439,15 @@ def test_missing_job_is_404(client, login_as) -> None:
     assert client.post("/jobs/999999/runs", data={}).status_code == 404
 
 
+def test_the_job_list_answers_with_and_without_a_trailing_slash(client, login_as) -> None:
+    # Before: /jobs/ was a 404 (the other lists live at /customers/, /machines/ …).
+    login_as("operator")
+    for url in ("/jobs", "/jobs/", "/jobs/?state=received"):
+        resp = client.get(url)
+        assert resp.status_code == 200, url
+        assert "<h1>Jobs" in text(resp), url
+
+
 def test_junk_list_filters_show_a_message_not_an_error(client, login_as) -> None:
     login_as("owner")
     resp = client.get("/jobs?state=melted&machine_id=%27;drop&received_from=2026-13-45&page=x"
