@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-from flask_wtf import FlaskForm
 from wtforms import PasswordField, StringField, TextAreaField
 from wtforms.validators import DataRequired, EqualTo, InputRequired, Length
 
 from shopapp.accounts.password_rules import MAX_PASSWORD_LENGTH, MIN_PASSWORD_LENGTH
-from shopapp.core.forms import ChoiceField, NumberField, OnceForm, WholeNumberField
+from shopapp.core.forms import ChoiceField, NumberField, OnceForm, ShopForm, WholeNumberField
 from shopapp.models import ANGLE_SENSES, ROLES, UNBALANCE_DISPLAY_UNITS
 
 _PASSWORD = [
@@ -23,7 +22,7 @@ SENSE_LABELS = {
 }
 
 
-class LoginForm(FlaskForm):
+class LoginForm(ShopForm):
     username = StringField("Username", validators=[DataRequired(), Length(max=64)])
     password = PasswordField("Password", validators=[DataRequired(), Length(max=200)])
 
@@ -40,18 +39,18 @@ class AddUserForm(OnceForm):
     )
 
 
-class RoleForm(FlaskForm):
+class RoleForm(ShopForm):
     role = ChoiceField("Role", choices=ROLE_CHOICES)
 
 
-class PasswordForm(FlaskForm):
+class PasswordForm(ShopForm):
     password = PasswordField("New password", validators=_PASSWORD)
     password_again = PasswordField(
         "New password again", validators=[InputRequired("Type it again."), _SAME]
     )
 
 
-class OwnPasswordForm(FlaskForm):
+class OwnPasswordForm(ShopForm):
     current_password = PasswordField(
         "Current password", validators=[InputRequired("Type your current password."),
                                         Length(max=MAX_PASSWORD_LENGTH)]
@@ -62,7 +61,7 @@ class OwnPasswordForm(FlaskForm):
     )
 
 
-class SettingsForm(FlaskForm):
+class SettingsForm(ShopForm):
     shop_name = StringField(
         "Shop name", validators=[InputRequired("Give the shop's name."), Length(max=200)]
     )

@@ -9,21 +9,20 @@ from __future__ import annotations
 from typing import Any
 
 from flask import Blueprint, flash, redirect, render_template, request, url_for
-from flask_wtf import FlaskForm
 from wtforms import StringField
 from wtforms.validators import InputRequired, Length
 
 from shopapp.accounts import api_tokens
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
-from shopapp.core.forms import ConfirmForm, apply_errors
+from shopapp.core.forms import ConfirmForm, ShopForm, apply_errors
 from shopapp.core.web import acting_user, get_or_404, requires
 from shopapp.models import ApiToken, User
 
 bp = Blueprint("api_tokens", __name__, template_folder="templates")
 
 
-class TokenForm(FlaskForm):
+class TokenForm(ShopForm):
     name = StringField("What the token is for", validators=[
         InputRequired("Name the token (e.g. the script that uses it)."), Length(max=100)])
 

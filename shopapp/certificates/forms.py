@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import datetime as dt
 
-from flask_wtf import FlaskForm
 from flask_wtf.file import FileField, FileRequired
 from wtforms import SelectField, StringField, TextAreaField
 from wtforms.fields.choices import SelectChoice
@@ -13,14 +12,14 @@ from wtforms.validators import DataRequired, Length, Optional, ValidationError
 from shopapp.certificates.issue import MAX_REASON_LENGTH, MIN_REASON_LENGTH
 from shopapp.certificates.register import RegisterFilter
 from shopapp.core.checks import QUERY_AHEAD_DAYS
-from shopapp.core.forms import DayField
+from shopapp.core.forms import DayField, ShopForm
 
 
-class IssueForm(FlaskForm):
+class IssueForm(ShopForm):
     """Only the CSRF token: issuing takes no input, the job is in the URL."""
 
 
-class ReasonForm(FlaskForm):
+class ReasonForm(ShopForm):
     """Why a certificate is reissued or voided (required)."""
 
     reason = TextAreaField(
@@ -31,7 +30,7 @@ class ReasonForm(FlaskForm):
     )
 
 
-class _GetForm(FlaskForm):
+class _GetForm(ShopForm):
     """A read-only search form sent by GET: no CSRF token (nothing is changed)."""
 
     class Meta:
@@ -101,7 +100,7 @@ class HashForm(_GetForm):
                                 Length(max=100)])
 
 
-class UploadForm(FlaskForm):
+class UploadForm(ShopForm):
     """A certificate PDF to check (POST, CSRF-protected)."""
 
     file = FileField("Certificate PDF", validators=[FileRequired(message="choose the PDF file")])

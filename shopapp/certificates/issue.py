@@ -529,8 +529,7 @@ def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None
     if earlier:
         # Certified again after rework: the next revision of the job's number.
         number, revision = earlier[0].number, earlier[0].revision + 1
-        reason = (f"issued again after the job was reopened; revision {earlier[0].revision} "
-                  "was voided")
+        reason = certificate_link.reissue_reason(earlier[0])
     else:
         number, revision, reason = next_number(session, issued_at.year), 1, ""
     key = _signer(session, signing_dir, by)
@@ -586,7 +585,8 @@ def reissue(session: Session, certificate: Certificate, *, by: User, reason: str
                       verify_url=verify_url(base, certificate.number, code),
                       signed_by=key.info.subject if key else "")
     if certificate.state == "issued":
-        _void(session, certificate, by=by, reason=f"superseded by revision {revision}", at=at)
+        _void(session, certificate, by=by, reason=certificate_link.superseded_reason(revision),
+              at=at)
     cert = _store(session, data, job, by=by, issued_at=issued_at, key=key)
     _audit(session, by=by, entity_id=cert.id, action="reissue", before=_summary(certificate),
            after=_summary(cert), job_id=job.id, at=at)

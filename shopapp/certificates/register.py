@@ -41,6 +41,7 @@ from shopapp.certificates.queries import (
 )
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.pagination import Page, paginate
+from shopapp.jobs.certificate_link import superseded_reason
 from shopapp.models import Certificate, Customer, Job, Rotor, RotorType
 from shopapp.reports import certificate as report
 
@@ -93,15 +94,18 @@ class Verification:
         if self.status == "superseded":
             return (f"{head} is void: superseded by revision {self.latest_revision} "
                     f"(voided {self.voided_on}). Ask for the current revision.")
-        return f"{head} is void since {self.voided_on}: {self.void_reason}"
+        later = (f" A later revision ({self.latest_revision}) exists; ask for it."
+                 if self.latest_revision and self.revision and self.latest_revision > self.revision
+                 else "")
+        return f"{head} is void since {self.voided_on}: {self.void_reason.rstrip('.')}.{later}"
 
 
 def _answer(session: Session, query: str, cert: Certificate, matched_by: str) -> Verification:
     latest = latest_revision(session, cert.number) or cert.revision
     if cert.state == "issued":
         status = "valid"
-    elif latest > cert.revision:
-        status = "superseded"
+    elif latest > cert.revision and cert.void_reason == superseded_reason(cert.revision + 1):
+        status = "superseded"  # replaced by a reissue; voided on its own, it says why below
     else:
         status = "void"
     data = certificate_data(cert)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import re
 from typing import Any
 
 from shopapp.balancing.numtext import short
@@ -64,6 +65,12 @@ def number(e: Errors, field: str, value: Any, *, required: bool = True,
     else:
         return out
     return None
+
+
+#: Control characters (C0 and C1) a typed form value may not hold; tab, carriage return
+#: and newline are allowed in form text. Checked by the request guard and every form.
+FORM_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
+CONTROL_REFUSAL = "contains a control character (such as NUL); type plain text and try again"
 
 
 def text(e: Errors, field: str, value: Any, *, max_len: int = MAX_TEXT,

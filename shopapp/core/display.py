@@ -79,6 +79,14 @@ def plain(value: Any) -> str:
     return "" if v is None else number(v, 6, trim=True)
 
 
+def typed(value: Any, unit: str) -> str:
+    """A quantity typed back into a form field with the figures the pages show it with
+    (:data:`SIGNIFICANT_FIGURES`), trailing zeros dropped: a prefill the person reads as
+    the advice shown beside it, not six figures of arithmetic (``8.346…`` g is ``8.35``)."""
+    v = _finite(value)
+    return "" if v is None else number(v, SIGNIFICANT_FIGURES.get(unit, 6), trim=True)
+
+
 def quantity(value: Any, unit: str) -> str:
     """``value unit`` with the figures the unit calls for (``12.3 g·mm``, ``1480 rpm``, ``45°``)."""
     if unit in FIXED_DECIMALS:

@@ -28,7 +28,7 @@ from wtforms.validators import ValidationError
 from wtforms.widgets import TextInput
 
 from shopapp.balancing.numtext import short
-from shopapp.core.checks import day_refusal
+from shopapp.core.checks import CONTROL_REFUSAL, FORM_CONTROL, day_refusal
 from shopapp.core.errors import ValidationFailed
 from shopapp.models import Base
 
@@ -204,6 +204,20 @@ class ChoiceField(SelectField):
         super().pre_validate(form)
 
 
+class ShopForm(FlaskForm):
+    """The base of every form: a field whose typed value holds a control character is
+    refused beside it, with what was typed kept in the form. The request guard lets such
+    a post reach its view for this (and stops any write, :mod:`shopapp.web.guards`)."""
+
+    def validate(self, extra_validators: Any = None) -> bool:
+        valid = super().validate(extra_validators)
+        for field in self:
+            if any(isinstance(v, str) and FORM_CONTROL.search(v) for v in field.raw_data or ()):
+                field.errors = [*field.errors, f"{field.label.text} {CONTROL_REFUSAL}."]
+                valid = False
+        return valid
+
+
 def apply_errors(form: FlaskForm, exc: ValidationFailed,
                  mapping: dict[str, Any] | None = None) -> list[str]:
     """Put a use-case's field messages beside the form's fields (the one error mapper).
@@ -241,7 +255,7 @@ class FormTokenField(HiddenField):
         self.data = str(valuelist[0]) if valuelist else None
 
 
-class OnceForm(FlaskForm):
+class OnceForm(ShopForm):
     """A create form: it carries a one-time token, issued when the form is drawn.
 
     The token is spent in the transaction that saves what the form creates
@@ -253,7 +267,7 @@ class OnceForm(FlaskForm):
     form_token = FormTokenField(default=new_form_token)
 
 
-class ConfirmForm(FlaskForm):
+class ConfirmForm(ShopForm):
     """An empty form: a POST button with its CSRF token (archive, unarchive, confirm)."""
 
 

@@ -39,6 +39,23 @@ class Page(Generic[T]):
             return max(known, self.number + (1 if self.next_exists else 0))
         return known
 
+    def links(self, around: int = 2) -> list[int | None]:
+        """The page numbers the pager shows: the first, ``around`` either side of this
+        one and the last when it is known; None marks a gap (drawn "…"). When the count
+        stopped (``more``) the list ends in a gap: the last page is not known."""
+        last = self.pages
+        shown = {1, *range(max(1, self.number - around), min(last, self.number + around) + 1)}
+        if not self.more:
+            shown.add(last)
+        out: list[int | None] = []
+        for n in sorted(shown):
+            if out and n - (out[-1] or 0) > 1:
+                out.append(None)
+            out.append(n)
+        if self.more:
+            out.append(None)
+        return out
+
     @property
     def has_prev(self) -> bool:
         return self.number > 1

@@ -2,15 +2,14 @@
 
 from __future__ import annotations
 
-from flask_wtf import FlaskForm
 from flask_wtf.file import FileField, FileRequired
 from wtforms import HiddenField
 from wtforms.validators import DataRequired, Length, Regexp
 
-from shopapp.core.forms import ChoiceField, OnceForm
+from shopapp.core.forms import ChoiceField, OnceForm, ShopForm
 
 
-class UploadForm(FlaskForm):
+class UploadForm(ShopForm):
     """Which kind of file, and the file: shows the preview, writes nothing."""
 
     kind = ChoiceField("Kind", validators=[DataRequired(message="choose what the file holds")])

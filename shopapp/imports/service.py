@@ -95,9 +95,10 @@ class ImportReport:
         return [r for r in self.rows if r.action == "refused"]
 
     def summary(self) -> str:
-        """``12 rows: 10 create, 1 update, 1 unchanged, 0 refused``."""
+        """``12 rows: 10 create, 1 update, 1 unchanged, 0 refused`` (``1 row: …``)."""
         counts = ", ".join(f"{self.count(a)} {a}" for a in ACTIONS)
-        return f"{len(self.rows)} rows: {counts}"
+        n = len(self.rows)
+        return f"{n} row{'' if n == 1 else 's'}: {counts}"
 
 
 class ImportRefused(ServiceError):
@@ -108,7 +109,8 @@ class ImportRefused(ServiceError):
     def __init__(self, report: ImportReport) -> None:
         n = len(report.refused)
         first = report.refused[0].message if report.refused else ""
-        super().__init__(f"nothing imported: {n} of {len(report.rows)} rows refused "
+        rows = len(report.rows)
+        super().__init__(f"nothing imported: {n} of {rows} row{'' if rows == 1 else 's'} refused "
                          f"(first: {first})")
         self.report = report
 
@@ -208,8 +210,9 @@ def _run(session: Session, by: User, spec: Kind, sheet: Sheet, batch: ImportBatc
         key_columns = spec.key
         if spec.alt_key and not any((values.get(c) or "").strip() for c in key_columns):
             key_columns = spec.alt_key
-        key_cells = tuple((values.get(c) or "").strip().lower() for c in key_columns)
-        key = " / ".join(v for v in key_cells if v)[:120] or "(no key)"
+        typed = tuple((values.get(c) or "").strip() for c in key_columns)
+        key_cells = tuple(v.lower() for v in typed)  # duplicates differ in case only
+        key = " / ".join(v for v in typed if v)[:120] or "(no key)"  # shown as typed
         note = _formula_note(spec, values)
         if row.problem is not None:
             report.rows.append(RowResult(row.line, key, "refused", "", row.problem))

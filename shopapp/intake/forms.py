@@ -4,12 +4,11 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask_wtf import FlaskForm
 from flask_wtf.file import FileField
 from wtforms import HiddenField, StringField, SubmitField
 from wtforms.validators import Length, Optional, Regexp
 
-from shopapp.core.forms import AngleField, ChoiceField, OnceForm, WholeNumberField
+from shopapp.core.forms import AngleField, ChoiceField, OnceForm, ShopForm, WholeNumberField
 from shopapp.intake.files import FIELDS
 from shopapp.jobs.forms import UNIT_LABELS
 from shopapp.models import READING_UNITS
@@ -25,7 +24,7 @@ FIELD_LABELS: dict[str, str] = {
 }
 
 
-class UploadForm(FlaskForm):
+class UploadForm(ShopForm):
     """A run file to preview (nothing is written)."""
 
     file = FileField("Run file (CSV or JSON)")
@@ -42,7 +41,7 @@ class ConfirmImportForm(OnceForm):
     job_id = HiddenField()
 
 
-class MappingForm(FlaskForm):
+class MappingForm(ShopForm):
     """A machine's export layout and which of its columns holds which of our fields."""
 
     sample = FileField("Sample export (CSV)")

@@ -17,7 +17,7 @@ import numpy as np
 from shopapp.balancing import positions, removal
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.phasors import amplitude_angle, normalize_deg, phasor
-from shopapp.core.display import plain
+from shopapp.core.display import plain, typed
 from shopapp.models import Correction, RotorType
 
 DEFAULT_DRILL_DIAMETER_MM = 10.0  # shown drill depth uses this unless the operator picks one
@@ -82,7 +82,7 @@ class PlaneAdvice:
         parts = self.record_parts()
         if any(pos is None for pos, _, _ in parts):
             return ""
-        return ", ".join(f"{pos}:{plain(m)}" for pos, _, m in parts)
+        return ", ".join(f"{pos}:{typed(m, 'g')}" for pos, _, m in parts)
 
 
 @dataclass(frozen=True)

@@ -20,6 +20,24 @@ from shopapp.core import audit
 from shopapp.core.errors import TransitionRefused
 from shopapp.models import Certificate, Job, User, utcnow
 
+#: How a certificate voided by reopening its job begins its void reason.
+REOPENED_PREFIX = "job reopened: "
+
+
+def superseded_reason(revision: int) -> str:
+    """The void reason of a revision that a reissue replaced with ``revision``."""
+    return f"superseded by revision {revision}"
+
+
+def reissue_reason(prior: Certificate) -> str:
+    """The printed reason of a job's next revision issued after ``prior`` (the latest,
+    void) was voided: by reopening the job, or voided alone from the queue."""
+    why = prior.void_reason
+    if why.startswith(REOPENED_PREFIX):
+        return (f"issued again after the job was reopened ({why.removeprefix(REOPENED_PREFIX)}); "
+                f"revision {prior.revision} was voided")
+    return f"issued again after revision {prior.revision} was voided: {why}"
+
 
 def now_whole_seconds() -> dt.datetime:
     """Now in UTC, whole seconds: issue times are printed and hashed and must read back."""
@@ -82,5 +100,5 @@ def void_for_reopen(session: Session, job: Job, *, by: User, reason: str) -> Cer
     if cert is None:
         return None
     text = (reason or "").strip() or "no reason given"
-    void_certificate(session, cert, by=by, reason=f"job reopened: {text}")
+    void_certificate(session, cert, by=by, reason=f"{REOPENED_PREFIX}{text}")
     return cert

@@ -9,7 +9,6 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask_wtf import FlaskForm
 from wtforms import (
     BooleanField,
     FormField,
@@ -25,7 +24,14 @@ from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core import forms
 from shopapp.core.checks import PROMISE_AHEAD_DAYS, plain_digits
 from shopapp.core.display import plain
-from shopapp.core.forms import AngleField, DayField, NumberField, OnceForm, WholeNumberField
+from shopapp.core.forms import (
+    AngleField,
+    DayField,
+    NumberField,
+    OnceForm,
+    ShopForm,
+    WholeNumberField,
+)
 from shopapp.models import CORRECTION_METHODS, READING_UNITS, ROTOR_KINDS, RUN_PURPOSES
 
 _NUMBER = "Required: type a number."
@@ -63,7 +69,7 @@ TOLERANCE_CHOICES = [
 ]
 
 
-class OneOffForm(FlaskForm):
+class OneOffForm(ShopForm):
     """Geometry of a one-off rotor (no part number); the registry checks the rules."""
 
     class Meta:
@@ -140,7 +146,7 @@ class IntakeForm(OnceForm):
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
 
 
-class LookupForm(FlaskForm):
+class LookupForm(ShopForm):
     """GET form: find a serial's history before booking in (works without JavaScript)."""
 
     class Meta:
@@ -199,7 +205,7 @@ class CorrectionForm(OnceForm):
                                          default="")
 
 
-class DrillForm(FlaskForm):
+class DrillForm(ShopForm):
     """The drill diameter the advice's depths are computed for (a GET form)."""
 
     class Meta:
@@ -211,7 +217,7 @@ class DrillForm(FlaskForm):
                                         f"{short(MAX_DRILL_MM)} mm.")])
 
 
-class StrikeForm(FlaskForm):
+class StrikeForm(ShopForm):
     """Strike a mistaken run out of the calculations (it stays in the log)."""
 
     reason = TextAreaField("Why is this run struck out?",
@@ -219,7 +225,7 @@ class StrikeForm(FlaskForm):
                                        Length(max=500)])
 
 
-class StateForm(FlaskForm):
+class StateForm(ShopForm):
     action = HiddenField()
     reason = TextAreaField("Reason", validators=[Length(max=5000)])
     dispatched_on = DayField("Dispatched on", validators=[Optional()])

@@ -52,7 +52,9 @@ PAST_TENSE = {"add": "added", "remove": "removed"}
 # --------------------------------------------------------------------------- list
 
 
-@bp.get("")
+# "/jobs" and "/jobs/" both: the other lists live at "/customers/", "/machines/" …,
+# so a typed or edited address with the slash must not be a 404.
+@bp.get("", strict_slashes=False)
 @requires("read")
 def index():  # type: ignore[no-untyped-def]
     sess = db_session()

@@ -5,13 +5,12 @@ from __future__ import annotations
 import datetime as dt
 from typing import Any
 
-from flask_wtf import FlaskForm
 from wtforms import HiddenField, SelectField
 from wtforms.fields.choices import SelectChoice
 from wtforms.validators import Optional
 
 from shopapp.core.checks import QUERY_AHEAD_DAYS, plain_digits
-from shopapp.core.forms import DayField
+from shopapp.core.forms import DayField, ShopForm
 from shopapp.measures.periods import Period, Scope
 
 # Longest custom range, so one request cannot ask for decades of work.
@@ -19,7 +18,7 @@ MAX_CUSTOM_DAYS = 3 * 366
 SCOPE_FIELDS = ("operator_id", "machine_id", "rotor_type_id", "customer_id")
 
 
-class PeriodForm(FlaskForm):
+class PeriodForm(ShopForm):
     class Meta:
         csrf = False  # a GET filter form; it changes nothing
 

@@ -81,6 +81,21 @@ class Period:
             return f"week {iso.week} of {iso.year}"
         return f"{self.start.isoformat()} – {self.end.isoformat()}"
 
+    @property
+    def slug(self) -> str:
+        """The period in a file name, as its label says it: ``2026-10``, ``2026-Q4``,
+        ``2026``, ``2026-W40`` (ISO week), ``2026-10-01-to-2026-10-15``."""
+        if self.kind == "month":
+            return f"{self.start:%Y-%m}"
+        if self.kind == "year":
+            return str(self.start.year)
+        if self.kind == "quarter":
+            return f"{self.start.year}-Q{(self.start.month - 1) // 3 + 1}"
+        if self.kind == "week":
+            iso = self.start.isocalendar()
+            return f"{iso.year}-W{iso.week:02d}"
+        return f"{self.start.isoformat()}-to-{self.end.isoformat()}"
+
     def previous(self) -> Period:
         """The period of the same kind just before this one (custom: same length)."""
         if self.kind in ("week", "month", "quarter", "year"):

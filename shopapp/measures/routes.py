@@ -274,7 +274,12 @@ def csv_download():  # type: ignore[no-untyped-def]
         raise ValidationFailed(field_name, "; ".join(str(e) for e in errors))
     report = _report(period, scope)
     header, rows = table_for(report, table, names)
-    name = f"shop-{table}-{period.start.isoformat()}-{period.end.isoformat()}.csv"
+    # Named by the period the figures cover, as the dashboard labels it; a period still
+    # running says the day its figures reach (a name ending in the period's last day
+    # read like a download date, or like figures not yet there).
+    today = _today()
+    upto = f"-so-far-{today.isoformat()}" if period.in_progress(today) else ""
+    name = f"shop-{table}-{period.slug}{upto}.csv"
     return Response(_csv(header, rows), mimetype="text/csv",
                     headers={"Content-Disposition": f'attachment; filename="{name}"'})
 

@@ -9,14 +9,20 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask_wtf import FlaskForm
 from wtforms import BooleanField, StringField, TextAreaField
 from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.removal import DENSITIES
 from shopapp.balancing.tolerance import GRADE_VALUES_MM_S
 from shopapp.core.display import plain
-from shopapp.core.forms import ChoiceField, NumberField, NumberListField, OnceForm, WholeNumberField
+from shopapp.core.forms import (
+    ChoiceField,
+    NumberField,
+    NumberListField,
+    OnceForm,
+    ShopForm,
+    WholeNumberField,
+)
 from shopapp.models import (
     BEARING_KINDS,
     CORRECTION_METHODS,
@@ -119,7 +125,7 @@ ROTATION_LABELS = {"cw": "clockwise (seen from the datum end)", "ccw": "counter-
 KEY_LABELS = {"none": "no key", "half_key": "half key", "full_key": "full key"}
 
 
-class GeometryForm(FlaskForm):
+class GeometryForm(ShopForm):
     """The fields every rotor geometry has (rotor types and one-off rotors)."""
 
     kind = ChoiceField("Kind", choices=_choices(ROTOR_KINDS), default="other")

@@ -12,11 +12,17 @@ from __future__ import annotations
 import math
 import re
 
-from flask_wtf import FlaskForm
 from wtforms import StringField, TextAreaField
 from wtforms.validators import Length, Optional
 
-from shopapp.core.forms import ChoiceField, DayField, NumberField, OnceForm, WholeNumberField
+from shopapp.core.forms import (
+    ChoiceField,
+    DayField,
+    NumberField,
+    OnceForm,
+    ShopForm,
+    WholeNumberField,
+)
 from shopapp.models import MEASURED_QUANTITIES, RUNUP_UNITS
 from shopapp.resonance.runups import MAX_POINTS, PointIn
 
@@ -107,7 +113,7 @@ class RunUpForm(OnceForm):
         return points
 
 
-class LooseMassForm(FlaskForm):
+class LooseMassForm(ShopForm):
     """The calculator's inputs; sent as a GET (it stores nothing), so no CSRF token."""
 
     class Meta:

@@ -13,7 +13,6 @@ import math
 from collections.abc import Callable
 from typing import Any
 
-from flask_wtf import FlaskForm
 from wtforms import (
     BooleanField,
     FieldList,
@@ -30,7 +29,7 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.arbor import FRAMES
 from shopapp.core.display import ShopDisplay, plain
-from shopapp.core.forms import DayField, OnceForm
+from shopapp.core.forms import DayField, OnceForm, ShopForm
 from shopapp.models import KEY_CONVENTIONS, READING_UNITS, RESIDUAL_TEST_POSITIONS
 
 KEY_DIMENSIONS = ("key_width_mm", "key_height_mm", "key_length_mm", "hub_length_mm",
@@ -193,15 +192,15 @@ class IndexRunsForm(OnceForm):
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
 
 
-class JobArborForm(FlaskForm):
+class JobArborForm(ShopForm):
     arbor_id = SelectField("Arbor", coerce=int)
 
 
-class SubtractForm(FlaskForm):
+class SubtractForm(ShopForm):
     measurement_id = SelectField("Subtract the arbor error", coerce=int)
 
 
-class RequiredForm(FlaskForm):
+class RequiredForm(ShopForm):
     required = HiddenField()
 
 
@@ -226,7 +225,7 @@ class ErrorRunsForm(OnceForm):
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
 
 
-class KeyForm(FlaskForm):
+class KeyForm(ShopForm):
     key_convention = SelectField("Key convention",
                                  choices=options([(k, KEY_LABELS[k]) for k in KEY_CONVENTIONS]))
     key_width_mm = StringField("Key width b, mm")

@@ -4,10 +4,14 @@
   ``integer``), so ``/jobs/99999999999999999999`` is a plain 404, never a
   database overflow.
 - Query and form values may not carry control characters (NUL and the other
-  C0/C1 codes; tab, carriage return and newline are allowed in form text). A
-  value with one is refused with a 400 page that names the field; nothing is
-  stored. This is the one place for it, so every search box and text field is
-  covered, logged in or not.
+  C0/C1 codes; tab, carriage return and newline are allowed in form text).
+  A query string with one, or an API post, is refused with a 400 that names
+  the field. A page's form post reaches its view, so the form is drawn again
+  with what was typed and the refusal beside the field (every form is a
+  :class:`~shopapp.core.forms.ShopForm`); the request cannot write: a flush
+  during it raises the same 400 (a view that saved without its form, or a
+  control character in a value no form field reads). This is the one place for
+  it, so every search box and text field is covered, logged in or not.
 """
 
 from __future__ import annotations
@@ -15,13 +19,16 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from flask import Flask, abort, request
+from flask import Flask, abort, g, has_request_context, request
+from sqlalchemy import event
+from sqlalchemy.orm import Session
+from werkzeug.exceptions import BadRequest
 from werkzeug.routing import IntegerConverter
 
+from shopapp.core.checks import FORM_CONTROL
 from shopapp.core.web import MAX_ID
 
 _QUERY_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
-_FORM_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
 
 
 def up_to_pattern(limit: int) -> str:
@@ -60,16 +67,34 @@ def _first_bad(values: Any, pattern: re.Pattern[str]) -> str | None:
     return None
 
 
+def _refusal(field: str) -> str:
+    shown = _QUERY_CONTROL.sub("?", field)[:40]
+    return (f"The field {shown!r} contains a control character (such as NUL); type plain "
+            "text and try again.")
+
+
+def _no_write_with_control_characters(session: Session, *_: Any) -> None:
+    """before_flush: a form post holding a control character writes nothing."""
+    if has_request_context() and "control_character_field" in g:
+        raise BadRequest(description=_refusal(g.control_character_field))
+
+
 def register_guards(app: Flask) -> None:
     """Install the bounded id converter and the control-character check."""
     app.url_map.converters["int"] = BoundedId
+    if not event.contains(Session, "before_flush", _no_write_with_control_characters):
+        event.listen(Session, "before_flush", _no_write_with_control_characters)
 
     @app.before_request
     def _refuse_control_characters() -> None:
         bad = _first_bad(request.args, _QUERY_CONTROL)
-        if bad is None and request.method in ("POST", "PUT", "PATCH") and not request.is_json:
-            bad = _first_bad(request.form, _FORM_CONTROL)
         if bad is not None:
-            shown = _QUERY_CONTROL.sub("?", bad)[:40]
-            abort(400, description=f"The field {shown!r} contains a control character "
-                                   "(such as NUL); type plain text and try again.")
+            abort(400, description=_refusal(bad))
+        if request.method in ("POST", "PUT", "PATCH") and not request.is_json:
+            bad = _first_bad(request.form, FORM_CONTROL)
+            if bad is None:
+                return
+            if "api" in request.blueprints:  # the JSON API answers 400 with the field named
+                abort(400, description=_refusal(bad))
+            # The view draws its form again with the refusal beside the field.
+            g.control_character_field = bad

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import re
+from pathlib import Path
+
 import pytest
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
@@ -156,6 +159,25 @@ def test_settings_page_shows_defaults_and_sample_without_writing(client, login_a
     text = page.get_data(as_text=True)
     assert "J{year}-{seq:05d}" in text and "J2026-00042" in text
     assert db.get(ShopSettings, 1) is None  # a GET writes nothing
+
+
+def test_settings_page_script_is_a_static_file_the_csp_allows(client, login_as):
+    # Before: an inline <script> the page's CSP (script-src 'self') blocked.
+    login_as("admin")
+    resp = client.get("/admin/settings")
+    scripts = re.findall(r"<script\b[^>]*>", resp.get_data(as_text=True))
+    assert scripts and all(" src=" in tag for tag in scripts)
+    assert "unsafe-inline" not in resp.headers["Content-Security-Policy"].split("script-src")[-1]
+    js = client.get("/static/settings.js")
+    assert js.status_code == 200 and b"job_number_pattern" in js.data and b"sampleUrl" in js.data
+    js.close()
+
+
+def test_no_template_holds_an_inline_script() -> None:
+    # The CSP refuses inline scripts, so one in a template is dead code on the page.
+    inline = [str(p) for p in (Path(__file__).resolve().parents[2] / "shopapp").rglob("*.html")
+              if re.search(r"<script\b(?![^>]*\bsrc=)[^>]*>", p.read_text(encoding="utf-8"))]
+    assert inline == []
 
 
 def test_settings_save(client, login_as, db):

@@ -219,7 +219,29 @@ def test_reopen_voids_and_a_new_issue_is_the_next_revision(db, shop, people) -> 
     mark_in_tolerance(db, job, by=operator)
     again = certificates.issue(db, job, by=quality)
     assert (again.number, again.revision) == (first.number, 2)
-    assert register.verify(db, first.data_sha256).status == "superseded"
+    assert again.reason == ("issued again after the job was reopened (customer reports "
+                            "vibration at site); revision 1 was voided")
+    v = register.verify(db, first.data_sha256)
+    assert v.status == "void"
+    assert "job reopened: customer reports vibration at site" in v.message
+    assert "A later revision (2) exists" in v.message
+
+
+def test_voided_from_the_queue_then_issued_again_says_so(db, shop, people) -> None:
+    # Before: revision 1 read "superseded by revision 2" on /verify, not its void reason,
+    # and revision 2 printed "issued again after the job was reopened".
+    operator, quality = people
+    job = job_ready_for_certificate(db, shop, operator)
+    first = certificates.issue(db, job, by=quality)
+    certificates.void(db, first, by=quality, reason="wrong customer order on it")
+    again = certificates.issue(db, job, by=quality)
+    assert again.revision == 2
+    assert again.reason == "issued again after revision 1 was voided: wrong customer order on it"
+    printed = " ".join(_pdf_text(again.pdf).split())  # the PDF wraps the sentence
+    assert "Reason: issued again after revision 1 was voided: wrong customer order" in printed
+    v = register.check(db, first.number, first.verification_code)
+    assert v.status == "void" and v.void_reason == "wrong customer order on it"
+    assert "superseded" not in v.message and "A later revision (2) exists" in v.message
 
 
 def test_issue_twice_is_refused(db, shop, people) -> None:

@@ -99,6 +99,18 @@ def test_superseded_and_void_with_the_code(client, app, db, cert, make_user) -> 
     assert "Genuine, void" in page and "rotor scrapped by the customer" in page
 
 
+def test_a_voided_revision_shows_its_reason_though_a_later_one_exists(
+        client, db, cert, make_user) -> None:
+    # Before: "superseded by revision 2" for a revision voided on its own and issued again.
+    quality = make_user("quality")
+    certificates.void(db, cert, by=quality, reason="rotor serial misread")
+    certificates.issue(db, cert.job, by=quality)
+    db.commit()
+    _, page = _get(client, n=cert.number, c=cert.verification_code)
+    assert "Genuine, void" in page and "rotor serial misread" in page
+    assert "superseded" not in page
+
+
 def test_bad_input_names_the_field_never_a_500(client, cert) -> None:
     status, page = _get(client, n="", c=cert.verification_code)
     assert status == 422 and "enter the certificate number" in page

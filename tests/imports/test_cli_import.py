@@ -39,7 +39,7 @@ def test_template_dry_run_then_apply(cli) -> None:
     dry = cli("import", "customers", str(DATA / "customers.csv"), "--user", "ines",
               "--dry-run")
     assert dry.exit_code == 0, dry.output
-    assert "line 2 (brackwater pumps (invented)): create" in dry.output
+    assert "line 2 (Brackwater Pumps (invented)): create" in dry.output
     assert "nothing written: 2 rows: 2 create" in dry.output
     real = cli("import", "customers", str(DATA / "customers.csv"), "--user", "ines")
     assert real.exit_code == 0, real.output
@@ -57,7 +57,7 @@ def test_a_refused_row_prints_its_reason_and_exits_1(cli) -> None:
     cli("import", "rotor-types", str(DATA / "rotor-types.csv"), "--user", "ines")
     result = cli("import", "rotors", str(DATA / "bad_truncated_rotors.csv"), "--user", "ines")
     assert result.exit_code == 1
-    assert "line 3 (brackwater pumps (invented) / bw-2002): refused" in result.output
+    assert "line 3 (Brackwater Pumps (invented) / BW-2002): refused" in result.output
     assert "nothing imported from bad_truncated_rotors.csv" in result.output
     listed = cli("import", "rotors", str(DATA / "rotors.csv"), "--user", "ines", "--dry-run")
     assert "3 rows: 3 create" in listed.output  # the refused file left nothing behind

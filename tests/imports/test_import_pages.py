@@ -43,6 +43,17 @@ def test_template_download(client, login_as) -> None:
         "customer,serial_number,part_number,notes")
 
 
+def test_preview_shows_names_as_typed_and_one_row_in_the_singular(client, login_as) -> None:
+    # Before: "invented pumps ltd" (the duplicate check's lower case) and "1 rows".
+    login_as("operator")
+    body = b"name,contact\nInvented Pumps Ltd,J. Invented\n"
+    page = upload(client, "/imports/registry", "customers", "one.csv", body)
+    text = page.get_data(as_text=True)
+    assert page.status_code == 200, text[:800]
+    assert "<td>Invented Pumps Ltd</td>" in text and "invented pumps ltd" not in text
+    assert "1 row: 1 create, 0 update, 0 unchanged, 0 refused" in text
+
+
 def test_preview_writes_nothing_and_confirm_applies_once(client, login_as, db) -> None:
     login_as("operator")
     page = upload(client, "/imports/registry", "customers", "customers.csv")

@@ -122,6 +122,19 @@ def test_record_form_defaults_to_the_fitted_stock_split(client, login_as, db, sh
     assert calc.advice.predicted_residual_gmm[0] == pytest.approx(abs(miss) * R)
 
 
+def test_the_split_is_prefilled_with_the_figures_the_advice_shows(client, login_as, db, shop,
+                                                                   machine) -> None:
+    # Before: "3:15.6123, 4:8.34567" (six significant figures of arithmetic) beside an
+    # advice that reads 15.6 g and 8.35 g. No stock weights, so the split is not rounded.
+    user = login_as("operator")
+    rt = single_plane(shop, positions_1=8, first_position_1_deg=0.0, stock_weights_g=None)
+    job = book(db, user, rt, machine)
+    run(db, user, job, "initial", -(_v(15.6123, 90.0) + _v(8.34567, 135.0)) * R)
+    body = text(client.get(f"/jobs/{job.id}"))
+    assert input_value(body, "c1-split") == "3:15.6, 4:8.35"
+    assert "15.6 g at position 3" in body and "8.35 g at position 4" in body
+
+
 def test_flash_says_removed_not_removeed(client, login_as, db, shop, machine) -> None:
     user = login_as("operator")
     rt = single_plane(shop, method_1="remove", density_g_cm3=7.85)

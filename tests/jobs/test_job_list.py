@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import datetime as dt
 
-from shopapp.core.pagination import paginate_ids
+from shopapp.core.pagination import Page, paginate_ids
 from shopapp.jobs.queries import JobFilter, job_page
 from shopapp.models import Job
 
@@ -55,3 +55,29 @@ def test_job_page_searches_serials_customers_and_numbers_with_digits(db, shop) -
     # "T-" is the fixed part of every test job number: without a digit it is no search
     # by number, so it finds only serials or customers holding it.
     assert ids(q="T-") == []
+
+
+def test_pager_numbers_are_first_a_window_and_the_last_when_known() -> None:
+    def links(number: int, total: int, more: bool = False, next_exists: bool = False):  # type: ignore[no-untyped-def]
+        return Page(items=[], total=total, number=number, per_page=10, more=more,
+                    next_exists=next_exists).links()
+
+    assert links(1, 30) == [1, 2, 3]
+    assert links(6, 200) == [1, None, 4, 5, 6, 7, 8, None, 20]
+    assert links(19, 200) == [1, None, 17, 18, 19, 20]
+    assert links(4, 200) == [1, 2, 3, 4, 5, 6, None, 20]
+    # The count stopped at 50 rows (5 pages known): no last page, a gap says more follow.
+    assert links(7, 50, more=True, next_exists=True) == [1, None, 5, 6, 7, 8, None]
+
+
+def test_the_job_list_links_page_numbers(client, login_as, app, shop) -> None:  # type: ignore[no-untyped-def]
+    # Before: only "previous" and "next"; page 5 of 8 could not reach 1, 3 or 8 directly.
+    app.config["PAGE_SIZE"] = 2
+    _jobs(shop, 15)
+    login_as("operator")
+    page = client.get("/jobs?page=5&q=LIST").get_data(as_text=True)
+    assert '<strong aria-current="page">5</strong>' in page
+    for n in (1, 3, 4, 6, 7, 8):
+        assert f'aria-label="page {n}"' in page, n
+    assert 'aria-label="page 2"' not in page
+    assert "page=8&amp;q=LIST" in page or "q=LIST&amp;page=8" in page

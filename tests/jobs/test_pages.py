@@ -164,7 +164,7 @@ def test_a_control_character_in_the_intake_is_refused_and_nothing_saved(
     login_as("operator")
     before = (count(db, Job), count(db, Rotor), count(db, AuditEvent))
     resp = client.post("/jobs/new", data=intake_data(rtype, machine, serial_number="A\x00B"))
-    assert resp.status_code == 400 and "serial_number" in text(resp)
+    assert resp.status_code == 422 and "Serial number contains a control character" in text(resp)
     assert (count(db, Job), count(db, Rotor), count(db, AuditEvent)) == before
 
 
@@ -437,6 +437,15 @@ def test_missing_job_is_404(client, login_as) -> None:
     login_as("operator")
     assert client.get("/jobs/999999").status_code == 404
     assert client.post("/jobs/999999/runs", data={}).status_code == 404
+
+
+def test_the_job_list_answers_with_and_without_a_trailing_slash(client, login_as) -> None:
+    # Before: /jobs/ was a 404 (the other lists live at /customers/, /machines/ …).
+    login_as("operator")
+    for url in ("/jobs", "/jobs/", "/jobs/?state=received"):
+        resp = client.get(url)
+        assert resp.status_code == 200, url
+        assert "<h1>Jobs" in text(resp), url
 
 
 def test_junk_list_filters_show_a_message_not_an_error(client, login_as) -> None:

@@ -250,6 +250,27 @@ def test_custom_range_and_csv_formula_cells_are_neutralised(
     assert "'=HYPERLINK" in text
 
 
+@pytest.mark.parametrize(("query", "name"), [
+    ("period=month&on=2026-10-01", "shop-headline-2026-10.csv"),
+    ("period=quarter&on=2026-07-01", "shop-headline-2026-Q3.csv"),
+    ("period=week&on=2026-10-07", "shop-headline-2026-W41.csv"),
+    ("period=custom&start=2026-10-01&end=2026-10-15",
+     "shop-headline-2026-10-01-to-2026-10-15.csv"),
+])
+def test_the_csv_file_is_named_by_its_period(client, login_as, query, name) -> None:  # type: ignore[no-untyped-def]
+    # Before: "shop-headline-2026-10-01-2026-10-31.csv", ending in a date like a download day.
+    login_as("owner")
+    resp = client.get(f"/dashboard.csv?table=headline&{query}")
+    assert resp.headers["Content-Disposition"] == f'attachment; filename="{name}"'
+
+
+def test_a_running_period_names_the_day_its_csv_reaches(client, login_as) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    resp = client.get(f"/dashboard.csv?table=headline&period=month&on={TODAY.isoformat()}")
+    name = f"shop-headline-{TODAY:%Y-%m}-so-far-{TODAY.isoformat()}.csv"
+    assert resp.headers["Content-Disposition"] == f'attachment; filename="{name}"'
+
+
 def test_monthly_report_button_gives_a_two_page_pdf(client, login_as, hand) -> None:  # type: ignore[no-untyped-def]
     login_as("owner")
     html = _page(client, OCT)

@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import html
 from pathlib import Path
 
 import pytest
+from sqlalchemy import func, select
 
 from shopapp import create_app
+from shopapp.models import Customer
 
 
 @pytest.mark.parametrize("url", ["/jobs/99999999999999999999", "/jobs/9223372036854775808",
@@ -18,11 +21,39 @@ def test_ids_out_of_range_are_404(client, login_as, url: str) -> None:
     assert client.get(url).status_code == 404
 
 
-def test_a_nul_in_the_login_form_is_refused_not_a_crash(client) -> None:
+def test_a_nul_in_the_login_form_is_refused_beside_the_field_not_a_crash(client) -> None:
     # Before: 500 on PostgreSQL, unauthenticated (psycopg refuses NUL in a string).
     resp = client.post("/login", data={"username": "ad\x00min", "password": "x"})
+    assert resp.status_code == 422
+    assert "Username contains a control character" in resp.get_data(as_text=True)
+
+
+def test_a_control_character_in_a_form_field_is_refused_beside_it_and_nothing_saved(
+        client, login_as, db) -> None:
+    # Before: a whole-page 400 and what the user typed was lost.
+    login_as("operator")
+    resp = client.post("/customers/new", data={"name": "Invented\x01 Fans",
+                                               "address": "1 Invented Road"})
+    page = html.unescape(resp.get_data(as_text=True))
+    assert resp.status_code == 422
+    assert "Name contains a control character" in page
+    assert "1 Invented Road" in page  # what was typed is drawn again
+    assert db.scalar(select(func.count()).select_from(Customer)) == 0
+
+
+def test_a_control_character_no_form_field_reads_still_writes_nothing(
+        client, login_as, db) -> None:
+    login_as("operator")
+    resp = client.post("/customers/new", data={"name": "Invented Fans", "extra": "a\x00b"})
     assert resp.status_code == 400
-    assert "control character" in resp.get_data(as_text=True)
+    assert "'extra' contains a control character" in html.unescape(resp.get_data(as_text=True))
+    assert db.scalar(select(func.count()).select_from(Customer)) == 0
+
+
+def test_a_control_character_in_an_api_form_post_is_a_400_naming_the_field(client) -> None:
+    resp = client.post("/api/v1/jobs", data={"notes": "a\x00b"}, csrf=False)
+    assert resp.status_code == 400
+    assert "'notes' contains a control character" in html.unescape(resp.get_data(as_text=True))
 
 
 @pytest.mark.parametrize("url", ["/verify?q=a%00b", "/jobs/?q=%00", "/customers/?q=x%01y"])
