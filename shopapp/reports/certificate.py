@@ -43,7 +43,7 @@ from shopapp.reports.common import (
     keep,
     styles,
 )
-from shopapp.reports.drawing import to_drawing
+from shopapp.reports.drawing import FigureFlowable
 from shopapp.reports.qr import qr_drawing
 from shopapp.reports.traceability_section import ErrorLine, ResidualTestLine
 
@@ -533,7 +533,7 @@ def _polar_plot(data: CertificateData) -> Flowable | None:
     figures = polar_figures(data)
     if not figures:
         return None
-    drawings = [to_drawing(f) for f in figures]
+    drawings = [FigureFlowable(f) for f in figures]
     table = Table([drawings], colWidths=[_CONTENT_WIDTH / len(drawings)] * len(drawings))
     table.setStyle(TableStyle([("ALIGN", (0, 0), (-1, -1), "CENTER"),
                                ("VALIGN", (0, 0), (-1, -1), "TOP")]))

@@ -190,13 +190,13 @@ def grid_table(
         ("FONT", (0, 0), (-1, -1), st.cell.fontName, st.cell.fontSize, st.cell.leading),
         ("TEXTCOLOR", (0, 0), (-1, -1), st.cell.textColor),
     ]
-    bold = ("FONT", st.cell_bold.fontName, st.cell_bold.fontSize, st.cell_bold.leading)
+    bold_font = (st.cell_bold.fontName, st.cell_bold.fontSize, st.cell_bold.leading)
     if header_rows:
         commands.append(("BACKGROUND", (0, 0), (-1, header_rows - 1), SHADE))
-        commands.append((bold[0], (0, 0), (-1, header_rows - 1), *bold[1:]))
+        commands.append(("FONT", (0, 0), (-1, header_rows - 1), *bold_font))
     if label_column:
         commands.append(("BACKGROUND", (0, header_rows), (0, -1), SHADE))
-        commands.append((bold[0], (0, header_rows), (0, -1), *bold[1:]))
+        commands.append(("FONT", (0, header_rows), (0, -1), *bold_font))
     if align_right_from is not None:
         commands.append(("ALIGN", (align_right_from, header_rows), (-1, -1), "RIGHT"))
     table.setStyle(TableStyle(commands))

@@ -21,7 +21,7 @@ from shopapp.charts import Figure
 from shopapp.charts.circle_fit import ReadingPoint, circle_fit_figure
 from shopapp.core import display
 from shopapp.reports.common import MARGIN, PAGE_SIZE, esc, grid_table, keep, styles
-from shopapp.reports.drawing import to_drawing
+from shopapp.reports.drawing import FigureFlowable
 
 _CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
 # Greek letters our texts use that the PDF's standard fonts cannot show.
@@ -132,7 +132,7 @@ def section(data: Any, number: str = "4a") -> list[Flowable]:
                          str(t.positions), f"{display.number(t.residual_shop)}{ang}",
                          display.number(t.limit_shop), f"{t.fit_rms_pct:.1f} %",
                          "within" if t.passed else "OUT"])
-        figs = [to_drawing(f) for f in residual_test_figures(data)]
+        figs = [FigureFlowable(f) for f in residual_test_figures(data)]
         plot = Table([figs], colWidths=[w / len(figs)] * len(figs))
         plot.setStyle(TableStyle([("ALIGN", (0, 0), (-1, -1), "CENTER")]))
         out.append(keep(
