@@ -53,7 +53,10 @@ from shopapp.reports.traceability_section import ErrorLine, ResidualTestLine
 SCHEMA_VERSION = 2
 # Schema 2 (issue 15) added the verification code and the verify URL printed with a QR
 # code. Data of schema 1 (certificates issued before) is stored, hashed and drawn without
-# them, exactly as it was, so their stored JSON, content hash and PDF bytes stay the same.
+# them, exactly as it was, so their stored JSON and content hash stay the same and they
+# draw the same picture. The stored PDF is the record (checked by its SHA-256): issue 13
+# made rendering faster with the same pixels, so a re-rendering made since differs from
+# an older stored file in its bytes, not in what it shows.
 SCHEMA_2_FIELDS = ("verification_code", "verify_url", "signed_by")
 SIGNIFICANT_DIGITS = 6  # stored precision of every float in the certified data
 

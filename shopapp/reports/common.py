@@ -70,14 +70,8 @@ def pdf_text(text: str) -> str:
     s = text.translate(_TRANSLATION)
     if s.isascii():  # nearly every text: nothing left to check
         return s
-    out = []
-    for ch in s:
-        try:
-            ch.encode("cp1252")
-        except UnicodeEncodeError:
-            ch = "?"
-        out.append(ch)
-    return "".join(out)
+    # What Windows-1252 cannot encode becomes "?" (one pass in C, not a loop per character).
+    return s.encode("cp1252", "replace").decode("cp1252")
 
 
 def esc(text: object) -> str:
