@@ -479,9 +479,10 @@ def certificate_data(cert: Certificate) -> CertificateData:
 def rerender(cert: Certificate) -> bytes:
     """The unsigned PDF rendered again from the stored data.
 
-    The stored file starts with these bytes exactly (the embedded data and the
-    signature are one incremental update after them); for a certificate issued
-    before signing it is the whole stored file.
+    With the renderer that issued it, the stored file starts with these bytes exactly
+    (the embedded data and the signature are one incremental update after them); for a
+    certificate issued before signing it is the whole stored file. Files issued before
+    issue 13's faster rendering show the same pages with other bytes.
     """
     return report.render(certificate_data(cert))
 

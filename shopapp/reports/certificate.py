@@ -36,21 +36,27 @@ from shopapp.reports.common import (
     MARGIN,
     PAGE_SIZE,
     SHADE,
+    STYLES,
+    TEXT_WIDTH,
     DocumentMeta,
     build_pdf,
+    cell,
     esc,
     grid_table,
     keep,
-    styles,
+    text_flowable,
 )
-from shopapp.reports.drawing import to_drawing
+from shopapp.reports.drawing import FigureFlowable
 from shopapp.reports.qr import qr_drawing
 from shopapp.reports.traceability_section import ErrorLine, ResidualTestLine
 
 SCHEMA_VERSION = 2
 # Schema 2 (issue 15) added the verification code and the verify URL printed with a QR
 # code. Data of schema 1 (certificates issued before) is stored, hashed and drawn without
-# them, exactly as it was, so their stored JSON, content hash and PDF bytes stay the same.
+# them, exactly as it was, so their stored JSON and content hash stay the same and they
+# draw the same picture. The stored PDF is the record (checked by its SHA-256): issue 13
+# made rendering faster with the same pixels, so a re-rendering made since differs from
+# an older stored file in its bytes, not in what it shows.
 SCHEMA_2_FIELDS = ("verification_code", "verify_url", "signed_by")
 SIGNIFICANT_DIGITS = 6  # stored precision of every float in the certified data
 
@@ -324,21 +330,28 @@ def first_lines(data: CertificateData) -> list[tuple[str, str]]:
 
 
 def _identity_block(data: CertificateData) -> Flowable:
-    st = styles()
+    st = STYLES
+    left_width = _CONTENT_WIDTH - 72 * mm  # its cell has no side padding
     left = [
-        Paragraph(esc(data.shop_name), st.subtitle),
-        Paragraph("Balance certificate", st.title),
-        Paragraph(esc("Rigid-rotor balance, measured and certified by the shop named above"),
-                  st.small),
+        text_flowable(data.shop_name, st.subtitle, left_width),
+        text_flowable("Balance certificate", st.title, left_width),
+        text_flowable("Rigid-rotor balance, measured and certified by the shop named above",
+                      st.small, left_width),
     ]
-    rows = [[Paragraph(esc(k), st.cell_bold), Paragraph(esc(v), st.cell)]
+    widths = [24 * mm, 46 * mm]
+    rows = [[cell(k, st.cell_bold, widths[0], 12), cell(v, st.cell, widths[1], 12)]
             for k, v in first_lines(data)[:2]]
-    ident = Table(rows, colWidths=[24 * mm, 46 * mm])
+    ident = Table(rows, colWidths=widths)
     ident.setStyle(TableStyle([
         ("BOX", (0, 0), (-1, -1), 1.0, INK),
         ("BACKGROUND", (0, 0), (-1, -1), SHADE),
         ("TOPPADDING", (0, 0), (-1, -1), 2),
         ("BOTTOMPADDING", (0, 0), (-1, -1), 2),
+        # The plain-string cells in the cell styles (the table's own padding, 6 pt a side).
+        ("FONT", (0, 0), (0, -1), st.cell_bold.fontName, st.cell_bold.fontSize,
+         st.cell_bold.leading),
+        ("FONT", (1, 0), (1, -1), st.cell.fontName, st.cell.fontSize, st.cell.leading),
+        ("TEXTCOLOR", (0, 0), (-1, -1), st.cell.textColor),
     ]))
     outer = Table([[left, ident]], colWidths=[_CONTENT_WIDTH - 72 * mm, 72 * mm])
     outer.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
@@ -349,7 +362,7 @@ def _identity_block(data: CertificateData) -> Flowable:
 
 def _acceptance_block(data: CertificateData) -> Flowable:
     """The incoming-inspection summary: what, whose, against what, verdict."""
-    st = styles()
+    st = STYLES
     lines = first_lines(data)[2:5]
     basis = f"{data.tolerance_basis}; judged in the {data.reference_planes.replace('_', ' ')}"
     rows = [[k, v] for k, v in lines] + [
@@ -379,7 +392,7 @@ def _acceptance_block(data: CertificateData) -> Flowable:
 
 
 def _rotor_section(data: CertificateData) -> list[Flowable]:
-    st = styles()
+    st = STYLES
     two = data.planes == 2
     rows = [
         ["Mass", f"{display.number(data.mass_kg)} kg",
@@ -394,14 +407,14 @@ def _rotor_section(data: CertificateData) -> list[Flowable]:
     ]
     w = _CONTENT_WIDTH / 4
     return [
-        keep(Paragraph("1  Rotor", st.heading),
+        keep(text_flowable("1  Rotor", st.heading),
              grid_table(rows, [w * 1.15, w * 0.85, w * 1.15, w * 0.85], header_rows=0),
-             Paragraph("Axial positions in mm from the drawing's datum.", st.small)),
+             text_flowable("Axial positions in mm from the drawing's datum.", st.small)),
     ]
 
 
 def _tolerance_section(data: CertificateData) -> list[Flowable]:
-    st = styles()
+    st = STYLES
     lines = [f"Basis: {data.tolerance_basis}."]
     if data.tolerance_method == "grade":
         lines.append(
@@ -423,21 +436,21 @@ def _tolerance_section(data: CertificateData) -> list[Flowable]:
         if lim.deciding:  # only what decides carries a limit (one basis)
             rows.append([lim.name, *_unit_values(lim.limit_shop, lim.limit_gmm, data.unit)])
     return [keep(
-        Paragraph("2  Tolerance", st.heading),
-        *[Paragraph(esc(t), st.body) for t in lines],
+        text_flowable("2  Tolerance", st.heading),
+        *[text_flowable(t, st.body) for t in lines],
         Spacer(1, 2 * mm),
         grid_table(rows, _widths(0.4, *_unit_widths(data.unit)), align_right_from=1),
     )]
 
 
 def _balancing_section(data: CertificateData) -> list[Flowable]:
-    st = styles()
+    st = STYLES
     if data.machine_verified_on is None:
         verification = "no verification on file"
     else:
         verification = f"last verified {data.machine_verified_on}: {data.machine_verification}"
     out: list[Flowable] = [
-        Paragraph("3  How it was balanced", st.heading),
+        text_flowable("3  How it was balanced", st.heading),
         grid_table([
             ["Balancing machine", f"{data.machine_name} ({data.machine_kind})"],
             ["Machine verification", verification],
@@ -446,12 +459,12 @@ def _balancing_section(data: CertificateData) -> list[Flowable]:
             ["Received / balanced", f"{data.received_on} / {data.balanced_on}"],
         ], [45 * mm, _CONTENT_WIDTH - 45 * mm], header_rows=0, label_column=True),
         Spacer(1, 2 * mm),
-        Paragraph(esc(f"Initial unbalance (run {data.initial_run})"), st.cell_bold),
+        text_flowable(f"Initial unbalance (run {data.initial_run})", st.cell_bold),
     ]
     out.append(_vector_table(data.initial, "Unbalance", data.unit))
     w = _CONTENT_WIDTH
     out.append(Spacer(1, 2 * mm))
-    out.append(Paragraph("Corrections applied", st.cell_bold))
+    out.append(text_flowable("Corrections applied", st.cell_bold))
     if data.corrections:
         crow = [["Plane", "Action", "Mass", "Angle", "Radius", "How"]]
         for c in data.corrections:
@@ -461,12 +474,12 @@ def _balancing_section(data: CertificateData) -> list[Flowable]:
                          c.details or "single mass"])
         out.append(grid_table(crow, [w * 0.1, w * 0.11, w * 0.12, w * 0.1, w * 0.12, w * 0.45]))
     else:
-        out.append(Paragraph("none: the rotor was within tolerance as received", st.body))
+        out.append(text_flowable("none: the rotor was within tolerance as received", st.body))
     return out
 
 
 def _result_section(data: CertificateData) -> list[Flowable]:
-    st = styles()
+    st = STYLES
     rows = [["Judged", f"Residual ({data.unit})", f"Limit ({data.unit})", "% of limit",
              "Verdict"]]
     for lim in data.limits:
@@ -477,17 +490,17 @@ def _result_section(data: CertificateData) -> list[Flowable]:
     w = _CONTENT_WIDTH
     out: list[Flowable] = [
         keep(
-            Paragraph(esc(f"4  Result (run {data.final_run})"), st.heading),
+            text_flowable(f"4  Result (run {data.final_run})", st.heading),
             _vector_table(data.residual, "Residual", data.unit),
-            Paragraph(esc(f"Residual per correction plane as measured; the verdict below is "
-                          f"judged {judged_where(data)}."), st.small),
+            text_flowable(f"Residual per correction plane as measured; the verdict below is "
+                          f"judged {judged_where(data)}.", st.small),
             Spacer(1, 2 * mm),
             grid_table(rows, [w * 0.2, w * 0.2, w * 0.2, w * 0.15, w * 0.25],
                        align_right_from=1),
         ),
     ]
     for note in data.notes:
-        out.append(Paragraph(esc(note), st.small))
+        out.append(text_flowable(note, st.small))
     plot = _polar_plot(data)
     if plot is not None:
         out.append(Spacer(1, 3 * mm))
@@ -496,7 +509,7 @@ def _result_section(data: CertificateData) -> list[Flowable]:
                   "the plane's share of the bearing-plane limits (heavy dashed circle: inside "
                   "it a residual keeps both bearing planes within at any angle; the verdict is "
                   "the bearing planes' above)")
-        out.append(keep(plot, Paragraph(esc(
+        out.append(keep(plot, text_flowable((
             "Polar plot per correction plane: initial unbalance (thin dashed arrow), residual "
             f"(heavy solid arrow) and {circle}; 0° at the top, "
             "angles growing clockwise in the shop's angle convention."
@@ -533,7 +546,7 @@ def _polar_plot(data: CertificateData) -> Flowable | None:
     figures = polar_figures(data)
     if not figures:
         return None
-    drawings = [to_drawing(f) for f in figures]
+    drawings = [FigureFlowable(f) for f in figures]
     table = Table([drawings], colWidths=[_CONTENT_WIDTH / len(drawings)] * len(drawings))
     table.setStyle(TableStyle([("ALIGN", (0, 0), (-1, -1), "CENTER"),
                                ("VALIGN", (0, 0), (-1, -1), "TOP")]))
@@ -541,7 +554,7 @@ def _polar_plot(data: CertificateData) -> Flowable | None:
 
 
 def _closing_section(data: CertificateData, content_hash: str) -> list[Flowable]:
-    st = styles()
+    st = STYLES
     sign = grid_table(
         [["", "Name", "Date"],
          ["Balanced by (operator)", data.operator_name or "–", data.balanced_on],
@@ -549,22 +562,22 @@ def _closing_section(data: CertificateData, content_hash: str) -> list[Flowable]
         [50 * mm, 70 * mm, _CONTENT_WIDTH - 120 * mm], label_column=True,
     )
     out: list[Flowable] = [
-        keep(Paragraph("5  What this certificate covers", st.heading),
-             Paragraph(esc(COVERAGE_STATEMENT), st.body),
+        keep(text_flowable("5  What this certificate covers", st.heading),
+             text_flowable(COVERAGE_STATEMENT, st.body),
              Paragraph(esc(CAUTION), st.caution)),
-        keep(Paragraph("6  Signed", st.heading), sign),
+        keep(text_flowable("6  Signed", st.heading), sign),
     ]
     if data.revision > 1 or data.revision_reason:
-        out.append(Paragraph(esc(
+        out.append(text_flowable((
             f"Revision {data.revision} replaces the earlier revisions of {data.number}, which "
             f"are void. Reason: {data.revision_reason or 'not stated'}."
         ), st.body))
     if data.schema < 2:
         out.append(keep(
-            Paragraph("7  Check that this document is genuine", st.heading),
-            Paragraph(esc("Content hash (SHA-256 of the certified data):"), st.body),
-            Paragraph(esc(content_hash), st.mono),
-            Paragraph(esc(
+            text_flowable("7  Check that this document is genuine", st.heading),
+            text_flowable("Content hash (SHA-256 of the certified data):", st.body),
+            text_flowable(content_hash, st.mono),
+            text_flowable((
                 f"Enter the certificate number {data.number} or this hash on the shop's "
                 "verification page (/verify on the shop's shopapp server, no login needed), or "
                 "run 'shopapp report verify FILE.pdf' on the PDF file. The page states whether "
@@ -599,20 +612,22 @@ def _signature_words(data: CertificateData) -> str:
 def _check_section(data: CertificateData, content_hash: str) -> Flowable:
     """Section 7 of schema 2: the verify address (and its QR code), number and code, the
     content hash, and what the digital signature and the attached data are."""
-    st = styles()
+    st = STYLES
     where = ("Scan the code or open this address" if has_qr(data)
              else "Open this address on the shop's shopapp server")
+    # Beside the QR code the text fills the table cell (no side padding), else the frame.
+    width = _CONTENT_WIDTH - QR_SIZE - 4 * mm if has_qr(data) else TEXT_WIDTH
     text: list[Flowable] = [
-        Paragraph(esc(f"{where} (no login needed):"), st.body),
-        Paragraph(esc(data.verify_url), st.mono),
-        Paragraph(esc(f"Certificate number {data.number}, verification code "
+        text_flowable(f"{where} (no login needed):", st.body, width),
+        text_flowable(data.verify_url, st.mono, width),
+        text_flowable(f"Certificate number {data.number}, verification code "
                       f"{data.verification_code}. The page states whether this revision is "
                       "valid, void or superseded; it shows the certified details only with "
-                      "the number and this code."), st.body),
+                      "the number and this code.", st.body, width),
         Spacer(1, 1.5 * mm),
-        Paragraph(esc("Content hash (SHA-256 of the certified data):"), st.small),
-        Paragraph(esc(content_hash), st.mono),
-        Paragraph(esc(_signature_words(data)), st.small),
+        text_flowable("Content hash (SHA-256 of the certified data):", st.small, width),
+        text_flowable(content_hash, st.mono, width),
+        text_flowable(_signature_words(data), st.small, width),
     ]
     if has_qr(data):
         body: Flowable = Table([[qr_drawing(data.verify_url, QR_SIZE), text]],
@@ -620,8 +635,8 @@ def _check_section(data: CertificateData, content_hash: str) -> Flowable:
         body.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
                                   ("LEFTPADDING", (0, 0), (-1, -1), 0),
                                   ("RIGHTPADDING", (0, 0), (-1, -1), 0)]))
-        return keep(Paragraph("7  Check that this document is genuine", st.heading), body)
-    return keep(Paragraph("7  Check that this document is genuine", st.heading), *text)
+        return keep(text_flowable("7  Check that this document is genuine", st.heading), body)
+    return keep(text_flowable("7  Check that this document is genuine", st.heading), *text)
 
 
 def meta(data: CertificateData, content_hash: str | None = None) -> DocumentMeta:

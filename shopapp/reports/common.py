@@ -23,10 +23,11 @@ from io import BytesIO
 from typing import Any
 
 from reportlab.lib import colors
-from reportlab.lib.enums import TA_LEFT
+from reportlab.lib.enums import TA_LEFT, TA_RIGHT
 from reportlab.lib.pagesizes import A4
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.lib.units import mm
+from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
 from reportlab.platypus import Flowable, Paragraph, SimpleDocTemplate, Table, TableStyle
 from reportlab.platypus.flowables import KeepTogether
@@ -60,17 +61,17 @@ _REPLACEMENTS = {
 }
 
 
+# str.translate table of the replacements: one pass in C instead of a loop per character.
+_TRANSLATION = str.maketrans(_REPLACEMENTS)
+
+
 def pdf_text(text: str) -> str:
     """``text`` made printable with the standard fonts (Windows-1252), no silent boxes."""
-    out = []
-    for ch in text:
-        ch = _REPLACEMENTS.get(ch, ch)
-        try:
-            ch.encode("cp1252")
-        except UnicodeEncodeError:
-            ch = "?"
-        out.append(ch)
-    return "".join(out)
+    s = text.translate(_TRANSLATION)
+    if s.isascii():  # nearly every text: nothing left to check
+        return s
+    # What Windows-1252 cannot encode becomes "?" (one pass in C, not a loop per character).
+    return s.encode("cp1252", "replace").decode("cp1252")
 
 
 def esc(text: object) -> str:
@@ -117,6 +118,71 @@ def styles() -> Styles:
     )
 
 
+# Styles shared by every table cell and the certificate: a style per cell (the right-aligned
+# ones were made anew for each number) cost more than the cell's text. Nothing changes them.
+STYLES = styles()
+_CELL_RIGHT = ParagraphStyle("cell_r", parent=STYLES.cell, alignment=TA_RIGHT)
+_CELL_BOLD_RIGHT = ParagraphStyle("cell_bold_r", parent=STYLES.cell_bold,
+                                  alignment=TA_RIGHT)
+
+
+def cell(value: object, style: ParagraphStyle, width: float | None,
+         padding: float = 6) -> str | Paragraph:
+    """A table cell's content: the plain text when it fits on one line, else a Paragraph.
+
+    A plain string is drawn by the table itself (the table's FONT and TEXTCOLOR must
+    match ``style``) at the place a one-line paragraph would be, without the
+    paragraph's parsing and line breaking. Text that needs wrapping, or whose spaces
+    a paragraph would fold, stays a Paragraph. ``padding``: the cell's left plus right.
+    """
+    text = pdf_text(str(value))
+    if (width is not None and text and text == " ".join(text.split())
+            and stringWidth(text, style.fontName, style.fontSize) <= width - padding - 0.01):
+        return text
+    return Paragraph(esc(value), style)
+
+
+# What a paragraph in the story may fill: the page less its margins and the frame's padding
+# (platypus's default 6 pt each side).
+TEXT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN - 12
+
+
+class TextLine(Flowable):
+    """One line of plain text in a paragraph style, drawn where a one-line Paragraph of
+    the same style would draw it (first baseline ``fontSize`` below the top, height
+    ``leading``, the style's space before and after), without parsing or line breaking."""
+
+    def __init__(self, text: str, style: ParagraphStyle) -> None:
+        super().__init__()
+        self.text = text
+        self.style = style
+        self.spaceBefore = style.spaceBefore
+        self.spaceAfter = style.spaceAfter
+
+    def wrap(self, availWidth: float, availHeight: float) -> tuple[float, float]:
+        self.width = availWidth
+        self.height = self.style.leading
+        return self.width, self.height
+
+    def draw(self) -> None:
+        st = self.style
+        self.canv.setFillColor(st.textColor)
+        self.canv.setFont(st.fontName, st.fontSize, st.leading)
+        self.canv.drawString(0, self.height - st.fontSize, self.text)
+
+
+def text_flowable(value: object, style: ParagraphStyle, width: float = TEXT_WIDTH) -> Flowable:
+    """``value`` as a :class:`TextLine` when it fits on one line of ``width``, else a Paragraph.
+
+    For plain text in left-aligned styles without border or background; spaces are
+    folded as a paragraph folds them. ``width``: what the paragraph may fill.
+    """
+    line = " ".join(pdf_text(str(value)).split())
+    if line and stringWidth(line, style.fontName, style.fontSize) <= width - 0.01:
+        return TextLine(line, style)
+    return Paragraph(esc(value), style)
+
+
 def grid_table(
     rows: Sequence[Sequence[Any]],
     col_widths: Sequence[float] | None = None,
@@ -127,9 +193,11 @@ def grid_table(
 ) -> Table:
     """A ruled table: shaded header row(s), optional shaded first column, numbers right-aligned.
 
-    Cells may be strings (wrapped into paragraphs of the ``cell`` style) or flowables.
+    Cells may be strings (drawn in the ``cell`` style, wrapped when they do not fit) or
+    flowables.
     """
-    st = styles()
+    st = STYLES
+    widths = list(col_widths) if col_widths else None
     body: list[list[Any]] = []
     for r, row in enumerate(rows):
         cells: list[Any] = []
@@ -138,12 +206,14 @@ def grid_table(
                 cells.append(value)
                 continue
             bold = r < header_rows or (label_column and c == 0)
-            style = st.cell_bold if bold else st.cell
-            if align_right_from is not None and c >= align_right_from and r >= header_rows:
-                style = ParagraphStyle(f"{style.name}_r", parent=style, alignment=2)
-            cells.append(Paragraph(esc(value), style))
+            right = align_right_from is not None and c >= align_right_from and r >= header_rows
+            if right:
+                style = _CELL_BOLD_RIGHT if bold else _CELL_RIGHT
+            else:
+                style = st.cell_bold if bold else st.cell
+            cells.append(cell(value, style, widths[c] if widths else None))
         body.append(cells)
-    table = Table(body, colWidths=list(col_widths) if col_widths else None, repeatRows=header_rows)
+    table = Table(body, colWidths=widths, repeatRows=header_rows)
     commands: list[tuple[Any, ...]] = [
         ("GRID", (0, 0), (-1, -1), 0.4, RULE),
         ("VALIGN", (0, 0), (-1, -1), "TOP"),
@@ -151,11 +221,19 @@ def grid_table(
         ("BOTTOMPADDING", (0, 0), (-1, -1), 2),
         ("LEFTPADDING", (0, 0), (-1, -1), 3),
         ("RIGHTPADDING", (0, 0), (-1, -1), 3),
+        # For the plain-string cells: the cell styles' font, leading, colour and alignment.
+        ("FONT", (0, 0), (-1, -1), st.cell.fontName, st.cell.fontSize, st.cell.leading),
+        ("TEXTCOLOR", (0, 0), (-1, -1), st.cell.textColor),
     ]
+    bold_font = (st.cell_bold.fontName, st.cell_bold.fontSize, st.cell_bold.leading)
     if header_rows:
         commands.append(("BACKGROUND", (0, 0), (-1, header_rows - 1), SHADE))
+        commands.append(("FONT", (0, 0), (-1, header_rows - 1), *bold_font))
     if label_column:
         commands.append(("BACKGROUND", (0, header_rows), (0, -1), SHADE))
+        commands.append(("FONT", (0, header_rows), (0, -1), *bold_font))
+    if align_right_from is not None:
+        commands.append(("ALIGN", (align_right_from, header_rows), (-1, -1), "RIGHT"))
     table.setStyle(TableStyle(commands))
     return table
 

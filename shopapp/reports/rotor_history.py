@@ -28,7 +28,7 @@ from shopapp.reports.common import (
     keep,
     styles,
 )
-from shopapp.reports.drawing import to_drawing
+from shopapp.reports.drawing import FigureFlowable
 
 GROWTH_RULE = ("Growth note rule (ours): the initial unbalance of a plane rose by at least 10 % "
                "at each of the last two visits, i.e. three visits in a row each higher than the "
@@ -175,7 +175,7 @@ def render(data: RotorHistoryData) -> bytes:
         story.append(Paragraph(esc(data.growth_rule), st.small))
         story.append(Spacer(1, 3 * mm))
         for fig in trend_figures(data):
-            story.append(to_drawing(fig))
+            story.append(FigureFlowable(fig))
             story.append(Spacer(1, 2 * mm))
         story.append(Paragraph(esc("W after a date: the job was reworked (reopened); "
                                    "R: a customer return."), st.small))

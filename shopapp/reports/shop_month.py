@@ -28,7 +28,7 @@ from reportlab.platypus import PageBreak, Paragraph, Table, TableStyle
 from shopapp.charts import Figure
 from shopapp.core.display import date
 from shopapp.reports.common import DocumentMeta, build_pdf, esc, grid_table, keep, styles
-from shopapp.reports.drawing import to_drawing
+from shopapp.reports.drawing import FigureFlowable
 
 LIST_ROWS = 6  # rows of each list on paper
 FLAG_ROWS = 6  # flagged units named on paper
@@ -132,7 +132,7 @@ def _side_by_side(left: Any, right: Any, width: float) -> Table:
 
 
 def _fit(fig: Figure, width: float) -> Any:
-    return to_drawing(fig, scale=min(1.0, width / fig.width))
+    return FigureFlowable(fig, scale=min(1.0, width / fig.width))
 
 
 def render(data: ShopMonth, *, created: dt.datetime | None = None) -> bytes:

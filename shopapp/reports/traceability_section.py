@@ -15,13 +15,20 @@ from dataclasses import dataclass
 from typing import Any
 
 from reportlab.lib.units import mm
-from reportlab.platypus import Flowable, Paragraph, Spacer, Table, TableStyle
+from reportlab.platypus import Flowable, Spacer, Table, TableStyle
 
 from shopapp.charts import Figure
 from shopapp.charts.circle_fit import ReadingPoint, circle_fit_figure
 from shopapp.core import display
-from shopapp.reports.common import MARGIN, PAGE_SIZE, esc, grid_table, keep, styles
-from shopapp.reports.drawing import to_drawing
+from shopapp.reports.common import (
+    MARGIN,
+    PAGE_SIZE,
+    STYLES,
+    grid_table,
+    keep,
+    text_flowable,
+)
+from shopapp.reports.drawing import FigureFlowable
 
 _CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
 # Greek letters our texts use that the PDF's standard fonts cannot show.
@@ -29,10 +36,10 @@ _GREEK = {"ΔU": "dU", "Δ": "d", "ρ": "rho"}
 
 
 def _t(text: str) -> str:
-    """``text`` with the Greek letters spelled out, then escaped for a Paragraph."""
+    """``text`` with the Greek letters spelled out."""
     for k, v in _GREEK.items():
         text = text.replace(k, v)
-    return esc(text)
+    return text
 
 
 @dataclass(frozen=True)
@@ -112,14 +119,14 @@ def section(data: Any, number: str = "4a") -> list[Flowable]:
     """Flowables of the traceability part (empty when there is nothing to state)."""
     if not has_content(data):
         return []
-    st = styles()
-    out: list[Flowable] = [Paragraph(_t(f"{number}  Traceability of the result"), st.heading)]
+    st = STYLES
+    out: list[Flowable] = [text_flowable(_t(f"{number}  Traceability of the result"), st.heading)]
     if data.key_statement:
-        out.append(Paragraph(_t(data.key_statement), st.body))
+        out.append(text_flowable(_t(data.key_statement), st.body))
     if data.key_compensation:
-        out.append(Paragraph(_t(data.key_compensation), st.body))
+        out.append(text_flowable(_t(data.key_compensation), st.body))
     if data.arbor:
-        out.append(Paragraph(_t(data.arbor), st.body))
+        out.append(text_flowable(_t(data.arbor), st.body))
     w = _CONTENT_WIDTH
     if data.residual_tests:
         rows = [["Plane", "Test mass", "Positions", f"Residual ({data.unit})",
@@ -132,14 +139,14 @@ def section(data: Any, number: str = "4a") -> list[Flowable]:
                          str(t.positions), f"{display.number(t.residual_shop)}{ang}",
                          display.number(t.limit_shop), f"{t.fit_rms_pct:.1f} %",
                          "within" if t.passed else "OUT"])
-        figs = [to_drawing(f) for f in residual_test_figures(data)]
+        figs = [FigureFlowable(f) for f in residual_test_figures(data)]
         plot = Table([figs], colWidths=[w / len(figs)] * len(figs))
         plot.setStyle(TableStyle([("ALIGN", (0, 0), (-1, -1), "CENTER")]))
         out.append(keep(
-            Paragraph("Residual-unbalance verification test", st.cell_bold),
+            text_flowable("Residual-unbalance verification test", st.cell_bold),
             grid_table(rows, [w * 0.1, w * 0.2, w * 0.1, w * 0.19, w * 0.14, w * 0.12, w * 0.15],
                        align_right_from=2),
-            Paragraph(_t(
+            text_flowable(_t(
                 "A test mass moved round equally spaced positions; the readings are fitted to a "
                 "circle by least squares and the residual is the circle's offset scaled by the "
                 "test unbalance; the repeat of position 1 agreed within 10 % of the circle's "
@@ -158,8 +165,8 @@ def section(data: Any, number: str = "4a") -> list[Flowable]:
             notes.append("Where ΔU is at most 10 % of the limit it is neglected (common "
                          "practice).")
         out.append(keep(
-            Paragraph("Balance errors: error estimate dU (ISO 21940-14 idea)", st.cell_bold),
+            text_flowable("Balance errors: error estimate dU (ISO 21940-14 idea)", st.cell_bold),
             grid_table(rows, [w * 0.1, w * 0.14, w * 0.16, w * 0.3, w * 0.17, w * 0.13],
                        align_right_from=1),
-            *[Paragraph(_t(n), st.small) for n in notes]))
+            *[text_flowable(_t(n), st.small) for n in notes]))
     return out

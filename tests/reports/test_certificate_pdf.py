@@ -116,3 +116,11 @@ def test_first_lines_are_what_verify_shows() -> None:
     assert lines["Serial number"] == "SN-4471"
     # ISO 21940-11 judges in the bearing planes: the result names them (issue 11, one basis).
     assert lines["Result"] == "within tolerance in both bearing planes"
+
+
+def test_reportlab_finds_its_c_accelerator() -> None:
+    # rl-accel is a dependency (issue 13); without it reportlab quietly measures and
+    # formats every string in Python, about a third slower per certificate.
+    from reportlab.lib import rl_accel
+
+    assert rl_accel._py_funcs == {}, sorted(rl_accel._py_funcs)
