@@ -2,8 +2,9 @@
 
 Runs ``shopapp db upgrade`` and ``shopapp first-start`` (as ``scripts/serve`` does) in a
 fresh instance folder on SQLite and watches for ``first-logins.txt`` and for
-``demo-status.json`` saying ``ready``. Goals (ours): logins within 10 s, the whole demo
-(with its historical certificates) within 180 s.
+``demo-status.json`` saying ``ready``, timed from the start of ``db upgrade`` (where
+``scripts/serve`` is once its install is done). Goals (issue 13): logins within 15 s, the
+whole demo (with its ~700 signed historical certificates) within 60 s.
 """
 
 from __future__ import annotations
@@ -20,8 +21,8 @@ from typing import Any
 
 ROOT = Path(__file__).resolve().parent.parent
 SHOPAPP = str(ROOT / ".venv" / "bin" / "shopapp")
-LOGINS_GOAL_S = 10.0
-READY_GOAL_S = 180.0
+LOGINS_GOAL_S = 15.0
+READY_GOAL_S = 60.0
 TIMEOUT_S = 600.0
 
 

@@ -81,3 +81,26 @@ def test_the_job_list_links_page_numbers(client, login_as, app, shop) -> None:  
         assert f'aria-label="page {n}"' in page, n
     assert 'aria-label="page 2"' not in page
     assert "page=8&amp;q=LIST" in page or "q=LIST&amp;page=8" in page
+
+
+def test_a_search_matching_more_rotors_than_the_id_list_holds_finds_them_all(
+        db, shop, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    # Past the id-list limit the rotor arm is matched by subquery: same jobs, found
+    # case-insensitively on either path (expected from the rows the test made).
+    from shopapp.jobs import queries
+
+    jobs = [shop.job(shop.rotor(serial_number=f"Wide-{i}"), received_on=dt.date(2026, 5, 1))
+            for i in range(3)]
+    expected = sorted((j.id for j in jobs), reverse=True)
+    f, _ = JobFilter.from_args({"q": "wIDE-"})
+    assert [j.id for j in job_page(db, f, page=1, per_page=25).items] == expected
+    monkeypatch.setattr(queries, "_ID_LIST_LIMIT", 1)
+    assert queries.text_matches(db, "wIDE-").rotor_ids is None
+    assert [j.id for j in job_page(db, f, page=1, per_page=25).items] == expected
+
+
+def test_a_search_takes_percent_and_underscore_as_typed(db, shop) -> None:  # type: ignore[no-untyped-def]
+    literal = shop.job(shop.rotor(serial_number="AB%_9"), received_on=dt.date(2026, 6, 1))
+    shop.job(shop.rotor(serial_number="ABxy9"), received_on=dt.date(2026, 6, 2))
+    f, _ = JobFilter.from_args({"q": "ab%_"})
+    assert [j.id for j in job_page(db, f, page=1, per_page=25).items] == [literal.id]
