@@ -700,6 +700,33 @@ def trial_mass_advice(
     )
 
 
+def trial_force_fraction(
+    rotor_mass_kg: float,
+    speed_rpm: float,
+    mass_g: float,
+    radius_mm: float,
+    *,
+    planes: int = 1,
+) -> tuple[float, float]:
+    """A fitted trial mass's centrifugal force and the static load per plane it acts
+    against, newtons: ``F = m_t · r · Ω²`` with ``Ω = 2π · n / 60``, and
+    ``(M / planes) · g₀`` — the quantities :func:`trial_mass_advice` sizes a trial mass
+    by (about 5–10 % of the load, common practice, no source).
+
+    Returns
+    -------
+    (force_n, static_load_n)
+    """
+    mass = positive("rotor_mass_kg", rotor_mass_kg)
+    speed = positive("speed_rpm", speed_rpm)
+    trial = positive("mass_g", mass_g)
+    radius = positive("radius_mm", radius_mm)
+    n_planes = whole("planes", planes, 1)
+    omega = 2.0 * math.pi * speed / 60.0
+    return (trial / 1000.0 * radius / 1000.0 * omega**2,
+            mass / n_planes * STANDARD_GRAVITY_M_S2)
+
+
 def solve_two_plane_batch(
     coefficients: np.ndarray,
     initial: np.ndarray,

@@ -169,6 +169,13 @@ def _drill(plane: int, parts: Sequence[tuple[int | None, float, float]], rt: Rot
     return tuple(plans), "", notes
 
 
+def plane_action(rt: RotorType, plane: int) -> str:
+    """``"remove"`` or ``"add"``: how the rotor type corrects in ``plane`` (plane 2 takes
+    plane 1's method when it has none of its own)."""
+    method = rt.method_1 if plane == 1 else (rt.method_2 or rt.method_1)
+    return "remove" if method == "remove" else "add"
+
+
 def plane_advice(
     plane: int, vector_g: complex, rt: RotorType, radius_mm: float, drill_diameter_mm: float,
     on_rotor: Sequence[positions.WeightOnRotor] = (),
@@ -180,7 +187,7 @@ def plane_advice(
     """
     method = rt.method_1 if plane == 1 else (rt.method_2 or rt.method_1)
     mass, add_angle = amplitude_angle(vector_g)
-    action = "remove" if method == "remove" else "add"
+    action = plane_action(rt, plane)
     angle = normalize_deg(add_angle + 180.0) if action == "remove" else add_angle
     warnings: list[str] = []
     count = rt.positions_1 if plane == 1 else rt.positions_2

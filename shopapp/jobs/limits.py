@@ -8,9 +8,10 @@ would have refused. Messages name the form field and carry the safety caution.
 
 from __future__ import annotations
 
+from shopapp.balancing.influence import TRIAL_MASS_CAUTIONS, trial_force_fraction
 from shopapp.core.checks import Errors
 from shopapp.core.display import plain, quantity
-from shopapp.models import CALIBRATED_READING_UNIT, Machine, RotorType
+from shopapp.models import CALIBRATED_READING_UNIT, Machine, RotorType, Run
 
 OVER_SPEED_CAUTION = (
     "Over-speed can burst the rotor or throw its masses: never exceed the rotor maker's "
@@ -84,3 +85,26 @@ def check_reading_planes(e: Errors, field: str, planes: int, machine: Machine | 
     if machine is not None and planes > machine.reading_planes:
         e.add(field, f"{machine.name} reads {machine.reading_planes} plane per run; "
               f"this rotor needs {planes}: balance it on a two-plane machine")
+
+
+# A trial mass is sized to pull about 5–10 % of the static load per plane (common practice,
+# no source); past half of it the run was very likely typed wrong (kg for g, a slipped
+# digit) or the mass is dangerous at that speed.
+TRIAL_FORCE_WARNING_FRACTION = 0.5
+
+
+def trial_force_warning(run: Run, rotor_type: RotorType) -> str | None:
+    """A caution for a logged trial run whose trial mass pulls more than half the static
+    load per plane at the run's speed; None otherwise (or for other runs)."""
+    if run.purpose != "trial" or not run.trial_mass_g or not run.trial_radius_mm:
+        return None
+    force_n, load_n = trial_force_fraction(rotor_type.mass_kg, run.speed_rpm, run.trial_mass_g,
+                                           run.trial_radius_mm, planes=rotor_type.planes)
+    if force_n <= TRIAL_FORCE_WARNING_FRACTION * load_n:
+        return None
+    return (f"Check the trial mass of run {run.seq}: {plain(run.trial_mass_g)} g at "
+            f"{plain(run.trial_radius_mm)} mm and {plain(run.speed_rpm)} rpm pulls "
+            f"{quantity(force_n / 1000.0, 'kN')}, {quantity(100.0 * force_n / load_n, '%')} "
+            f"of the {quantity(load_n, 'N')} static load per plane (a trial mass usually pulls "
+            f"5–10 %). Do not spin it again until the mass is confirmed. "
+            + " ".join(TRIAL_MASS_CAUTIONS))

@@ -27,6 +27,7 @@ from shopapp.core.pagination import page_number
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
 from shopapp.core.web import acting_user, get_or_404, once, page_size, requires, saved_row
+from shopapp.jobs import advice as job_advice
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import corrections, intake, limits, queries, runs, states
 from shopapp.jobs.advice import DEFAULT_DRILL_DIAMETER_MM
@@ -249,6 +250,7 @@ def _correction_forms(job: Job, calc: job_calc.JobCalc, disp: ShopDisplay
         _replace_choices(f, job, plane, disp)
         a = advice.get(plane)
         f.radius_mm.data = radii[plane - 1]
+        f.action.data = job_advice.plane_action(rt, plane)  # the advice's, or the method's
         if a is not None:
             f.run_id.data = str(calc.advice.run_id) if calc.advice else ""
             f.action.data = a.action
@@ -373,6 +375,9 @@ def add_run(job_id: int):  # type: ignore[no-untyped-def]
         return _failed(job_id, exc, form, run_form=form,
                        mapping={"readings": form.amplitude_1, "trial_plane": form.trial_plane})
     flash(f"Run {run.seq} ({run.purpose}) logged.", "success")
+    caution = limits.trial_force_warning(run, job.rotor.rotor_type)
+    if caution is not None:
+        flash(caution, "error")
     return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
 
 

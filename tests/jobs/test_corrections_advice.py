@@ -23,7 +23,7 @@ from shopapp.jobs.corrections import record_correction
 from shopapp.jobs.intake import ToleranceSpec, book_in
 from shopapp.jobs.queries import evaluate
 from shopapp.jobs.runs import record_run
-from shopapp.jobs.states import mark_in_tolerance
+from shopapp.jobs.states import mark_in_tolerance, start
 from shopapp.models import Job
 from tests.jobs.test_pages import U_TRUE_G, booked, readings_for, with_trials
 
@@ -342,3 +342,18 @@ def test_drilling_caution_appears_once_for_two_removal_planes(client, login_as, 
     body = text(client.get(f"/jobs/{job.id}"))
     assert body.count("A hole is a stress raiser") == 1
     assert body.count("class=\"card advice-drill\"") == 2  # one drilling card per plane
+
+
+def test_the_record_form_starts_on_the_planes_method_before_any_advice(
+        client, login_as, db, shop, machine) -> None:
+    """A walk found "added" preselected on a rotor corrected by removing metal."""
+    user = login_as("operator")
+    rt = single_plane(shop, method_1="remove", density_g_cm3=7.85)
+    job = book(db, user, rt, machine)
+    start(db, job, by=user, reason="on the machine")  # on the machine, no run: no advice
+    db.commit()
+    body = text(client.get(f"/jobs/{job.id}"))
+    chosen = re.search(r'<select[^>]*name="c1-action".*?</select>', body, re.S)
+    assert chosen is not None
+    assert re.search(r'<option[^>]*selected[^>]*value="remove"|<option[^>]*value="remove"'
+                     r'[^>]*selected', chosen.group(0))

@@ -413,3 +413,31 @@ def test_a_use_case_refusal_goes_beside_the_prefixed_field(client, login_as, db,
                        body, re.S)
     assert beside is not None and 'class="error"' in beside.group(0)
     assert _rows(db, job) == 0
+
+
+def test_a_trial_mass_far_past_the_usual_force_is_cautioned(client, login_as, db, shop,
+                                                             calibrated) -> None:
+    """A walk logged 50 000 g on a small rotor with only "Run 2 (trial) logged"."""
+    user = login_as("operator")
+    rt = shop.rotor_type()
+    job = book(db, user, calibrated, rt)
+    db.commit()
+    base = {"run-speed_rpm": "600", "run-unit": "g·mm", "run-amplitude_1": "300",
+            "run-angle_1_deg": "10", "run-amplitude_2": "10", "run-angle_2_deg": "0"}
+    assert client.post(f"/jobs/{job.id}/runs",
+                       data={**base, "run-purpose": "initial"}).status_code == 302
+    # By hand (common practice, no source: a trial mass pulls about 10 % of the static load
+    # per plane): F = m·r·Ω², Ω = 2π·600/60; load = M/planes · 9.80665 N.
+    omega = 2 * math.pi * 600 / 60
+    load_n = rt.mass_kg / rt.planes * 9.80665
+    usual_g = 0.10 * load_n / (0.100 * omega**2) * 1000  # at 100 mm
+    for mass_g, cautioned in ((usual_g, False), (usual_g * 50, True)):
+        resp = client.post(f"/jobs/{job.id}/runs", data={
+            **base, "run-purpose": "trial", "run-trial_plane": "1",
+            "run-trial_mass_g": f"{mass_g:.4f}", "run-trial_angle_deg": "0",
+            "run-trial_radius_mm": "100"}, follow_redirects=True)
+        body = text(resp)
+        assert resp.status_code == 200 and "(trial) logged" in body
+        assert ("Check the trial mass of run" in body) is cautioned
+        if cautioned:
+            assert "a thrown mass is a projectile" in body and "static load per plane" in body
