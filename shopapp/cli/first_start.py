@@ -119,7 +119,8 @@ def _load_demo() -> None:
             raise
         total = load.certificates_total
         _loading_certificates(load)
-        click.echo(f"demo jobs written; the certificates of the historical jobs ({total}) are "
+        click.echo(f"demo jobs written; the certificates of its {len(load.history.cert_jobs)} "
+                   f"certified jobs ({total} steps: issues, voids and new revisions) are "
                    "issued in the background now; the pages say so until it is done")
         try:
             while load.certificates_remaining:
@@ -137,7 +138,8 @@ def _load_demo() -> None:
     finally:
         sess.close()
     skipped = load.skipped
-    message = f"The demo shop is loaded ({summary.certificates} certificates)."
+    message = (f"The demo shop is loaded ({summary.certificates} certificate revisions on "
+               f"{len(load.history.cert_jobs)} jobs).")
     if skipped:
         message += (f" Jobs changed while loading kept no new certificate: "
                     f"{', '.join(sorted(skipped.values()))}.")
@@ -150,7 +152,7 @@ def _loading_certificates(load: demo.DemoLoad) -> None:
     done = load.certificates_total - load.certificates_remaining
     write_status(instance_folder(), "loading",
                  f"The demo shop is still loading: certificates of its historical jobs are "
-                 f"being issued ({done} of {load.certificates_total}). Until then some "
+                 f"being issued (step {done} of {load.certificates_total}). Until then some "
                  "certified or dispatched jobs show no certificate yet; please leave the demo "
                  "jobs as they are until this note goes.")
 

@@ -53,7 +53,7 @@ def parse_number(raw: str) -> float:
     "1 500"), and so are Python's digit underscores ("1_5" would silently be 15).
     """
     if len(raw) > MAX_NUMBER_CHARS:
-        raise ValueError(f"Not a number: at most {MAX_NUMBER_CHARS} characters.")
+        raise ValueError(f"Too long for a number: at most {MAX_NUMBER_CHARS} characters.")
     if any(ch.isspace() for ch in raw) or "_" in raw:
         raise ValueError(f"Not a number: {raw!r}. Type it without spaces or separators "
                          "between the digits, e.g. 1500 or 1.5.")

@@ -78,7 +78,10 @@ def change_text(now: float | None, before: float | None) -> str:
     if abs(delta) < 1e-9:
         return "same"
     word = "up" if delta > 0 else "down"
-    return f"{word} {fixed(abs(delta), 0 if float(delta).is_integer() else 1)}"
+    size = fixed(abs(delta), 0 if float(delta).is_integer() else 1)
+    if float(size) == 0.0:  # 1.26 → 1.25 is a change, not "down 0.0"
+        size = number(abs(delta), 2, trim=True)
+    return f"{word} {size}"
 
 
 def headline_rows(now: Figures, before: Figures,

@@ -17,7 +17,7 @@ import pytest
 from pypdf import PdfReader
 
 from shopapp.measures import routes
-from shopapp.measures.texts import measure_text
+from shopapp.measures.texts import change_text, measure_text
 from shopapp.models import Correction, JobTransition, Run, RunReading
 from tests import measures_shop
 from tests.measures_shop import TODAY
@@ -300,3 +300,10 @@ def test_start_page_panel_for_the_owner_only(client, login_as, hand, make_user) 
     client.post("/logout")
     login_as("operator")
     assert 'id="dashboard-headline"' not in _page(client, "/")
+
+
+def test_a_small_change_is_not_shown_as_zero() -> None:
+    # A walk read "down 0.0" beside mean correction cycles 1.25 against 1.26.
+    assert change_text(1.25, 1.26) == "down 0.01"
+    assert change_text(2.5, 1.0) == "up 1.5" and change_text(4, 1) == "up 3"
+    assert change_text(1.0, 1.0) == "same"
