@@ -40,6 +40,15 @@ def test_quality_sees_the_queue_and_issues(client, login_as, ready, db) -> None:
     assert ready.state == "certified"
 
 
+def test_the_register_says_how_many_jobs_wait_and_links_them(client, login_as, ready,
+                                                             db) -> None:
+    # A walk found the queue only on the start page, not from /certificates/.
+    login_as("quality")
+    page = client.get("/certificates/").get_data(as_text=True)
+    assert "1 job in tolerance waiting for a certificate" in page
+    assert "/jobs?state=in_tolerance" in page or "/jobs/?state=in_tolerance" in page
+
+
 def test_operator_may_not_issue(client, login_as, ready, db) -> None:
     login_as("operator")
     assert _issue(client, ready).status_code == 403
