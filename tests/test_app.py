@@ -189,3 +189,16 @@ def test_unknown_page_is_a_plain_404(client) -> None:
     resp = client.get("/no-such-page")
     assert resp.status_code == 404
     assert "Traceback" not in resp.get_data(as_text=True)
+
+
+def test_every_page_names_an_icon_that_is_served(client) -> None:  # type: ignore[no-untyped-def]
+    # A browser walk saw a 404 for /favicon.ico on every first page.
+    import re
+
+    page = client.get("/login").get_data(as_text=True)
+    href = re.search(r'<link rel="icon"[^>]*href="([^"]+)"', page)
+    assert href is not None
+    icon = client.get(href.group(1))
+    assert icon.status_code == 200 and icon.mimetype == "image/svg+xml"
+    assert icon.get_data().startswith(b"<svg")
+    icon.close()  # a static file is streamed: close it, as a server would
