@@ -700,7 +700,7 @@ def trial_mass_advice(
     )
 
 
-def trial_force_fraction(
+def trial_force(
     rotor_mass_kg: float,
     speed_rpm: float,
     mass_g: float,

@@ -169,11 +169,15 @@ def _drill(plane: int, parts: Sequence[tuple[int | None, float, float]], rt: Rot
     return tuple(plans), "", notes
 
 
+def plane_method(rt: RotorType, plane: int) -> str:
+    """The rotor type's correction method in ``plane`` (plane 2 takes plane 1's method
+    when it has none of its own)."""
+    return rt.method_1 if plane == 1 else (rt.method_2 or rt.method_1)
+
+
 def plane_action(rt: RotorType, plane: int) -> str:
-    """``"remove"`` or ``"add"``: how the rotor type corrects in ``plane`` (plane 2 takes
-    plane 1's method when it has none of its own)."""
-    method = rt.method_1 if plane == 1 else (rt.method_2 or rt.method_1)
-    return "remove" if method == "remove" else "add"
+    """``"remove"`` or ``"add"``: what a correction in ``plane`` does by default."""
+    return "remove" if plane_method(rt, plane) == "remove" else "add"
 
 
 def plane_advice(
@@ -185,7 +189,7 @@ def plane_advice(
     ``on_rotor``: weights already fitted in the plane (grams at R); an added
     correction is merged with one of them when close (:func:`positions.plan_trim`).
     """
-    method = rt.method_1 if plane == 1 else (rt.method_2 or rt.method_1)
+    method = plane_method(rt, plane)
     mass, add_angle = amplitude_angle(vector_g)
     action = plane_action(rt, plane)
     angle = normalize_deg(add_angle + 180.0) if action == "remove" else add_angle

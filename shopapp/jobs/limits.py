@@ -8,7 +8,7 @@ would have refused. Messages name the form field and carry the safety caution.
 
 from __future__ import annotations
 
-from shopapp.balancing.influence import TRIAL_MASS_CAUTIONS, trial_force_fraction
+from shopapp.balancing.influence import TRIAL_MASS_CAUTIONS, trial_force
 from shopapp.core.checks import Errors
 from shopapp.core.display import plain, quantity
 from shopapp.models import CALIBRATED_READING_UNIT, Machine, RotorType, Run
@@ -98,7 +98,7 @@ def trial_force_warning(run: Run, rotor_type: RotorType) -> str | None:
     load per plane at the run's speed; None otherwise (or for other runs)."""
     if run.purpose != "trial" or not run.trial_mass_g or not run.trial_radius_mm:
         return None
-    force_n, load_n = trial_force_fraction(rotor_type.mass_kg, run.speed_rpm, run.trial_mass_g,
+    force_n, load_n = trial_force(rotor_type.mass_kg, run.speed_rpm, run.trial_mass_g,
                                            run.trial_radius_mm, planes=rotor_type.planes)
     if force_n <= TRIAL_FORCE_WARNING_FRACTION * load_n:
         return None
