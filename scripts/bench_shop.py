@@ -6,8 +6,8 @@ SQLite file filled by the demo generator's bulk history
 (default: ``bench-shops`` in the system temp folder) under the job count, so a second
 bench run, or another part in the same run, reuses it instead of spending minutes on the
 100 000-job shop again. A kept shop is brought up to the current models first: missing
-tables and indexes are created and, when its job facts are empty, they are rebuilt
-(``shopapp measures rebuild``'s SQL), then ANALYZE.
+tables and indexes are created and, when its job or run facts are empty, they are
+rebuilt (``shopapp measures rebuild``'s SQL), then ANALYZE.
 """
 
 from __future__ import annotations
@@ -87,12 +87,12 @@ def shop_app(jobs: int) -> tuple[Any, dict[str, Any]]:
 
 
 def _bring_up_to_date(app: Any) -> float:
-    """Missing tables and indexes of the current models, job facts when empty; seconds."""
+    """Missing tables and indexes of the current models, facts when empty; seconds."""
     from sqlalchemy import func, select
 
     from shopapp.core.extensions import get_database
     from shopapp.jobs import facts
-    from shopapp.models import Base, JobFact
+    from shopapp.models import Base, JobFact, RunFact
 
     start = time.perf_counter()
     with app.app_context():
@@ -106,6 +106,8 @@ def _bring_up_to_date(app: Any) -> float:
         with database.session() as sess:
             if not sess.scalar(select(func.count()).select_from(JobFact)):
                 facts.rebuild(sess)
+            elif not sess.scalar(select(func.count()).select_from(RunFact)):
+                facts.rebuild_run_facts(sess.connection())
         with database.engine.connect() as conn:
             conn.exec_driver_sql("ANALYZE")
             conn.commit()

@@ -1,4 +1,4 @@
-"""``shopapp measures rebuild``: recompute every job's facts for the shop measures.
+"""``shopapp measures rebuild``: recompute every job's and run's facts for the shop measures.
 
 The facts (:mod:`shopapp.jobs.facts`) are kept in step with every change made through
 shopapp; rebuilding is for data written around it (an import, a hand-made SQL change)
@@ -22,8 +22,8 @@ def measures_group() -> None:
     pass
 
 
-@measures_group.command("rebuild", help="Recompute every job's facts from its runs, "
-                        "corrections and transitions (one transaction).")
+@measures_group.command("rebuild", help="Recompute every job's and run's facts from the "
+                        "runs, corrections and transitions (one transaction).")
 @with_appcontext
 @one_line_errors
 def rebuild_command() -> None:

@@ -6,6 +6,10 @@ verdict, rework dates and first initial reading), so a period's figures read one
 per job of the period instead of aggregating every job's runs on every request
 (definitions: :mod:`shopapp.measures.services`; the SQL below computes them exactly as
 those definitions say, with the same date arithmetic, :mod:`shopapp.core.sqltime`).
+A :class:`~shopapp.models.RunFact` row holds one run's gap to the run before it in the
+same segment of its job, whether it is rework and why (machine time,
+:mod:`shopapp.measures.costs`), so a period's machine time reads the runs taken in it
+and nothing else.
 
 How the facts stay true:
 
@@ -16,7 +20,7 @@ How the facts stay true:
 - :func:`refresh_job_fact` does the same for given jobs, for code that writes those
   tables without the ORM (bulk inserts);
 - :func:`rebuild` recomputes every row from scratch (``shopapp measures rebuild``, the
-  bulk demo generator, migration 0014).
+  bulk demo generator, migrations 0014 and 0023).
 
 Imported past jobs (an ``imported_job`` row, :mod:`shopapp.imports`) get no row: the measures
 count the shop's own work in shopapp, and such a job has only a final residual.
@@ -28,13 +32,31 @@ import functools
 from collections.abc import Iterable
 from typing import Any
 
-from sqlalchemy import Connection, Select, Table, case, delete, false, func, insert, select, true
+from sqlalchemy import (
+    Connection,
+    Integer,
+    Select,
+    String,
+    Table,
+    bindparam,
+    case,
+    cast,
+    delete,
+    false,
+    func,
+    insert,
+    literal_column,
+    or_,
+    select,
+    true,
+    union_all,
+)
 from sqlalchemy import event as sa_event
 from sqlalchemy.orm import Session, aliased
 from sqlalchemy.orm.attributes import get_history
 from sqlalchemy.orm.base import PASSIVE_NO_INITIALIZE
 
-from shopapp.core.sqltime import day_number, work_day_index_of_day, year_month
+from shopapp.core.sqltime import day_number, epoch_seconds, work_day_index_of_day, year_month
 from shopapp.jobs import calc as job_calc
 from shopapp.models import (
     Correction,
@@ -44,12 +66,32 @@ from shopapp.models import (
     JobTransition,
     Rotor,
     Run,
+    RunFact,
     RunReading,
 )
 
 # A move back to on_machine from one of these is a reopening (rework).
 REWORK_FROM_STATES: tuple[str, ...] = ("in_tolerance", "certified", "dispatched")
 _CHUNK = 500  # job ids per statement (SQLite allows 32 766 bound values; stay far below)
+
+NO_REASON = "(no reason given)"
+RETURN_REASON = "customer return"
+
+
+def reopen_reason(reason: Any) -> Any:
+    """How a reopening's reason is listed: its text trimmed, or "(no reason given)"."""
+    trimmed = func.trim(reason)
+    return case((trimmed == "", NO_REASON), else_=trimmed)
+
+
+def return_reason(notes: Any) -> Any:
+    """How a customer return is listed: "customer return", with the note written when it
+    was booked in (its first 80 characters) when there is one."""
+    trimmed = func.trim(notes)
+    return case(
+        (trimmed == "", RETURN_REASON),
+        else_=literal_column(f"'{RETURN_REASON}: '", String) + func.substr(trimmed, 1, 80),
+    )
 
 
 @functools.cache  # built once: the flush hook calls it for every flush that touches a job
@@ -171,16 +213,78 @@ def facts_select(*, imported_table: bool = True) -> Select[Any]:
                       .correlate(Job).exists())
 
 
+@functools.cache  # built once per shape: the flush hook runs it on every run change
+def run_facts_select(*, some_jobs: bool) -> Select[Any]:
+    """SELECT of every :class:`RunFact` column, one row per run not struck out.
+
+    ``some_jobs``: only the jobs of the expanding bind parameter ``job_ids``.
+
+    The runs and reopenings (moves back to ``on_machine`` from a finished state) of a
+    job in time order, a reopening before a run at the same moment; the running count
+    of reopenings is the segment of a run (0: before any). The reopening that opened a
+    segment is its first event, so the segment's reason is carried by a window. The gap
+    of a run is its whole seconds since the run before it in its segment (LAG).
+    """
+    run_where: list[Any] = [Run.struck_at.is_(None)]
+    reopen_where: list[Any] = [JobTransition.to_state == "on_machine",
+                               JobTransition.from_state.in_(REWORK_FROM_STATES)]
+    if some_jobs:
+        run_where.append(Run.job_id.in_(bindparam("job_ids", expanding=True)))
+        reopen_where.append(JobTransition.job_id.in_(bindparam("job_ids", expanding=True)))
+    events = union_all(
+        select(Run.job_id.label("job_id"), Run.taken_at.label("at"),
+               literal_column("1", Integer).label("is_run"), Run.id.label("event_id"),
+               cast(literal_column("NULL"), String).label("reason"))
+        .where(*run_where),
+        select(JobTransition.job_id, JobTransition.at, literal_column("0", Integer),
+               JobTransition.id, JobTransition.reason).where(*reopen_where),
+    ).subquery("events")
+    e = events.c
+    order = (e.at, e.is_run, e.event_id)
+    segment = func.sum(1 - e.is_run).over(partition_by=e.job_id, order_by=order,
+                                          rows=(None, 0))
+    numbered = select(e.job_id, e.at, e.is_run, e.event_id, e.reason,
+                      segment.label("seg")).subquery("numbered")
+    n = numbered.c
+    seg_reason = func.first_value(n.reason).over(partition_by=(n.job_id, n.seg),
+                                                 order_by=(n.at, n.is_run, n.event_id))
+    reasoned = select(n.job_id, n.at, n.is_run, n.event_id, n.seg,
+                      seg_reason.label("seg_reason")).subquery("reasoned")
+    r = reasoned.c
+    runs = (select(r.job_id, r.at, r.event_id, r.seg, r.seg_reason,
+                   epoch_seconds(r.at).label("t"))
+            .where(r.is_run == 1).subquery("segment_runs"))
+    previous_t = func.lag(runs.c.t).over(partition_by=(runs.c.job_id, runs.c.seg),
+                                         order_by=(runs.c.t, runs.c.event_id))
+    is_return = Job.kind == "return"
+    columns: dict[str, Any] = {
+        "run_id": runs.c.event_id,
+        "job_id": runs.c.job_id,
+        "taken_at": runs.c.at,
+        "gap_s": runs.c.t - previous_t,
+        "rework": case((or_(runs.c.seg > 0, is_return), 1), else_=0),
+        "reason": case((runs.c.seg > 0, reopen_reason(runs.c.seg_reason)),
+                       (is_return, return_reason(Job.notes)), else_=""),
+    }
+    assert list(columns) == RunFact.__table__.c.keys(), "run_facts_select out of step"
+    return (select(*(c.label(k) for k, c in columns.items()))
+            .select_from(runs).join(Job, Job.id == runs.c.job_id))
+
+
 def _write(conn: Connection, job_ids: Iterable[int] | None, *,
-           imported_table: bool = True) -> int:
-    """Replace the facts of ``job_ids`` (every job when None); how many jobs were asked
-    for (every job's count when None)."""
+           imported_table: bool = True, run_facts: bool = True) -> int:
+    """Replace the facts of ``job_ids`` (every job when None), and their run facts unless
+    ``run_facts`` is false; how many jobs were asked for (every job's count when None)."""
     target: Table = JobFact.__table__  # type: ignore[assignment]  # declared as FromClause
+    runs_target: Table = RunFact.__table__  # type: ignore[assignment]
     names = list(target.c.keys())
+    run_names = list(runs_target.c.keys())
     if job_ids is None:
         conn.execute(delete(target))
         conn.execute(insert(target).from_select(
             names, facts_select(imported_table=imported_table)))
+        if run_facts:
+            rebuild_run_facts(conn)
         # Counted, not rowcount: drivers need not report it for INSERT ... SELECT.
         return conn.scalar(select(func.count()).select_from(target)) or 0
     ids = sorted(set(job_ids))
@@ -188,6 +292,10 @@ def _write(conn: Connection, job_ids: Iterable[int] | None, *,
         chunk = ids[i:i + _CHUNK]
         conn.execute(delete(target).where(target.c.job_id.in_(chunk)))
         conn.execute(insert(target).from_select(names, facts_select().where(Job.id.in_(chunk))))
+        if run_facts:
+            conn.execute(delete(runs_target).where(runs_target.c.job_id.in_(chunk)))
+            conn.execute(insert(runs_target).from_select(
+                run_names, run_facts_select(some_jobs=True)), {"job_ids": chunk})
     return len(ids)
 
 
@@ -205,17 +313,28 @@ def refresh_job_facts(session: Session, job_ids: Iterable[int]) -> None:
     _write(conn, _with_returned(conn, set(job_ids)))
 
 
-def rebuild(session_or_conn: Session | Connection, *, imported_table: bool = True) -> int:
-    """Recompute every job's facts from scratch; the number of jobs.
+def rebuild(session_or_conn: Session | Connection, *, imported_table: bool = True,
+            run_facts: bool = True) -> int:
+    """Recompute every job's facts and every run's from scratch; the number of jobs.
 
-    ``imported_table=False``: migration 0014 only (:func:`facts_select`).
+    ``imported_table=False``, ``run_facts=False``: migration 0014 only, at a revision
+    before ``imported_job`` (:func:`facts_select`) and ``run_fact`` exist.
     """
     if isinstance(session_or_conn, Session):
         session_or_conn.flush()
         conn = session_or_conn.connection()
     else:
         conn = session_or_conn
-    return _write(conn, None, imported_table=imported_table)
+    return _write(conn, None, imported_table=imported_table, run_facts=run_facts)
+
+
+def rebuild_run_facts(conn: Connection) -> int:
+    """Recompute every run's facts from scratch (migration 0023); the number of runs."""
+    target: Table = RunFact.__table__  # type: ignore[assignment]  # declared as FromClause
+    conn.execute(delete(target))
+    conn.execute(insert(target).from_select(list(target.c.keys()),
+                                            run_facts_select(some_jobs=False)))
+    return conn.scalar(select(func.count()).select_from(target)) or 0
 
 
 def _with_returned(conn: Connection, job_ids: set[int]) -> set[int]:

@@ -24,8 +24,10 @@ the reason behind rework time
 money
     rework hours × the shop's ``MACHINE_HOURLY_RATE`` (shown only when it is set).
 
-Everything up to the sums is one SQL query (a running count of reopenings over each
-job's runs and reopenings gives the segment, LAG over the runs of a segment the gaps);
+Each run's gap, segment phase and reason are kept with the run as it is stored
+(``run_fact``, :func:`shopapp.jobs.facts.run_facts_select`: a running count of
+reopenings over each job's runs and reopenings gives the segment, LAG over the runs of
+a segment the gaps); a period's sums are one SQL query over the runs taken in it, and
 no run is loaded into Python.
 """
 
@@ -37,34 +39,15 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-from sqlalchemy import (
-    Integer,
-    String,
-    and_,
-    case,
-    cast,
-    func,
-    literal_column,
-    or_,
-    select,
-    union_all,
-)
+from sqlalchemy import Integer, String, case, cast, func, literal_column, select, union_all
 from sqlalchemy.orm import Session
 
 from shopapp.balancing.numtext import short
 from shopapp.core.errors import ValidationFailed
 from shopapp.measures.periods import EVERYTHING, Period, Scope
-from shopapp.measures.sql import (
-    REWORK_FROM_STATES,
-    epoch_seconds,
-    job_dims,
-    reopen_reason,
-    return_reason,
-    scoped,
-    utc_start,
-)
+from shopapp.measures.sql import fact_dims, scoped_facts, utc_start
 from shopapp.measures.stats import DEFAULT_IDLE_SECONDS, ParetoItem, pareto
-from shopapp.models import Job, JobTransition, Rotor, Run
+from shopapp.models import JobFact, RunFact
 from shopapp.reports.shop_month import ReasonCount
 
 PHASES: tuple[str, ...] = ("first", "rework")
@@ -222,66 +205,26 @@ def machine_seconds(
     if idle_seconds <= 0:
         raise ValidationFailed("idle_seconds", "must be longer than zero")
     start, stop = utc_start(p.start), utc_start(p.end + dt.timedelta(days=1))
-    ran = (select(Run.job_id).distinct().where(Run.taken_at >= start, Run.taken_at < stop,
-                                    Run.struck_at.is_(None))
-           .cte("ran").prefix_with("MATERIALIZED"))
-    is_reopen = and_(JobTransition.to_state == "on_machine",
-                     JobTransition.from_state.in_(REWORK_FROM_STATES),
-                     JobTransition.job_id.in_(select(ran.c.job_id)))
-    # The runs and reopenings of every job that ran in the period, in time order (a
-    # reopening before a run at the same moment); the running count of reopenings is
-    # the segment a run belongs to (0: before any reopening).
-    events = union_all(
-        select(Run.job_id.label("job_id"), Run.taken_at.label("at"),
-               literal_column("1", Integer).label("is_run"), Run.id.label("event_id"),
-               cast(literal_column("NULL"), String).label("reason"))
-        .where(Run.job_id.in_(select(ran.c.job_id)), Run.struck_at.is_(None)),
-        select(JobTransition.job_id, JobTransition.at, literal_column("0", Integer),
-               JobTransition.id, JobTransition.reason).where(is_reopen),
-    ).subquery("events")
-    e = events.c
-    order = (e.at, e.is_run, e.event_id)
-    segment = func.sum(1 - e.is_run).over(partition_by=e.job_id, order_by=order,
-                                          rows=(None, 0))
-    numbered = (select(e.job_id, e.at, e.is_run, e.event_id, e.reason, segment.label("seg"))
-                .cte("numbered").prefix_with("MATERIALIZED"))
-    n = numbered.c
-    # The reopening that opened a segment is its first event, so the segment's reason is
-    # carried by a window, not looked up by a join (a join on (job, segment) against the
-    # ranked reopenings was planned by SQLite as a scan per run: 122 s for a year at
-    # 100 000 jobs).
-    seg_reason = func.first_value(n.reason).over(partition_by=(n.job_id, n.seg),
-                                                 order_by=(n.at, n.is_run, n.event_id))
-    reasoned = select(n.job_id, n.at, n.is_run, n.event_id, n.seg,
-                      seg_reason.label("seg_reason")).subquery("reasoned")
-    r = reasoned.c
-    runs = (select(r.job_id, r.at.label("taken_at"), r.event_id.label("run_id"), r.seg,
-                   r.seg_reason, epoch_seconds(r.at).label("t"))
-            .where(r.is_run == 1).subquery("visit_runs"))
-    previous_t = func.lag(runs.c.t).over(partition_by=(runs.c.job_id, runs.c.seg),
-                                         order_by=(runs.c.t, runs.c.run_id))
-    gaps = select(runs.c.job_id, runs.c.seg, runs.c.seg_reason, runs.c.taken_at,
-                  (runs.c.t - previous_t).label("gap")).subquery("gaps")
+    # Each run's gap, rework flag and reason are kept with the run (shopapp.jobs.facts,
+    # run_fact): the period's machine time reads the runs taken in it (from one covering
+    # index), capped at the idle time here so a change of the setting needs no rebuild.
+    # Summed per job first: each dimension repeats one row per job and phase, and the
+    # job's slice columns are looked up once, not once per run.
     idle = literal_column(str(int(idle_seconds)), Integer)
-    counted = case((gaps.c.gap.is_(None), 0), (gaps.c.gap > idle, idle), else_=gaps.c.gap)
-    is_rework = or_(gaps.c.seg > 0, Job.kind == "return")
-    reason = case(
-        (gaps.c.seg > 0, reopen_reason(gaps.c.seg_reason)),
-        (Job.kind == "return", return_reason(Job.notes)),
-        else_="",
+    gap = RunFact.gap_s
+    counted = case((gap.is_(None), 0), (gap > idle, idle), else_=gap)
+    per_job = (
+        select(RunFact.job_id, RunFact.rework, RunFact.reason, func.sum(counted).label("secs"))
+        .where(RunFact.taken_at >= start, RunFact.taken_at < stop)
+        .group_by(RunFact.job_id, RunFact.rework, RunFact.reason)
+        .subquery("per_job")
     )
-    base = scoped(
-        select(
-            *(c.label(n) for n, c in job_dims().items()),
-            case((is_rework, "rework"), else_="first").label("phase"),
-            reason.label("reason"),
-            gaps.c.job_id,
-            counted.label("secs"),
-        )
-        .select_from(gaps)
-        .join(Job, Job.id == gaps.c.job_id)
-        .join(Rotor, Rotor.id == Job.rotor_id)
-        .where(gaps.c.taken_at >= start, gaps.c.taken_at < stop),
+    base = scoped_facts(
+        select(*(c.label(n) for n, c in fact_dims().items()),
+               case((per_job.c.rework == 1, "rework"), else_="first").label("phase"),
+               per_job.c.reason, per_job.c.job_id, per_job.c.secs)
+        .select_from(per_job)
+        .join(JobFact, JobFact.job_id == per_job.c.job_id),
         scope,
     ).cte("machine_time").prefix_with("MATERIALIZED")
 

@@ -41,7 +41,7 @@ from shopapp.models import (
     MachineVerification,
     Rotor,
     RotorType,
-    Run,
+    RunFact,
 )
 from shopapp.reports.shop_month import MachineStatus, ReasonCount, WorseningRotor
 
@@ -200,17 +200,24 @@ def machine_status(
 ) -> list[MachineStatus]:
     """Utilisation in the period and verification status today, one row per machine."""
     start, stop = utc_start(p.start), utc_start(p.end + dt.timedelta(days=1))
+    # Runs not struck out, from the run facts' covering index; counted per job first so
+    # each job's machine is looked up once.
+    per_job = (
+        select(RunFact.job_id, func.count().label("runs"))
+        .where(RunFact.taken_at >= start, RunFact.taken_at < stop)
+        .group_by(RunFact.job_id)
+        .subquery("per_job")
+    )
     use = (
         select(
-            Job.machine_id.label("machine_id"),
-            func.count(Run.id).label("runs"),
-            func.count(func.distinct(Run.job_id)).label("jobs"),
+            JobFact.machine_id.label("machine_id"),
+            func.sum(per_job.c.runs).label("runs"),
+            func.count().label("jobs"),
         )
-        .select_from(Run)
-        .join(Job, Job.id == Run.job_id)
-        .where(Run.taken_at >= start, Run.taken_at < stop, Job.machine_id.is_not(None),
-               Run.struck_at.is_(None))
-        .group_by(Job.machine_id)
+        .select_from(per_job)
+        .join(JobFact, JobFact.job_id == per_job.c.job_id)
+        .where(JobFact.machine_id.is_not(None))
+        .group_by(JobFact.machine_id)
         .subquery("use")
     )
     ranked = select(

@@ -63,7 +63,11 @@ from shopapp.core.sqltime import (
 from shopapp.core.sqltime import (
     year_month as year_month,
 )
+from shopapp.jobs.facts import NO_REASON as NO_REASON
+from shopapp.jobs.facts import RETURN_REASON as RETURN_REASON
 from shopapp.jobs.facts import REWORK_FROM_STATES as REWORK_FROM_STATES
+from shopapp.jobs.facts import reopen_reason as reopen_reason
+from shopapp.jobs.facts import return_reason as return_reason
 from shopapp.measures.periods import Period, Scope
 from shopapp.models import Job, JobFact, JobTransition, Rotor
 
@@ -234,26 +238,6 @@ def reopenings(p: Period) -> AnySelect:
         JobTransition.from_state.in_(REWORK_FROM_STATES),
         JobTransition.at >= utc_start(p.start),
         JobTransition.at < utc_start(p.end + dt.timedelta(days=1)),
-    )
-
-
-NO_REASON = "(no reason given)"
-RETURN_REASON = "customer return"
-
-
-def reopen_reason(reason: Column) -> ColumnElement[str]:
-    """How a reopening's reason is listed: its text trimmed, or "(no reason given)"."""
-    trimmed = func.trim(reason)
-    return case((trimmed == "", NO_REASON), else_=trimmed)
-
-
-def return_reason(notes: Column) -> ColumnElement[str]:
-    """How a customer return is listed: "customer return", with the note written when it
-    was booked in (its first 80 characters) when there is one."""
-    trimmed = func.trim(notes)
-    return case(
-        (trimmed == "", RETURN_REASON),
-        else_=literal_column(f"'{RETURN_REASON}: '", String) + func.substr(trimmed, 1, 80),
     )
 
 

@@ -3,7 +3,7 @@
 from shopapp.models.api import ApiIdempotentReply, ApiToken
 from shopapp.models.base import Base, utcnow
 from shopapp.models.certificates import CERTIFICATE_STATES, AuditEvent, Certificate
-from shopapp.models.facts import JobFact
+from shopapp.models.facts import JobFact, RunFact
 from shopapp.models.imports import IMPORT_KINDS, ImportBatch, ImportedJob
 from shopapp.models.intake import ImportedFile, MachineMapping
 from shopapp.models.jobs import (
@@ -117,6 +117,7 @@ __all__ = [
     "Rotor",
     "RotorType",
     "Run",
+    "RunFact",
     "RunReading",
     "RunUpPoint",
     "RunUpRecord",

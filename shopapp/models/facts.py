@@ -1,16 +1,17 @@
-"""Facts kept per job so the shop measures read one small row per job, not its history.
+"""Facts kept per job and per run so the shop measures read small rows, not history.
 
-A :class:`JobFact` row is derived data: :mod:`shopapp.jobs.facts` computes it from the
-job, its rotor, runs, readings, corrections and transitions (and its customer returns)
-in the same transaction as every change to them, and ``shopapp measures rebuild``
-recomputes all of them from scratch. Nothing else writes it.
+A :class:`JobFact` row (one per job) and the :class:`RunFact` rows (one per stored run)
+are derived data: :mod:`shopapp.jobs.facts` computes them from the job, its rotor, runs,
+readings, corrections and transitions (and its customer returns) in the same
+transaction as every change to them, and ``shopapp measures rebuild`` recomputes all of
+them from scratch. Nothing else writes them.
 """
 
 from __future__ import annotations
 
 import datetime as dt
 
-from sqlalchemy import Date, Float, ForeignKey, Index, Integer, String, text
+from sqlalchemy import Date, Float, ForeignKey, Index, Integer, String, Text, text
 from sqlalchemy.orm import Mapped, mapped_column
 
 from shopapp.models.base import Base, UTCDateTime
@@ -71,3 +72,33 @@ class JobFact(Base):
     initial_unit: Mapped[str | None] = mapped_column(String(8))
     initial_unit_max: Mapped[str | None] = mapped_column(String(8))
     initial_units: Mapped[int] = mapped_column(Integer, nullable=False)
+
+
+class RunFact(Base):
+    """One run that was not struck out, with the gap that ends at it (machine time).
+
+    A job's runs are cut into segments at its reopenings; ``gap_s`` is the whole
+    seconds since the run before it in the same segment (NULL for a segment's first
+    run). The idle-time cap is applied when the measures add the gaps up, so a change
+    of ``MACHINE_IDLE_MINUTES`` needs no rebuild. Definitions:
+    :mod:`shopapp.measures.costs`.
+    """
+
+    __tablename__ = "run_fact"
+    __table_args__ = (
+        # A period's gaps: the runs taken in it, read from the index alone.
+        Index("ix_run_fact_taken_at", "taken_at", "job_id", "gap_s", "rework", "reason"),
+    )
+
+    run_id: Mapped[int] = mapped_column(
+        ForeignKey("run.id", ondelete="CASCADE"), primary_key=True
+    )
+    job_id: Mapped[int] = mapped_column(
+        ForeignKey("job.id", ondelete="CASCADE"), nullable=False, index=True
+    )
+    taken_at: Mapped[dt.datetime] = mapped_column(UTCDateTime(), nullable=False)
+    gap_s: Mapped[int | None] = mapped_column(Integer)
+    # 1: after a reopening, or any run of a customer-return job; 0: first-time work.
+    rework: Mapped[int] = mapped_column(Integer, nullable=False)
+    # Why, for rework: the reopening's reason as listed, or the customer return's; '' else.
+    reason: Mapped[str] = mapped_column(Text, nullable=False)

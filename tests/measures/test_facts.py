@@ -18,9 +18,10 @@ from sqlalchemy import select
 from shopapp.demo.bulk import generate_bulk
 from shopapp.jobs import facts
 from shopapp.jobs.states import reopen
-from shopapp.measures import drift, figures, lists
+from shopapp.measures import costs, drift, figures, lists
 from shopapp.measures.periods import EVERYTHING, Period, Scope
-from shopapp.models import Job, JobFact, JobTransition, Run, RunReading
+from shopapp.measures.stats import machine_time
+from shopapp.models import Job, JobFact, JobTransition, Run, RunFact, RunReading
 from tests import measures_shop
 from tests.measures import raw_reference as raw
 
@@ -97,6 +98,78 @@ def _snapshot(db: Any) -> list[tuple[Any, ...]]:
     return [tuple(r) for r in db.execute(select(*cols).order_by(JobFact.job_id))]
 
 
+def _run_snapshot(db: Any) -> list[tuple[Any, ...]]:
+    cols = list(RunFact.__table__.c)
+    return [tuple(r) for r in db.execute(select(*cols).order_by(RunFact.run_id))]
+
+
+def _python_machine_seconds(db: Any, p: Period, scope: Scope, idle_s: float
+                            ) -> dict[tuple[str, str | None, str], tuple[int, int]]:
+    """Machine time by the definition (shopapp.measures.costs) with stats.machine_time as
+    the arithmetic, each job's runs loaded into Python: runs cut into segments at the
+    job's reopenings (a reopening before a run at the same moment), the gap before a run
+    belongs to the run's UTC day. Keyed like costs.machine_seconds for "all" and "reason"."""
+    start = dt.datetime.combine(p.start, dt.time(0), tzinfo=dt.UTC)
+    stop = dt.datetime.combine(p.end + dt.timedelta(days=1), dt.time(0), tzinfo=dt.UTC)
+    jobs = db.scalars(select(Job).where(Job.id.in_(
+        select(Run.job_id).where(Run.taken_at >= start, Run.taken_at < stop,
+                                 Run.struck_at.is_(None))))).all()
+    secs: dict[tuple[str, str | None, str], float] = {}
+    seen: dict[tuple[str, str | None, str], set[int]] = {}
+    for job in jobs:
+        if any(getattr(job, f"{k}_id") != getattr(scope, f"{k}_id")
+               for k in ("operator", "machine", "customer")
+               if getattr(scope, f"{k}_id") is not None):
+            continue
+        runs = db.execute(select(Run.taken_at, Run.id).where(
+            Run.job_id == job.id, Run.struck_at.is_(None))).all()
+        reopens = db.execute(select(JobTransition.at, JobTransition.reason).where(
+            JobTransition.job_id == job.id, JobTransition.to_state == "on_machine",
+            JobTransition.from_state.in_(facts.REWORK_FROM_STATES))
+            .order_by(JobTransition.at, JobTransition.id)).all()
+        segments: dict[int, list[tuple[dt.datetime, int]]] = {}
+        for taken, run_id in runs:
+            seg = sum(1 for at, _r in reopens if at <= taken)
+            segments.setdefault(seg, []).append((taken, run_id))
+        for seg, items in segments.items():
+            items.sort()
+            times = [t.replace(microsecond=0) for t, _i in items]
+            if seg > 0:
+                text = reopens[seg - 1][1].strip() or facts.NO_REASON
+            elif job.kind == "return":
+                note = (job.notes or "").strip()
+                text = f"{facts.RETURN_REASON}: {note[:80]}" if note else facts.RETURN_REASON
+            else:
+                text = ""
+            phase = "rework" if text else "first"
+            for i, t in enumerate(times):
+                if not start <= t < stop:
+                    continue
+                gap = machine_time(times[i - 1:i + 1], idle_s).seconds if i else 0.0
+                for key in (("all", None, phase), *((("reason", text, phase),) if text else ())):
+                    secs[key] = secs.get(key, 0.0) + gap
+                    seen.setdefault(key, set()).add(job.id)
+    return {k: (round(v), len(seen[k])) for k, v in secs.items()}
+
+
+def test_machine_time_from_run_facts_equals_the_definition_in_python(db, generated) -> None:  # type: ignore[no-untyped-def]
+    # Reference: the definition worked out per job in Python (stats.machine_time over
+    # each segment's runs), on the generated shop with its reopenings and returns.
+    job = db.scalars(select(Job).where(Job.operator_id.is_not(None)).limit(1)).one()
+    compared = 0
+    for scope in (EVERYTHING, Scope(operator_id=job.operator_id)):
+        for p in (Period.month(2025, 11), Period.containing("year", dt.date(2025, 6, 1)),
+                  Period(dt.date(2025, 3, 17), dt.date(2026, 2, 3))):
+            for idle_s in (1800, 600):
+                got = costs.machine_seconds(db, p, scope, idle_seconds=idle_s,
+                                            dims=("all", "reason"))
+                want = _python_machine_seconds(db, p, scope, idle_s)
+                assert got == want, (p, scope, idle_s)
+                compared += sum(v[0] for v in want.values())
+    assert compared > 0
+    assert any(k[0] == "reason" for k in want)  # the shop has rework time with reasons
+
+
 def test_facts_kept_by_each_change_equal_facts_rebuilt_from_scratch(db, shop, make_user) -> None:  # type: ignore[no-untyped-def]
     # The hand shop of tests/measures is written row by row through the ORM: the flush
     # hook keeps the facts. Then a reopening through the use-case, a run's verdict
@@ -115,10 +188,28 @@ def test_facts_kept_by_each_change_equal_facts_rebuilt_from_scratch(db, shop, ma
                    and j.id != done.id)
     shop.job(earlier.rotor, kind="return", return_of_job_id=earlier.id,
              received_on=earlier.received_on + dt.timedelta(days=20))
+    # Run facts: a run struck out, a run after the reopening, the return's note changed.
+    struck = db.scalars(select(Run).where(Run.purpose == "trial")).first()
+    struck.struck_at = measures_shop.at("2026-10-20")
+    struck.struck_by_id = hs.users["A"].id
+    struck.struck_reason = "wrong plane logged"
+    after = Run(job_id=done.id, seq=99, purpose="check", speed_rpm=600.0,
+                within_tolerance=True, taken_at=dt.datetime.now(dt.UTC), by_id=hs.users["A"].id)
+    db.add(after)
+    returned = db.scalars(select(Job).where(Job.kind == "return")).first()
+    returned.notes = "  rubbing noise after fitting  "
     db.flush()
     kept = _snapshot(db)
+    kept_runs = _run_snapshot(db)
     assert facts.rebuild(db) == len(kept) == len(db.scalars(select(Job.id)).all())
     assert _snapshot(db) == kept
+    assert _run_snapshot(db) == kept_runs
+    assert db.get(RunFact, struck.id) is None
+    assert len(kept_runs) == len(db.scalars(select(Run.id).where(Run.struck_at.is_(None))).all())
+    fact = db.get(RunFact, after.id)
+    assert (fact.rework, fact.reason) == (1, "weight found loose")
+    assert {f.reason for f in db.scalars(select(RunFact).where(
+        RunFact.job_id == returned.id))} == {"customer return: rubbing noise after fitting"}
     # ... and the changes did reach the facts:
     f = db.get(JobFact, done.id)
     db.refresh(f)
