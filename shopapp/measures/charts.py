@@ -22,7 +22,7 @@ from shopapp.measures.costs import ReasonCost
 from shopapp.measures.drift import MachineDrift
 from shopapp.measures.figures import DIMENSION_LABELS, SliceRow
 from shopapp.measures.signals import UnitFunnel
-from shopapp.measures.stats import PChart, funnel_curve, funnel_limits
+from shopapp.measures.stats import PChart, funnel_limits_at
 
 _MONTHS = ("Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Oct", "Nov", "Dec")
 RATE_TITLES = {"rework_rate": "Rework", "first_pass_rate": "First pass"}
@@ -51,13 +51,9 @@ def _vertices(n_max: int, unit_ns: Sequence[int]) -> list[int]:
 
 
 def funnel_bands(target: float, n_max: int, unit_ns: Sequence[int]) -> list[FunnelBand]:
-    """Limit-line vertices: exact binomial limits (:func:`funnel_curve`) at the chosen n."""
-    wanted = _vertices(n_max, unit_ns)
-    if n_max <= 5000:
-        curve = {lim.n: lim for lim in funnel_curve(target, n_max)}
-        limits = [curve[n] for n in wanted]
-    else:  # a very large unit: only the vertices, one at a time
-        limits = [funnel_limits(target, n) for n in wanted]
+    """Limit-line vertices: exact binomial limits (:func:`funnel_limits_at`) at the
+    chosen n, all in one call."""
+    limits = funnel_limits_at(target, _vertices(n_max, unit_ns))
     return [FunnelBand(lim.n, *lim.limits_95, *lim.limits_99_8) for lim in limits]
 
 

@@ -41,6 +41,7 @@ from shopapp.measures.stats import (
     funnel,
     funnel_curve,
     funnel_limits,
+    funnel_limits_at,
     machine_time,
     p_chart,
     pareto,
@@ -365,6 +366,23 @@ def test_funnel_curve_matches_the_exact_quantiles_at_every_n() -> None:
     part = funnel_curve(0.15, 40, n_min=30)
     assert [c.n for c in part] == list(range(30, 41))
     json.dumps([c.as_json() for c in part], allow_nan=False)
+
+
+def test_funnel_limits_at_many_n_are_the_tail_quantiles_of_each() -> None:
+    # Reference: scipy.stats.binom.sf/cdf tail sums at each n (not the ppf the module
+    # uses), for vertices as a funnel of a large unit asks for them (past 5 000 jobs).
+    ns = [1, 7, 80, 999, 5_001, 12_345, 40_000]
+    p = 0.07
+    got = funnel_limits_at(p, ns)
+    assert [g.n for g in got] == ns
+    for g in got:
+        n = g.n
+        low, high = g.counts_99_8
+        assert scipy.stats.binom.sf(high, n, p) <= 0.001 < scipy.stats.binom.sf(high - 1, n, p)
+        assert scipy.stats.binom.cdf(low - 1, n, p) < 0.001 <= scipy.stats.binom.cdf(low, n, p)
+        assert g == funnel_limits(p, n)
+    with pytest.raises(StatisticsInputError, match="at least 1"):
+        funnel_limits_at(p, [5, 0])
 
 
 def test_funnel_target_is_the_pooled_rate_and_flags_with_sentences() -> None:

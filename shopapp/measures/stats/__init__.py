@@ -52,6 +52,7 @@ from shopapp.measures.stats.funnels import (
     funnel,
     funnel_curve,
     funnel_limits,
+    funnel_limits_at,
     p_chart,
 )
 from shopapp.measures.stats.rates import (
@@ -103,6 +104,7 @@ __all__ = [
     "funnel",
     "funnel_curve",
     "funnel_limits",
+    "funnel_limits_at",
     "machine_time",
     "p_chart",
     "pareto",
