@@ -45,6 +45,10 @@ SHADE = colors.HexColor("#eef1f4")
 PAGE_SIZE = A4
 MARGIN = 18 * mm
 HEADER_GAP = 10 * mm  # space the running header and footer take inside the margins
+# Where a page's body may go: below BODY_TOP from the page's top edge, above BODY_BOTTOM from
+# its bottom edge (the platypus frame of build_pdf, its 6 pt padding included).
+BODY_TOP = MARGIN + HEADER_GAP - 4 * mm + 6
+BODY_BOTTOM = MARGIN + HEADER_GAP - 6 * mm + 6
 
 # Symbols our texts use that the standard fonts (Windows-1252) cannot show.
 _REPLACEMENTS = {
@@ -318,6 +322,19 @@ def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -
     canvas.setFillColor(INK)
     canvas.drawRightString(width - MARGIN, bottom, f"page {number} of {total}")
     canvas.restoreState()
+
+
+def document_canvas(meta: DocumentMeta, out: BytesIO,
+                    pagesize: tuple[float, float] = PAGE_SIZE) -> Canvas:
+    """A canvas for a document drawn without platypus: reproducible, with ``meta``'s PDF
+    info, and the running header and footer ("page x of y") drawn on each page at save."""
+    canvas = _canvas_class(meta)(out, pagesize=pagesize)
+    canvas.setTitle(pdf_text(meta.title))
+    canvas.setAuthor(pdf_text(meta.author))
+    canvas.setSubject(pdf_text(meta.subject))
+    canvas.setKeywords(pdf_text(meta.keywords))
+    canvas.setCreator("shopapp")
+    return canvas
 
 
 def build_pdf(
