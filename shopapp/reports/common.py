@@ -146,47 +146,6 @@ def cell(value: object, style: ParagraphStyle, width: float | None,
     return Paragraph(esc(value), style)
 
 
-# What a paragraph in the story may fill: the page less its margins and the frame's padding
-# (platypus's default 6 pt each side).
-TEXT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN - 12
-
-
-class TextLine(Flowable):
-    """One line of plain text in a paragraph style, drawn where a one-line Paragraph of
-    the same style would draw it (first baseline ``fontSize`` below the top, height
-    ``leading``, the style's space before and after), without parsing or line breaking."""
-
-    def __init__(self, text: str, style: ParagraphStyle) -> None:
-        super().__init__()
-        self.text = text
-        self.style = style
-        self.spaceBefore = style.spaceBefore
-        self.spaceAfter = style.spaceAfter
-
-    def wrap(self, availWidth: float, availHeight: float) -> tuple[float, float]:
-        self.width = availWidth
-        self.height = self.style.leading
-        return self.width, self.height
-
-    def draw(self) -> None:
-        st = self.style
-        self.canv.setFillColor(st.textColor)
-        self.canv.setFont(st.fontName, st.fontSize, st.leading)
-        self.canv.drawString(0, self.height - st.fontSize, self.text)
-
-
-def text_flowable(value: object, style: ParagraphStyle, width: float = TEXT_WIDTH) -> Flowable:
-    """``value`` as a :class:`TextLine` when it fits on one line of ``width``, else a Paragraph.
-
-    For plain text in left-aligned styles without border or background; spaces are
-    folded as a paragraph folds them. ``width``: what the paragraph may fill.
-    """
-    line = " ".join(pdf_text(str(value)).split())
-    if line and stringWidth(line, style.fontName, style.fontSize) <= width - 0.01:
-        return TextLine(line, style)
-    return Paragraph(esc(value), style)
-
-
 def grid_table(
     rows: Sequence[Sequence[Any]],
     col_widths: Sequence[float] | None = None,
