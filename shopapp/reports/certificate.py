@@ -188,7 +188,7 @@ class CertificateData:
 
         Schema 1 data has no schema-2 keys (its stored JSON stays byte for byte).
         """
-        out = _rounded(dataclasses.asdict(self))
+        out = _rounded(self)
         if self.schema < 2:
             for key in SCHEMA_2_FIELDS:
                 out.pop(key)
@@ -223,11 +223,20 @@ def _round(value: float) -> float:
     return 0.0 if out == 0 else out  # no "-0.0" in the canonical text
 
 
+@functools.cache
+def _field_names(cls: type) -> tuple[str, ...]:
+    return tuple(f.name for f in dataclasses.fields(cls))
+
+
 def _rounded(obj: Any) -> Any:
+    """``obj`` as plain JSON values: dataclasses as dicts (as ``dataclasses.asdict`` makes
+    them, without its deep copy of every value), tuples as lists, floats rounded."""
     if isinstance(obj, bool):
         return obj
     if isinstance(obj, float):
         return _round(obj)
+    if dataclasses.is_dataclass(obj):
+        return {k: _rounded(getattr(obj, k)) for k in _field_names(type(obj))}
     if isinstance(obj, dict):
         return {k: _rounded(v) for k, v in obj.items()}
     if isinstance(obj, list | tuple):
