@@ -14,8 +14,8 @@ The pages look like our platypus documents: same page, margins, running header a
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 from io import BytesIO
 
 from reportlab.lib.colors import Color
@@ -46,6 +46,24 @@ CELL_PAD_X = 3.0
 CELL_PAD_Y = 2.0
 
 
+# Every character pdf_text lets through: Windows-1252, control characters included.
+_CP1252 = bytes(range(256)).decode("cp1252", "ignore")
+
+
+@functools.cache
+def _glyph_widths(font: str) -> dict[str, int]:
+    """The advance width of each Windows-1252 character in ``font``, in 1/1000 of its size
+    (the standard fonts' widths are whole numbers of these units)."""
+    return {ch: round(stringWidth(ch, font, 1000)) for ch in _CP1252}
+
+
+def text_width(text: str, font: str, size: float) -> float:
+    """Width of ``text`` (already through ``pdf_text``) in points, as reportlab's
+    ``stringWidth`` gives it (the same sum, in the same order), without encoding the text
+    on every call: that cost more than the rest of laying out a table cell."""
+    return sum(map(_glyph_widths(font).__getitem__, text)) * 0.001 * size
+
+
 def wrap(text: str, font: str, size: float, width: float) -> list[str]:
     """``text`` (made printable, runs of spaces folded) in lines no wider than ``width``.
 
@@ -56,14 +74,14 @@ def wrap(text: str, font: str, size: float, width: float) -> list[str]:
     line = " ".join(words)
     if not line:
         return []
-    if stringWidth(line, font, size) <= width:
+    if text_width(line, font, size) <= width:
         return [line]
-    space = stringWidth(" ", font, size)
+    space = text_width(" ", font, size)
     lines: list[str] = []
     current: list[str] = []
     used = 0.0
     for word in words:
-        w = stringWidth(word, font, size)
+        w = text_width(word, font, size)
         if current and used + space + w <= width:
             current.append(word)
             used += space + w
@@ -72,11 +90,11 @@ def wrap(text: str, font: str, size: float, width: float) -> list[str]:
             lines.append(" ".join(current))
         while w > width:  # cut an overlong word, at least one character a line
             cut = len(word) - 1
-            while cut > 1 and stringWidth(word[:cut], font, size) > width:
+            while cut > 1 and text_width(word[:cut], font, size) > width:
                 cut -= 1
             lines.append(word[:cut])
             word = word[cut:]
-            w = stringWidth(word, font, size)
+            w = text_width(word, font, size)
         current, used = [word], w
     lines.append(" ".join(current))
     return lines
@@ -137,7 +155,7 @@ class Text(Block):
         for line in self.lines:
             left = x
             if self.align != "left":
-                spare = self.width - stringWidth(line, st.fontName, st.fontSize)
+                spare = self.width - text_width(line, st.fontName, st.fontSize)
                 left += spare if self.align == "right" else spare / 2
             text.setTextOrigin(left, y)
             text.textLine(line)
@@ -154,11 +172,8 @@ class Text(Block):
         return head, tail
 
 
-@dataclass(frozen=True)
-class _Cell:
-    lines: list[str]
-    bold: bool
-    right: bool
+# A grid cell: its lines, whether bold (heading row, label column), whether right-aligned.
+_Cell = tuple[list[str], bool, bool]
 
 
 class Grid(Block):
@@ -175,19 +190,21 @@ class Grid(Block):
         self.header_rows = header_rows
         self.label_column = label_column
         plain, bold = STYLES.cell, STYLES.cell_bold
+        line_height = plain.leading  # the bold cell style has the same
         self.rows: list[list[_Cell]] = []
         self.row_heights: list[float] = []
         for r, row in enumerate(rows):
-            cells = []
+            cells: list[_Cell] = []
+            most = 1
             for c, value in enumerate(row):
                 is_bold = r < header_rows or (label_column and c == 0)
                 st = bold if is_bold else plain
                 right = align_right_from is not None and c >= align_right_from and r >= header_rows
-                cells.append(_Cell(wrap(value, st.fontName, st.fontSize,
-                                        self.widths[c] - 2 * CELL_PAD_X), is_bold, right))
+                lines = wrap(value, st.fontName, st.fontSize, self.widths[c] - 2 * CELL_PAD_X)
+                most = max(most, len(lines))
+                cells.append((lines, is_bold, right))
             self.rows.append(cells)
-            self.row_heights.append(
-                max(1, *(len(cell.lines) for cell in cells)) * plain.leading + 2 * CELL_PAD_Y)
+            self.row_heights.append(most * line_height + 2 * CELL_PAD_Y)
         self.height = sum(self.row_heights)
 
     def _part(self, rows: list[list[_Cell]], heights: list[float]) -> Grid:
@@ -237,20 +254,21 @@ class Grid(Block):
         plain, bold = STYLES.cell, STYLES.cell_bold
         text = canvas.beginText()
         text.setFillColor(plain.textColor)
-        font = ""
+        current = None
         y = top
         for row, h in zip(self.rows, self.row_heights, strict=True):
-            for c, cell in enumerate(row):
-                st = bold if cell.bold else plain
-                if st.fontName != font:
+            for c, (lines, is_bold, right) in enumerate(row):
+                st = bold if is_bold else plain
+                if st is not current:
                     text.setFont(st.fontName, st.fontSize, st.leading)
-                    font = st.fontName
+                    current = st
                 base = y - CELL_PAD_Y - st.fontSize
-                for line in cell.lines:
-                    left = edges[c] + CELL_PAD_X
-                    if cell.right:
-                        left = edges[c + 1] - CELL_PAD_X - stringWidth(
+                for line in lines:
+                    if right:
+                        left = edges[c + 1] - CELL_PAD_X - text_width(
                             line, st.fontName, st.fontSize)
+                    else:
+                        left = edges[c] + CELL_PAD_X
                     text.setTextOrigin(left, base)
                     text.textLine(line)
                     base -= st.leading

@@ -14,7 +14,7 @@ from reportlab.pdfbase.pdfmetrics import stringWidth
 
 from shopapp.reports import certificate as report
 from shopapp.reports.common import MARGIN, PAGE_SIZE
-from shopapp.reports.sheet import wrap
+from shopapp.reports.sheet import text_width, wrap
 from tests.reports.samples import certificate_data
 
 Run = tuple[str, float, float, float, str]  # font, size, x, y, text
@@ -44,6 +44,18 @@ def _text(pdf: bytes) -> str:
 
 def _squeezed(text: str) -> str:
     return "".join(text.split())
+
+
+def test_text_width_is_reportlabs_string_width() -> None:
+    # reportlab's stringWidth is the reference, on every Windows-1252 character.
+    chars = bytes(range(256)).decode("cp1252", "ignore")
+    texts = [chars, "Correction radius, plane 1", "g·mm 30° µm Ø10 – “q”", "", "\x07 tab\t"]
+    texts += [chars[k::7] * 3 for k in range(7)]
+    for font in ("Helvetica", "Helvetica-Bold", "Courier"):
+        for size in (7.5, 8, 8.5, 9, 10.5, 12, 16):
+            for t in texts:
+                assert text_width(t, font, size) == pytest.approx(
+                    stringWidth(t, font, size), rel=1e-12, abs=1e-12), (font, size, t)
 
 
 @pytest.mark.parametrize("text", [
