@@ -100,6 +100,37 @@ def wrap(text: str, font: str, size: float, width: float) -> list[str]:
     return lines
 
 
+class Page:
+    """A page being drawn: its canvas, and the one text object every text block on it writes
+    into, drawn over the page's rules and shading when the page is done (a text object per
+    block, each with its font and colour set anew, cost more than the lines in it)."""
+
+    def __init__(self, canvas: Canvas) -> None:
+        self.canvas = canvas
+        self.text = canvas.beginText()
+        self._style: ParagraphStyle | None = None
+        self._font: tuple[str, float, float] | None = None
+        self._colour: Color | None = None
+
+    def write(self, style: ParagraphStyle, x: float, y: float, line: str) -> None:
+        """One line of text in ``style`` with its baseline starting at (``x``, ``y``)."""
+        if style is not self._style:
+            font = (style.fontName, style.fontSize, style.leading)
+            if font != self._font:
+                self.text.setFont(*font)
+                self._font = font
+            if style.textColor != self._colour:
+                self.text.setFillColor(style.textColor)
+                self._colour = style.textColor
+            self._style = style
+        self.text.setTextOrigin(x, y)
+        self.text.textLine(line)
+
+    def finish(self) -> None:
+        """Draw the page's texts (over everything else drawn on it)."""
+        self.canvas.drawText(self.text)
+
+
 class Block:
     """Something placed on a page: its height (points), the space it wants above and below."""
 
@@ -107,7 +138,7 @@ class Block:
     space_before: float = 0.0
     space_after: float = 0.0
 
-    def draw(self, canvas: Canvas, x: float, top: float) -> None:
+    def draw(self, page: Page, x: float, top: float) -> None:
         """Draw with the top left corner at (``x``, ``top``)."""
         raise NotImplementedError
 
@@ -122,7 +153,7 @@ class Gap(Block):
     def __init__(self, height: float) -> None:
         self.space_before = height
 
-    def draw(self, canvas: Canvas, x: float, top: float) -> None:
+    def draw(self, page: Page, x: float, top: float) -> None:
         return None
 
 
@@ -144,23 +175,16 @@ class Text(Block):
         self.space_before = style.spaceBefore
         self.space_after = style.spaceAfter
 
-    def draw(self, canvas: Canvas, x: float, top: float) -> None:
+    def draw(self, page: Page, x: float, top: float) -> None:
         st = self.style
-        if not self.lines:
-            return
-        text = canvas.beginText()
-        text.setFont(st.fontName, st.fontSize, st.leading)
-        text.setFillColor(st.textColor)
         y = top - st.fontSize
         for line in self.lines:
             left = x
             if self.align != "left":
                 spare = self.width - text_width(line, st.fontName, st.fontSize)
                 left += spare if self.align == "right" else spare / 2
-            text.setTextOrigin(left, y)
-            text.textLine(line)
+            page.write(st, left, y, line)
             y -= st.leading
-        canvas.drawText(text)
 
     def split(self, room: float) -> tuple[Block, Block] | None:
         n = int(room // self.style.leading)
@@ -227,7 +251,8 @@ class Grid(Block):
                           self.row_heights[:h] + self.row_heights[n:])
         return head, tail
 
-    def draw(self, canvas: Canvas, x: float, top: float) -> None:
+    def draw(self, page: Page, x: float, top: float) -> None:
+        canvas = page.canvas
         width = sum(self.widths)
         edges = [x]
         for w in self.widths:
@@ -252,16 +277,11 @@ class Grid(Block):
         canvas.restoreState()
 
         plain, bold = STYLES.cell, STYLES.cell_bold
-        text = canvas.beginText()
-        text.setFillColor(plain.textColor)
-        current = None
+        write = page.write
         y = top
         for row, h in zip(self.rows, self.row_heights, strict=True):
             for c, (lines, is_bold, right) in enumerate(row):
                 st = bold if is_bold else plain
-                if st is not current:
-                    text.setFont(st.fontName, st.fontSize, st.leading)
-                    current = st
                 base = y - CELL_PAD_Y - st.fontSize
                 for line in lines:
                     if right:
@@ -269,11 +289,9 @@ class Grid(Block):
                             line, st.fontName, st.fontSize)
                     else:
                         left = edges[c] + CELL_PAD_X
-                    text.setTextOrigin(left, base)
-                    text.textLine(line)
+                    write(st, left, base, line)
                     base -= st.leading
             y -= h
-        canvas.drawText(text)
 
 
 class Figures(Block):
@@ -285,8 +303,9 @@ class Figures(Block):
         self.pad = pad
         self.height = max((f.height for f in self.figures), default=0.0) + 2 * pad
 
-    def draw(self, canvas: Canvas, x: float, top: float) -> None:
+    def draw(self, page: Page, x: float, top: float) -> None:
         share = self.width / max(1, len(self.figures))
+        canvas = page.canvas
         for k, fig in enumerate(self.figures):
             canvas.saveState()
             canvas.translate(x + k * share + (share - fig.width) / 2, top - self.pad - fig.height)
@@ -302,13 +321,13 @@ def stack_height(blocks: Sequence[Block]) -> float:
     return total - blocks[0].space_before - blocks[-1].space_after
 
 
-def draw_stack(canvas: Canvas, blocks: Sequence[Block], x: float, top: float) -> None:
+def draw_stack(page: Page, blocks: Sequence[Block], x: float, top: float) -> None:
     """Draw ``blocks`` one under the other from ``top`` (as :func:`stack_height` counts)."""
     y = top
     for k, b in enumerate(blocks):
         if k:
             y -= b.space_before
-        b.draw(canvas, x, y)
+        b.draw(page, x, y)
         y -= b.height + b.space_after
 
 
@@ -319,9 +338,9 @@ class Columns(Block):
         self.columns = [(dx, list(blocks)) for dx, blocks in columns]
         self.height = max(stack_height(blocks) for _, blocks in self.columns)
 
-    def draw(self, canvas: Canvas, x: float, top: float) -> None:
+    def draw(self, page: Page, x: float, top: float) -> None:
         for dx, blocks in self.columns:
-            draw_stack(canvas, blocks, x + dx, top)
+            draw_stack(page, blocks, x + dx, top)
 
 
 class Boxed(Block):
@@ -341,7 +360,8 @@ class Boxed(Block):
         if style is not None:
             self.space_before, self.space_after = style.spaceBefore, style.spaceAfter
 
-    def draw(self, canvas: Canvas, x: float, top: float) -> None:
+    def draw(self, page: Page, x: float, top: float) -> None:
+        canvas = page.canvas
         canvas.saveState()
         canvas.setStrokeColor(INK)
         canvas.setLineWidth(self.line_width)
@@ -350,7 +370,7 @@ class Boxed(Block):
         canvas.rect(x, top - self.height, self.width, self.height, stroke=1,
                     fill=int(self.fill is not None))
         canvas.restoreState()
-        draw_stack(canvas, self.blocks, x + self.pad, top - self.pad)
+        draw_stack(page, self.blocks, x + self.pad, top - self.pad)
 
 
 class Custom(Block):
@@ -360,8 +380,8 @@ class Custom(Block):
         self.height = height
         self.paint = paint
 
-    def draw(self, canvas: Canvas, x: float, top: float) -> None:
-        self.paint(canvas, x, top)
+    def draw(self, page: Page, x: float, top: float) -> None:
+        self.paint(page.canvas, x, top)
 
 
 class Sheet:
@@ -374,9 +394,12 @@ class Sheet:
         self.top = PAGE_SIZE[1] - BODY_TOP
         self.bottom = BODY_BOTTOM
         self.y = self.top
+        self.page = Page(self.canvas)
 
     def _new_page(self) -> None:
+        self.page.finish()
         self.canvas.showPage()
+        self.page = Page(self.canvas)
         self.y = self.top
 
     def place(self, *blocks: Block, keep: bool = True) -> None:
@@ -396,15 +419,16 @@ class Sheet:
             parts = block.split(self.y - self.bottom)
             if parts is not None:
                 head, block = parts
-                head.draw(self.canvas, self.left, self.y)
+                head.draw(self.page, self.left, self.y)
             elif self.y == self.top:
                 break  # taller than a page and cannot split: drawn as it is
             self._new_page()
-        block.draw(self.canvas, self.left, self.y)
+        block.draw(self.page, self.left, self.y)
         self.y -= block.height + block.space_after
 
     def pdf(self) -> bytes:
         """Finish the last page and the document; the PDF bytes."""
+        self.page.finish()
         self.canvas.showPage()
         self.canvas.save()
         return self._buf.getvalue()
