@@ -19,6 +19,7 @@ from collections.abc import Callable, Sequence
 from io import BytesIO
 
 from reportlab.lib.colors import Color
+from reportlab.lib.rl_accel import escapePDF, fp_str
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
@@ -48,6 +49,9 @@ CELL_PAD_Y = 2.0
 
 # Every character pdf_text lets through: Windows-1252, control characters included.
 _CP1252 = bytes(range(256)).decode("cp1252", "ignore")
+# Control characters that are not white space print as "?" (the standard fonts have no
+# glyph for them), as pdf_text prints what Windows-1252 lacks; white space separates words.
+_CONTROLS = str.maketrans({c: "?" for c in (*range(32), 127) if not chr(c).isspace()})
 
 
 @functools.cache
@@ -65,12 +69,12 @@ def text_width(text: str, font: str, size: float) -> float:
 
 
 def wrap(text: str, font: str, size: float, width: float) -> list[str]:
-    """``text`` (made printable, runs of spaces folded) in lines no wider than ``width``.
+    """``text`` (made printable, runs of white space folded) in lines no wider than ``width``.
 
     Lines break between words; a word wider than a whole line is cut where it reaches the
     edge (a serial number or URL with no spaces must not run off the page).
     """
-    words = pdf_text(text).split()
+    words = pdf_text(text).translate(_CONTROLS).split()
     line = " ".join(words)
     if not line:
         return []
@@ -101,34 +105,49 @@ def wrap(text: str, font: str, size: float, width: float) -> list[str]:
 
 
 class Page:
-    """A page being drawn: its canvas, and the one text object every text block on it writes
-    into, drawn over the page's rules and shading when the page is done (a text object per
-    block, each with its font and colour set anew, cost more than the lines in it)."""
+    """A page being drawn: its canvas, and the text operators of every line on it, written
+    as one PDF text object over the page's rules and shading when the page is done.
 
-    def __init__(self, canvas: Canvas) -> None:
+    A line is written as the operators reportlab's text object writes for it (text matrix,
+    then the Windows-1252 bytes of the text shown), without the object's general path: font
+    lookup, encoding through its codec and substitution fonts for every line cost more
+    than the rest of the certificate's layout. ``wrap`` hands over only Windows-1252 text
+    without control characters, the case where the two ways write the same bytes
+    (``tests/reports/test_sheet.py`` compares them on pixels).
+    """
+
+    def __init__(self, canvas: Canvas, fonts: dict[str, str]) -> None:
         self.canvas = canvas
-        self.text = canvas.beginText()
+        self._fonts = fonts  # font name -> the document's resource name (/F1, ...)
+        self._ops: list[str] = []
         self._style: ParagraphStyle | None = None
-        self._font: tuple[str, float, float] | None = None
+        self._font: tuple[str, float] | None = None
         self._colour: Color | None = None
 
     def write(self, style: ParagraphStyle, x: float, y: float, line: str) -> None:
         """One line of text in ``style`` with its baseline starting at (``x``, ``y``)."""
+        ops = self._ops
         if style is not self._style:
-            font = (style.fontName, style.fontSize, style.leading)
+            font = (style.fontName, style.fontSize)
             if font != self._font:
-                self.text.setFont(*font)
+                name = self._fonts.get(style.fontName)
+                if name is None:
+                    name = self.canvas._doc.getInternalFontName(style.fontName)
+                    self._fonts[style.fontName] = name
+                ops.append(f"{name} {fp_str(style.fontSize)} Tf")
                 self._font = font
-            if style.textColor != self._colour:
-                self.text.setFillColor(style.textColor)
-                self._colour = style.textColor
+            colour = style.textColor
+            if colour != self._colour:
+                ops.append(f"{fp_str(colour.red, colour.green, colour.blue)} rg")
+                self._colour = colour
             self._style = style
-        self.text.setTextOrigin(x, y)
-        self.text.textLine(line)
+        ops.append(f"1 0 0 1 {fp_str(x, y)} Tm ({escapePDF(line.encode('cp1252'))}) Tj")
 
     def finish(self) -> None:
         """Draw the page's texts (over everything else drawn on it)."""
-        self.canvas.drawText(self.text)
+        if self._ops:
+            self.canvas.addLiteral("BT\n" + "\n".join(self._ops) + "\nET")
+            self._ops = []
 
 
 class Block:
@@ -394,12 +413,13 @@ class Sheet:
         self.top = PAGE_SIZE[1] - BODY_TOP
         self.bottom = BODY_BOTTOM
         self.y = self.top
-        self.page = Page(self.canvas)
+        self._fonts: dict[str, str] = {}
+        self.page = Page(self.canvas, self._fonts)
 
     def _new_page(self) -> None:
         self.page.finish()
         self.canvas.showPage()
-        self.page = Page(self.canvas)
+        self.page = Page(self.canvas, self._fonts)
         self.y = self.top
 
     def place(self, *blocks: Block, keep: bool = True) -> None:
