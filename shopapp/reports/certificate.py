@@ -235,7 +235,7 @@ def _rounded(obj: Any) -> Any:
         return obj
     if isinstance(obj, float):
         return _round(obj)
-    if dataclasses.is_dataclass(obj):
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
         return {k: _rounded(getattr(obj, k)) for k in _field_names(type(obj))}
     if isinstance(obj, dict):
         return {k: _rounded(v) for k, v in obj.items()}
