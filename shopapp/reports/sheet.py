@@ -141,7 +141,9 @@ class Page:
                 ops.append(f"{fp_str(colour.red, colour.green, colour.blue)} rg")
                 self._colour = colour
             self._style = style
-        ops.append(f"1 0 0 1 {fp_str(x, y)} Tm ({escapePDF(line.encode('cp1252'))}) Tj")
+        # positions to 1/1000 pt (reportlab's fp_str, to 4 or 5 digits, cost more than the
+        # rest of the line; a thousandth of a point is far below a printer's dot)
+        ops.append(f"1 0 0 1 {x:.3f} {y:.3f} Tm ({escapePDF(line.encode('cp1252'))}) Tj")
 
     def finish(self) -> None:
         """Draw the page's texts (over everything else drawn on it)."""
@@ -286,13 +288,18 @@ class Grid(Block):
             canvas.rect(x, bottom, self.widths[0], top - head - bottom, stroke=0, fill=1)
         canvas.setStrokeColor(RULE)
         canvas.setLineWidth(0.4)
-        rules = [(e, top, e, bottom) for e in edges]
+        # The rules as one path, numbers to 1/1000 pt (canvas.lines formats each with
+        # reportlab's fp_str, which cost more than the table's text).
+        right = x + width
+        ops = ["n"]
+        ops += [f"{e:.3f} {top:.3f} m {e:.3f} {bottom:.3f} l" for e in edges]
         y = top
-        rules.append((x, y, x + width, y))
+        ops.append(f"{x:.3f} {y:.3f} m {right:.3f} {y:.3f} l")
         for h in self.row_heights:
             y -= h
-            rules.append((x, y, x + width, y))
-        canvas.lines(rules)
+            ops.append(f"{x:.3f} {y:.3f} m {right:.3f} {y:.3f} l")
+        ops.append("S")
+        canvas.addLiteral("\n".join(ops))
         canvas.restoreState()
 
         plain, bold = STYLES.cell, STYLES.cell_bold

@@ -71,14 +71,14 @@ def test_page_lines_draw_what_reportlabs_draw_string_draws() -> None:
     def ours(canvas: Canvas) -> None:
         page = Page(canvas, {})
         for k, (st, line) in enumerate(lines):
-            page.write(st, 40 + k, 780 - 30 * k, line)
+            page.write(st, 40.123456 + 1.37 * k, 780.98765 - 30 * k, line)
         page.finish()
 
     def reportlabs(canvas: Canvas) -> None:
         for k, (st, line) in enumerate(lines):
             canvas.setFont(st.fontName, st.fontSize)
             canvas.setFillColor(st.textColor)
-            canvas.drawString(40 + k, 780 - 30 * k, line)
+            canvas.drawString(40.123456 + 1.37 * k, 780.98765 - 30 * k, line)
 
     pixels, text = _page_pixels(ours)
     assert pixels == _page_pixels(reportlabs)[0]
