@@ -263,8 +263,35 @@ def _canvas_class(meta: DocumentMeta) -> type[Canvas]:
     return _Canvas
 
 
+def _fit(text: str, font: str, size: float, width: float) -> str:
+    """``text`` cut short with "…" so it is no wider than ``width`` (unchanged when it fits)."""
+    if stringWidth(text, font, size) <= width:
+        return text
+    cut = len(text)
+    while cut > 0 and stringWidth(text[:cut] + "…", font, size) > width:
+        cut -= 1
+    return text[:cut].rstrip() + "…"
+
+
+def _side_by_side(left: str, right: str, font: str, size: float, width: float,
+                  right_width: float | None = None) -> tuple[str, str]:
+    """A left- and a right-aligned text on one line ``width`` wide, 12 pt apart, cut short
+    where they would overlap (a long shop name or serial number; the body states them in
+    full). The right one keeps at least half the line."""
+    width -= 12
+    wr = stringWidth(right, font, size) if right_width is None else right_width
+    wl = stringWidth(left, font, size)
+    if wl + wr <= width:
+        return left, right
+    if right_width is None:
+        right = _fit(right, font, size, max(width - wl, width / 2))
+        wr = stringWidth(right, font, size)
+    return _fit(left, font, size, width - wr), right
+
+
 def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -> None:
     width, height = canvas._pagesize
+    line = width - 2 * MARGIN
     canvas.saveState()
     canvas.setStrokeColor(RULE)
     canvas.setLineWidth(0.5)
@@ -272,14 +299,19 @@ def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -
     canvas.line(MARGIN, top - 1.5 * mm, width - MARGIN, top - 1.5 * mm)
     canvas.setFillColor(MUTED)
     canvas.setFont(FONT, 7.5)
-    canvas.drawString(MARGIN, top, pdf_text(meta.header_left))
-    canvas.drawRightString(width - MARGIN, top, pdf_text(meta.header_right))
+    left, right = _side_by_side(pdf_text(meta.header_left), pdf_text(meta.header_right),
+                                FONT, 7.5, line)
+    canvas.drawString(MARGIN, top, left)
+    canvas.drawRightString(width - MARGIN, top, right)
     bottom = MARGIN - 6 * mm
     canvas.line(MARGIN, bottom + 3.5 * mm, width - MARGIN, bottom + 3.5 * mm)
-    canvas.drawString(MARGIN, bottom, pdf_text(meta.footer_left))
+    page = f"page {number} of {total}"
+    footer, _ = _side_by_side(pdf_text(meta.footer_left), page, FONT, 7.5, line,
+                              right_width=stringWidth(page, FONT_BOLD, 8))
+    canvas.drawString(MARGIN, bottom, footer)
     canvas.setFont(FONT_BOLD, 8)
     canvas.setFillColor(INK)
-    canvas.drawRightString(width - MARGIN, bottom, f"page {number} of {total}")
+    canvas.drawRightString(width - MARGIN, bottom, page)
     canvas.restoreState()
 
 

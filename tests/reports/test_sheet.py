@@ -155,6 +155,15 @@ def test_long_texts_wrap_inside_the_margins() -> None:
         assert _squeezed(value if isinstance(value, str) else value[0]) in squeezed, key
     # the serial number is cut, not lost: all of its characters in order
     assert _squeezed(str(HOSTILE["serial_number"])) in squeezed
+    # the running header and footer: texts on one line do not overlap (the header's shop
+    # name and serial number are cut short with "…"; the body states them in full)
+    for page in _runs(pdf):
+        running = [r for r in page if r[3] < MARGIN or r[3] > height - MARGIN]
+        assert len(running) == 4  # header left and right, footer left and page number
+        for font, size, x, y, text in running:
+            for _font, _size, x2, y2, text2 in running:
+                if y2 == y and x < x2:
+                    assert x + stringWidth(text, font, size) < x2, (text, text2)
 
 
 def test_a_table_longer_than_a_page_breaks_between_rows_and_repeats_its_head() -> None:
