@@ -2,7 +2,8 @@
 "page x of y", table styling, and reproducible bytes.
 
 A document is a list of platypus flowables plus a :class:`DocumentMeta`;
-:func:`build_pdf` turns them into bytes. Two builds of the same flowables and
+:func:`build_pdf` turns them into bytes (the certificate is drawn without platypus, on a
+:func:`document_canvas`, by :mod:`shopapp.reports.sheet`). Two builds of the same flowables and
 meta give the same bytes: reportlab's invariant mode is on, the creation date
 printed into the PDF comes from ``meta.created`` and the document ID is an MD5
 of ``meta.id_seed`` (not of the wall clock), so a stored certificate can be
