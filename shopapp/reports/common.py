@@ -17,6 +17,7 @@ replaces the few symbols outside it that our texts use.
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import hashlib
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -83,6 +84,22 @@ def esc(text: object) -> str:
     """Escape for a platypus Paragraph (its mini-markup) after :func:`pdf_text`."""
     s = pdf_text(str(text))
     return s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+
+
+# Every character pdf_text lets through: Windows-1252, control characters included.
+_CP1252 = bytes(range(256)).decode("cp1252", "ignore")
+@functools.cache
+def _glyph_widths(font: str) -> dict[str, int]:
+    """The advance width of each Windows-1252 character in ``font``, in 1/1000 of its size
+    (the standard fonts' widths are whole numbers of these units)."""
+    return {ch: round(stringWidth(ch, font, 1000)) for ch in _CP1252}
+
+
+def text_width(text: str, font: str, size: float) -> float:
+    """Width of ``text`` (already through ``pdf_text``) in points, as reportlab's
+    ``stringWidth`` gives it (the same sum, in the same order), without encoding the text
+    on every call: that cost more than the rest of laying out a table cell."""
+    return sum(map(_glyph_widths(font).__getitem__, text)) * 0.001 * size
 
 
 @dataclass(frozen=True)
@@ -266,31 +283,19 @@ def _canvas_class(meta: DocumentMeta) -> type[Canvas]:
 
 def _fit(text: str, font: str, size: float, width: float) -> str:
     """``text`` cut short with "…" so it is no wider than ``width`` (unchanged when it fits)."""
-    if stringWidth(text, font, size) <= width:
+    if text_width(text, font, size) <= width:
         return text
     cut = len(text)
-    while cut > 0 and stringWidth(text[:cut] + "…", font, size) > width:
+    while cut > 0 and text_width(text[:cut] + "…", font, size) > width:
         cut -= 1
     return text[:cut].rstrip() + "…"
 
 
-def _side_by_side(left: str, right: str, font: str, size: float, width: float,
-                  right_width: float | None = None) -> tuple[str, str]:
-    """A left- and a right-aligned text on one line ``width`` wide, 12 pt apart, cut short
-    where they would overlap (a long shop name or serial number; the body states them in
-    full). The right one keeps at least half the line."""
-    width -= 12
-    wr = stringWidth(right, font, size) if right_width is None else right_width
-    wl = stringWidth(left, font, size)
-    if wl + wr <= width:
-        return left, right
-    if right_width is None:
-        right = _fit(right, font, size, max(width - wl, width / 2))
-        wr = stringWidth(right, font, size)
-    return _fit(left, font, size, width - wr), right
-
-
 def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -> None:
+    """Header and footer of one page. Where a left and a right text would overlap (a long
+    shop name or serial number) they are cut short with "…", 12 pt apart, the right one
+    keeping at least half the line; the body states them in full. Widths by text_width
+    (reportlab's stringWidth encoded each text again)."""
     width, height = canvas._pagesize
     line = width - 2 * MARGIN
     canvas.saveState()
@@ -300,19 +305,19 @@ def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -
     canvas.line(MARGIN, top - 1.5 * mm, width - MARGIN, top - 1.5 * mm)
     canvas.setFillColor(MUTED)
     canvas.setFont(FONT, 7.5)
-    left, right = _side_by_side(pdf_text(meta.header_left), pdf_text(meta.header_right),
-                                FONT, 7.5, line)
-    canvas.drawString(MARGIN, top, left)
-    canvas.drawRightString(width - MARGIN, top, right)
+    left, right = pdf_text(meta.header_left), pdf_text(meta.header_right)
+    right = _fit(right, FONT, 7.5, max(line - 12 - text_width(left, FONT, 7.5), line / 2))
+    wr = text_width(right, FONT, 7.5)
+    canvas.drawString(MARGIN, top, _fit(left, FONT, 7.5, line - 12 - wr))
+    canvas.drawString(width - MARGIN - wr, top, right)
     bottom = MARGIN - 6 * mm
     canvas.line(MARGIN, bottom + 3.5 * mm, width - MARGIN, bottom + 3.5 * mm)
     page = f"page {number} of {total}"
-    footer, _ = _side_by_side(pdf_text(meta.footer_left), page, FONT, 7.5, line,
-                              right_width=stringWidth(page, FONT_BOLD, 8))
-    canvas.drawString(MARGIN, bottom, footer)
+    wp = text_width(page, FONT_BOLD, 8)
+    canvas.drawString(MARGIN, bottom, _fit(pdf_text(meta.footer_left), FONT, 7.5, line - 12 - wp))
     canvas.setFont(FONT_BOLD, 8)
     canvas.setFillColor(INK)
-    canvas.drawRightString(width - MARGIN, bottom, page)
+    canvas.drawString(width - MARGIN - wp, bottom, page)
     canvas.restoreState()
 
 

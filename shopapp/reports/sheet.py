@@ -14,14 +14,12 @@ The pages look like our platypus documents: same page, margins, running header a
 
 from __future__ import annotations
 
-import functools
 from collections.abc import Callable, Sequence
 from io import BytesIO
 
 from reportlab.lib.colors import Color
 from reportlab.lib.rl_accel import escapePDF, fp_str
 from reportlab.lib.styles import ParagraphStyle
-from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
 
 from shopapp.charts import Figure
@@ -37,6 +35,7 @@ from shopapp.reports.common import (
     DocumentMeta,
     document_canvas,
     pdf_text,
+    text_width,
 )
 from shopapp.reports.drawing import draw_figure
 
@@ -47,25 +46,9 @@ CELL_PAD_X = 3.0
 CELL_PAD_Y = 2.0
 
 
-# Every character pdf_text lets through: Windows-1252, control characters included.
-_CP1252 = bytes(range(256)).decode("cp1252", "ignore")
 # Control characters that are not white space print as "?" (the standard fonts have no
 # glyph for them), as pdf_text prints what Windows-1252 lacks; white space separates words.
 _CONTROLS = str.maketrans({c: "?" for c in (*range(32), 127) if not chr(c).isspace()})
-
-
-@functools.cache
-def _glyph_widths(font: str) -> dict[str, int]:
-    """The advance width of each Windows-1252 character in ``font``, in 1/1000 of its size
-    (the standard fonts' widths are whole numbers of these units)."""
-    return {ch: round(stringWidth(ch, font, 1000)) for ch in _CP1252}
-
-
-def text_width(text: str, font: str, size: float) -> float:
-    """Width of ``text`` (already through ``pdf_text``) in points, as reportlab's
-    ``stringWidth`` gives it (the same sum, in the same order), without encoding the text
-    on every call: that cost more than the rest of laying out a table cell."""
-    return sum(map(_glyph_widths(font).__getitem__, text)) * 0.001 * size
 
 
 def wrap(text: str, font: str, size: float, width: float) -> list[str]:

@@ -15,8 +15,8 @@ from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import Canvas
 
 from shopapp.reports import certificate as report
-from shopapp.reports.common import MARGIN, PAGE_SIZE, STYLES
-from shopapp.reports.sheet import Page, text_width, wrap
+from shopapp.reports.common import MARGIN, PAGE_SIZE, STYLES, text_width
+from shopapp.reports.sheet import Page, wrap
 from tests.reports.samples import certificate_data
 
 Run = tuple[str, float, float, float, str]  # font, size, x, y, text
