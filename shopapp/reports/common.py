@@ -95,6 +95,15 @@ def _glyph_widths(font: str) -> dict[str, int]:
     return {ch: round(stringWidth(ch, font, 1000)) for ch in _CP1252}
 
 
+_CP1252_SET = frozenset(_CP1252)
+
+
+def measurable(text: str) -> bool:
+    """Whether :func:`text_width` can measure ``text``: Windows-1252 characters only (as
+    every text through ``pdf_text`` is)."""
+    return text.isascii() or _CP1252_SET.issuperset(text)
+
+
 def text_width(text: str, font: str, size: float) -> float:
     """Width of ``text`` (already through ``pdf_text``) in points, as reportlab's
     ``stringWidth`` gives it (the same sum, in the same order), without encoding the text

@@ -19,6 +19,7 @@ from reportlab.platypus import Flowable
 
 from shopapp.charts.primitives import Circle, Figure, Line, Polyline, Rect, Text
 from shopapp.charts.styles import Style, style
+from shopapp.reports.common import measurable, text_width
 
 _ARROW = "#1d232a"  # arrowheads and texts without a fill of their own
 
@@ -99,7 +100,8 @@ def draw_figure(canvas: Canvas, fig: Figure, scale: float = 1.0) -> None:
                 font = face
             x = item.x * k
             if item.anchor != "start":
-                width = stringWidth(item.text, *face)
+                width = (text_width(item.text, *face) if measurable(item.text)
+                         else stringWidth(item.text, *face))
                 x -= width / 2 if item.anchor == "middle" else width
             text.setTextOrigin(x, item.y * k)
             text.textLine(item.text)
