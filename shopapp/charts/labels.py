@@ -48,14 +48,21 @@ def inside(t: Text, x0: float, y0: float, x1: float, y1: float) -> bool:
     return bx0 >= x0 and by0 >= y0 and bx1 <= x1 and by1 <= y1
 
 
-def place(candidates: Sequence[Text], placed: Iterable[Text],
+def place(candidates: Iterable[Text], placed: Iterable[Text],
           bounds: tuple[float, float, float, float] | None = None) -> Text | None:
-    """The first candidate clear of every placed text (and inside ``bounds``), or None."""
-    taken = list(placed)
+    """The first candidate clear of every placed text (and inside ``bounds``), or None.
+
+    The placed texts' boxes are worked out once, not once per candidate; ``candidates``
+    may be a generator, so those after the first that fits are never made.
+    """
+    taken = [text_box(t) for t in placed]
     for c in candidates:
-        if bounds is not None and not inside(c, *bounds):
-            continue
-        if not any(collide(c, t) for t in taken):
+        x0, y0, x1, y1 = text_box(c)
+        if bounds is not None and not (x0 >= bounds[0] and y0 >= bounds[1]
+                                       and x1 <= bounds[2] and y1 <= bounds[3]):
+            continue  # as inside()
+        if not any(x0 < bx1 + GAP and bx0 < x1 + GAP and y0 < by1 + GAP and by0 < y1 + GAP
+                   for bx0, by0, bx1, by1 in taken):  # as collide()
             return c
     return None
 

@@ -186,10 +186,10 @@ def _place_tips(placed: list[Text], tips: list[tuple[float, float, str]], cx: fl
                 cy: float, bounds: tuple[float, float, float, float]) -> None:
     """Tip labels beyond each arrow's tip, moved outward or sideways until clear."""
     for r, d, text in tips:
-        candidates = [Text(x, y - 3.0, text, style=_TEXT, anchor="middle")
+        candidates = (Text(x, y - 3.0, text, style=_TEXT, anchor="middle")
                       for off in (9.0, 16.0, 24.0)
                       for dd in (0.0, 12.0, -12.0, 24.0, -24.0)
-                      for x, y in (point(cx, cy, r + off, d + dd),)]
+                      for x, y in (point(cx, cy, r + off, d + dd),))
         chosen = place(candidates, placed, bounds)
         if chosen is not None:  # crowded tips keep their legend line, which always shows
             placed.append(chosen)
@@ -200,10 +200,9 @@ def _place_ring_values(placed: list[Text], cx: float, cy: float, plot_r: float,
     """The values of the half and outer rings, just inside each ring, clear of other text."""
     for frac in (0.5, 1.0):
         text = number(outer * frac, trim=True)
-        candidates = []
-        for d in _RING_LABEL_DEG:
-            x, y = point(cx, cy, plot_r * frac - 7.0, d)
-            candidates.append(Text(x, y - 3.0, text, style=_TEXT, anchor="middle"))
+        candidates = (Text(x, y - 3.0, text, style=_TEXT, anchor="middle")
+                      for x, y in (point(cx, cy, plot_r * frac - 7.0, d)
+                                   for d in _RING_LABEL_DEG))
         chosen = place(candidates, placed, bounds)
         if chosen is not None:  # the legend states the outer ring's value in any case
             placed.append(chosen)

@@ -17,46 +17,45 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import functools
 import hashlib
 import json
 import math
 from dataclasses import dataclass
 from typing import Any
 
+from reportlab.lib.styles import ParagraphStyle
 from reportlab.lib.units import mm
-from reportlab.platypus import Flowable, Paragraph, Spacer, Table, TableStyle
 
 from shopapp.charts import Figure
 from shopapp.charts.polar import PolarVector, polar_figure
 from shopapp.core import display
 from shopapp.reports import traceability_section
-from shopapp.reports.common import (
-    FONT_BOLD,
-    INK,
-    MARGIN,
-    PAGE_SIZE,
-    SHADE,
-    STYLES,
-    TEXT_WIDTH,
-    DocumentMeta,
-    build_pdf,
-    cell,
-    esc,
-    grid_table,
-    keep,
-    text_flowable,
+from shopapp.reports.common import FONT_BOLD, SHADE, STYLES, DocumentMeta
+from shopapp.reports.qr import draw_qr
+from shopapp.reports.sheet import (
+    CONTENT_WIDTH,
+    Block,
+    Boxed,
+    Columns,
+    Custom,
+    Figures,
+    Gap,
+    Grid,
+    Sheet,
+    Text,
+    wrap,
 )
-from shopapp.reports.drawing import FigureFlowable
-from shopapp.reports.qr import qr_drawing
 from shopapp.reports.traceability_section import ErrorLine, ResidualTestLine
 
 SCHEMA_VERSION = 2
 # Schema 2 (issue 15) added the verification code and the verify URL printed with a QR
 # code. Data of schema 1 (certificates issued before) is stored, hashed and drawn without
 # them, exactly as it was, so their stored JSON and content hash stay the same and they
-# draw the same picture. The stored PDF is the record (checked by its SHA-256): issue 13
-# made rendering faster with the same pixels, so a re-rendering made since differs from
-# an older stored file in its bytes, not in what it shows.
+# draw the same content. The stored PDF is the record (checked by its SHA-256): issue 13
+# first made rendering faster with the same pixels, then drew the certificate straight onto
+# the canvas in a layout of its own, so a re-rendering made since states what an older
+# stored file states, in the same order, but not in the same place on the page.
 SCHEMA_2_FIELDS = ("verification_code", "verify_url", "signed_by")
 SIGNIFICANT_DIGITS = 6  # stored precision of every float in the certified data
 
@@ -189,7 +188,7 @@ class CertificateData:
 
         Schema 1 data has no schema-2 keys (its stored JSON stays byte for byte).
         """
-        out = _rounded(dataclasses.asdict(self))
+        out = _rounded(self)
         if self.schema < 2:
             for key in SCHEMA_2_FIELDS:
                 out.pop(key)
@@ -224,11 +223,20 @@ def _round(value: float) -> float:
     return 0.0 if out == 0 else out  # no "-0.0" in the canonical text
 
 
+@functools.cache
+def _field_names(cls: type) -> tuple[str, ...]:
+    return tuple(f.name for f in dataclasses.fields(cls))
+
+
 def _rounded(obj: Any) -> Any:
+    """``obj`` as plain JSON values: dataclasses as dicts (as ``dataclasses.asdict`` makes
+    them, without its deep copy of every value), tuples as lists, floats rounded."""
     if isinstance(obj, bool):
         return obj
     if isinstance(obj, float):
         return _round(obj)
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {k: _rounded(getattr(obj, k)) for k in _field_names(type(obj))}
     if isinstance(obj, dict):
         return {k: _rounded(v) for k, v in obj.items()}
     if isinstance(obj, list | tuple):
@@ -257,12 +265,21 @@ def normalized(data: CertificateData) -> CertificateData:
 
 
 # --- layout -------------------------------------------------------------------------
+# Drawn straight onto the canvas by shopapp.reports.sheet (issue 13): every block is made
+# for its known width, so wrapping and heights are simple arithmetic.
 
-_CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
+W = CONTENT_WIDTH
+QR_SIZE = 30 * mm
+# The verdict's first line: bold and larger than the body (our layout, no source).
+_VERDICT = ParagraphStyle("verdict", parent=STYLES.body, fontName=FONT_BOLD, fontSize=12,
+                          leading=14)
+_fixed_lines = functools.cache(wrap)  # wrapped lines of the texts every certificate prints
 
 
-def _u(value: float | None, unit: str) -> str:
-    return "–" if value is None else f"{display.number(value)} {unit}"
+def _fixed(text: str, style: ParagraphStyle, width: float) -> Text:
+    """A text that is the same on every certificate, wrapped once per process."""
+    return Text(text, style, width, lines=_fixed_lines(text, style.fontName, style.fontSize,
+                                                       width))
 
 
 def _ang(value: float) -> str:
@@ -275,7 +292,7 @@ def _rpm(value: float) -> str:
 
 def _widths(*fractions: float) -> list[float]:
     total = sum(fractions)
-    return [_CONTENT_WIDTH * f / total for f in fractions]
+    return [W * f / total for f in fractions]
 
 
 def _unit_heads(what: str, unit: str) -> list[str]:
@@ -291,12 +308,12 @@ def _unit_widths(unit: str) -> list[float]:
     return [0.3] if unit == "g·mm" else [0.22, 0.22]
 
 
-def _vector_table(vectors: tuple[PlaneVector, ...], what: str, unit: str) -> Flowable:
+def _vector_table(vectors: tuple[PlaneVector, ...], what: str, unit: str) -> Grid:
     rows = [["Plane", *_unit_heads(what, unit), "Angle"]]
     for v in vectors:
         rows.append([f"plane {v.plane}", *_unit_values(v.unbalance_shop, v.unbalance_gmm, unit),
                      _ang(v.angle_deg)])
-    return grid_table(rows, _widths(0.25, *_unit_widths(unit), 0.25), align_right_from=1)
+    return Grid(rows, _widths(0.25, *_unit_widths(unit), 0.25), align_right_from=1)
 
 
 def _verdict_word(passed: bool) -> str:
@@ -329,69 +346,44 @@ def first_lines(data: CertificateData) -> list[tuple[str, str]]:
     ]
 
 
-def _identity_block(data: CertificateData) -> Flowable:
+def _identity_block(sheet: Sheet, data: CertificateData) -> None:
+    """Shop, title and tagline on the left; number, revision and issue date boxed right."""
     st = STYLES
-    left_width = _CONTENT_WIDTH - 72 * mm  # its cell has no side padding
-    left = [
-        text_flowable(data.shop_name, st.subtitle, left_width),
-        text_flowable("Balance certificate", st.title, left_width),
-        text_flowable("Rigid-rotor balance, measured and certified by the shop named above",
-                      st.small, left_width),
-    ]
-    widths = [24 * mm, 46 * mm]
-    rows = [[cell(k, st.cell_bold, widths[0], 12), cell(v, st.cell, widths[1], 12)]
-            for k, v in first_lines(data)[:2]]
-    ident = Table(rows, colWidths=widths)
-    ident.setStyle(TableStyle([
-        ("BOX", (0, 0), (-1, -1), 1.0, INK),
-        ("BACKGROUND", (0, 0), (-1, -1), SHADE),
-        ("TOPPADDING", (0, 0), (-1, -1), 2),
-        ("BOTTOMPADDING", (0, 0), (-1, -1), 2),
-        # The plain-string cells in the cell styles (the table's own padding, 6 pt a side).
-        ("FONT", (0, 0), (0, -1), st.cell_bold.fontName, st.cell_bold.fontSize,
-         st.cell_bold.leading),
-        ("FONT", (1, 0), (1, -1), st.cell.fontName, st.cell.fontSize, st.cell.leading),
-        ("TEXTCOLOR", (0, 0), (-1, -1), st.cell.textColor),
+    right = 72 * mm
+    left_width = W - right - 4 * mm
+    ident = Grid([[k, v] for k, v in first_lines(data)[:2]], [24 * mm, right - 24 * mm],
+                 header_rows=0, label_column=True)
+    sheet.place(Columns([
+        (0, [Text(data.shop_name, st.subtitle, left_width),
+             _fixed("Balance certificate", st.title, left_width),
+             _fixed("Rigid-rotor balance, measured and certified by the shop named above",
+                    st.small, left_width)]),
+        (W - right, [ident]),
     ]))
-    outer = Table([[left, ident]], colWidths=[_CONTENT_WIDTH - 72 * mm, 72 * mm])
-    outer.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
-                               ("LEFTPADDING", (0, 0), (-1, -1), 0),
-                               ("RIGHTPADDING", (0, 0), (-1, -1), 0)]))
-    return outer
 
 
-def _acceptance_block(data: CertificateData) -> Flowable:
+def _acceptance_block(sheet: Sheet, data: CertificateData) -> None:
     """The incoming-inspection summary: what, whose, against what, verdict."""
     st = STYLES
-    lines = first_lines(data)[2:5]
     basis = f"{data.tolerance_basis}; judged in the {data.reference_planes.replace('_', ' ')}"
-    rows = [[k, v] for k, v in lines] + [
+    rows = [[k, v] for k, v in first_lines(data)[2:5]] + [
         ["Customer order", data.customer_order_ref or "–"],
         ["Our job", data.job_number],
         ["Tolerance", basis],
     ]
-    table = grid_table(rows, [32 * mm, _CONTENT_WIDTH - 32 * mm - 48 * mm], header_rows=0,
-                       label_column=True)
+    box = 46 * mm
+    table = Grid(rows, [32 * mm, W - 32 * mm - box - 2 * mm], header_rows=0, label_column=True)
     worst = max((x.percent_of_limit for x in data.limits if x.deciding), default=0.0)
-    verdict = Paragraph(
-        f'<font name="{FONT_BOLD}" size="12">{esc(_verdict_word(data.passed))}</font>'
-        f"<br/>{esc(judged_where(data)) if data.passed else 'see the result table'}"
-        f"<br/>worst at {worst:.0f} % of its limit",
-        st.body,
-    )
-    box = Table([[verdict]], colWidths=[46 * mm])
-    box.setStyle(TableStyle([("BOX", (0, 0), (-1, -1), 1.6, INK),
-                             ("VALIGN", (0, 0), (-1, -1), "MIDDLE"),
-                             ("TOPPADDING", (0, 0), (-1, -1), 6),
-                             ("BOTTOMPADDING", (0, 0), (-1, -1), 6)]))
-    outer = Table([[table, box]], colWidths=[_CONTENT_WIDTH - 48 * mm, 48 * mm])
-    outer.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
-                               ("LEFTPADDING", (0, 0), (-1, -1), 0),
-                               ("RIGHTPADDING", (0, 0), (-1, -1), 0)]))
-    return outer
+    inner = box - 12
+    verdict = Boxed([
+        _fixed(_verdict_word(data.passed), _VERDICT, inner),
+        Text(judged_where(data) if data.passed else "see the result table", st.body, inner),
+        Text(f"worst at {worst:.0f} % of its limit", st.body, inner),
+    ], box, pad=6, line_width=1.6)
+    sheet.place(Gap(4 * mm), Columns([(0, [table]), (W - box, [verdict])]))
 
 
-def _rotor_section(data: CertificateData) -> list[Flowable]:
+def _rotor_section(sheet: Sheet, data: CertificateData) -> None:
     st = STYLES
     two = data.planes == 2
     rows = [
@@ -405,15 +397,13 @@ def _rotor_section(data: CertificateData) -> list[Flowable]:
         ["Plane 1 at", f"{display.number(data.plane_1_mm)} mm",
          "Plane 2 at", f"{display.number(data.plane_2_mm)} mm" if two else "single plane"],
     ]
-    w = _CONTENT_WIDTH / 4
-    return [
-        keep(text_flowable("1  Rotor", st.heading),
-             grid_table(rows, [w * 1.15, w * 0.85, w * 1.15, w * 0.85], header_rows=0),
-             text_flowable("Axial positions in mm from the drawing's datum.", st.small)),
-    ]
+    w = W / 4
+    sheet.place(_fixed("1  Rotor", st.heading, W),
+                Grid(rows, [w * 1.15, w * 0.85, w * 1.15, w * 0.85], header_rows=0),
+                _fixed("Axial positions in mm from the drawing's datum.", st.small, W))
 
 
-def _tolerance_section(data: CertificateData) -> list[Flowable]:
+def _tolerance_section(sheet: Sheet, data: CertificateData) -> None:
     st = STYLES
     lines = [f"Basis: {data.tolerance_basis}."]
     if data.tolerance_method == "grade":
@@ -435,36 +425,29 @@ def _tolerance_section(data: CertificateData) -> list[Flowable]:
     for lim in data.limits:
         if lim.deciding:  # only what decides carries a limit (one basis)
             rows.append([lim.name, *_unit_values(lim.limit_shop, lim.limit_gmm, data.unit)])
-    return [keep(
-        text_flowable("2  Tolerance", st.heading),
-        *[text_flowable(t, st.body) for t in lines],
-        Spacer(1, 2 * mm),
-        grid_table(rows, _widths(0.4, *_unit_widths(data.unit)), align_right_from=1),
-    )]
+    sheet.place(_fixed("2  Tolerance", st.heading, W),
+                *[Text(t, st.body, W) for t in lines],
+                Gap(2 * mm),
+                Grid(rows, _widths(0.4, *_unit_widths(data.unit)), align_right_from=1))
 
 
-def _balancing_section(data: CertificateData) -> list[Flowable]:
+def _balancing_section(sheet: Sheet, data: CertificateData) -> None:
     st = STYLES
     if data.machine_verified_on is None:
         verification = "no verification on file"
     else:
         verification = f"last verified {data.machine_verified_on}: {data.machine_verification}"
-    out: list[Flowable] = [
-        text_flowable("3  How it was balanced", st.heading),
-        grid_table([
-            ["Balancing machine", f"{data.machine_name} ({data.machine_kind})"],
-            ["Machine verification", verification],
-            ["Balancing speed", _rpm(data.balancing_speed_rpm)],
-            ["Angles", data.angle_convention],
-            ["Received / balanced", f"{data.received_on} / {data.balanced_on}"],
-        ], [45 * mm, _CONTENT_WIDTH - 45 * mm], header_rows=0, label_column=True),
-        Spacer(1, 2 * mm),
-        text_flowable(f"Initial unbalance (run {data.initial_run})", st.cell_bold),
-    ]
-    out.append(_vector_table(data.initial, "Unbalance", data.unit))
-    w = _CONTENT_WIDTH
-    out.append(Spacer(1, 2 * mm))
-    out.append(text_flowable("Corrections applied", st.cell_bold))
+    sheet.place(_fixed("3  How it was balanced", st.heading, W), Grid([
+        ["Balancing machine", f"{data.machine_name} ({data.machine_kind})"],
+        ["Machine verification", verification],
+        ["Balancing speed", _rpm(data.balancing_speed_rpm)],
+        ["Angles", data.angle_convention],
+        ["Received / balanced", f"{data.received_on} / {data.balanced_on}"],
+    ], [45 * mm, W - 45 * mm], header_rows=0, label_column=True))
+    sheet.place(Gap(2 * mm),
+                Text(f"Initial unbalance (run {data.initial_run})", st.cell_bold, W),
+                _vector_table(data.initial, "Unbalance", data.unit))
+    title = _fixed("Corrections applied", st.cell_bold, W)
     if data.corrections:
         crow = [["Plane", "Action", "Mass", "Angle", "Radius", "How"]]
         for c in data.corrections:
@@ -472,13 +455,14 @@ def _balancing_section(data: CertificateData) -> list[Flowable]:
                          f"{display.number(c.mass_g)} g", _ang(c.angle_deg),
                          f"{display.number(c.radius_mm)} mm",
                          c.details or "single mass"])
-        out.append(grid_table(crow, [w * 0.1, w * 0.11, w * 0.12, w * 0.1, w * 0.12, w * 0.45]))
+        sheet.place(Gap(2 * mm), title,
+                    Grid(crow, [W * 0.1, W * 0.11, W * 0.12, W * 0.1, W * 0.12, W * 0.45]))
     else:
-        out.append(text_flowable("none: the rotor was within tolerance as received", st.body))
-    return out
+        sheet.place(Gap(2 * mm), title,
+                    _fixed("none: the rotor was within tolerance as received", st.body, W))
 
 
-def _result_section(data: CertificateData) -> list[Flowable]:
+def _result_section(sheet: Sheet, data: CertificateData) -> None:
     st = STYLES
     rows = [["Judged", f"Residual ({data.unit})", f"Limit ({data.unit})", "% of limit",
              "Verdict"]]
@@ -487,34 +471,28 @@ def _result_section(data: CertificateData) -> list[Flowable]:
             continue  # a residual outside the basis is stated above, without a limit
         rows.append([lim.name, display.number(lim.residual_shop), display.number(lim.limit_shop),
                      f"{lim.percent_of_limit:.0f} %", "within" if lim.passed else "OUT"])
-    w = _CONTENT_WIDTH
-    out: list[Flowable] = [
-        keep(
-            text_flowable(f"4  Result (run {data.final_run})", st.heading),
-            _vector_table(data.residual, "Residual", data.unit),
-            text_flowable(f"Residual per correction plane as measured; the verdict below is "
-                          f"judged {judged_where(data)}.", st.small),
-            Spacer(1, 2 * mm),
-            grid_table(rows, [w * 0.2, w * 0.2, w * 0.2, w * 0.15, w * 0.25],
-                       align_right_from=1),
-        ),
-    ]
+    sheet.place(
+        Text(f"4  Result (run {data.final_run})", st.heading, W),
+        _vector_table(data.residual, "Residual", data.unit),
+        Text(f"Residual per correction plane as measured; the verdict below is "
+             f"judged {judged_where(data)}.", st.small, W),
+        Gap(2 * mm),
+        Grid(rows, [W * 0.2, W * 0.2, W * 0.2, W * 0.15, W * 0.25], align_right_from=1),
+    )
     for note in data.notes:
-        out.append(text_flowable(note, st.small))
-    plot = _polar_plot(data)
-    if plot is not None:
-        out.append(Spacer(1, 3 * mm))
+        sheet.place(Text(note, st.small, W))
+    figures = polar_figures(data)
+    if figures:
         circle = ("the limit circle (heavy dashed circle)"
                   if data.reference_planes == "correction_planes" else
                   "the plane's share of the bearing-plane limits (heavy dashed circle: inside "
                   "it a residual keeps both bearing planes within at any angle; the verdict is "
                   "the bearing planes' above)")
-        out.append(keep(plot, text_flowable((
+        sheet.place(Gap(3 * mm), Figures(figures, W), _fixed((
             "Polar plot per correction plane: initial unbalance (thin dashed arrow), residual "
             f"(heavy solid arrow) and {circle}; 0° at the top, "
             "angles growing clockwise in the shop's angle convention."
-        ), st.small)))
-    return out
+        ), st.small, W))
 
 
 def polar_figures(data: CertificateData, size: float = 200.0) -> list[Figure]:
@@ -541,56 +519,39 @@ def polar_figures(data: CertificateData, size: float = 200.0) -> list[Figure]:
     return figures
 
 
-def _polar_plot(data: CertificateData) -> Flowable | None:
-    """The polar plots side by side, drawn from the shared chart geometry."""
-    figures = polar_figures(data)
-    if not figures:
-        return None
-    drawings = [FigureFlowable(f) for f in figures]
-    table = Table([drawings], colWidths=[_CONTENT_WIDTH / len(drawings)] * len(drawings))
-    table.setStyle(TableStyle([("ALIGN", (0, 0), (-1, -1), "CENTER"),
-                               ("VALIGN", (0, 0), (-1, -1), "TOP")]))
-    return table
-
-
-def _closing_section(data: CertificateData, content_hash: str) -> list[Flowable]:
+def _closing_section(sheet: Sheet, data: CertificateData, content_hash: str) -> None:
     st = STYLES
-    sign = grid_table(
+    sign = Grid(
         [["", "Name", "Date"],
          ["Balanced by (operator)", data.operator_name or "–", data.balanced_on],
          ["Issued by (quality)", data.issued_by_name, display.date(data.issued_at)]],
-        [50 * mm, 70 * mm, _CONTENT_WIDTH - 120 * mm], label_column=True,
+        [50 * mm, 70 * mm, W - 120 * mm], label_column=True,
     )
-    out: list[Flowable] = [
-        keep(text_flowable("5  What this certificate covers", st.heading),
-             text_flowable(COVERAGE_STATEMENT, st.body),
-             Paragraph(esc(CAUTION), st.caution)),
-        keep(text_flowable("6  Signed", st.heading), sign),
-    ]
+    sheet.place(_fixed("5  What this certificate covers", st.heading, W),
+                _fixed(COVERAGE_STATEMENT, st.body, W),
+                Boxed([_fixed(CAUTION, st.caution, W - 2 * 5)], W, pad=5, line_width=0.8,
+                      fill=SHADE, style=st.caution))
+    sheet.place(_fixed("6  Signed", st.heading, W), sign)
     if data.revision > 1 or data.revision_reason:
-        out.append(text_flowable((
+        sheet.place(Gap(2 * mm), Text((
             f"Revision {data.revision} replaces the earlier revisions of {data.number}, which "
             f"are void. Reason: {data.revision_reason or 'not stated'}."
-        ), st.body))
+        ), st.body, W))
     if data.schema < 2:
-        out.append(keep(
-            text_flowable("7  Check that this document is genuine", st.heading),
-            text_flowable("Content hash (SHA-256 of the certified data):", st.body),
-            text_flowable(content_hash, st.mono),
-            text_flowable((
+        sheet.place(
+            _fixed("7  Check that this document is genuine", st.heading, W),
+            _fixed("Content hash (SHA-256 of the certified data):", st.body, W),
+            Text(content_hash, st.mono, W),
+            Text((
                 f"Enter the certificate number {data.number} or this hash on the shop's "
                 "verification page (/verify on the shop's shopapp server, no login needed), or "
                 "run 'shopapp report verify FILE.pdf' on the PDF file. The page states whether "
                 "this revision is valid, void or superseded. The hash changes if any certified "
                 "value changes."
-            ), st.body),
-        ))
+            ), st.body, W),
+        )
     else:
-        out.append(_check_section(data, content_hash))
-    return out
-
-
-QR_SIZE = 30 * mm
+        _check_section(sheet, data, content_hash)
 
 
 def has_qr(data: CertificateData) -> bool:
@@ -609,34 +570,35 @@ def _signature_words(data: CertificateData) -> str:
             "without a connection to the shop; any change to the file breaks the signature.")
 
 
-def _check_section(data: CertificateData, content_hash: str) -> Flowable:
+def _check_section(sheet: Sheet, data: CertificateData, content_hash: str) -> None:
     """Section 7 of schema 2: the verify address (and its QR code), number and code, the
     content hash, and what the digital signature and the attached data are."""
     st = STYLES
-    where = ("Scan the code or open this address" if has_qr(data)
-             else "Open this address on the shop's shopapp server")
-    # Beside the QR code the text fills the table cell (no side padding), else the frame.
-    width = _CONTENT_WIDTH - QR_SIZE - 4 * mm if has_qr(data) else TEXT_WIDTH
-    text: list[Flowable] = [
-        text_flowable(f"{where} (no login needed):", st.body, width),
-        text_flowable(data.verify_url, st.mono, width),
-        text_flowable(f"Certificate number {data.number}, verification code "
-                      f"{data.verification_code}. The page states whether this revision is "
-                      "valid, void or superseded; it shows the certified details only with "
-                      "the number and this code.", st.body, width),
-        Spacer(1, 1.5 * mm),
-        text_flowable("Content hash (SHA-256 of the certified data):", st.small, width),
-        text_flowable(content_hash, st.mono, width),
-        text_flowable(_signature_words(data), st.small, width),
+    qr = has_qr(data)
+    where = "Scan the code or open this address" if qr else (
+        "Open this address on the shop's shopapp server")
+    indent = QR_SIZE + 4 * mm if qr else 0.0  # the text beside the code
+    width = W - indent
+    text: list[Block] = [
+        Text(f"{where} (no login needed):", st.body, width),
+        Text(data.verify_url, st.mono, width),
+        Text(f"Certificate number {data.number}, verification code "
+             f"{data.verification_code}. The page states whether this revision is "
+             "valid, void or superseded; it shows the certified details only with "
+             "the number and this code.", st.body, width),
+        Gap(1.5 * mm),
+        _fixed("Content hash (SHA-256 of the certified data):", st.small, width),
+        Text(content_hash, st.mono, width),
+        Text(_signature_words(data), st.small, width),
     ]
-    if has_qr(data):
-        body: Flowable = Table([[qr_drawing(data.verify_url, QR_SIZE), text]],
-                               colWidths=[QR_SIZE + 4 * mm, _CONTENT_WIDTH - QR_SIZE - 4 * mm])
-        body.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
-                                  ("LEFTPADDING", (0, 0), (-1, -1), 0),
-                                  ("RIGHTPADDING", (0, 0), (-1, -1), 0)]))
-        return keep(text_flowable("7  Check that this document is genuine", st.heading), body)
-    return keep(text_flowable("7  Check that this document is genuine", st.heading), *text)
+    heading = _fixed("7  Check that this document is genuine", st.heading, W)
+    if not qr:
+        sheet.place(heading, *text)
+        return
+    url = data.verify_url
+    code = Custom(QR_SIZE, lambda canvas, x, top: draw_qr(canvas, url, x, top - QR_SIZE,
+                                                          QR_SIZE))
+    sheet.place(heading, Columns([(0, [code]), (indent, text)]))
 
 
 def meta(data: CertificateData, content_hash: str | None = None) -> DocumentMeta:
@@ -665,11 +627,13 @@ def render(data: CertificateData) -> bytes:
     The content hash printed on it is :func:`data_sha256` of ``data``.
     """
     content_hash = data_sha256(data)
-    story: list[Flowable] = [_identity_block(data), Spacer(1, 4 * mm), _acceptance_block(data)]
-    story += _rotor_section(data)
-    story += _tolerance_section(data)
-    story += _balancing_section(data)
-    story += _result_section(data)
-    story += traceability_section.section(data)
-    story += _closing_section(data, content_hash)
-    return build_pdf(story, meta(data, content_hash))
+    sheet = Sheet(meta(data, content_hash))
+    _identity_block(sheet, data)
+    _acceptance_block(sheet, data)
+    _rotor_section(sheet, data)
+    _tolerance_section(sheet, data)
+    _balancing_section(sheet, data)
+    _result_section(sheet, data)
+    traceability_section.place(sheet, data)
+    _closing_section(sheet, data, content_hash)
+    return sheet.pdf()

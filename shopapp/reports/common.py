@@ -2,7 +2,8 @@
 "page x of y", table styling, and reproducible bytes.
 
 A document is a list of platypus flowables plus a :class:`DocumentMeta`;
-:func:`build_pdf` turns them into bytes. Two builds of the same flowables and
+:func:`build_pdf` turns them into bytes (the certificate is drawn without platypus, on a
+:func:`document_canvas`, by :mod:`shopapp.reports.sheet`). Two builds of the same flowables and
 meta give the same bytes: reportlab's invariant mode is on, the creation date
 printed into the PDF comes from ``meta.created`` and the document ID is an MD5
 of ``meta.id_seed`` (not of the wall clock), so a stored certificate can be
@@ -16,6 +17,7 @@ replaces the few symbols outside it that our texts use.
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import hashlib
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -45,6 +47,10 @@ SHADE = colors.HexColor("#eef1f4")
 PAGE_SIZE = A4
 MARGIN = 18 * mm
 HEADER_GAP = 10 * mm  # space the running header and footer take inside the margins
+# Where a page's body may go: below BODY_TOP from the page's top edge, above BODY_BOTTOM from
+# its bottom edge (the platypus frame of build_pdf, its 6 pt padding included).
+BODY_TOP = MARGIN + HEADER_GAP - 4 * mm + 6
+BODY_BOTTOM = MARGIN + HEADER_GAP - 6 * mm + 6
 
 # Symbols our texts use that the standard fonts (Windows-1252) cannot show.
 _REPLACEMENTS = {
@@ -78,6 +84,31 @@ def esc(text: object) -> str:
     """Escape for a platypus Paragraph (its mini-markup) after :func:`pdf_text`."""
     s = pdf_text(str(text))
     return s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+
+
+# Every character pdf_text lets through: Windows-1252, control characters included.
+_CP1252 = bytes(range(256)).decode("cp1252", "ignore")
+@functools.cache
+def _glyph_widths(font: str) -> dict[str, int]:
+    """The advance width of each Windows-1252 character in ``font``, in 1/1000 of its size
+    (the standard fonts' widths are whole numbers of these units)."""
+    return {ch: round(stringWidth(ch, font, 1000)) for ch in _CP1252}
+
+
+_CP1252_SET = frozenset(_CP1252)
+
+
+def measurable(text: str) -> bool:
+    """Whether :func:`text_width` can measure ``text``: Windows-1252 characters only (as
+    every text through ``pdf_text`` is)."""
+    return text.isascii() or _CP1252_SET.issuperset(text)
+
+
+def text_width(text: str, font: str, size: float) -> float:
+    """Width of ``text`` (already through ``pdf_text``) in points, as reportlab's
+    ``stringWidth`` gives it (the same sum, in the same order), without encoding the text
+    on every call: that cost more than the rest of laying out a table cell."""
+    return sum(map(_glyph_widths(font).__getitem__, text)) * 0.001 * size
 
 
 @dataclass(frozen=True)
@@ -139,47 +170,6 @@ def cell(value: object, style: ParagraphStyle, width: float | None,
     if (width is not None and text and text == " ".join(text.split())
             and stringWidth(text, style.fontName, style.fontSize) <= width - padding - 0.01):
         return text
-    return Paragraph(esc(value), style)
-
-
-# What a paragraph in the story may fill: the page less its margins and the frame's padding
-# (platypus's default 6 pt each side).
-TEXT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN - 12
-
-
-class TextLine(Flowable):
-    """One line of plain text in a paragraph style, drawn where a one-line Paragraph of
-    the same style would draw it (first baseline ``fontSize`` below the top, height
-    ``leading``, the style's space before and after), without parsing or line breaking."""
-
-    def __init__(self, text: str, style: ParagraphStyle) -> None:
-        super().__init__()
-        self.text = text
-        self.style = style
-        self.spaceBefore = style.spaceBefore
-        self.spaceAfter = style.spaceAfter
-
-    def wrap(self, availWidth: float, availHeight: float) -> tuple[float, float]:
-        self.width = availWidth
-        self.height = self.style.leading
-        return self.width, self.height
-
-    def draw(self) -> None:
-        st = self.style
-        self.canv.setFillColor(st.textColor)
-        self.canv.setFont(st.fontName, st.fontSize, st.leading)
-        self.canv.drawString(0, self.height - st.fontSize, self.text)
-
-
-def text_flowable(value: object, style: ParagraphStyle, width: float = TEXT_WIDTH) -> Flowable:
-    """``value`` as a :class:`TextLine` when it fits on one line of ``width``, else a Paragraph.
-
-    For plain text in left-aligned styles without border or background; spaces are
-    folded as a paragraph folds them. ``width``: what the paragraph may fill.
-    """
-    line = " ".join(pdf_text(str(value)).split())
-    if line and stringWidth(line, style.fontName, style.fontSize) <= width - 0.01:
-        return TextLine(line, style)
     return Paragraph(esc(value), style)
 
 
@@ -300,8 +290,23 @@ def _canvas_class(meta: DocumentMeta) -> type[Canvas]:
     return _Canvas
 
 
+def _fit(text: str, font: str, size: float, width: float) -> str:
+    """``text`` cut short with "…" so it is no wider than ``width`` (unchanged when it fits)."""
+    if text_width(text, font, size) <= width:
+        return text
+    cut = len(text)
+    while cut > 0 and text_width(text[:cut] + "…", font, size) > width:
+        cut -= 1
+    return text[:cut].rstrip() + "…"
+
+
 def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -> None:
+    """Header and footer of one page. Where a left and a right text would overlap (a long
+    shop name or serial number) they are cut short with "…", 12 pt apart, the right one
+    keeping at least half the line; the body states them in full. Widths by text_width
+    (reportlab's stringWidth encoded each text again)."""
     width, height = canvas._pagesize
+    line = width - 2 * MARGIN
     canvas.saveState()
     canvas.setStrokeColor(RULE)
     canvas.setLineWidth(0.5)
@@ -309,15 +314,33 @@ def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -
     canvas.line(MARGIN, top - 1.5 * mm, width - MARGIN, top - 1.5 * mm)
     canvas.setFillColor(MUTED)
     canvas.setFont(FONT, 7.5)
-    canvas.drawString(MARGIN, top, pdf_text(meta.header_left))
-    canvas.drawRightString(width - MARGIN, top, pdf_text(meta.header_right))
+    left, right = pdf_text(meta.header_left), pdf_text(meta.header_right)
+    right = _fit(right, FONT, 7.5, max(line - 12 - text_width(left, FONT, 7.5), line / 2))
+    wr = text_width(right, FONT, 7.5)
+    canvas.drawString(MARGIN, top, _fit(left, FONT, 7.5, line - 12 - wr))
+    canvas.drawString(width - MARGIN - wr, top, right)
     bottom = MARGIN - 6 * mm
     canvas.line(MARGIN, bottom + 3.5 * mm, width - MARGIN, bottom + 3.5 * mm)
-    canvas.drawString(MARGIN, bottom, pdf_text(meta.footer_left))
+    page = f"page {number} of {total}"
+    wp = text_width(page, FONT_BOLD, 8)
+    canvas.drawString(MARGIN, bottom, _fit(pdf_text(meta.footer_left), FONT, 7.5, line - 12 - wp))
     canvas.setFont(FONT_BOLD, 8)
     canvas.setFillColor(INK)
-    canvas.drawRightString(width - MARGIN, bottom, f"page {number} of {total}")
+    canvas.drawString(width - MARGIN - wp, bottom, page)
     canvas.restoreState()
+
+
+def document_canvas(meta: DocumentMeta, out: BytesIO,
+                    pagesize: tuple[float, float] = PAGE_SIZE) -> Canvas:
+    """A canvas for a document drawn without platypus: reproducible, with ``meta``'s PDF
+    info, and the running header and footer ("page x of y") drawn on each page at save."""
+    canvas = _canvas_class(meta)(out, pagesize=pagesize)
+    canvas.setTitle(pdf_text(meta.title))
+    canvas.setAuthor(pdf_text(meta.author))
+    canvas.setSubject(pdf_text(meta.subject))
+    canvas.setKeywords(pdf_text(meta.keywords))
+    canvas.setCreator("shopapp")
+    return canvas
 
 
 def build_pdf(

@@ -1,9 +1,8 @@
 """Draw a :class:`~shopapp.charts.Figure` in a PDF (same geometry as the SVG).
 
-The primitives go straight onto the canvas, each in its own saved graphics state,
-with the operators reportlab's ``renderPDF`` would write for the same shapes: the
-same picture without building and validating a ``Drawing`` shape tree first, which
-took a third of a certificate's render (issue 13).
+The primitives go straight onto the canvas with the operators reportlab's ``renderPDF``
+would write for the same shapes: the same picture without building and validating a
+``Drawing`` shape tree first, which took a third of a certificate's render (issue 13).
 """
 
 from __future__ import annotations
@@ -12,13 +11,27 @@ import math
 from functools import cache
 
 from reportlab.lib.colors import Color, HexColor
-from reportlab.pdfgen.canvas import Canvas
+from reportlab.lib.rl_accel import fp_str
+from reportlab.pdfbase.pdfmetrics import stringWidth
+from reportlab.pdfgen.canvas import FILL_EVEN_ODD, PATH_OPS, Canvas
+from reportlab.pdfgen.textobject import PDFTextObject
 from reportlab.platypus import Flowable
 
 from shopapp.charts.primitives import Circle, Figure, Line, Polyline, Rect, Text
 from shopapp.charts.styles import Style, style
+from shopapp.reports.common import measurable, text_width
 
 _ARROW = "#1d232a"  # arrowheads and texts without a fill of their own
+
+# A full circle as reportlab's canvas.circle draws it (pdfgeom.bezierArc over 360°): four
+# 90° Bézier arcs. Their cosines, sines and kappa depend on the angles alone, so they are
+# worked out once, with bezierArc's own expressions, giving the same numbers.
+_KAPPA = abs(4.0 / 3.0 * (1.0 - math.cos(90.0 * math.pi / 360.0))
+             / math.sin(90.0 * math.pi / 360.0))
+_ARCS = tuple(
+    (math.cos(t0), math.sin(t0), math.cos(t1), math.sin(t1))
+    for t0, t1 in (((0 + i * 90.0) * math.pi / 180.0, (0 + (i + 1) * 90.0) * math.pi / 180.0)
+                   for i in range(4)))
 
 
 @cache
@@ -26,37 +39,78 @@ def _color(hex_text: str) -> Color:
     return HexColor(hex_text)
 
 
-def _pen(canvas: Canvas, s: Style) -> tuple[bool, bool]:
-    """Set the style's stroke, width, dash and fill; whether to stroke and to fill."""
-    if s.stroke:
-        canvas.setStrokeColor(_color(s.stroke))
-    canvas.setLineWidth(s.width)
-    if s.dash:
-        canvas.setDash(list(s.dash), 0)
-    if s.fill:
-        canvas.setFillColor(_color(s.fill))
-    return bool(s.stroke), bool(s.fill)
+class _Pen:
+    """The stroke, line width, dash and fill last set on the canvas, so a run of items in
+    the same style sets them once (a saved and restored state per item cost more than
+    drawing the item)."""
+
+    def __init__(self, canvas: Canvas) -> None:
+        self.canvas = canvas
+        self.stroke: str | None = None
+        self.width: float | None = None
+        self.dash: tuple[float, ...] | None = None
+        self.fill: str | None = None
+
+    def set(self, s: Style) -> tuple[bool, bool]:
+        """Set the style's stroke, width, dash and fill; whether to stroke and to fill."""
+        canvas = self.canvas
+        if s.stroke and s.stroke != self.stroke:
+            canvas.setStrokeColor(_color(s.stroke))
+            self.stroke = s.stroke
+        if s.width != self.width:
+            canvas.setLineWidth(s.width)
+            self.width = s.width
+        if s.dash != self.dash:
+            canvas.setDash(list(s.dash), 0)  # [] 0: solid
+            self.dash = s.dash
+        if s.fill:
+            self.fill_with(s.fill)
+        return bool(s.stroke), bool(s.fill)
+
+    def fill_with(self, hex_text: str) -> None:
+        if hex_text != self.fill:
+            self.canvas.setFillColor(_color(hex_text))
+            self.fill = hex_text
 
 
 def draw_figure(canvas: Canvas, fig: Figure, scale: float = 1.0) -> None:
-    """Draw ``fig`` with its origin at the canvas origin; figure y grows upward, as in PDF."""
+    """Draw ``fig`` with its origin at the canvas origin; figure y grows upward, as in PDF.
+
+    One saved graphics state for the whole figure; the pen is set only where the style
+    changes, and consecutive texts share one text object.
+    """
     k = scale
+    canvas.saveState()
+    pen = _Pen(canvas)
+    text: PDFTextObject | None = None
+    font: tuple[str, float] | None = None
     for item in fig.items:
         s = style(item.style)
-        canvas.saveState()
         if isinstance(item, Text):
-            canvas.setFillColor(_color(s.fill or _ARROW))
-            canvas.setFont("Helvetica-Bold" if s.bold else "Helvetica", s.font_size * k)
-            x, y = item.x * k, item.y * k
-            if item.anchor == "middle":
-                canvas.drawCentredString(x, y, item.text)
-            elif item.anchor == "end":
-                canvas.drawRightString(x, y, item.text)
-            else:
-                canvas.drawString(x, y, item.text)
-            canvas.restoreState()
+            if text is None:
+                text, font = canvas.beginText(), None
+                text.setFillColor(_color(s.fill or _ARROW))
+                fill = s.fill or _ARROW
+            elif (s.fill or _ARROW) != fill:
+                fill = s.fill or _ARROW
+                text.setFillColor(_color(fill))
+            face = ("Helvetica-Bold" if s.bold else "Helvetica", s.font_size * k)
+            if face != font:
+                text.setFont(*face)
+                font = face
+            x = item.x * k
+            if item.anchor != "start":
+                width = (text_width(item.text, *face) if measurable(item.text)
+                         else stringWidth(item.text, *face))
+                x -= width / 2 if item.anchor == "middle" else width
+            text.setTextOrigin(x, item.y * k)
+            text.textLine(item.text)
             continue
-        stroke, fill = _pen(canvas, s)
+        if text is not None:
+            canvas.drawText(text)
+            text = None
+            pen.fill = None  # the text's fill colour is the canvas's now
+        stroke, fill_it = pen.set(s)
         if isinstance(item, Line):
             if stroke:
                 canvas.line(item.x1 * k, item.y1 * k, item.x2 * k, item.y2 * k)
@@ -68,33 +122,58 @@ def draw_figure(canvas: Canvas, fig: Figure, scale: float = 1.0) -> None:
                 path.lineTo(x * k, y * k)
             if item.closed:
                 path.close()
-                canvas.drawPath(path, stroke=int(stroke), fill=int(fill))
+                canvas.drawPath(path, stroke=int(stroke), fill=int(fill_it))
             elif stroke:  # an open line is never filled
                 canvas.drawPath(path, stroke=1, fill=0)
         elif isinstance(item, Circle):
-            canvas.circle(item.cx * k, item.cy * k, item.r * k, stroke=int(stroke),
-                          fill=int(fill))
+            _circle(canvas, item.cx * k, item.cy * k, item.r * k, stroke, fill_it)
         elif isinstance(item, Rect):
             canvas.rect(item.x * k, item.y * k, item.width * k, item.height * k,
-                        stroke=int(stroke), fill=int(fill))
-        canvas.restoreState()
+                        stroke=int(stroke), fill=int(fill_it))
         if isinstance(item, Line) and item.arrow:
-            _arrowhead(canvas, item, k)
+            _arrowhead(pen, item, k)
+    if text is not None:
+        canvas.drawText(text)
+    canvas.restoreState()
 
 
-def _arrowhead(canvas: Canvas, line: Line, k: float) -> None:
+def _circle(canvas: Canvas, cx: float, cy: float, r: float, stroke: bool, fill: bool) -> None:
+    """What ``canvas.circle(cx, cy, r, stroke, fill)`` writes, with the arcs' angles worked
+    out once (the trigonometry per circle cost more than the rest of a figure's lines)."""
+    # canvas.circle -> canvas.ellipse(cx - r, cy - r, cx + r, cy + r) -> path.ellipse(x, y,
+    # width, height) -> bezierArc(x, y, x + width, y + height): the same steps, same floats.
+    left, low, right, high = cx - r, cy - r, cx + r, cy + r
+    x, y, width, height = left, low, right - left, high - low
+    ax, ay, bx, by = x, y, x + width, y + height
+    x1, y1, x2, y2 = min(ax, bx), max(ay, by), max(ax, bx), min(ay, by)
+    x_cen, y_cen = (x1 + x2) / 2.0, (y1 + y2) / 2.0
+    rx, ry = (x2 - x1) / 2.0, (y2 - y1) / 2.0
+    kappa = _KAPPA
+    c0, s0 = _ARCS[0][:2]
+    ops = ["n", f"{fp_str(x_cen + rx * c0, y_cen - ry * s0)} m"]  # "n": as a new path object
+    for c0, s0, c1, s1 in _ARCS:
+        numbers = fp_str(x_cen + rx * (c0 - kappa * s0), y_cen - ry * (s0 + kappa * c0),
+                         x_cen + rx * (c1 + kappa * s1), y_cen - ry * (s1 - kappa * c1),
+                         x_cen + rx * c1, y_cen - ry * s1)
+        ops.append(f"{numbers} c")
+    # the painting operator in reportlab's default fill mode (even-odd), which ours keep
+    ops.append(PATH_OPS[int(stroke), int(fill), FILL_EVEN_ODD])
+    canvas.addLiteral("\n".join(ops))
+
+
+
+def _arrowhead(pen: _Pen, line: Line, k: float) -> None:
+    canvas = pen.canvas
     ang = math.atan2(line.y2 - line.y1, line.x2 - line.x1)
     size = 5.0 * k
     x, y = line.x2 * k, line.y2 * k
-    canvas.saveState()
-    canvas.setFillColor(_color(_ARROW))
+    pen.fill_with(_ARROW)
     path = canvas.beginPath()
     path.moveTo(x, y)
     path.lineTo(x - size * math.cos(ang - 0.4), y - size * math.sin(ang - 0.4))
     path.lineTo(x - size * math.cos(ang + 0.4), y - size * math.sin(ang + 0.4))
     path.close()
     canvas.drawPath(path, stroke=0, fill=1)
-    canvas.restoreState()
 
 
 class FigureFlowable(Flowable):

@@ -2,7 +2,8 @@
 with its plot, and the balance errors (ΔU) with the verdict rule used.
 
 Plain data in (the lines below, carried by
-:class:`shopapp.reports.certificate.CertificateData`), flowables out. The plot
+:class:`shopapp.reports.certificate.CertificateData`), blocks placed on a
+:class:`shopapp.reports.sheet.Sheet` out. The plot
 is :func:`shopapp.charts.circle_fit.circle_fit_figure`, the job page's chart.
 Angles stored here are already in the shop's display convention.
 """
@@ -15,22 +16,13 @@ from dataclasses import dataclass
 from typing import Any
 
 from reportlab.lib.units import mm
-from reportlab.platypus import Flowable, Spacer, Table, TableStyle
 
 from shopapp.charts import Figure
 from shopapp.charts.circle_fit import ReadingPoint, circle_fit_figure
 from shopapp.core import display
-from shopapp.reports.common import (
-    MARGIN,
-    PAGE_SIZE,
-    STYLES,
-    grid_table,
-    keep,
-    text_flowable,
-)
-from shopapp.reports.drawing import FigureFlowable
+from shopapp.reports.common import STYLES
+from shopapp.reports.sheet import CONTENT_WIDTH, Figures, Gap, Grid, Sheet, Text
 
-_CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
 # Greek letters our texts use that the PDF's standard fonts cannot show.
 _GREEK = {"ΔU": "dU", "Δ": "d", "ρ": "rho"}
 
@@ -115,19 +107,16 @@ def has_content(data: Any) -> bool:
     return bool(data.key_statement or data.arbor or data.residual_tests or data.balance_errors)
 
 
-def section(data: Any, number: str = "4a") -> list[Flowable]:
-    """Flowables of the traceability part (empty when there is nothing to state)."""
+def place(sheet: Sheet, data: Any, number: str = "4a") -> None:
+    """Place the traceability part on ``sheet`` (nothing when there is nothing to state)."""
     if not has_content(data):
-        return []
+        return
     st = STYLES
-    out: list[Flowable] = [text_flowable(_t(f"{number}  Traceability of the result"), st.heading)]
-    if data.key_statement:
-        out.append(text_flowable(_t(data.key_statement), st.body))
-    if data.key_compensation:
-        out.append(text_flowable(_t(data.key_compensation), st.body))
-    if data.arbor:
-        out.append(text_flowable(_t(data.arbor), st.body))
-    w = _CONTENT_WIDTH
+    w = CONTENT_WIDTH
+    sheet.place(Text(_t(f"{number}  Traceability of the result"), st.heading, w))
+    for words in (data.key_statement, data.key_compensation, data.arbor):
+        if words:
+            sheet.place(Text(_t(words), st.body, w))
     if data.residual_tests:
         rows = [["Plane", "Test mass", "Positions", f"Residual ({data.unit})",
                  f"Limit ({data.unit})", "Fit scatter", "Verdict"]]
@@ -139,19 +128,16 @@ def section(data: Any, number: str = "4a") -> list[Flowable]:
                          str(t.positions), f"{display.number(t.residual_shop)}{ang}",
                          display.number(t.limit_shop), f"{t.fit_rms_pct:.1f} %",
                          "within" if t.passed else "OUT"])
-        figs = [FigureFlowable(f) for f in residual_test_figures(data)]
-        plot = Table([figs], colWidths=[w / len(figs)] * len(figs))
-        plot.setStyle(TableStyle([("ALIGN", (0, 0), (-1, -1), "CENTER")]))
-        out.append(keep(
-            text_flowable("Residual-unbalance verification test", st.cell_bold),
-            grid_table(rows, [w * 0.1, w * 0.2, w * 0.1, w * 0.19, w * 0.14, w * 0.12, w * 0.15],
-                       align_right_from=2),
-            text_flowable(_t(
+        sheet.place(
+            Text("Residual-unbalance verification test", st.cell_bold, w),
+            Grid(rows, [w * 0.1, w * 0.2, w * 0.1, w * 0.19, w * 0.14, w * 0.12, w * 0.15],
+                 align_right_from=2),
+            Text(_t(
                 "A test mass moved round equally spaced positions; the readings are fitted to a "
                 "circle by least squares and the residual is the circle's offset scaled by the "
                 "test unbalance; the repeat of position 1 agreed within 10 % of the circle's "
-                "radius."), st.small),
-            Spacer(1, 2 * mm), plot))
+                "radius."), st.small, w),
+            Gap(2 * mm), Figures(residual_test_figures(data), w))
     if data.balance_errors:
         rows = [["Plane", f"dU ({data.unit})", "of which random", "systematic",
                  f"Limit used ({data.unit})", "Verdict"]]
@@ -164,9 +150,8 @@ def section(data: Any, number: str = "4a") -> list[Flowable]:
         if any(e.negligible for e in data.balance_errors):
             notes.append("Where ΔU is at most 10 % of the limit it is neglected (common "
                          "practice).")
-        out.append(keep(
-            text_flowable("Balance errors: error estimate dU (ISO 21940-14 idea)", st.cell_bold),
-            grid_table(rows, [w * 0.1, w * 0.14, w * 0.16, w * 0.3, w * 0.17, w * 0.13],
-                       align_right_from=1),
-            *[text_flowable(_t(n), st.small) for n in notes]))
-    return out
+        sheet.place(
+            Text("Balance errors: error estimate dU (ISO 21940-14 idea)", st.cell_bold, w),
+            Grid(rows, [w * 0.1, w * 0.14, w * 0.16, w * 0.3, w * 0.17, w * 0.13],
+                 align_right_from=1),
+            *[Text(_t(n), st.small, w) for n in notes])

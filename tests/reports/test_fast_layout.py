@@ -1,8 +1,9 @@
 """The shortcuts that made certificates fast (issue 13) draw what reportlab's own layout draws.
 
 Each shortcut is rendered beside reportlab's general way of drawing the same thing
-(a Paragraph per cell or line, a ``Drawing`` shape tree through ``renderPDF``), both
-pages are rasterised with pdfium, and the pixels must be the same.
+(a Paragraph per cell, a ``Drawing`` shape tree through ``renderPDF``), both pages are
+rasterised with pdfium, and the pixels must be the same. The certificate itself no longer
+goes through platypus: its canvas layout is checked in ``test_sheet.py``.
 """
 
 from __future__ import annotations
@@ -10,6 +11,7 @@ from __future__ import annotations
 import datetime as dt
 import io
 import math
+import random
 from typing import Any
 
 import pypdfium2
@@ -20,6 +22,7 @@ from reportlab.graphics.shapes import Rect as RLRect
 from reportlab.lib.colors import HexColor
 from reportlab.lib.enums import TA_RIGHT
 from reportlab.lib.styles import ParagraphStyle
+from reportlab.pdfgen.canvas import Canvas
 from reportlab.platypus import Flowable, Paragraph
 
 from shopapp.charts.primitives import Circle, Figure, Line, Polyline, Rect, Text
@@ -28,13 +31,11 @@ from shopapp.reports import certificate as report
 from shopapp.reports.common import (
     STYLES,
     DocumentMeta,
-    TextLine,
     build_pdf,
     esc,
     grid_table,
-    text_flowable,
 )
-from shopapp.reports.drawing import FigureFlowable
+from shopapp.reports.drawing import FigureFlowable, _circle
 from tests.reports.samples import certificate_data
 
 META = DocumentMeta(title="t", created=dt.datetime(2026, 1, 2, tzinfo=dt.UTC), id_seed="t")
@@ -80,17 +81,6 @@ def test_plain_string_cells_draw_what_paragraph_cells_draw() -> None:
         assert kinds[1] == ["str", "str", "str", "str"]  # the shortcut is taken ...
         assert kinds[2][3] == kinds[3][3] == "Paragraph"  # ... but not for wrapping or spaces
         assert _pixels([fast]) == _pixels([general])
-
-
-def test_one_line_texts_draw_what_one_line_paragraphs_draw() -> None:
-    texts = [("1  Rotor", STYLES.heading), ("Balance certificate", STYLES.title),
-             ("Axial positions in mm from the drawing's datum.", STYLES.small),
-             ("a & b < c, 30° at 5 g·mm", STYLES.body), ("0" * 64, STYLES.mono),
-             (report.COVERAGE_STATEMENT, STYLES.body)]
-    fast = [text_flowable(t, st) for t, st in texts]
-    assert [type(f) for f in fast] == [TextLine] * 5 + [Paragraph]
-    general = [Paragraph(esc(t), st) for t, st in texts]
-    assert _pixels(fast) == _pixels(general)
 
 
 def _drawing(fig: Figure) -> Drawing:
@@ -149,3 +139,24 @@ def test_figures_drawn_on_the_canvas_look_as_reportlab_graphics_draws_them() -> 
         Text(118, 2, "end", "small", "end"), Line(0, 40, 110, 40, "operating")]))
     assert _pixels([FigureFlowable(f) for f in figures]) == _pixels(
         [_drawing(f) for f in figures])
+
+
+def test_circles_are_written_as_reportlabs_canvas_circle_writes_them() -> None:
+    # draw_figure works a circle's arcs out from cached angles; reportlab's canvas.circle
+    # is the reference, byte for byte (uncompressed), over random circles and paints.
+    rnd = random.Random(13)
+    circles = [(rnd.uniform(-50, 600), rnd.uniform(-50, 800),
+                rnd.choice([0.0, rnd.uniform(0, 300), rnd.uniform(0, 1e-3)]),
+                rnd.random() < 0.5, rnd.random() < 0.5) for _ in range(2000)]
+
+    def pdf(draw: Any) -> bytes:
+        buf = io.BytesIO()
+        canvas = Canvas(buf, invariant=1, pageCompression=0)
+        for cx, cy, r, stroke, fill in circles:
+            draw(canvas, cx, cy, r, stroke, fill)
+        canvas.showPage()
+        canvas.save()
+        return buf.getvalue()
+
+    assert pdf(_circle) == pdf(lambda c, cx, cy, r, stroke, fill: c.circle(
+        cx, cy, r, stroke=int(stroke), fill=int(fill)))
