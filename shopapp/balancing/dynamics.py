@@ -241,11 +241,21 @@ def balancing_speed_advice(
                 f"proposed speed {proposed:.0f} rpm exceeds the permitted {vmax:.0f} rpm: "
                 "over-speed risk, do not run"
             )
-        if crit is not None and proposed > FLEXIBLE_SPEED_FRACTION * crit:
+        if crit is not None and proposed >= crit:
             ok = False
             warnings.append(
-                f"proposed speed is above 70 % of the first bending critical speed "
-                f"({FLEXIBLE_SPEED_FRACTION * crit:.0f} rpm): the rotor will not behave rigidly"
+                f"proposed speed {proposed:.0f} rpm is at or above the first bending critical "
+                f"speed ({crit:.0f} rpm): the rotor bends and passes through its resonance "
+                f"on the way up; do not balance it as a rigid rotor (keep below "
+                f"{FLEXIBLE_SPEED_FRACTION * crit:.0f} rpm, or balance it as a flexible rotor "
+                "under the machine maker's and licensed practice)"
+            )
+        elif crit is not None and proposed > FLEXIBLE_SPEED_FRACTION * crit:
+            ok = False
+            warnings.append(
+                f"proposed speed {proposed:.0f} rpm is above 70 % of the first bending critical "
+                f"speed ({FLEXIBLE_SPEED_FRACTION * crit:.0f} rpm): the rotor will not behave "
+                "rigidly"
             )
         ratio = proposed / fr
         if machine_type == "soft" and ratio < SOFT_BEARING_MIN_RATIO:

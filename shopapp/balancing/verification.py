@@ -102,6 +102,26 @@ class MinimumResidualTest:
     fit: ResidualVerification
     warnings: tuple[str, ...]
 
+    @property
+    def reads_true(self) -> bool:
+        """The machine indicated the known test unbalance within ``INDICATION_TOLERANCE``."""
+        return abs(self.indication_ratio - 1.0) <= INDICATION_TOLERANCE
+
+    @property
+    def within_claim(self) -> bool:
+        """U_mar is at most the claimed value (whether or not the machine reads true)."""
+        return self.umar_gmm <= self.claimed_umar_gmm
+
+    @property
+    def verdict_text(self) -> str:
+        """The plane's verdict in words: why it failed, when it did."""
+        if self.passed:
+            return "within claim"
+        if not self.reads_true:
+            return "test unbalance misread" if self.within_claim else (
+                "above claim; test unbalance misread")
+        return "above claim"
+
 
 @dataclass(frozen=True)
 class ReductionRatio:
@@ -351,7 +371,7 @@ def minimum_achievable_residual(
     umar = fit.residual_gmm
     # A machine that does not read a known unbalance true cannot prove its U_mar either:
     # the test fails, whatever the residual (the ±10 % band is ours, common practice).
-    reads_true = abs(indication - 1.0) <= INDICATION_TOLERANCE
+    reads_true = abs(indication - 1.0) <= INDICATION_TOLERANCE  # as the property below
     if not reads_true:
         warnings.append("The test fails: the machine must indicate the known test unbalance "
                         f"within ±{100 * INDICATION_TOLERANCE:.0f} % before its U_mar counts.")

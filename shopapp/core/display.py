@@ -98,6 +98,11 @@ def quantity(value: Any, unit: str) -> str:
     return f"{text}°" if unit == "°" else f"{text} {unit}"
 
 
+def counted(n: int, noun: str) -> str:
+    """``n`` and the noun, plural unless ``n`` is one (``1 job``, ``3 jobs``)."""
+    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
+
+
 def percent(rate: Any, decimals: int = 0) -> str:
     """A rate 0..1 as a percentage (``0.183`` → ``18 %``)."""
     v = _finite(rate)

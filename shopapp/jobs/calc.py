@@ -582,7 +582,8 @@ def correction_advice(
             warnings.append("Predicted residual after fitting the rounded correction is still "
                             "out of tolerance: fit the masses more precisely.")
     if has_trial_runs:
-        warnings.append("The advice assumes every trial mass has been removed from the rotor.")
+        # A reminder, not a fault: shown with the cautions, not in red.
+        cautions.append("The advice assumes every trial mass has been removed from the rotor.")
     return CorrectionAdvice(current.run_id, current.seq, coeffs.source, tuple(planes_advised),
                             left_gmm, pct, tuple(warnings), tuple(cautions))
 

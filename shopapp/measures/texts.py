@@ -11,7 +11,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from shopapp.core.display import NOTHING, fixed, number, p_text, percent
+from shopapp.core.display import NOTHING, counted, fixed, number, p_text, percent
 from shopapp.measures.costs import ReworkCost
 from shopapp.measures.drift import UNIT_TEXT, Drift, MachineDrift, RotorDrift
 from shopapp.measures.figures import RATES, REWORK_WINDOW_DAYS, Figures
@@ -125,9 +125,9 @@ def cost_summary(cost: ReworkCost, period_words: str) -> str:
     per_job = t.first_hours_per_job
     per_job_text = f", {hours_text(per_job)} a job" if per_job is not None else ""
     return (f"Machine time in {period_words}: {hours_text(t.first_hours)} of first-time work on "
-            f"{t.first_jobs} jobs{per_job_text}, and {hours_text(t.rework_hours)} of rework on "
-            f"{t.rework_jobs} jobs{share}{money}. Gaps between runs count up to "
-            f"{number(cost.settings.idle_minutes, trim=True)} minutes.")
+            f"{counted(t.first_jobs, 'job')}{per_job_text}, and {hours_text(t.rework_hours)} of "
+            f"rework on {counted(t.rework_jobs, 'job')}{share}{money}. Gaps between runs count "
+            f"up to {number(cost.settings.idle_minutes, trim=True)} minutes.")
 
 
 def reason_lines(cost: ReworkCost) -> list[ReasonLine]:

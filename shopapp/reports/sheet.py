@@ -3,10 +3,10 @@ stacked down A4 pages with simple height arithmetic and page breaks.
 
 The certificate used platypus (a Paragraph or Table per piece, wrapped, split and drawn by
 a general layout engine); measured, it took 33.5 ms where its text and plots drawn on a
-plain canvas took 10.7 ms (issue 13). Here each block knows its width when it is made, so its lines are wrapped and
-its height is known at once; a :class:`Sheet` places blocks top down, keeps a group on one
-page when it fits there, and splits a block taller than what is left (a grid between rows,
-repeating its heading rows; a text between lines).
+plain canvas took 10.7 ms (issue 13). Here each block knows its width when it is made,
+so its lines are wrapped and its height is known at once; a :class:`Sheet` places blocks
+top down, keeps a group on one page when it fits there, and splits a block taller than
+what is left (a grid between rows, repeating its heading rows; a text between lines).
 
 The pages look like our platypus documents: same page, margins, running header and footer
 ("page x of y", :func:`shopapp.reports.common.document_canvas`), same fonts and styles.

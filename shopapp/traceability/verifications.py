@@ -33,6 +33,7 @@ from sqlalchemy.orm import Session, selectinload
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.verification import (
+    INDICATION_TOLERANCE,
     MinimumResidualTest,
     ReductionRatio,
     minimum_achievable_residual,
@@ -512,9 +513,13 @@ def evaluate_proving_test(
             raise core_error(exc, f"plane_{p + 1}.") from None
         planes.append(PlaneProving(p + 1, plane_claim, res))
         warnings.extend(f"Plane {p + 1}: {w}" for w in res.warnings)
-        if not res.passed:
+        if not res.within_claim:
             reasons.append(f"plane {p + 1}: U_mar {quantity(res.umar_gmm, 'g·mm')} is above "
                            f"the claimed {quantity(plane_claim, 'g·mm')}")
+        if not res.reads_true:
+            reasons.append(f"plane {p + 1}: the machine indicated the known test unbalance as "
+                           f"{plain(round(100 * res.indication_ratio))} % of its value "
+                           f"(±{plain(round(100 * INDICATION_TOLERANCE))} % allowed)")
     urr = None
     if has_urr:
         assert before is not None and after is not None

@@ -156,3 +156,20 @@ def test_bad_input_names_the_field(call, field) -> None:
     with pytest.raises(BalancingInputError) as err:
         call()
     assert err.value.field == field
+
+
+def test_a_balancing_speed_at_or_above_the_first_critical_is_named_as_such() -> None:
+    # Common practice, no source: a rigid-rotor balance stays below about 70 % of the
+    # first bending critical; a speed at or above the critical itself is a different,
+    # graver case (the rotor bends and passes through resonance on the way up).
+    above = dyn.balancing_speed_advice("soft", 200.0, proposed_speed_rpm=1000.0,
+                                       max_permitted_speed_rpm=1500.0, first_critical_rpm=900.0)
+    assert above.speed_ok is False
+    assert any("at or above the first bending critical speed (900 rpm)" in w
+               for w in above.warnings)
+    near = dyn.balancing_speed_advice("soft", 200.0, proposed_speed_rpm=700.0,
+                                      max_permitted_speed_rpm=1500.0, first_critical_rpm=900.0)
+    assert near.speed_ok is False
+    assert any("above 70 % of the first bending critical speed (630 rpm)" in w
+               for w in near.warnings)
+    assert not any("at or above" in w for w in near.warnings)

@@ -157,7 +157,7 @@ def test_trial_mass_warning_only_when_the_job_has_trial_runs(db, shop, machine,
     run(db, user, job, "initial", _v(2500.0, 200.0))
     calc = evaluate(db, job)
     assert calc.advice is not None
-    assert not any("trial mass" in w for w in calc.advice.warnings)
+    assert not any("trial mass" in w for w in (*calc.advice.warnings, *calc.advice.cautions))
     # The same job after a trial run (20 g at 0°, R): H = (V1 − V0) / T by hand.
     record_run(db, job, by=user, purpose="trial", speed_rpm=600,
                readings=[_reading(_v(2500.0, 200.0) + _v(20.0, 0.0) * R)],
@@ -165,7 +165,9 @@ def test_trial_mass_warning_only_when_the_job_has_trial_runs(db, shop, machine,
     db.commit()
     calc = evaluate(db, job)
     assert calc.advice is not None
-    assert any("every trial mass has been removed" in w for w in calc.advice.warnings)
+    # A reminder shown with the cautions, not as a fault among the warnings.
+    assert any("every trial mass has been removed" in w for w in calc.advice.cautions)
+    assert not any("trial mass" in w for w in calc.advice.warnings)
 
 
 def test_no_trial_mass_warning_when_stored_coefficients_answer(db, shop, make_user) -> None:
@@ -177,7 +179,9 @@ def test_no_trial_mass_warning_when_stored_coefficients_answer(db, shop, make_us
     first = with_trials(db, user, booked(db, user, rtype, machine, serial="LEARN-1"))
     calc = evaluate(db, first)
     assert calc.advice is not None
-    assert any("every trial mass has been removed" in w for w in calc.advice.warnings)
+    # A reminder shown with the cautions, not as a fault among the warnings.
+    assert any("every trial mass has been removed" in w for w in calc.advice.cautions)
+    assert not any("trial mass" in w for w in calc.advice.warnings)
     for a in calc.advice.planes:
         record_correction(db, first, by=user, run_id=calc.advice.run_id, plane=a.plane,
                           action="add", mass_g=a.mass_g, angle_deg=a.angle_deg,
@@ -193,7 +197,7 @@ def test_no_trial_mass_warning_when_stored_coefficients_answer(db, shop, make_us
     db.commit()
     calc = evaluate(db, job)
     assert calc.advice is not None and calc.advice.source == "stored"
-    assert not any("trial mass" in w for w in calc.advice.warnings)
+    assert not any("trial mass" in w for w in (*calc.advice.warnings, *calc.advice.cautions))
 
 
 # --------------------------------------------------------------------------- trims

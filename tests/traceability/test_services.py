@@ -178,6 +178,27 @@ def test_proving_test_fails_when_the_residual_is_above_the_plane_claim(db, shop,
     assert "plane 1" in res.reasons[0]
 
 
+def test_a_misread_test_unbalance_is_named_as_the_reason_not_the_claim(  # type: ignore[no-untyped-def]
+        db, shop, quality, proving_rotor) -> None:
+    # A machine reading the known 40 g·mm test unbalance at 20 % (gain 0.2, simulated):
+    # its U_mar is within the claim, yet the test fails because it does not read true
+    # (our ±10 % band, common practice, no source). The reason must say that.
+    m = shop.machine(claimed_emar_gmm_per_kg=0.5)  # 2.5 g·mm per plane
+    a, g = _indications(1.0, 0.0, 40.0)
+    weak = [0.2 / 1.03 * v for v in a]  # GAIN carries 1.03: 20 % of the true size
+    res = verifications.evaluate_proving_test(m, proving_rotor, test_mass_g=0.4,
+                                              indicated_gmm=[weak, weak],
+                                              indicated_angles_deg=[g, g])
+    assert res.passed is False
+    plane = res.planes[0].result
+    assert plane.indication_ratio == pytest.approx(0.2, rel=1e-9)
+    assert plane.within_claim and not plane.reads_true
+    assert plane.verdict_text == "test unbalance misread"
+    assert not any("above the claimed" in r for r in res.reasons)
+    assert "plane 1: the machine indicated the known test unbalance as 20 % of its value" in (
+        res.reasons[0])
+
+
 def test_proving_test_needs_the_quality_role_and_complete_readings(db, shop, operator, quality,  # type: ignore[no-untyped-def]
                                                                    proving_rotor) -> None:
     m = shop.machine()
