@@ -32,6 +32,7 @@ from sqlalchemy import bindparam, update
 
 from shopapp.balancing.phasors import amplitude_angle, normalize_deg
 from shopapp.core.numbering import format_number, per_year
+from shopapp.demo import parallel
 from shopapp.demo import physics as ph
 from shopapp.demo import scenario as sc
 from shopapp.demo.days import WORKDAY_START_MIN, add_working_days, at
@@ -100,7 +101,19 @@ class History:
             p.number = format_number(shop.pattern, on=p.received, seq=numbering[key])
         self.store.insert(Rotor, shop.rotor_rows)
         shop.rotor_rows = []
-        total = len(order)
+        if self.store.to_driver:
+            parallel.play(self, order, steps)  # bulk mode on SQLite
+        else:
+            self.play(order, steps)
+
+    def play(self, order: list[Plan], steps: Steps | None, *, total: int | None = None,
+             done: int = 0) -> None:
+        """Run the jobs of ``order`` (start order), their rows written (or sent) as it goes.
+
+        ``steps`` is told ``done + i`` of ``total`` (default: ``len(order)``).
+        """
+        total = len(order) if total is None else total
+        last = len(order) - 1
         for i, p in enumerate(order):
             parent = p.parent
             if p.job_id and (parent is None or (parent.result_dispatched_on is not None
@@ -109,8 +122,8 @@ class History:
             # else: booked after the end, or the earlier job had not left the shop
             if len(self.store.rows.jobs) >= 2000:
                 self.store.flush_rows()  # in emission order: a parent job before its return
-            if steps is not None and (i % 50 == 0 or i == total - 1):
-                steps(i + 1, total)
+            if steps is not None and (i % 50 == 0 or i == last):
+                steps(done + i + 1, total)
         self.store.flush_rows()
 
     def write(self) -> None:
