@@ -34,8 +34,10 @@ def generate_bulk(
     balance-error estimate), fleets grow with the job count, and no
     certificates, residual-unbalance tests or arbor jobs are made (the
     machines' proving tests are). Rows go in with bulk inserts in chunks
-    (:mod:`shopapp.demo.store`). About 100 000 jobs / 1 000 000 runs take a
-    few minutes on SQLite. The caller commits.
+    (:mod:`shopapp.demo.store`); on SQLite two forked worker processes play the
+    jobs, split by rotor type, while this one writes their rows
+    (:mod:`shopapp.demo.parallel`; the same seed gives the same rows). The
+    caller commits.
     """
     if jobs < 1:
         raise ValidationFailed("jobs", f"must be at least 1, got {jobs}")

@@ -6,6 +6,9 @@ Core ``insert(Model.__table__)``; in bulk mode on SQLite the same values are
 turned into what the driver stores by each column type's own bind processor
 and handed to ``executemany`` directly (SQLAlchemy's per-row statement
 handling is a third of the bulk time), so the storage format has one home.
+The bulk generator's worker processes build those statements and send them to
+the process that holds the transaction (:attr:`Store.sink`,
+:mod:`shopapp.demo.parallel`).
 """
 
 from __future__ import annotations
