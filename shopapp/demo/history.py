@@ -106,13 +106,11 @@ class History:
         else:
             self.play(order, steps)
 
-    def play(self, order: list[Plan], steps: Steps | None, *, total: int | None = None,
-             done: int = 0) -> None:
-        """Run the jobs of ``order`` (start order), their rows written (or sent) as it goes.
-
-        ``steps`` is told ``done + i`` of ``total`` (default: ``len(order)``).
-        """
-        total = len(order) if total is None else total
+    def play(self, order: list[Plan], steps: Steps | None, *, flush_every: int = 2000
+             ) -> None:
+        """Run the jobs of ``order`` (start order), their rows written (or sent) every
+        ``flush_every`` jobs."""
+        total = len(order)
         last = len(order) - 1
         for i, p in enumerate(order):
             parent = p.parent
@@ -120,10 +118,10 @@ class History:
                                                 and parent.result_dispatched_on <= p.received)):
                 JobSim(self, p).run()
             # else: booked after the end, or the earlier job had not left the shop
-            if len(self.store.rows.jobs) >= 2000:
+            if len(self.store.rows.jobs) >= flush_every:
                 self.store.flush_rows()  # in emission order: a parent job before its return
             if steps is not None and (i % 50 == 0 or i == last):
-                steps(done + i + 1, total)
+                steps(i + 1, total)
         self.store.flush_rows()
 
     def write(self) -> None:

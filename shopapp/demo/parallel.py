@@ -116,7 +116,9 @@ def _worker(history: History, plans: list[Plan], k: int, base: int, out: Connect
             played[0] = done
 
         store.sink = sink
-        history.play(plans, count)
+        # Smaller batches than the serial path's: the writer starts sooner and waits
+        # less for the last one.
+        history.play(plans, count, flush_every=500)
         out.send(("done", {
             "ids": store.ids.next_ids, "counts": store.counts,
             "job_states": store.job_states, "sets": history.sets,
