@@ -9,6 +9,8 @@ from sqlalchemy.orm import Session
 from shopapp.core.errors import ValidationFailed
 from shopapp.demo.loader import DemoLoad, DemoSummary, Progress, Steps
 
+LOAD_CACHE_KIB = 1024 * 1024  # SQLite page cache during the load (the 100 000-job shop ~1 GB)
+
 
 def generate_bulk(
     session: Session,
@@ -34,8 +36,10 @@ def generate_bulk(
     balance-error estimate), fleets grow with the job count, and no
     certificates, residual-unbalance tests or arbor jobs are made (the
     machines' proving tests are). Rows go in with bulk inserts in chunks
-    (:mod:`shopapp.demo.store`). About 100 000 jobs / 1 000 000 runs take a
-    few minutes on SQLite. The caller commits.
+    (:mod:`shopapp.demo.store`); on SQLite two forked worker processes play the
+    jobs, split by rotor type, while this one writes their rows
+    (:mod:`shopapp.demo.parallel`; the same seed gives the same rows). The
+    caller commits.
     """
     if jobs < 1:
         raise ValidationFailed("jobs", f"must be at least 1, got {jobs}")
@@ -47,5 +51,18 @@ def generate_bulk(
                     total_jobs=jobs, runs_per_job=runs_per_job, force=force, progress=progress,
                     steps=steps, exact=False, with_certificates=False,
                     signing_dir=None)
-    load.shop_and_history()
+    conn = session.connection()
+    sqlite = conn.dialect.name == "sqlite"
+    if sqlite:
+        # The whole uncommitted load stays in SQLite's page cache: with the default 2 MB
+        # every index page is spilled and read back through the WAL again and again,
+        # and the job facts' per-job lookups read from the WAL page by page (minutes at
+        # 100 000 jobs). Only pages in use take memory; the setting is put back after.
+        kept = conn.exec_driver_sql("PRAGMA cache_size").scalar()
+        conn.exec_driver_sql(f"PRAGMA cache_size = {-LOAD_CACHE_KIB}")
+    try:
+        load.shop_and_history()
+    finally:
+        if sqlite:
+            conn.exec_driver_sql(f"PRAGMA cache_size = {int(kept)}")
     return load.summary()

@@ -20,6 +20,7 @@ operations for :mod:`shopapp.demo.replay`.
 
 from __future__ import annotations
 
+import bisect
 import datetime as dt
 import math
 from collections.abc import Callable
@@ -31,6 +32,7 @@ from sqlalchemy import bindparam, update
 
 from shopapp.balancing.phasors import amplitude_angle, normalize_deg
 from shopapp.core.numbering import format_number, per_year
+from shopapp.demo import parallel
 from shopapp.demo import physics as ph
 from shopapp.demo import scenario as sc
 from shopapp.demo.days import WORKDAY_START_MIN, add_working_days, at
@@ -46,6 +48,12 @@ Op = tuple[dt.datetime, int, int, str, dict[str, Any]]
 
 MAX_CYCLES = 10  # a job that is still out after this many corrections is given up
 STORED_SET_USE = 0.6  # chance an operator corrects from a stored set when one exists
+
+
+def _learned(s: dict[str, Any]) -> tuple[dt.datetime, int]:
+    """A stored set's place in its key's list (ids are positive, so ``(t, 0)`` cuts before
+    every set learned at ``t``)."""
+    return s["learned_at"], s["id"]
 
 
 @dataclass
@@ -66,6 +74,7 @@ class History:
         self.runs_per_job = runs_per_job
         # The certificates service writes the "certified" transitions when it issues.
         self.with_certificates = with_certificates
+        # Per (rotor type, machine, speed), sorted by (learned_at, id).
         self.sets: dict[tuple[int, int, float], list[dict[str, Any]]] = {}
         self.set_scores: dict[int, tuple[dt.datetime, float]] = {}
         self.cert_jobs: set[int] = set()
@@ -92,16 +101,26 @@ class History:
             p.number = format_number(shop.pattern, on=p.received, seq=numbering[key])
         self.store.insert(Rotor, shop.rotor_rows)
         shop.rotor_rows = []
+        if self.store.to_driver:
+            parallel.play(self, order, steps)  # bulk mode on SQLite
+        else:
+            self.play(order, steps)
+
+    def play(self, order: list[Plan], steps: Steps | None, *, flush_every: int = 2000
+             ) -> None:
+        """Run the jobs of ``order`` (start order), their rows written (or sent) every
+        ``flush_every`` jobs."""
         total = len(order)
+        last = len(order) - 1
         for i, p in enumerate(order):
             parent = p.parent
             if p.job_id and (parent is None or (parent.result_dispatched_on is not None
                                                 and parent.result_dispatched_on <= p.received)):
                 JobSim(self, p).run()
             # else: booked after the end, or the earlier job had not left the shop
-            if len(self.store.rows.jobs) >= 2000:
+            if len(self.store.rows.jobs) >= flush_every:
                 self.store.flush_rows()  # in emission order: a parent job before its return
-            if steps is not None and (i % 50 == 0 or i == total - 1):
+            if steps is not None and (i % 50 == 0 or i == last):
                 steps(i + 1, total)
         self.store.flush_rows()
 
@@ -232,9 +251,13 @@ class JobSim:
             return
         assert self.p.start_at is not None
         key = (tm.id, tm.machine.id, tm.spec.balancing_speed_rpm)
-        usable = [s for s in self.h.sets.get(key, []) if s["learned_at"] < self.p.start_at]
-        if usable and self.rng.random() < STORED_SET_USE:
-            self.stored = max(usable, key=lambda s: (s["learned_at"], s["id"]))
+        # The sets learned before this job's start are a prefix of the sorted list; the
+        # latest of them is the one before the cut (a scan grew with the history: minutes
+        # at 100 000 jobs).
+        key_sets = self.h.sets.get(key, [])
+        n_usable = bisect.bisect_left(key_sets, (self.p.start_at, 0), key=_learned)
+        if n_usable and self.rng.random() < STORED_SET_USE:
+            self.stored = key_sets[n_usable - 1]
             c = self.stored["coefficients"]
             self.a_est = tuple(complex(re, im) for re, im in c)  # type: ignore[assignment]
             self.source = "stored"
@@ -712,7 +735,7 @@ class JobSim:
             elif e.kind == "learn":
                 s = e.data["set"]
                 key = (s["rotor_type_id"], s["machine_id"], s["speed_rpm"])
-                h.sets.setdefault(key, []).append(s)
+                bisect.insort(h.sets.setdefault(key, []), s, key=_learned)
                 store.audit(e.at, self.op_id, "influence_set", s["id"], "learn",
                             after={"source_job_id": job_id, "speed_rpm": s["speed_rpm"],
                                    "condition_number": s["condition_number"]}, job_id=job_id)

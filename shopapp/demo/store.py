@@ -6,6 +6,9 @@ Core ``insert(Model.__table__)``; in bulk mode on SQLite the same values are
 turned into what the driver stores by each column type's own bind processor
 and handed to ``executemany`` directly (SQLAlchemy's per-row statement
 handling is a third of the bulk time), so the storage format has one home.
+The bulk generator's worker processes build those statements and send them to
+the process that holds the transaction (:attr:`Store.sink`,
+:mod:`shopapp.demo.parallel`).
 """
 
 from __future__ import annotations
@@ -36,6 +39,8 @@ from shopapp.models import (
 )
 
 CHUNK = 5000
+# An INSERT and its rows as the driver takes them.
+Statement = tuple[str, list[tuple[Any, ...]]]
 # Tables the generator writes with explicit ids (their sequences are moved on for PostgreSQL).
 ID_TABLES = (User, Customer, RotorType, Rotor, Machine, MachineVerification, Job,
              JobTransition, Run, RunReading, Correction, InfluenceSet, AuditEvent, Certificate)
@@ -46,6 +51,7 @@ class Ids:
 
     def __init__(self, session: Session) -> None:
         self._next: dict[str, int] = {}
+        self._step = 1
         for model in ID_TABLES:
             top = session.scalar(select(func.max(model.id))) or 0
             self._next[model.__tablename__] = top + 1
@@ -53,8 +59,23 @@ class Ids:
     def take(self, model: type[Any]) -> int:
         name = model.__tablename__
         value = self._next[name]
-        self._next[name] = value + 1
+        self._next[name] = value + self._step
         return value
+
+    def interleave(self, k: int, n: int) -> None:
+        """From now on take every ``n``-th id, starting ``k`` on: the share of worker ``k``
+        of ``n`` (:mod:`shopapp.demo.parallel`), so the workers' ids never meet."""
+        self._next = {name: value + k for name, value in self._next.items()}
+        self._step = n
+
+    @property
+    def next_ids(self) -> dict[str, int]:
+        return dict(self._next)
+
+    def continue_after(self, taken: list[dict[str, int]]) -> None:
+        """One id at a time again, after every id the workers took."""
+        self._next = {name: max(t[name] for t in taken) for name in self._next}
+        self._step = 1
 
 
 @dataclass
@@ -79,8 +100,12 @@ class Store:
         self.counts = {"jobs": 0, "runs": 0, "readings": 0, "corrections": 0,
                        "transitions": 0, "audits": 0, "sets": 0}
         self.job_states: list[str] = []
+        self.dialect = session.get_bind().dialect
         # Bulk mode on SQLite hands the stored values to the driver itself.
-        self.to_driver = bulk and session.get_bind().dialect.name == "sqlite"
+        self.to_driver = bulk and self.dialect.name == "sqlite"
+        # A worker process of the bulk generator sends its statements here instead of
+        # executing them (:mod:`shopapp.demo.parallel`).
+        self.sink: Callable[[list[Statement]], object] | None = None
 
     def audit(self, at: Any, by: int | None, entity: str, entity_id: int | None,
               action: str, after: dict[str, Any] | None = None,
@@ -105,13 +130,20 @@ class Store:
     def flush_rows(self) -> None:
         """Insert the collected job rows (foreign-key order) and forget them."""
         rows = self.rows
+        statements: list[Statement] = []
         for model, batch, name in (
             (Job, rows.jobs, "jobs"), (JobTransition, rows.transitions, "transitions"),
             (Run, rows.runs, "runs"), (RunReading, rows.readings, "readings"),
             (Correction, rows.corrections, "corrections"), (AuditEvent, rows.audits, "audits"),
         ):
-            self.insert(model, batch)
+            if self.sink is not None:
+                if batch:
+                    statements.append(driver_statement(self.dialect, model.__table__, batch))
+            else:
+                self.insert(model, batch)
             self.counts[name] += len(batch)
+        if self.sink is not None and statements:
+            self.sink(statements)
         self.job_states.extend(r["state"] for r in rows.jobs)
         for batch in (rows.jobs, rows.transitions, rows.runs, rows.readings, rows.corrections,
                       rows.audits):
@@ -131,7 +163,20 @@ class Store:
 
 def _insert_driver(session: Session, table: Any, rows: list[dict[str, Any]]) -> None:
     """executemany through the driver, each value stored as its column type stores it."""
-    dialect = session.get_bind().dialect
+    execute_statements(session, [driver_statement(session.get_bind().dialect, table, rows)])
+
+
+def execute_statements(session: Session, statements: list[Statement]) -> None:
+    """Run :func:`driver_statement` results in the session's transaction, in chunks."""
+    conn = session.connection()
+    for sql, params in statements:
+        for start in range(0, len(params), CHUNK):
+            conn.exec_driver_sql(sql, params[start:start + CHUNK])
+
+
+def driver_statement(dialect: Any, table: Any, rows: list[dict[str, Any]]) -> Statement:
+    """The INSERT of ``rows`` and its parameters as the driver takes them (each value
+    turned into what its column type stores)."""
     cols = list(rows[0])
     sql = (f"INSERT INTO {table.name} ({', '.join(cols)}) "
            f"VALUES ({', '.join('?' for _ in cols)})")
@@ -141,13 +186,11 @@ def _insert_driver(session: Session, table: Any, rows: list[dict[str, Any]]) -> 
         process = table.c[c].type.dialect_impl(dialect).bind_processor(dialect)
         if process is not None:
             convert.append((i, process))
-    conn = session.connection()
-    for start in range(0, len(rows), CHUNK):
-        params = []
-        for row in rows[start:start + CHUNK]:
-            values = list(get(row)) if len(cols) > 1 else [get(row)]
-            for i, process in convert:
-                if values[i] is not None:
-                    values[i] = process(values[i])
-            params.append(tuple(values))
-        conn.exec_driver_sql(sql, params)
+    params = []
+    for row in rows:
+        values = list(get(row)) if len(cols) > 1 else [get(row)]
+        for i, process in convert:
+            if values[i] is not None:
+                values[i] = process(values[i])
+        params.append(tuple(values))
+    return sql, params

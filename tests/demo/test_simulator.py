@@ -628,6 +628,42 @@ def test_bulk_mode_is_consistent_with_the_core(ds: Session) -> None:
     ds.rollback()
 
 
+def test_bulk_mode_gives_the_same_rows_for_the_same_seed(ds: Session) -> None:
+    # On SQLite two worker processes play the jobs (shopapp.demo.parallel) and their rows
+    # arrive in whatever order the workers finish: the history must not depend on it.
+    def rows() -> dict[str, list[Any]]:
+        bulk.generate_bulk(ds, jobs=150, runs_per_job=4, seed=11, years=0.5, end_date=END,
+                           force=True)
+        out = {}
+        for table in ("job", "job_transition", "run", "run_reading", "correction",
+                      "influence_set"):
+            out[table] = list(ds.connection().exec_driver_sql(
+                f"SELECT * FROM {table} ORDER BY id").all())
+        ds.rollback()
+        return out
+
+    first, second = rows(), rows()
+    assert len(first["job"]) > 100 and len(first["run"]) > 400
+    assert first == second
+
+
+def test_bulk_jobs_are_split_by_whole_rotor_types() -> None:
+    from types import SimpleNamespace
+
+    from shopapp.demo import parallel
+
+    # Plans stand-ins: only the rotor type is read. Types 1-4 with 5, 3, 3, 1 jobs.
+    types = [1] * 5 + [2] * 3 + [3] * 3 + [4]
+    order: list[Any] = [SimpleNamespace(rotor=SimpleNamespace(type=SimpleNamespace(id=t)))
+                        for t in types]
+    groups = parallel.split(order, 2)
+    assert sorted(len(g) for g in groups) == [6, 6]  # {1, 4} and {2, 3}
+    place = {id(p): i for i, p in enumerate(order)}
+    for g in groups:  # each group keeps the start order
+        assert [place[id(p)] for p in g] == sorted(place[id(p)] for p in g)
+    assert not ({p.rotor.type.id for p in groups[0]} & {p.rotor.type.id for p in groups[1]})
+
+
 def test_bad_parameters_are_refused_with_the_field() -> None:
     from shopapp.core.errors import ValidationFailed
 
