@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 
 HUGE = 1e15  # beyond any quantity a balancing shop measures (g·mm², rpm, g)
+TINY = 1e-9  # below any quantity a balancing shop measures; 1e-300 would print 300 zeros
 
 
 def figures(value: float, sig: int = 3, *, trim: bool = False) -> str:
@@ -32,6 +33,8 @@ def figures(value: float, sig: int = 3, *, trim: bool = False) -> str:
     if mag >= HUGE:
         # Only hostile or broken input gets here (1e300 would print 301 digits).
         return f"more than {HUGE:.0f}" if v > 0 else f"less than -{HUGE:.0f}"
+    if mag < TINY:
+        return f"less than {TINY:.9f}" if v > 0 else f"more than -{TINY:.9f}"
     if mag >= 10 ** (sig - 1):
         return f"{v:.0f}"
     decimals = max(0, sig - 1 - math.floor(math.log10(mag)))

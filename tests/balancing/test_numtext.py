@@ -15,7 +15,10 @@ from hypothesis import strategies as st
 from shopapp.balancing.numtext import figures, short
 from shopapp.core.display import number
 
-finite = st.floats(min_value=-1e12, max_value=1e12, allow_nan=False, allow_infinity=False)
+# Within the magnitudes spelt out as digits (TINY..HUGE; outside them the text names a bound,
+# see test_absurd_magnitudes_are_named_not_spelt_out).
+finite = st.floats(min_value=-1e12, max_value=1e12, allow_nan=False, allow_infinity=False
+                   ).filter(lambda v: v == 0 or abs(v) >= 1e-9)
 
 
 @given(finite, st.integers(min_value=1, max_value=6))
@@ -52,6 +55,10 @@ def test_absurd_magnitudes_are_named_not_spelt_out() -> None:
     assert figures(1e300) == "more than 1000000000000000"
     assert short(-2.5e17) == "less than -1000000000000000"
     assert figures(999_999_999_999_999.0, 3) == "999999999999999"
+    # ... and so are absurdly small ones (1e-300 printed 300 zeros in the run log).
+    assert figures(1e-300) == "less than 0.000000001"
+    assert short(-3e-12) == "more than -0.000000001"
+    assert figures(1.5e-9, 2) == "0.0000000015"
 
 
 def test_p_values_print_without_an_exponent() -> None:
