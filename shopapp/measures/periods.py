@@ -12,6 +12,7 @@ import calendar
 import datetime as dt
 from dataclasses import asdict, dataclass
 
+from shopapp.core.checks import EARLIEST_DAY
 from shopapp.core.errors import ValidationFailed
 
 PERIOD_KINDS: tuple[str, ...] = ("week", "month", "quarter", "year", "custom")
@@ -154,12 +155,14 @@ def parse_month(value: str) -> Period:
     try:
         year_s, month_s = value.strip().split("-")
         year, month = int(year_s), int(month_s)
-        if not (1 <= month <= 12 and 1900 <= year <= 9999):
+        if not (1 <= month <= 12 and 1 <= year <= 9999):
             raise ValueError
     except ValueError:
         raise ValidationFailed(
             "month", f"'{value}' is not a month; write it as YYYY-MM, e.g. 2026-10"
         ) from None
+    if year < EARLIEST_DAY.year:  # the dashboard's own earliest day
+        raise ValidationFailed("month", f"'{value}' is before {EARLIEST_DAY.year}")
     return Period.month(year, month)
 
 

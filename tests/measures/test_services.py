@@ -245,6 +245,8 @@ def test_periods_and_their_previous_ones() -> None:
     custom = Period(dt.date(2026, 10, 10), dt.date(2026, 10, 19))
     assert custom.previous() == Period(dt.date(2026, 9, 30), dt.date(2026, 10, 9))
     assert parse_month("2026-10") == OCT
+    with pytest.raises(ValidationFailed, match="before 1990"):
+        parse_month("1900-01")  # the dashboard refuses days before 1990 too
     with pytest.raises(ValidationFailed, match="YYYY-MM"):
         parse_month("October")
     with pytest.raises(ValidationFailed, match="before it starts"):
