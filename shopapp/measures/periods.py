@@ -12,7 +12,7 @@ import calendar
 import datetime as dt
 from dataclasses import asdict, dataclass
 
-from shopapp.core.checks import EARLIEST_DAY
+from shopapp.core.checks import EARLIEST_DAY, day_refusal
 from shopapp.core.errors import ValidationFailed
 
 PERIOD_KINDS: tuple[str, ...] = ("week", "month", "quarter", "year", "custom")
@@ -161,9 +161,10 @@ def parse_month(value: str) -> Period:
         raise ValidationFailed(
             "month", f"'{value}' is not a month; write it as YYYY-MM, e.g. 2026-10"
         ) from None
-    if year < EARLIEST_DAY.year:  # the dashboard's own earliest day
-        raise ValidationFailed("month", f"'{value}' is before {EARLIEST_DAY.year}")
-    return Period.month(year, month)
+    period = Period.month(year, month)
+    if period.start < EARLIEST_DAY:  # the date window every date input is held to
+        raise ValidationFailed("month", day_refusal(period.start) or "")
+    return period
 
 
 @dataclass(frozen=True)
