@@ -10,7 +10,7 @@ from pathlib import Path
 from typing import Any
 
 import pikepdf
-from asn1crypto import cms
+from asn1crypto import cms, parser
 from cryptography import x509
 from cryptography.exceptions import InvalidSignature
 from cryptography.hazmat.primitives import hashes
@@ -76,6 +76,14 @@ class IndependentCheck:
     signer_subject: str
 
 
+def der_length(contents: bytes) -> int:
+    """Bytes of the DER value at the start of a zero-padded ``/Contents``, from its own
+    header (X.690 §8.1.3). Stripping the trailing zeros instead cuts a signature whose
+    last byte happens to be 0x00 (one signature in 256)."""
+    _cls, _method, _tag, header, content, _trailer = parser.parse(contents)
+    return len(header) + len(content)
+
+
 def independent_check(pdf: bytes) -> IndependentCheck:
     """Hash the ``/ByteRange`` of the signature dictionary and compare it with the CMS's
     signed ``messageDigest``; verify the CMS signature over its signed attributes with the
@@ -89,7 +97,7 @@ def independent_check(pdf: bytes) -> IndependentCheck:
     covers = a == 0 and b + lb == len(pdf) and pdf[a + la:b].strip(b"<>").lower() \
         == contents.hex().encode("ascii")
     signed = pdf[a:a + la] + pdf[b:b + lb]
-    info = cms.ContentInfo.load(contents.rstrip(b"\0"))
+    info = cms.ContentInfo.load(contents[:der_length(contents)])
     signer_info = info["content"]["signer_infos"][0]
     attrs = signer_info["signed_attrs"]
     digest = next(x["values"][0].native for x in attrs if x["type"].native == "message_digest")

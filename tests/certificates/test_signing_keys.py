@@ -21,7 +21,7 @@ from cryptography.x509.oid import NameOID
 
 from shopapp.certificates import pdfsign, signing
 from shopapp.core.errors import ValidationFailed
-from tests.certificates.signed import independent_check, issue_signed, signing_dir
+from tests.certificates.signed import der_length, independent_check, issue_signed, signing_dir
 
 NOW = dt.datetime.now(dt.UTC)
 
@@ -109,7 +109,7 @@ def _signature_space(pdf: bytes) -> tuple[int, int]:
     with pikepdf.open(io.BytesIO(pdf)) as doc:
         sig = next(f for f in doc.Root.AcroForm.Fields if f.get("/FT") == "/Sig").V
         a, la, b, _lb = (int(x) for x in sig.ByteRange)
-        used = 2 * len(bytes(sig.Contents).rstrip(b"\0"))
+        used = 2 * der_length(bytes(sig.Contents))
     assert a == 0
     return b - la - 2, used  # between the ranges: "<" + hex digits + ">"
 
@@ -244,3 +244,14 @@ def test_a_damaged_key_shows_a_message_not_a_500(app, client, login_as) -> None:
     resp = client.get("/certificates/signing")
     assert resp.status_code == 200
     assert "holds no private key and certificate" in resp.get_data(as_text=True)
+
+
+def test_the_signature_is_read_by_its_der_length_even_when_its_last_byte_is_zero() -> None:
+    """A CMS blob is zero-padded in ``/Contents``; its end is given by its DER header
+    (X.690 §8.1.3), so a value whose last content byte is 0x00 is read whole."""
+    from asn1crypto import core
+
+    value = core.OctetString(b"\x01\x02\x00").dump()  # 04 03 01 02 00
+    assert der_length(value + b"\0" * 40) == len(value) == 5
+    long_value = core.OctetString(bytes(300) + b"\x07\x00").dump()  # long-form length
+    assert der_length(long_value + b"\0" * 9) == len(long_value) == 306
