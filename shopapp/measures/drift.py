@@ -36,7 +36,8 @@ import itertools
 from collections import defaultdict
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from operator import itemgetter
+from typing import Any, NamedTuple
 
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
@@ -46,7 +47,7 @@ from shopapp.core.display import p_text
 from shopapp.jobs import calc as job_calc
 from shopapp.measures.periods import EVERYTHING, Period, Scope
 from shopapp.measures.sql import scoped_facts
-from shopapp.measures.stats import StatisticsInputError, Trend, trend
+from shopapp.measures.stats import StatisticsInputError, Trend, trend, trends
 from shopapp.models import (
     Customer,
     Job,
@@ -69,8 +70,9 @@ _JOB_TOLERANCE_COLUMNS = ("tolerance_method", "tolerance_grade", "journal_load_a
                           "service_speed_rpm", "balancing_speed_rpm")
 
 
-@dataclass(frozen=True)
-class RotorVisit:
+class RotorVisit(NamedTuple):
+    """One visit of a rotor (a named tuple: a busy shop's year makes 40 000 of them)."""
+
     job_number: str
     received_on: dt.date
     unit: str
@@ -214,10 +216,11 @@ def _visit_rows(session: Session, p: Period, scope: Scope) -> list[Any]:
 Limits = dict[tuple[Any, ...], tuple[float, ...] | None]
 
 
-def _plane_limits(row: Any, rt: RotorType, known: Limits) -> tuple[float, ...] | None:
-    """The job's plane limits, worked out once per rotor type and tolerance inputs (a
-    shop's visits share a handful of them: 23 000 visits, a few hundred sets)."""
-    inputs = tuple(getattr(row, c) for c in _JOB_TOLERANCE_COLUMNS)
+def _plane_limits(rt: RotorType, inputs: tuple[Any, ...], known: Limits
+                  ) -> tuple[float, ...] | None:
+    """The job's plane limits from its tolerance inputs (:data:`_JOB_TOLERANCE_COLUMNS`),
+    worked out once per rotor type and inputs (a shop's visits share a handful of them:
+    23 000 visits, a few hundred sets)."""
     key = (rt.id, *inputs)
     if key not in known:
         job = Job(**dict(zip(_JOB_TOLERANCE_COLUMNS, inputs, strict=True)))  # never added
@@ -228,16 +231,28 @@ def _plane_limits(row: Any, rt: RotorType, known: Limits) -> tuple[float, ...] |
     return known[key]
 
 
-def _percent_of_limit(row: Any, rt: RotorType | None, known: Limits) -> float | None:
+def _percent_of_limit(amps: tuple[float | None, float | None],
+                      limits: tuple[float, ...] | None) -> float | None:
     """The larger plane reading as % of that plane's limit (g·mm readings only)."""
-    if rt is None or row.unit != GMM or row.unit_max != GMM:
-        return None
-    limits = _plane_limits(row, rt, known)
     if limits is None:
         return None
-    shares = [100.0 * amp / lim for amp, lim in zip((row.amp1, row.amp2), limits, strict=False)
+    shares = [100.0 * amp / lim for amp, lim in zip(amps, limits, strict=False)
               if amp is not None and lim > 0]
     return max(shares) if shares else None
+
+
+def _visit(row: Any, types: dict[int, RotorType], known: Limits) -> RotorVisit:
+    """One row of :func:`_visit_rows` as a :class:`RotorVisit` (positions, not names: a
+    year of a busy shop is 40 000 rows, and a name lookup on a result row is slow)."""
+    (_rotor_id, _job_id, number, received_on, *inputs, _serial, rotor_type_id, _customer,
+     _part, amp1, amp2, unit, unit_max) = row
+    rt = types.get(rotor_type_id)
+    percent = None
+    if rt is not None and unit == GMM and unit_max == GMM:
+        percent = _percent_of_limit((amp1, amp2), _plane_limits(rt, tuple(inputs), known))
+    return RotorVisit(number, _as_date(received_on), unit if unit == unit_max else "mixed",
+                      amp1 if amp2 is None else amp2 if amp1 is None else max(amp1, amp2),
+                      percent)
 
 
 def _as_date(value: Any) -> dt.date:
@@ -247,34 +262,51 @@ def _as_date(value: Any) -> dt.date:
 def rotor_drift(
     session: Session, p: Period, scope: Scope = EVERYTHING
 ) -> tuple[int, list[RotorDrift]]:
-    """Rotors examined, and those whose initial unbalance rises (slope > 0), likeliest first."""
+    """Rotors examined, and those whose initial unbalance rises (slope > 0), likeliest first.
+
+    The lines of all rotors are fitted together (:func:`shopapp.measures.stats.trends`);
+    visits are only spelt out for the rotors that rise.
+    """
     rows = _visit_rows(session, p, scope)
     type_ids = sorted({r.rotor_type_id for r in rows})
     types = {rt.id: rt for rt in session.scalars(
         select(RotorType).where(RotorType.id.in_(type_ids)))} if type_ids else {}
-    by_rotor: dict[int, list[Any]] = defaultdict(list)
-    for row in rows:
-        by_rotor[row.rotor_id].append(row)
-    out: list[RotorDrift] = []
     known: Limits = {}
-    for rotor_rows in by_rotor.values():
-        visits = [
-            RotorVisit(r.number, _as_date(r.received_on),
-                       r.unit if r.unit == r.unit_max else "mixed",
-                       max(a for a in (r.amp1, r.amp2) if a is not None),
-                       _percent_of_limit(r, types.get(r.rotor_type_id), known))
-            for r in rotor_rows
-        ]
-        drift = _rotor_trend(rotor_rows[-1], visits)
-        if drift is not None:
-            out.append(drift)
-    examined = len(out)
-    rising = [d for d in out if d.slope_per_year > 0]
-    rising.sort(key=lambda d: (d.p_value, d.serial_number))
-    return examined, rising
+    picked: list[tuple[Any, list[RotorVisit], str, list[float]]] = []
+    series: list[tuple[list[float], list[float]]] = []
+    for _rotor_id, group in itertools.groupby(rows, key=itemgetter(0)):
+        rotor_rows = list(group)
+        visits = [_visit(r, types, known) for r in rotor_rows]
+        chosen = _trend_series(visits)
+        if chosen is not None:
+            used, measure, xs, ys = chosen
+            picked.append((rotor_rows[-1], used, measure, xs))
+            series.append((xs, ys))
+    out: list[RotorDrift] = []
+    examined = 0
+    for (last, used, measure, days), line in zip(picked, trends(series), strict=True):
+        if line is None:
+            continue
+        examined += 1
+        if line.slope <= 0:
+            continue
+        out.append(RotorDrift(last.rotor_id, last.serial_number, last.customer,
+                              last.part_number, tuple(used), measure,
+                              line.slope * DAYS_PER_YEAR, line.p_value,
+                              (days[-1] - days[0]) / (len(days) - 1)))
+    out.sort(key=lambda d: (d.p_value, d.serial_number))
+    return examined, out
 
 
-def _rotor_trend(last: Any, visits: Sequence[RotorVisit]) -> RotorDrift | None:
+def _trend_series(
+    visits: Sequence[RotorVisit],
+) -> tuple[list[RotorVisit], str, list[float], list[float]] | None:
+    """The visits a rotor's line is drawn through, what is followed, and the points.
+
+    Every visit as % of its limit when each has one; else the latest visits read in the
+    latest visit's unit. None when fewer than three remain, the unit is mixed or all
+    fall on one day.
+    """
     if all(v.percent_of_limit is not None for v in visits):
         used, measure = list(visits), "% of limit"
         ys = [v.percent_of_limit or 0.0 for v in used]
@@ -287,17 +319,10 @@ def _rotor_trend(last: Any, visits: Sequence[RotorVisit]) -> RotorDrift | None:
             used.insert(0, v)
         measure = unit
         ys = [v.amplitude for v in used]
-    days = [v.received_on.toordinal() for v in used]
+    days = [float(v.received_on.toordinal()) for v in used]
     if len(used) < 3 or measure == "mixed" or len(set(days)) < 2:
         return None
-    try:
-        line = trend(days, ys)
-    except StatisticsInputError:
-        return None
-    gaps = [b - a for a, b in itertools.pairwise(days)]
-    return RotorDrift(last.rotor_id, last.serial_number, last.customer, last.part_number,
-                      tuple(used), measure, line.slope * DAYS_PER_YEAR, line.p_value,
-                      sum(gaps) / len(gaps))
+    return used, measure, days, ys
 
 
 # ------------------------------------------------------------------------------- machines

@@ -229,3 +229,69 @@ def test_a_deleted_transition_leaves_the_facts(db, shop, make_user) -> None:  # 
     db.expire_all()
     assert db.get(JobFact, t.job_id).rejected_at is None
     assert hs.jobs  # built
+
+
+def _drift_by_definition(db: Any, p: Period, scope: Scope) -> dict[str, tuple[float, float]]:
+    """Rising rotors by the definition in shopapp.measures.drift, one rotor at a time:
+    visits from the raw rows (raw_reference.py), limits from each job's own tolerance
+    (job_calc.job_tolerance on the stored Job), the line from scipy.stats.linregress."""
+    from collections import defaultdict
+
+    import scipy.stats
+
+    from shopapp.jobs import calc as job_calc
+
+    by_rotor: dict[int, list[Any]] = defaultdict(list)
+    for row in raw._visit_rows(db, p, scope):
+        by_rotor[row.rotor_id].append(row)
+    out: dict[str, tuple[float, float]] = {}
+    for rows in by_rotor.values():
+        points = []  # (day, unit, largest reading, % of limit or None)
+        for r in rows:
+            amp = max(a for a in (r.amp1, r.amp2) if a is not None)
+            pct = None
+            if r.unit == r.unit_max == "g·mm":
+                job = db.get(Job, r.job_id)
+                limits = job_calc.job_tolerance(job, job.rotor.rotor_type).plane_limits_gmm
+                shares = [100 * a / lim for a, lim in zip((r.amp1, r.amp2), limits,
+                                                          strict=False)
+                          if a is not None and lim > 0]
+                pct = max(shares) if shares else None
+            unit = r.unit if r.unit == r.unit_max else "mixed"
+            day = (dt.date.fromisoformat(r.received_on) if isinstance(r.received_on, str)
+                   else r.received_on).toordinal()
+            points.append((day, unit, amp, pct))
+        if all(pt[3] is not None for pt in points):
+            used = [(d, pct) for d, _u, _a, pct in points]
+        else:
+            last_unit, used = points[-1][1], []
+            for d, u, a, _pct in reversed(points):
+                if u != last_unit:
+                    break
+                used.insert(0, (d, a))
+            if last_unit == "mixed":
+                continue
+        if len(used) < 3 or len({d for d, _ in used}) < 2:
+            continue
+        ref = scipy.stats.linregress([d for d, _ in used], [v for _, v in used])
+        if ref.slope > 0:
+            out[rows[-1].serial_number] = (ref.slope * 365.25, ref.pvalue)
+    return out
+
+
+def test_drift_lines_fitted_together_equal_each_rotor_fitted_alone(db, generated) -> None:  # type: ignore[no-untyped-def]
+    # Reference: the definition worked one rotor at a time with scipy.stats.linregress.
+    job = db.scalars(select(Job).where(Job.machine_id.is_not(None)).limit(1)).one()
+    seen = 0
+    for scope in (EVERYTHING, Scope(customer_id=job.customer_id)):
+        for p in _periods()[-4:]:
+            _examined, rising = drift.rotor_drift(db, p, scope)
+            want = _drift_by_definition(db, p, scope)
+            got = {d.serial_number: (d.slope_per_year, d.p_value) for d in rising}
+            assert got.keys() == want.keys(), (p, scope)
+            for serial, (slope, p_value) in want.items():
+                assert got[serial][0] == pytest.approx(slope, rel=1e-9, abs=1e-12)
+                assert got[serial][1] == pytest.approx(p_value, rel=1e-7, abs=1e-15)
+            assert [d.p_value for d in rising] == sorted(d.p_value for d in rising)
+            seen += len(want)
+    assert seen > 0  # the comparison saw rising rotors

@@ -47,6 +47,7 @@ from shopapp.measures.stats import (
     pareto,
     rate,
     trend,
+    trends,
     wilson_interval,
 )
 
@@ -828,3 +829,47 @@ def test_caution_is_one_sentence_about_questions_not_verdicts() -> None:
     assert CAUTION.count(".") == 1 and CAUTION.endswith(".")
     assert "not a verdict on a person" in CAUTION
     assert isinstance(Rate(1, 2), Rate)
+
+
+def test_many_trends_at_once_match_linregress_series_by_series() -> None:
+    # Reference: scipy.stats.linregress, fitted one series at a time; lengths 3 to 8 as
+    # a rotor's last visits (dates as day numbers, values in % of limit).
+    g = np.random.default_rng(11)
+    series = []
+    for i in range(300):
+        n = 3 + i % 6
+        days = np.sort(g.choice(np.arange(739_000, 740_500), size=n, replace=False))
+        series.append((days.astype(float).tolist(),
+                       (40 + 0.01 * (days - 739_000) * g.normal(0, 1)
+                        + g.normal(0, 5, n)).tolist()))
+    got = trends(series)
+    for (xs, ys), line in zip(series, got, strict=True):
+        ref = scipy.stats.linregress(xs, ys)
+        assert line is not None and line.n == len(xs)
+        assert line.slope == pytest.approx(ref.slope, rel=1e-9, abs=1e-12)
+        assert line.slope_stderr == pytest.approx(ref.stderr, rel=1e-9)
+        assert line.p_value == pytest.approx(ref.pvalue, rel=1e-7, abs=1e-15)
+        single = trend(xs, ys)  # the one-at-a-time function gives the same line
+        assert (line.x_first, line.x_last) == (single.x_first, single.x_last)
+        assert line.intercept == pytest.approx(single.intercept, rel=1e-9, abs=1e-9)
+
+
+def test_many_trends_leave_out_what_one_trend_refuses() -> None:
+    # Each refused series is one that trend() refuses (test_trend_refuses_bad_input);
+    # the good series beside them still get their lines.
+    good = ([1.0, 2.0, 3.0], [1.0, 2.0, 4.0])
+    refused = [([1, 2], [1, 2]), ([1, 2, 3], [1, 2]), ([2, 2, 2], [1, 2, 3]),
+               ([1, 2, float("nan")], [1, 2, 3]), ([1, 2, 3], [1, float("inf"), 3]),
+               ([1, 2, 3], [1e308, -1e308, 1e308])]
+    for xs, ys in refused:
+        with pytest.raises(StatisticsInputError):
+            trend(xs, ys)
+    got = trends([good, *refused, good])
+    assert got[1:-1] == [None] * len(refused)
+    assert got[0] == got[-1] and got[0] is not None
+    assert got[0].slope == pytest.approx(trend(*good).slope)
+    # Perfect fits as trend() has them: p = 0 for a sloped line, 1 for a flat one.
+    exact, flat = trends([([0, 1, 2], [1.0, 3.0, 5.0]), ([0, 1, 2], [4.0, 4.0, 4.0])])
+    assert exact is not None and exact.p_value < 1e-6 and exact.slope == pytest.approx(2.0)
+    assert flat is not None and flat.slope == 0.0 and flat.p_value == 1.0
+    assert trends([]) == []

@@ -71,6 +71,7 @@ from shopapp.measures.stats.series import (
     machine_time,
     pareto,
     trend,
+    trends,
 )
 
 __all__ = [
@@ -110,5 +111,6 @@ __all__ = [
     "pareto",
     "rate",
     "trend",
+    "trends",
     "wilson_interval",
 ]
