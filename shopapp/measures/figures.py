@@ -37,6 +37,7 @@ from shopapp.measures.sql import (
     day_number,
     epoch_seconds,
     fact_select,
+    fact_summary,
     grouped,
     histogram,
     int_div,
@@ -156,23 +157,25 @@ F = JobFact
 
 def _received(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
     base = scoped_facts(
-        fact_select({"job_id": F.job_id}, F.received_month)
+        fact_summary({"n": func.count()}, F.received_month)
         .where(F.received_on.between(p.start, p.end)),
         scope,
     )
-    long = long_form(base, dims, ["job_id"])
-    return grouped(session, long, {"jobs_received": func.count(long.c.job_id)})
+    long = long_form(base, dims, ["n"])
+    return grouped(session, long, {"jobs_received": func.sum(long.c.n)})
 
 
 def _dispatched(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> Grouped:
     base = scoped_facts(
-        fact_select({"wd": F.turnaround_wd, "hit": F.promised_hit}, F.dispatched_month)
+        fact_summary({"wd": F.turnaround_wd, "n": func.count(), "pj": func.count(F.promised_hit),
+                      "ph": func.coalesce(func.sum(F.promised_hit), 0)},
+                     F.dispatched_month, F.turnaround_wd)
         .where(F.dispatched_on.between(p.start, p.end)),
         scope,
     )
-    long = long_form(base, dims, ["wd", "hit"])
-    h = histogram(long, "wd", {"pj": func.count(long.c.hit),
-                                "ph": func.coalesce(func.sum(long.c.hit), 0)})
+    long = long_form(base, dims, ["wd", "n", "pj", "ph"])
+    h = histogram(long, "wd", {"pj": func.sum(long.c.pj), "ph": func.sum(long.c.ph)},
+                  weight="n")
     return grouped(
         session,
         h,
@@ -243,19 +246,22 @@ def _tolerance_cohort(
     """Jobs that first reached in_tolerance in ``p``: count, cycles, first pass, rework."""
     reached = F.first_in_tolerance_at
     base = scoped_facts(
-        fact_select({"job_id": F.job_id, "cycles": F.correction_cycles, "fp": F.first_pass,
-                     "rw": _reworked_later(today)}, F.tolerance_month)
+        fact_summary({"n": func.count(), "cycles": func.sum(F.correction_cycles),
+                      "cycles_n": func.count(F.correction_cycles),
+                      "fp_n": func.count(F.first_pass), "fp": func.sum(F.first_pass),
+                      "rw": func.sum(_reworked_later(today))}, F.tolerance_month)
         .where(reached >= utc_start(p.start), reached < utc_start(p.end + dt.timedelta(days=1))),
         scope,
     )
-    long = long_form(base, dims, ["job_id", "cycles", "fp", "rw"])
+    long = long_form(base, dims, ["n", "cycles", "cycles_n", "fp_n", "fp", "rw"])
     return grouped(
         session,
         long,
         {
-            "reached_in_tolerance": func.count(long.c.job_id),
-            "correction_cycles_mean": cast(func.avg(cast(long.c.cycles, Float)), Float),
-            "first_pass_judged": func.count(long.c.fp),
+            "reached_in_tolerance": func.sum(long.c.n),
+            "correction_cycles_mean": cast(func.sum(long.c.cycles), Float)
+            / func.nullif(func.sum(long.c.cycles_n), 0),
+            "first_pass_judged": func.sum(long.c.fp_n),
             "first_pass_jobs": func.coalesce(func.sum(long.c.fp), 0),
             "reworked_jobs": func.coalesce(func.sum(long.c.rw), 0),
         },
