@@ -227,24 +227,41 @@ def machine_seconds(
         .join(JobFact, JobFact.job_id == per_job.c.job_id),
         scope,
     ).cte("machine_time").prefix_with("MATERIALIZED")
+    # Summed once per slice (the four slice columns) and phase before the dimensions
+    # repeat it: a job lies in one slice, so distinct jobs per slice add up across slices.
+    # A job may carry two reasons, so the reasons are counted from the job rows.
+    slice_cols = [base.c[n] for n in fact_dims()]
+    per_slice = (
+        select(*slice_cols, base.c.phase, func.sum(base.c.secs).label("secs"),
+               func.count(func.distinct(base.c.job_id)).label("jobs"))
+        .group_by(*slice_cols, base.c.phase)
+        .cte("machine_time_slices")
+    )
 
     def key(dim: str) -> Any:
         if dim == "all":
             return cast(literal_column("NULL"), String)
-        if dim == "reason":
-            return base.c.reason
-        return cast(base.c[f"{dim}_id"], String)
+        return cast(per_slice.c[f"{dim}_id"], String)
 
-    parts = []
+    parts: list[Any] = []
     for dim in dims:
-        part = select(literal_column(f"'{dim}'", String).label("dim"), key(dim).label("key"),
-                      base.c.phase, base.c.job_id, base.c.secs)
-        parts.append(part.where(base.c.phase == "rework") if dim == "reason" else part)
+        if dim == "reason":
+            parts.append(
+                select(literal_column("'reason'", String).label("dim"),
+                       base.c.reason.label("key"), base.c.phase,
+                       func.sum(base.c.secs).label("secs"),
+                       func.count(func.distinct(base.c.job_id)).label("jobs"))
+                .where(base.c.phase == "rework")
+                .group_by(base.c.reason, base.c.phase))
+        else:
+            parts.append(select(literal_column(f"'{dim}'", String).label("dim"),
+                                key(dim).label("key"), per_slice.c.phase, per_slice.c.secs,
+                                per_slice.c.jobs))
     long = (union_all(*parts) if len(parts) > 1 else parts[0]).subquery("long")
     stmt = select(
         long.c.dim, long.c.key, long.c.phase,
         func.coalesce(func.sum(long.c.secs), 0).label("secs"),
-        func.count(func.distinct(long.c.job_id)).label("jobs"),
+        func.sum(long.c.jobs).label("jobs"),
     ).group_by(long.c.dim, long.c.key, long.c.phase)
     return {(row.dim, row.key, row.phase): (int(row.secs), int(row.jobs))
             for row in session.execute(stmt)}
