@@ -45,7 +45,7 @@ from sqlalchemy.orm import Session
 from shopapp.balancing.numtext import short
 from shopapp.core.errors import ValidationFailed
 from shopapp.measures.periods import EVERYTHING, Period, Scope
-from shopapp.measures.sql import fact_dims, scoped_facts, utc_start
+from shopapp.measures.sql import AnySelect, fact_dims, scoped_facts, utc_start
 from shopapp.measures.stats import DEFAULT_IDLE_SECONDS, ParetoItem, pareto
 from shopapp.models import JobFact, RunFact
 from shopapp.reports.shop_month import ReasonCount
@@ -243,7 +243,7 @@ def machine_seconds(
             return cast(literal_column("NULL"), String)
         return cast(per_slice.c[f"{dim}_id"], String)
 
-    parts: list[Any] = []
+    parts: list[AnySelect] = []
     for dim in dims:
         if dim == "reason":
             parts.append(

@@ -36,6 +36,7 @@ from shopapp.measures.sql import (
     Grouped,
     day_number,
     epoch_seconds,
+    fact_dims,
     fact_select,
     fact_summary,
     grouped,
@@ -281,14 +282,33 @@ def _closed(session: Session, p: Period, scope: Scope, dims: Sequence[str]) -> G
                     F.dispatched_month)
         .where(F.dispatched_on.between(p.start, p.end)), scope
     )
-    events = union_all(rejected, dispatched).subquery("closed")
-    long = long_form(select(*events.c), dims, ["job_id", "rej"])
+    events = union_all(rejected, dispatched).cte("closed").prefix_with("MATERIALIZED")
+    # Distinct jobs, counted once per slice (a job lies in one slice, so the counts add up
+    # across slices) — per slice and month for the month dimension, where a job closed in
+    # two months counts in each, and per slice for the others, where it counts once.
+    slice_cols = [events.c[n] for n in fact_dims()]
+    counts = [func.count(func.distinct(events.c.job_id)).label("closed"),
+              func.count(func.distinct(case((events.c.rej == 1, events.c.job_id))))
+              .label("rejected")]
+    per_slice = select(*slice_cols, literal_column("NULL").label("month"), *counts) \
+        .group_by(*slice_cols)
+    per_month = select(*slice_cols, events.c.month, *counts) \
+        .group_by(*slice_cols, events.c.month)
+    parts = []
+    if any(d != "month" for d in dims):
+        parts.append(long_form(per_slice, [d for d in dims if d != "month"],
+                               ["closed", "rejected"], name="closed_slices"))
+    if "month" in dims:
+        parts.append(long_form(per_month, ["month"], ["closed", "rejected"],
+                               name="closed_months"))
+    long = (union_all(*(select(*p.c) for p in parts)) if len(parts) > 1
+            else select(*parts[0].c)).subquery("closed_long")
     return grouped(
         session,
         long,
         {
-            "jobs_closed": func.count(func.distinct(long.c.job_id)),
-            "rejected_jobs": func.count(func.distinct(case((long.c.rej == 1, long.c.job_id)))),
+            "jobs_closed": func.sum(long.c.closed),
+            "rejected_jobs": func.sum(long.c.rejected),
         },
     )
 

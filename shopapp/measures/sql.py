@@ -155,13 +155,15 @@ def _key(dim: str, base: Any) -> ColumnElement[Any]:
     return cast(base.c[f"{dim}_id"], String)
 
 
-def long_form(base_stmt: AnySelect, dims: Sequence[str], values: Sequence[str]) -> Any:
+def long_form(base_stmt: AnySelect, dims: Sequence[str], values: Sequence[str],
+              name: str = "base") -> Any:
     """The base rows once per dimension: (dim, key, *values), as a subquery.
 
-    The base is a CTE, so each backend computes it once and reads it per dimension.
+    The base is a CTE (named ``name``), so each backend computes it once and reads it per
+    dimension.
     """
     # MATERIALIZED: computed once and read per dimension (SQLite >= 3.35, PostgreSQL >= 12).
-    base = base_stmt.cte("base").prefix_with("MATERIALIZED")
+    base = base_stmt.cte(name).prefix_with("MATERIALIZED")
     parts = [
         select(
             literal_column(f"'{dim}'", String).label("dim"),
@@ -170,7 +172,7 @@ def long_form(base_stmt: AnySelect, dims: Sequence[str], values: Sequence[str]) 
         )
         for dim in dims
     ]
-    return (union_all(*parts) if len(parts) > 1 else parts[0]).subquery("long")
+    return (union_all(*parts) if len(parts) > 1 else parts[0]).subquery(f"{name}_long")
 
 
 def grouped(
