@@ -20,7 +20,8 @@ from shopapp.measures.services import ShopReport
 
 SLICE_TABLES = {f"by_{dim}": dim for dim in DIMENSIONS}
 TABLES: tuple[str, ...] = (
-    "headline", *SLICE_TABLES, "trend", "funnels", "rework_cost", "rework_reasons",
+    "headline", *SLICE_TABLES, "trend", "funnels", "rework_cost", "machine_time",
+    "rework_reasons",
     "rejection_reasons", "rotors_getting_worse", "drift_rotors", "drift_machines", "machines",
 )
 NAMES = ("trade", "machine")
@@ -71,6 +72,9 @@ WORDS: dict[str, str] = {
     "tests": "proving tests", "latest_on": "latest test", "latest_umar_gmm": "latest U_mar (g·mm)",
     "claim_gmm": "claimed U_mar (g·mm)", "due_on": "next due", "warning": "warning",
     "runs": "runs", "last_verified_on": "last verified", "status": "status",
+    "name": "name", "first_hours": "first-time machine hours",
+    "first_jobs": "jobs with first-time runs",
+    "rework_jobs": "jobs with rework runs", "rework_share": "rework share of machine hours",
 }
 
 
@@ -170,6 +174,13 @@ def table_rows(report: ShopReport, table: str) -> tuple[list[str], list[list[Any
         return (["reason", "reworks", "rework_hours", "percent", "cumulative_percent"],
                 [[r.reason, r.reworks, r.hours, r.percent, r.cumulative_percent]
                  for r in reasons])
+    if table == "machine_time":
+        by = report.cost.by if report.cost is not None else {}
+        return (["dimension", "key", "name", "first_hours", "first_jobs", "rework_hours",
+                 "rework_jobs", "rework_share"],
+                [[dim, s.key, s.label, s.time.first_hours, s.time.first_jobs,
+                  s.time.rework_hours, s.time.rework_jobs, s.time.rework_share]
+                 for dim, slices in by.items() for s in slices])
     if table == "rework_reasons":
         return ["reason", "jobs"], [[r.reason, r.count] for r in report.rework_reasons]
     if table == "rejection_reasons":

@@ -307,3 +307,37 @@ def test_a_small_change_is_not_shown_as_zero() -> None:
     assert change_text(1.25, 1.26) == "down 0.01"
     assert change_text(2.5, 1.0) == "up 1.5" and change_text(4, 1) == "up 3"
     assert change_text(1.0, 1.0) == "same"
+
+
+def test_machine_hours_of_every_slice_are_in_a_csv_and_a_cut_table_says_so(
+    client, login_as, db, shop, make_user, monkeypatch
+) -> None:  # type: ignore[no-untyped-def]
+    monkeypatch.setattr(routes, "_today", lambda: measures_shop.REWORK_TODAY)
+    rs = measures_shop.build_rework(db, shop, make_user)
+    # Nine more rotor types, one first-time job each: twelve rotor types with machine time,
+    # more than the page's table shows.
+    customer = shop.customer(name="Cut Table Customer (invented)")
+    for i in range(9):
+        rotor = shop.rotor(shop.rotor_type(customer, part_number=f"CUT-{i}", description="fan"))
+        measures_shop._plain_job(db, shop, rotor, rs.users["A"], rs.machine,
+                                 dt.date(2026, 3, 2) + dt.timedelta(days=i), first_pass=True,
+                                 rework_reason=None)
+    db.commit()
+    login_as("owner")
+    html = _page(client, "/dashboard?period=year&on=2026-06-01")
+    assert re.search(r'data-cut="cost_rotor_type">The 8 with the most rework hours of 12;',
+                     html)
+    assert 'data-cut="cost_operator"' not in html  # four operators: nothing cut
+    resp = client.get("/dashboard.csv?table=machine_time&period=year&on=2026-06-01"
+                      "&names=machine")
+    assert resp.status_code == 200 and resp.mimetype == "text/csv"
+    rows = list(csv.DictReader(io.StringIO(resp.get_data(as_text=True))))
+    by = {(r["dimension"], r["name"]): r for r in rows}
+    assert sum(1 for d, _ in by if d == "rotor_type") == 12
+    # By hand (tests/measures_shop.py): Ada High's 16 reworked jobs are run again for half
+    # an hour each after reopening: 8 rework hours; the other operators' 3 + 2 + 3.
+    ada = by[("operator", "Ada High")]
+    assert (float(ada["rework_hours"]), int(ada["rework_jobs"])) == (8.0, 16)
+    ops = [r for (d, _), r in by.items() if d == "operator"]
+    assert sum(int(r["rework_jobs"]) for r in ops) == 24
+    assert sum(float(r["rework_hours"]) for r in ops) == 12.0
