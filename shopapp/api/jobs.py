@@ -73,6 +73,8 @@ def job_detail(call: Call, job_id: int) -> JobDetail:
 def list_jobs(call: Call) -> Page[JobOut]:
     """The job list with the page's filters, newest received first."""
     args = call.query.model_dump(exclude={"page", "size"})
+    if isinstance(args["reworked"], bool):  # the list page's values: "1" / "0" / "window"
+        args["reworked"] = "1" if args["reworked"] else "0"
     job_filter = queries.JobFilter(**{k: v for k, v in args.items() if v is not None})
     return page_of(call.session, queries.filtered_jobs_stmt(job_filter), call.query, JobOut)
 

@@ -151,7 +151,14 @@ class JobListQuery(PageQuery):
     received_to: dt.date | None = None
     dispatched_from: dt.date | None = None
     dispatched_to: dt.date | None = None
-    reworked: bool | None = Field(None, description="reopened at least once or a return job")
+    reached_from: dt.date | None = Field(None, description="first reached tolerance on or "
+                                         "after this day (UTC)")
+    reached_to: dt.date | None = Field(None, description="first reached tolerance on or "
+                                       "before this day (UTC)")
+    reworked: bool | Literal["window"] | None = Field(
+        None, description="true: reopened at least once or a return job; false: neither; "
+        "'window': reworked within 90 days of first reaching tolerance (the shop measures' "
+        "rework)")
     q: ShortText | None = Field(None, description="job number, serial number or customer name")
 
 

@@ -28,6 +28,7 @@ count the shop's own work in shopapp, and such a job has only a final residual.
 
 from __future__ import annotations
 
+import datetime as dt
 import functools
 from collections.abc import Iterable
 from typing import Any
@@ -38,6 +39,7 @@ from sqlalchemy import (
     Select,
     String,
     Table,
+    and_,
     bindparam,
     case,
     cast,
@@ -56,7 +58,14 @@ from sqlalchemy.orm import Session, aliased
 from sqlalchemy.orm.attributes import get_history
 from sqlalchemy.orm.base import PASSIVE_NO_INITIALIZE
 
-from shopapp.core.sqltime import day_number, epoch_seconds, work_day_index_of_day, year_month
+from shopapp.core.sqltime import (
+    day_number,
+    epoch_seconds,
+    int_div,
+    utc_start,
+    work_day_index_of_day,
+    year_month,
+)
 from shopapp.jobs import calc as job_calc
 from shopapp.models import (
     Correction,
@@ -69,6 +78,33 @@ from shopapp.models import (
     RunFact,
     RunReading,
 )
+
+#: A job counts as reworked when it comes back to the machine within this many days of
+#: first reaching tolerance (reopened, or returned by the customer). A fixed window keeps
+#: the rework rate of an old period comparable with a recent one; a period's rate is
+#: final once this many days have passed since its end.
+REWORK_WINDOW_DAYS = 90
+
+
+def reworked_within_window(today: dt.date) -> Any:
+    """True (SQL, over job_fact) when the job was reworked within :data:`REWORK_WINDOW_DAYS`
+    days of first reaching in_tolerance and by ``today``: reopened, or come back as a
+    customer return. The shop measures count it; the job list filters by it.
+
+    The facts keep the first reopening and the first return; a later one can only be later,
+    so "the first one up to today is within the window" is "the first one is by today and
+    within the window" (every reopening comes after the job first reached in_tolerance).
+    """
+    reached = JobFact.first_in_tolerance_at
+    return or_(
+        and_(JobFact.first_reopen_at < utc_start(today + dt.timedelta(days=1)),
+             epoch_seconds(JobFact.first_reopen_at) - epoch_seconds(reached)
+             <= REWORK_WINDOW_DAYS * 86400),
+        and_(JobFact.first_return_on <= today,
+             day_number(JobFact.first_return_on) - int_div(epoch_seconds(reached), 86400)
+             <= REWORK_WINDOW_DAYS),
+    )
+
 
 # A move back to on_machine from one of these is a reopening (rework).
 REWORK_FROM_STATES: tuple[str, ...] = ("in_tolerance", "certified", "dispatched")

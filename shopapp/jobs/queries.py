@@ -18,8 +18,10 @@ from sqlalchemy.orm import Session, joinedload, selectinload
 from shopapp.core.checks import QUERY_AHEAD_DAYS, day_refusal, plain_digits
 from shopapp.core.errors import NotFound
 from shopapp.core.pagination import Page, paginate_ids
+from shopapp.core.sqltime import utc_start
 from shopapp.jobs import calc as job_calc
 from shopapp.jobs import evidence
+from shopapp.jobs.facts import REWORK_WINDOW_DAYS, reworked_within_window
 from shopapp.models import (
     JOB_KINDS,
     JOB_STATES,
@@ -27,6 +29,7 @@ from shopapp.models import (
     Customer,
     InfluenceSet,
     Job,
+    JobFact,
     Machine,
     Rotor,
     RotorType,
@@ -187,7 +190,11 @@ def intake_choices(session: Session) -> IntakeChoices:
 class JobFilter:
     """Filters of the job list (query parameters of ``/jobs``; dashboard links use them).
 
-    ``reworked``: True = reopened at least once or a return job; False = neither.
+    ``reworked``: ``"1"`` = reopened at least once or a return job; ``"0"`` = neither;
+    ``"window"`` = reworked within :data:`~shopapp.jobs.facts.REWORK_WINDOW_DAYS` days of
+    first reaching tolerance (the shop measures' rework: reopened, or come back as a
+    return). ``reached_from``/``reached_to``: first reached tolerance on those days (UTC),
+    the jobs the measures' first-pass and rework rates are counted over.
     ``q`` searches job number, serial number and customer name (case-insensitive).
     """
 
@@ -202,7 +209,9 @@ class JobFilter:
     received_to: dt.date | None = None
     dispatched_from: dt.date | None = None
     dispatched_to: dt.date | None = None
-    reworked: bool | None = None
+    reached_from: dt.date | None = None
+    reached_to: dt.date | None = None
+    reworked: str | None = None
     q: str = ""
 
     @classmethod
@@ -223,7 +232,7 @@ class JobFilter:
                     setattr(f, fl.name, int(text))
                 else:
                     messages.append(f"{fl.name}: {text[:20]!r} is not an id; ignored")
-            elif fl.name in ("received_from", "received_to", "dispatched_from", "dispatched_to"):
+            elif fl.name in _DATE_FILTERS:
                 try:
                     day = dt.date.fromisoformat(text)
                 except ValueError:
@@ -246,10 +255,11 @@ class JobFilter:
                 else:
                     messages.append(f"kind: {text[:20]!r} is not new or return; ignored")
             elif fl.name == "reworked":
-                if text in ("0", "1"):
-                    f.reworked = text == "1"
+                if text in REWORK_CHOICES:
+                    f.reworked = text
                 else:
-                    messages.append(f"reworked: {text[:20]!r} is not 0 or 1; ignored")
+                    messages.append(f"reworked: {text[:20]!r} is not one of "
+                                    f"{', '.join(REWORK_CHOICES)}; ignored")
             elif fl.name == "q":
                 f.q = text
         return f, messages
@@ -268,6 +278,16 @@ class JobFilter:
             else:
                 out[fl.name] = str(v)
         return out
+
+
+_DATE_FILTERS = ("received_from", "received_to", "dispatched_from", "dispatched_to",
+                 "reached_from", "reached_to")
+#: The job list's rework filter: its values and what each shows.
+REWORK_CHOICES: dict[str, str] = {
+    "1": "reopened or return",
+    "0": "neither",
+    "window": f"reworked within {REWORK_WINDOW_DAYS} days of reaching tolerance",
+}
 
 
 def _like(text: str) -> str:
@@ -335,10 +355,20 @@ def _conditions(f: JobFilter, matches: TextMatches | None = None) -> list[Any]:
         conds.append(Job.dispatched_on >= f.dispatched_from)
     if f.dispatched_to is not None:
         conds.append(Job.dispatched_on <= f.dispatched_to)
-    if f.reworked is True:
+    if f.reworked == "1":
         conds.append(or_(Job.reopen_count > 0, Job.kind == "return"))
-    elif f.reworked is False:
+    elif f.reworked == "0":
         conds.append(and_(Job.reopen_count == 0, Job.kind == "new"))
+    facts = []
+    if f.reworked == "window":
+        facts.append(reworked_within_window(dt.date.today()))
+    if f.reached_from is not None:
+        facts.append(JobFact.first_in_tolerance_at >= utc_start(f.reached_from))
+    if f.reached_to is not None:
+        facts.append(JobFact.first_in_tolerance_at
+                     < utc_start(f.reached_to + dt.timedelta(days=1)))
+    if facts:  # from the per-job facts (shopapp.jobs.facts), as the measures count them
+        conds.append(Job.id.in_(select(JobFact.job_id).where(*facts)))
     if f.q:
         pat = _like(f.q)
         by_serial = select(Rotor.id).where(Rotor.serial_number.ilike(pat, escape="\\"))

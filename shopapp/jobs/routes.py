@@ -63,7 +63,8 @@ def index():  # type: ignore[no-untyped-def]
     page = queries.job_page(sess, f, page=page_number(request.args.get("page")),
                             per_page=page_size())
     return render_template("jobs/index.html", page=page, f=f, messages=messages,
-                           states=JOB_STATES, kinds=JOB_KINDS, **queries.filter_choices(sess))
+                           states=JOB_STATES, kinds=JOB_KINDS,
+                           rework_choices=queries.REWORK_CHOICES, **queries.filter_choices(sess))
 
 
 # --------------------------------------------------------------------------- intake

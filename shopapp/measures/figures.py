@@ -30,18 +30,17 @@ from sqlalchemy import (
 from sqlalchemy.orm import Session
 from sqlalchemy.sql import ColumnElement
 
+from shopapp.jobs.facts import REWORK_WINDOW_DAYS as REWORK_WINDOW_DAYS
+from shopapp.jobs.facts import reworked_within_window
 from shopapp.measures.periods import Period, Scope
 from shopapp.measures.sql import (
     Column,
     Grouped,
-    day_number,
-    epoch_seconds,
     fact_dims,
     fact_select,
     fact_summary,
     grouped,
     histogram,
-    int_div,
     long_form,
     pct_hist,
     rejections,
@@ -63,11 +62,6 @@ DIMENSION_LABELS: dict[str, str] = {
 }
 CHECK_PURPOSES: tuple[str, ...] = ("check", "final")
 UNASSIGNED = "(none)"
-#: A job counts as reworked when it comes back to the machine within this many days of
-#: first reaching tolerance (reopened, or returned by the customer). A fixed window keeps
-#: the rework rate of an old period comparable with a recent one; a period's rate is
-#: final once this many days have passed since its end.
-REWORK_WINDOW_DAYS = 90
 
 
 @dataclass
@@ -222,23 +216,9 @@ def _wip(
 
 
 def _reworked_later(today: dt.date) -> ColumnElement[int]:
-    """1 when the job was reworked within :data:`REWORK_WINDOW_DAYS` days of first reaching
-    in_tolerance and by ``today``: reopened, or come back as a customer return.
-
-    The facts keep the first reopening and the first return; a later one can only be later,
-    so "the first one up to today is within the window" is "the first one is by today and
-    within the window" (every reopening comes after the job first reached in_tolerance).
-    """
-    reached = F.first_in_tolerance_at
-    in_window = or_(
-        and_(F.first_reopen_at < utc_start(today + dt.timedelta(days=1)),
-             epoch_seconds(F.first_reopen_at) - epoch_seconds(reached)
-             <= REWORK_WINDOW_DAYS * 86400),
-        and_(F.first_return_on <= today,
-             day_number(F.first_return_on) - int_div(epoch_seconds(reached), 86400)
-             <= REWORK_WINDOW_DAYS),
-    )
-    return case((in_window, 1), else_=0)
+    """1 when the job was reworked within the window by ``today``
+    (:func:`shopapp.jobs.facts.reworked_within_window`), else 0."""
+    return case((reworked_within_window(today), 1), else_=0)
 
 
 def _tolerance_cohort(

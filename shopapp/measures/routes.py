@@ -123,7 +123,9 @@ class Links:
                     "promised_hit_rate"):
             return jobs_url({**args, **self._dates(row, "dispatched")})
         if name in ("reworked_jobs", "rework_rate", "rework"):
-            return jobs_url({**args, **self._dates(row, "received"), "reworked": "1"})
+            return jobs_url({**args, **self._dates(row, "reached"), "reworked": "window"})
+        if name in ("reached_in_tolerance", "first_pass_rate", "correction_cycles_mean"):
+            return jobs_url({**args, **self._dates(row, "reached")})
         if name in ("rejected_jobs", "rejection_rate"):
             return jobs_url({**args, **self._dates(row, "received"), "state": "rejected"})
         if name in ("wip_jobs", "wip_age_median_wd", "wip_age_max_wd", "jobs_closed"):

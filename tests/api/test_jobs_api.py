@@ -5,6 +5,7 @@ refusals in the one JSON error shape with nothing saved."""
 from __future__ import annotations
 
 import cmath
+import datetime as dt
 import math
 from typing import Any
 
@@ -95,6 +96,15 @@ def test_list_filters_like_the_page_and_pages_with_a_total(api_as, db, rtype, ma
     bad = api.get("/jobs", query_string={"state": "lost", "received_from": "yesterday"})
     assert bad.status_code == 422
     assert set(bad.get_json()["error"]["fields"]) == {"state", "received_from"}
+    # The rework filter keeps its true/false and takes the page's "window" too: a new job
+    # was neither reopened nor returned, and none has reached tolerance yet.
+    for value, want in (("true", []), ("false", ids), ("window", [])):
+        got = api.get("/jobs", query_string={"reworked": value, "size": 10}).get_json()
+        assert sorted(j["id"] for j in got["items"]) == sorted(want), value
+    assert api.get("/jobs", query_string={"reworked": "maybe"}).status_code == 422
+    today = dt.date.today().isoformat()
+    reached = api.get("/jobs", query_string={"reached_from": today}).get_json()
+    assert reached["items"] == []
 
 
 def test_log_run_stores_the_readings_and_moves_the_job_on(api_as, db, rtype, machine) -> None:

@@ -98,15 +98,26 @@ def test_bars_and_points_link_to_the_filtered_job_list(client, login_as, hand) -
     for svg in re.findall(r"<svg.*?</svg>", html, re.S):
         svg_links += _links(svg)
     t1 = str(hand.rotor_types["T1"].id)
-    wanted = {"rotor_type_id": [t1], "reworked": ["1"], "received_from": ["2026-10-01"],
-              "received_to": ["2026-10-31"]}
+    # The reworked bar of rotor type T1 opens the jobs the bar counts: those that first
+    # reached tolerance in October and were reworked within the window.
+    wanted = {"rotor_type_id": [t1], "reworked": ["window"], "reached_from": ["2026-10-01"],
+              "reached_to": ["2026-10-31"]}
     parsed = [(urlsplit(u).path, parse_qs(urlsplit(u).query)) for u in svg_links]
-    assert ("/jobs", wanted) in parsed  # the reworked bar of rotor type T1
+    assert ("/jobs", wanted) in parsed
     op_a = str(hand.users["A"].id)
-    assert any(q.get("operator_id") == [op_a] and q.get("reworked") == ["1"] for _, q in parsed)
+    assert any(q.get("operator_id") == [op_a] and q.get("reworked") == ["window"]
+               for _, q in parsed)
     # trend points: one month each, e.g. the rework point of October
-    assert ("/jobs", {"received_from": ["2026-10-01"], "received_to": ["2026-10-31"],
-                      "reworked": ["1"]}) in parsed
+    assert ("/jobs", {"reached_from": ["2026-10-01"], "reached_to": ["2026-10-31"],
+                      "reworked": ["window"]}) in parsed
+    # Each rotor type's count on the page is the number of jobs its links list.
+    for key, cells in _table(html, "by_rotor_type").items():
+        for measure, params in (("reworked_jobs", "&reworked=window"), ("reached_in_tolerance",
+                                                                        "")):
+            listed = _page(client, f"/jobs?rotor_type_id={key}&reached_from=2026-10-01"
+                                   f"&reached_to=2026-10-31{params}")
+            rows = re.findall(r'<td><a href="/jobs/\d+">', listed)
+            assert str(len(rows)) == cells[measure], (key, measure)
     # the headline's dispatched count opens the jobs dispatched in the period
     disp = _headline_cells(html, "jobs_dispatched")
     assert disp[1] == "6"

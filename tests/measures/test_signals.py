@@ -198,7 +198,10 @@ def test_page_names_the_flagged_operator_once_with_the_caution_and_links_its_job
     assert link
     query = parse_qs(urlsplit(unescape(link.group(1))).query)
     assert query["operator_id"] == [str(rework_shop.users["A"].id)]
-    assert query["reworked"] == ["1"]
+    assert query["reworked"] == ["window"]
+    # the link lists the jobs counted: Ada High's 16 reworked jobs (by hand, measures_shop)
+    listed = client.get(unescape(link.group(1))).get_data(as_text=True)
+    assert len(re.findall(r'<td><a href="/jobs/\d+">', listed)) == 16
     # the funnel chart is on the page, its flagged point links to the same jobs and is named
     svg = re.search(r'id="chart-rework_rate-operator">(.*?)</figure>', html, re.S)
     assert svg and "Ada High" in svg.group(1) and unescape(link.group(1)) in unescape(
