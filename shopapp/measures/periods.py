@@ -150,8 +150,9 @@ class Period:
         return Period(dt.date(y, m, 1), dt.date(self.end.year, self.end.month, last), "custom")
 
 
-def parse_month(value: str) -> Period:
-    """``'2026-10'`` → the month of October 2026; a clear message otherwise."""
+def parse_month(value: str, today: dt.date | None = None) -> Period:
+    """``'2026-10'`` → the month of October 2026; a clear message otherwise (also for a
+    month before the date window or one that has not begun by ``today``)."""
     try:
         year_s, month_s = value.strip().split("-")
         year, month = int(year_s), int(month_s)
@@ -162,8 +163,12 @@ def parse_month(value: str) -> Period:
             "month", f"'{value}' is not a month; write it as YYYY-MM, e.g. 2026-10"
         ) from None
     period = Period.month(year, month)
-    if period.start < EARLIEST_DAY:  # the date window every date input is held to
-        raise ValidationFailed("month", day_refusal(period.start) or "")
+    # The date window every date input is held to; a month not begun has no figures.
+    refusal = day_refusal(period.start, today=today)
+    if refusal is not None:
+        if period.start >= EARLIEST_DAY:
+            refusal = f"{value.strip()} has not begun: {refusal}"
+        raise ValidationFailed("month", refusal)
     return period
 
 

@@ -167,6 +167,12 @@ def _parse() -> tuple[PeriodForm, Period, Scope, list[str], bool]:
     if not request.args:
         form.period.data = "year"
     period = form.period_value(today) if ok else Period.containing("year", today)
+    if period.start > today:  # a period not begun has no figures to show
+        chosen = form.start if period.kind == "custom" else form.on
+        what = "range" if period.kind == "custom" else period.kind
+        chosen.errors = [*chosen.errors, f"the {what} starting {period.start.isoformat()} "
+                         f"has not begun (today is {today.isoformat()})"]
+        ok, period = False, Period.containing("year", today)
     scope, notes = form.scope_value()
     return form, period, scope, notes, ok
 
@@ -237,7 +243,8 @@ def index():  # type: ignore[no-untyped-def]
         cost_text=cost_summary(report.cost, report.period_label) if report.cost else "",
         machine_drift_text=machine_drift_text,
         prev_url=url_for("dashboard.index", **prev_args),
-        next_url=url_for("dashboard.index", **period_args(nxt, scope)),
+        next_url=(url_for("dashboard.index", **period_args(nxt, scope))
+                  if nxt.start <= _today() else None),
         report_month=f"{min(period.end, _today()):%Y-%m}",
         focus=_scope_labels(report),
     ), status
@@ -290,7 +297,7 @@ def csv_download():  # type: ignore[no-untyped-def]
 @bp.get("/dashboard/report.pdf")
 @requires("view_dashboard")
 def monthly_pdf():  # type: ignore[no-untyped-def]
-    month = parse_month(request.args.get("month") or f"{_today():%Y-%m}")
+    month = parse_month(request.args.get("month") or f"{_today():%Y-%m}", today=_today())
     report = measures.shop_report(db_session(), month, today=_today(), by=acting_user(),
                                   costs=cost_settings(current_app.config))
     pdf = monthly.render(report)

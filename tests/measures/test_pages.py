@@ -231,6 +231,10 @@ def test_query_count_does_not_grow_with_the_jobs(
     ("period=custom&start=2026-10-05", "last day"),
     ("period=fortnight", "Not a valid choice"),
     ("period=month&on=not-a-date", "Not a valid date"),
+    # TODAY is 2026-11-15: a year or range not begun has no figures (the walk's "next"
+    # from the current year showed "2027-01-01 to 2026-11-15")
+    ("period=year&on=2027-01-01", "has not begun (today is 2026-11-15)"),
+    ("period=custom&start=2026-12-01&end=2026-12-31", "has not begun"),
 ])
 def test_bad_period_input_is_explained_not_a_500(client, login_as, query, field) -> None:  # type: ignore[no-untyped-def]
     login_as("owner")
@@ -293,6 +297,17 @@ def test_monthly_report_button_gives_a_two_page_pdf(client, login_as, hand) -> N
     text = "".join(p.extract_text() for p in pdf.pages)
     assert "October 2026" in text and "Rework rate" in text and "cracked hub" in text
     assert client.get("/dashboard/report.pdf?month=2026-13").status_code == 422
+    # A month not begun is refused by name; 9999-12 once overflowed the calendar (a 500).
+    for month in ("2026-12", "2500-06", "9999-12"):
+        resp = client.get(f"/dashboard/report.pdf?month={month}")
+        assert resp.status_code == 422 and "has not begun" in resp.get_data(as_text=True)
+
+
+def test_the_current_period_offers_no_next_one(client, login_as, hand) -> None:  # type: ignore[no-untyped-def]
+    login_as("owner")
+    this_year = _page(client, "/dashboard?period=year&on=2026-06-01")
+    assert "next &rarr;" not in this_year and "previous year" in this_year
+    assert "next &rarr;" in _page(client, "/dashboard?period=year&on=2025-06-01")
 
 
 def test_start_page_panel_for_the_owner_only(client, login_as, hand, make_user) -> None:  # type: ignore[no-untyped-def]
