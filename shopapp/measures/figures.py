@@ -335,7 +335,8 @@ def figures_for(
     return _merge(runners[f]() for f in families)
 
 
-def _labels(session: Session, dim: str, keys: set[str]) -> dict[str, str]:
+def slice_labels(session: Session, dim: str, keys: set[str]) -> dict[str, str]:
+    """The names of the ``keys`` (ids as text) of a slice dimension that exist."""
     ids = sorted(int(k) for k in keys if k is not None)
     if not ids:
         return {}
@@ -362,7 +363,7 @@ def slice_rows(
             SliceRow("month", m, m, merged.get(("month", m), Figures())) for m in p.months()
         ]
     keys = {k for (d, k) in merged if d == dim}
-    labels = _labels(session, dim, {k for k in keys if k is not None})
+    labels = slice_labels(session, dim, {k for k in keys if k is not None})
     rows = [
         SliceRow(dim, k, labels.get(k, f"#{k}") if k is not None else UNASSIGNED,
                  merged[(dim, k)])

@@ -60,10 +60,11 @@ class PeriodForm(ShopForm):
         kind = self.period.data if self.period.data in ("week", "month", "quarter") else "year"
         return Period.containing(kind, self.on.data or today)
 
-    def scope_value(self) -> tuple[Scope, list[str]]:
-        """The focus (operator, machine, rotor type, customer); junk ids are dropped."""
+    def scope_value(self) -> tuple[Scope, list[tuple[str, str]]]:
+        """The focus (operator, machine, rotor type, customer); junk ids are dropped, each
+        with (field, why)."""
         values: dict[str, int] = {}
-        dropped: list[str] = []
+        dropped: list[tuple[str, str]] = []
         for name in SCOPE_FIELDS:
             raw = (getattr(self, name).data or "").strip()
             if not raw:
@@ -71,7 +72,7 @@ class PeriodForm(ShopForm):
             if plain_digits(raw) and len(raw) < 12:
                 values[name] = int(raw)
             else:
-                dropped.append(f"{name}: {raw[:20]!r} is not an id; ignored")
+                dropped.append((name, f"{raw[:20]!r} is not an id"))
         return Scope(**values), dropped
 
 

@@ -160,7 +160,9 @@ def _today() -> dt.date:
     return dt.date.today()
 
 
-def _parse() -> tuple[PeriodForm, Period, Scope, list[str], bool]:
+def _parse() -> tuple[PeriodForm, Period, Scope, dict[str, str], list[tuple[str, str]], bool]:
+    """The period form, the period, the scope with the names of its focus (ids that name
+    nothing dropped), (field, why) for what was dropped, and whether the form was valid."""
     form = PeriodForm(formdata=request.args)
     today = _today()
     ok = form.validate() if request.args else True
@@ -173,8 +175,9 @@ def _parse() -> tuple[PeriodForm, Period, Scope, list[str], bool]:
         chosen.errors = [*chosen.errors, f"the {what} starting {period.start.isoformat()} "
                          f"has not begun (today is {today.isoformat()})"]
         ok, period = False, Period.containing("year", today)
-    scope, notes = form.scope_value()
-    return form, period, scope, notes, ok
+    scope, dropped = form.scope_value()
+    scope, names, unknown = measures.known_scope(db_session(), scope, by=acting_user())
+    return form, period, scope, names, dropped + unknown, ok
 
 
 def _report(period: Period, scope: Scope) -> measures.ShopReport:
@@ -182,17 +185,16 @@ def _report(period: Period, scope: Scope) -> measures.ShopReport:
                                 by=acting_user(), costs=cost_settings(current_app.config))
 
 
-def _scope_labels(report: measures.ShopReport) -> list[tuple[str, str, str]]:
-    """(what, label, dashboard URL without it) for each active focus."""
+def _scope_labels(report: measures.ShopReport, names: dict[str, str]
+                  ) -> list[tuple[str, str, str]]:
+    """(what, name, dashboard URL without it) for each active focus."""
     out = []
     wanted = report.scope.as_args()
     for dim, param in FILTER_PARAM.items():
         if param not in wanted:
             continue
-        rows = {r.key: r.label for r in report.slices.get(dim, [])}
-        label = rows.get(str(wanted[param]), f"#{wanted[param]}")
         rest = {k: v for k, v in wanted.items() if k != param}
-        out.append((DIMENSION_LABELS[dim], label,
+        out.append((DIMENSION_LABELS[dim], names[param],
                     url_for("dashboard.index", **period_args(report.period, Scope(**rest)))))
     return out
 
@@ -220,7 +222,7 @@ def _charts(report: measures.ShopReport, links: Links, period: Period,
 @bp.get("/dashboard")
 @requires("view_dashboard")
 def index():  # type: ignore[no-untyped-def]
-    form, period, scope, notes, ok = _parse()
+    form, period, scope, names, notes, ok = _parse()
     report = _report(period, scope)
     links = Links(period, scope)
     args = period_args(period, scope)
@@ -234,7 +236,7 @@ def index():  # type: ignore[no-untyped-def]
     return render_template(
         "dashboard/index.html",
         form=form, report=report, links=links, charts=_charts(report, links, period, scope),
-        args=args, notes=notes,
+        args=args, notes=[f"{name}: {why}; ignored" for name, why in notes],
         headline=headline_rows(report.figures, report.previous, report.changes),
         slice_columns=SLICE_COLUMNS, dimension_labels=DIMENSION_LABELS, fmt=measure_text,
         rates=RATES, interval_text=interval_text, funnel_dimensions=FUNNEL_DIMENSIONS,
@@ -246,7 +248,7 @@ def index():  # type: ignore[no-untyped-def]
         next_url=(url_for("dashboard.index", **period_args(nxt, scope))
                   if nxt.start <= _today() else None),
         report_month=f"{min(period.end, _today()):%Y-%m}",
-        focus=_scope_labels(report),
+        focus=_scope_labels(report, names),
     ), status
 
 
@@ -277,7 +279,9 @@ def csv_download():  # type: ignore[no-untyped-def]
     names = request.args.get("names", "trade")
     if names not in NAMES:
         raise ValidationFailed("names", f"'{names[:20]}' is not one of {', '.join(NAMES)}")
-    form, period, scope, _notes, ok = _parse()
+    form, period, scope, _names, dropped, ok = _parse()
+    if dropped:  # a file for a focus that names nothing would look like the whole shop's
+        raise ValidationFailed(*dropped[0])
     if not ok:
         field_name, errors = next(iter(form.errors.items()))
         raise ValidationFailed(field_name, "; ".join(str(e) for e in errors))

@@ -119,6 +119,7 @@ from shopapp.measures.figures import (
     Figures,
     SliceRow,
     figures_for,
+    slice_labels,
     slice_rows,
 )
 from shopapp.measures.lists import (
@@ -280,6 +281,30 @@ def _allowed(by: User | None) -> None:
     # the database; every person in the web app must have ``view_dashboard``.
     if by is not None:
         require(by, "view_dashboard")
+
+
+#: The scope's fields by the dimension they focus on.
+SCOPE_DIMENSIONS: dict[str, str] = {"operator_id": "operator", "machine_id": "machine",
+                                    "rotor_type_id": "rotor_type", "customer_id": "customer"}
+
+
+def known_scope(session: Session, scope: Scope, *, by: User | None
+                ) -> tuple[Scope, dict[str, str], list[tuple[str, str]]]:
+    """``scope`` without ids that name nothing, each kept id's name (by scope field), and
+    (field, why) for each id dropped (one query per field in use)."""
+    _allowed(by)
+    kept: dict[str, int] = {}
+    names: dict[str, str] = {}
+    notes: list[tuple[str, str]] = []
+    for name, value in scope.as_args().items():
+        dim = SCOPE_DIMENSIONS[name]
+        label = slice_labels(session, dim, {str(value)}).get(str(value))
+        if label is None:
+            notes.append((name, f"no {dim.replace('_', ' ')} has the id {value}"))
+            continue
+        kept[name] = value
+        names[name] = label
+    return Scope(**kept), names, notes
 
 
 def period_figures(

@@ -367,3 +367,25 @@ def test_machine_hours_of_every_slice_are_in_a_csv_and_a_cut_table_says_so(
     ops = [r for (d, _), r in by.items() if d == "operator"]
     assert sum(int(r["rework_jobs"]) for r in ops) == 24
     assert sum(float(r["rework_hours"]) for r in ops) == 12.0
+
+
+def test_a_focus_is_named_even_without_jobs_and_an_unknown_id_is_refused(
+    client, login_as, hand, shop, db
+) -> None:  # type: ignore[no-untyped-def]
+    t1 = hand.rotor_types["T1"]
+    # A customer with no jobs at all, so no slice row carries its name: it is still named.
+    cust = shop.customer(name="Focus Test Customer (invented)")
+    db.commit()
+    login_as("owner")
+    html = _page(client, f"/dashboard?period=year&on=2026-06-01&rotor_type_id={t1.id}"
+                         f"&customer_id={cust.id}")
+    focus = re.search(r"Showing only(.*?)</p>", html, re.S)
+    assert focus and f"#{t1.id}" not in focus.group(1) and f"#{cust.id}" not in focus.group(1)
+    assert unescape(cust.name) in unescape(focus.group(1))
+    # An id that names nothing is dropped with a note on the page and refused for a CSV,
+    # instead of a dashboard of zeros for "operator #999999".
+    page = _page(client, "/dashboard?period=year&on=2026-06-01&operator_id=999999")
+    assert "operator_id: no operator has the id 999999; ignored" in page
+    assert "Showing only" not in page
+    resp = client.get("/dashboard.csv?table=headline&operator_id=999999")
+    assert resp.status_code == 422 and "999999" in resp.get_data(as_text=True)
