@@ -78,8 +78,11 @@ def change_text(now: float | None, before: float | None) -> str:
     if abs(delta) < 1e-9:
         return "same"
     word = "up" if delta > 0 else "down"
-    size = fixed(abs(delta), 0 if float(delta).is_integer() else 1)
-    if float(size) == 0.0:  # 1.26 → 1.25 is a change, not "down 0.0"
+    if float(delta).is_integer():
+        size = fixed(abs(delta), 0)
+    elif abs(delta) >= 1:
+        size = fixed(abs(delta), 1)
+    else:  # two significant figures: 1.25 → 1.1875 is "down 0.062", not "down 0.1"
         size = number(abs(delta), 2, trim=True)
     return f"{word} {size}"
 

@@ -331,6 +331,10 @@ def test_start_page_panel_for_the_owner_only(client, login_as, hand, make_user) 
 def test_a_small_change_is_not_shown_as_zero() -> None:
     # A walk read "down 0.0" beside mean correction cycles 1.25 against 1.26.
     assert change_text(1.25, 1.26) == "down 0.01"
+    # the walk's cycles: 1.1875 against 1.25 is down 0.0625, shown as 0.062 (two
+    # significant figures), never rounded up to 0.1 (by hand)
+    assert change_text(1.1875, 1.25) == "down 0.062"
+    assert change_text(0.5, 0.25) == "up 0.25"
     assert change_text(2.5, 1.0) == "up 1.5" and change_text(4, 1) == "up 3"
     assert change_text(1.0, 1.0) == "same"
 
