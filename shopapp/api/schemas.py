@@ -155,6 +155,10 @@ class JobListQuery(PageQuery):
                                          "after this day (UTC)")
     reached_to: dt.date | None = Field(None, description="first reached tolerance on or "
                                        "before this day (UTC)")
+    rejected_from: dt.date | None = Field(None, description="moved to rejected on or after "
+                                          "this day (UTC)")
+    rejected_to: dt.date | None = Field(None, description="moved to rejected on or before "
+                                        "this day (UTC)")
     reworked: bool | Literal["window"] | None = Field(
         None, description="true: reopened at least once or a return job; false: neither; "
         "'window': reworked within 90 days of first reaching tolerance (the shop measures' "

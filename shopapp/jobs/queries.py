@@ -30,6 +30,7 @@ from shopapp.models import (
     InfluenceSet,
     Job,
     JobFact,
+    JobTransition,
     Machine,
     Rotor,
     RotorType,
@@ -195,6 +196,8 @@ class JobFilter:
     first reaching tolerance (the shop measures' rework: reopened, or come back as a
     return). ``reached_from``/``reached_to``: first reached tolerance on those days (UTC),
     the jobs the measures' first-pass and rework rates are counted over.
+    ``rejected_from``/``rejected_to``: moved to rejected on those days (UTC), as the
+    measures count rejections.
     ``q`` searches job number, serial number and customer name (case-insensitive).
     """
 
@@ -211,6 +214,8 @@ class JobFilter:
     dispatched_to: dt.date | None = None
     reached_from: dt.date | None = None
     reached_to: dt.date | None = None
+    rejected_from: dt.date | None = None
+    rejected_to: dt.date | None = None
     reworked: str | None = None
     q: str = ""
 
@@ -281,7 +286,7 @@ class JobFilter:
 
 
 _DATE_FILTERS = ("received_from", "received_to", "dispatched_from", "dispatched_to",
-                 "reached_from", "reached_to")
+                 "reached_from", "reached_to", "rejected_from", "rejected_to")
 #: The job list's rework filter: its values and what each shows.
 REWORK_CHOICES: dict[str, str] = {
     "1": "reopened or return",
@@ -369,6 +374,14 @@ def _conditions(f: JobFilter, matches: TextMatches | None = None) -> list[Any]:
                      < utc_start(f.reached_to + dt.timedelta(days=1)))
     if facts:  # from the per-job facts (shopapp.jobs.facts), as the measures count them
         conds.append(Job.id.in_(select(JobFact.job_id).where(*facts)))
+    moves = []
+    if f.rejected_from is not None:
+        moves.append(JobTransition.at >= utc_start(f.rejected_from))
+    if f.rejected_to is not None:
+        moves.append(JobTransition.at < utc_start(f.rejected_to + dt.timedelta(days=1)))
+    if moves:
+        conds.append(Job.id.in_(select(JobTransition.job_id)
+                                .where(JobTransition.to_state == "rejected", *moves)))
     if f.q:
         pat = _like(f.q)
         by_serial = select(Rotor.id).where(Rotor.serial_number.ilike(pat, escape="\\"))

@@ -127,7 +127,7 @@ class Links:
         if name in ("reached_in_tolerance", "first_pass_rate", "correction_cycles_mean"):
             return jobs_url({**args, **self._dates(row, "reached")})
         if name in ("rejected_jobs", "rejection_rate"):
-            return jobs_url({**args, **self._dates(row, "received"), "state": "rejected"})
+            return jobs_url({**args, **self._dates(row, "rejected")})
         if name in ("wip_jobs", "wip_age_median_wd", "wip_age_max_wd", "jobs_closed"):
             return None  # these span states (or two dates); no single filter shows them
         return jobs_url({**args, **self._dates(row, "received")})

@@ -118,6 +118,15 @@ def test_bars_and_points_link_to_the_filtered_job_list(client, login_as, hand) -
                                    f"&reached_to=2026-10-31{params}")
             rows = re.findall(r'<td><a href="/jobs/\d+">', listed)
             assert str(len(rows)) == cells[measure], (key, measure)
+    # The headline's rejected count opens the jobs rejected in the period (not received).
+    row = re.search(r'<tr data-measure="rejected_jobs">(.*?)</tr>', html, re.S)
+    assert row
+    link = re.search(r'<a href="([^"]+)"', row.group(1))
+    assert link and "rejected_from=2026-10-01" in unescape(link.group(1))
+    listed = _page(client, unescape(link.group(1)))
+    count = _headline_cells(html, "rejected_jobs")[1]
+    assert count != "0"  # the hand shop rejects a job in October
+    assert str(len(re.findall(r'<td><a href="/jobs/\d+">', listed))) == count
     # the headline's dispatched count opens the jobs dispatched in the period
     disp = _headline_cells(html, "jobs_dispatched")
     assert disp[1] == "6"
