@@ -65,8 +65,8 @@ def _fits_width(page, what: str) -> None:  # type: ignore[no-untyped-def]
     assert widths[0] <= widths[1], f"{what}: content {widths[0]} px wide in a {widths[1]} px view"
 
 
-# Desktop, and a tablet held in landscape (800 px): the shop floor uses both.
-@pytest.mark.parametrize("width", [1280, 800])
+# Desktop, a tablet held in landscape (800 px) and a phone (390 px): the shop floor uses all.
+@pytest.mark.parametrize("width", [1280, 800, 390])
 def test_operator_books_in_balances_and_reaches_tolerance(live_shop: LiveShop, page, tmp_path,
                                                           width: int) -> None:  # type: ignore[no-untyped-def]
     shop = live_shop
