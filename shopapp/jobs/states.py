@@ -59,13 +59,21 @@ _IMPORTED = ("Job {number} is a past job imported from old records and cannot be
              "book the rotor in as a new job.")
 
 
+def _words(state: str) -> str:
+    """A state as the pages write it (``on_machine`` → ``on machine``)."""
+    return state.replace("_", " ")
+
+
 def _refuse(job: Job, to_state: str, why: str = "") -> TransitionRefused:
     allowed = sorted(ALLOWED[job.state])
-    nxt = ", ".join(allowed) if allowed else "nothing (it is closed)"
+    nxt = ", ".join(_words(s) for s in allowed) if allowed else "nothing (it is closed)"
     reason = f" {why}" if why else ""
+    if to_state == job.state:
+        return TransitionRefused(f"Job {job.number} is already {_words(job.state)}.{reason} "
+                                 f"From {_words(job.state)} it may go to: {nxt}.")
     return TransitionRefused(
-        f"Job {job.number} is {job.state.replace('_', ' ')} and cannot go to "
-        f"{to_state.replace('_', ' ')}.{reason} From {job.state} it may go to: {nxt}."
+        f"Job {job.number} is {_words(job.state)} and cannot go to "
+        f"{_words(to_state)}.{reason} From {_words(job.state)} it may go to: {nxt}."
     )
 
 
@@ -165,7 +173,8 @@ def _refuse_in_tolerance(job: Job, calc: job_calc.JobCalc) -> TransitionRefused:
 
 
 def mark_in_tolerance(session: Session, job: Job, *, by: User) -> Job:
-    """on_machine → in_tolerance, only when the last check/final run passes in every plane.
+    """on_machine → in_tolerance, only when the job has an initial run and its last
+    check/final run passes in every plane.
 
     Sets ``first_in_tolerance_at`` the first time, and learns the job's own
     influence coefficients for its rotor type, machine and speed
@@ -173,6 +182,11 @@ def mark_in_tolerance(session: Session, job: Job, *, by: User) -> Job:
     """
     require(by, "work_jobs")
     _check_allowed(job, "in_tolerance", frozenset({"on_machine"}))
+    if not any(r.purpose == "initial" for r in job.runs):
+        # The certificate states the unbalance as received; without an initial run it
+        # would state a reading nobody took.
+        raise _refuse(job, "in_tolerance", "It has no initial run: log the rotor's "
+                      "unbalance as received first.")
     calc = evaluate(session, job)
     if not calc.in_tolerance:
         raise _refuse_in_tolerance(job, calc)

@@ -753,3 +753,16 @@ def test_book_in_refuses_a_rotor_type_of_another_customer(db, op, rtype, machine
         book(db, op, rtype, machine, customer=other.id)
     assert exc.value.field == "rotor_type_id" and "another customer" in exc.value.message
     assert count(db, Job) == before
+
+
+def test_in_tolerance_is_refused_without_an_initial_run(db, op, rtype, machine) -> None:
+    # The walk: a job with only a check run in tolerance could be marked in tolerance and
+    # certified, and its certificate stated "Initial unbalance (run 0)" with no readings.
+    # Common practice, no source: the as-received reading is taken before anything else.
+    job = book(db, op, rtype, machine)
+    passing_check(db, op, job)
+    with pytest.raises(TransitionRefused, match="no initial run"):
+        mark_in_tolerance(db, job, by=op)
+    assert job.state != "in_tolerance" and job.first_in_tolerance_at is None
+    # with the initial run (and trial runs) the same check lets it go: see
+    # test_in_tolerance_is_refused_while_the_last_check_is_out
