@@ -151,10 +151,13 @@ def _fields(e: checks.Errors, v: Any, out: dict[str, Any], values: Mapping[str, 
         e, "method_2", v("method_2"), CORRECTION_METHODS, required=False
     )
     for name in ("positions_1", "positions_2"):
-        count = checks.integer(
-            e, name, v(name), required=False, minimum=0, maximum=MAX_FIXED_POSITIONS
-        )
-        if count is not None and count < 2:
+        count = checks.integer(e, name, v(name), required=False, minimum=0, maximum=10**9)
+        if count is not None and count > MAX_FIXED_POSITIONS:
+            # A count, not an angle: "between 0 and 360" read like degrees.
+            e.add(name, f"at most {MAX_FIXED_POSITIONS} fixed positions (one per degree), "
+                  f"got {count}")
+            count = None
+        elif count is not None and count < 2:
             if count == 0:
                 count = None  # 0 means "free position", the same as leaving it empty
             else:

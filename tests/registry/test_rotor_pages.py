@@ -117,6 +117,7 @@ GARBAGE: list[tuple[str, str, str]] = [
     ("positions_1", "1", "at least 2"),
     ("positions_1", "2.5", "whole number"),
     ("positions_1", "99999999999999", "at most 9 digits"),
+    ("positions_1", "100000", "at most 360 fixed positions (one per degree), got 100000"),
     ("positions_1", "eight", "whole number"),
     ("method_1", "glue", "Not one of the choices"),
     ("method_1", "remove", "required when mass may be removed"),
