@@ -102,9 +102,13 @@ def trial_force_warning(run: Run, rotor_type: RotorType) -> str | None:
                                            run.trial_radius_mm, planes=rotor_type.planes)
     if force_n <= TRIAL_FORCE_WARNING_FRACTION * load_n:
         return None
+    # Both forces in one unit, so they can be compared at a glance (0.199 kN against 108 N
+    # could not).
+    unit, scale = ("kN", 1000.0) if max(force_n, load_n) >= 1000.0 else ("N", 1.0)
     return (f"Check the trial mass of run {run.seq}: {plain(run.trial_mass_g)} g at "
             f"{plain(run.trial_radius_mm)} mm and {plain(run.speed_rpm)} rpm pulls "
-            f"{quantity(force_n / 1000.0, 'kN')}, {quantity(100.0 * force_n / load_n, '%')} "
-            f"of the {quantity(load_n, 'N')} static load per plane (a trial mass usually pulls "
+            f"{quantity(force_n / scale, unit)}, {quantity(100.0 * force_n / load_n, '%')} "
+            f"of the {quantity(load_n / scale, unit)} static load per plane (a trial mass "
+            "usually pulls "
             f"5–10 %). Do not spin it again until the mass is confirmed. "
             + " ".join(TRIAL_MASS_CAUTIONS))

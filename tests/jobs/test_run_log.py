@@ -441,3 +441,10 @@ def test_a_trial_mass_far_past_the_usual_force_is_cautioned(client, login_as, db
         assert ("Check the trial mass of run" in body) is cautioned
         if cautioned:
             assert "a thrown mass is a projectile" in body and "static load per plane" in body
+            # both forces in one unit, the figures from the formulas above
+            force_n = mass_g / 1000 * 0.100 * omega**2
+            unit, scale = ("kN", 1000) if max(force_n, load_n) >= 1000 else ("N", 1)
+            shown = re.search(r"pulls ([\d.]+) (k?N), \d+ % of the ([\d.]+) (k?N) static", body)
+            assert shown and shown.group(2) == shown.group(4) == unit
+            assert float(shown.group(1)) == pytest.approx(force_n / scale, rel=5e-3)
+            assert float(shown.group(3)) == pytest.approx(load_n / scale, rel=5e-3)
