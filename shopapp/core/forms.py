@@ -198,7 +198,9 @@ class ChoiceField(SelectField):
         SelectField.choices.fset(self, _select_choices(value))
 
     def pre_validate(self, form: Any) -> None:
-        labels = [str(c.label) for c in self.iter_choices()]
+        # A placeholder ("— choose —") is not a choice to offer in the message.
+        labels = [str(c.label) for c in self.iter_choices()
+                  if not str(c.label).startswith("—")]
         shown = ", ".join(labels[:12]) + (", …" if len(labels) > 12 else "")
         self.invalid_choice_message = f"Not one of the choices; choose one of: {shown}."
         super().pre_validate(form)

@@ -589,3 +589,15 @@ def test_intake_refuses_another_customers_rotor_type(client, login_as, db, shop,
     after = page[page.index('id="rotor_type_id"'):]
     assert "error" in after[:3000]  # the message sits beside the rotor-type field
     assert db.scalar(select(func.count()).select_from(Job)) == 0
+
+
+def test_an_unknown_machine_lists_the_machines_not_the_placeholder(
+        client, login_as, db, rtype, machine) -> None:
+    login_as("operator")
+    before = count(db, Job)
+    resp = client.post("/jobs/new", data={**intake_data(rtype, machine), "machine_id": "999"})
+    body = text(resp)
+    assert resp.status_code == 422 and "choose one of:" in body
+    offered = body.split("choose one of:")[1].split(".")[0]
+    assert machine.name in offered and "choose —" not in offered
+    assert count(db, Job) == before
