@@ -235,8 +235,12 @@ def apply_errors(form: FlaskForm, exc: ValidationFailed,
         field = (mapping or {}).get(name)
         if field is None:
             field = fields.get(name) or fields.get(name.removesuffix("_id"))
-        if isinstance(field, Field):
+        if isinstance(field, Field) and not isinstance(field, HiddenField):
             field.errors = [*field.errors, message]
+        elif isinstance(field, HiddenField):
+            # A hidden field shows no message: name what it stands for above the form
+            # ("run", not "run id").
+            loose.append(f"{name.removesuffix('_id').replace('_', ' ')}: {message}")
         else:
             loose.append(f"{name.replace('_', ' ')}: {message}")
     return loose

@@ -18,6 +18,7 @@ from shopapp.balancing.positions import position_angles_deg
 from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
+from shopapp.core.checks import plain_digits
 from shopapp.core.display import plain
 from shopapp.core.errors import TransitionRefused
 from shopapp.core.permissions import require
@@ -77,12 +78,33 @@ def _check_replaced(e: _Errors, job: Job, ref: Any, plane: int, action: str) -> 
         e.add(field, "that weight was already replaced by a later one")
 
 
+def _answered_run_id(e: _Errors, session: Session, job: Job, ref: Any) -> int | None:
+    """The run a correction answers: a live run of this job, or none when ``ref`` is blank.
+
+    The page carries it in a hidden field, so anything else (text, an unknown id, a run
+    of another job) was tampered with or is stale, and is refused rather than dropped.
+    """
+    if ref is None or ref == "":
+        return None
+    if isinstance(ref, str) and plain_digits(ref) and len(ref) <= 18:
+        ref = int(ref)
+    run = (session.get(Run, ref) if isinstance(ref, int) and not isinstance(ref, bool)
+           and 0 < ref < 2**63 else None)
+    if run is None or run.job_id != job.id:
+        e.add("run_id", f"no such run on this job ({str(ref)[:20]!r})")
+        return None
+    if run.struck_at is not None:
+        e.add("run_id", f"run {run.seq} was struck out: a correction cannot answer it")
+        return None
+    return run.id
+
+
 def record_correction(
     session: Session,
     job: Job,
     *,
     by: User,
-    run_id: int | None,
+    run_id: int | str | None,
     plane: int,
     action: str,
     mass_g: float,
@@ -103,7 +125,8 @@ def record_correction(
     parts fitted on fixed positions (``{"position", "mass_g"}``, angles from the
     rotor type). Drill fields are for removal only. ``replaces_correction_id``
     names an added weight of this job and plane, still on the rotor, that this
-    added weight was fitted in place of (it was taken off).
+    added weight was fitted in place of (it was taken off). ``run_id`` is the run
+    the correction answers, as an id or the page's hidden text ("" for none).
     """
     require(by, "work_jobs")
     if job.state != "on_machine":
@@ -115,12 +138,7 @@ def record_correction(
         e.add("plane", f"must be a plane of this rotor (1–{rt.planes})")
     if action not in CORRECTION_ACTIONS:
         e.add("action", f"{str(action)[:20]!r} is not allowed; choose add or remove")
-    if run_id is not None:
-        run = session.get(Run, run_id) if isinstance(run_id, int) else None
-        if run is None or run.job_id != job.id:
-            e.add("run_id", "must be a run of this job")
-        elif run.struck_at is not None:
-            e.add("run_id", f"run {run.seq} was struck out: a correction cannot answer it")
+    run_id = _answered_run_id(e, session, job, run_id)
     cols: dict[str, Any] = {
         "mass_g": _num(e, "mass_g", mass_g, above=0, maximum=1e6, unit="g"),
         "angle_deg": _num(e, "angle_deg", angle_deg, minimum=-1e6, maximum=1e6),

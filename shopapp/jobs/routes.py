@@ -418,10 +418,10 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
         except ValueError as exc:
             form.split.errors = [str(exc)]
             return _render_detail(job_id, status=422, corr_forms={plane: form})
-        run_id = int(form.run_id.data) if plain_digits(form.run_id.data or "") else None
         try:
             corr = corrections.record_correction(
-                sess, job, by=acting_user(), run_id=run_id, plane=plane, action=form.action.data,
+                sess, job, by=acting_user(), run_id=form.run_id.data, plane=plane,
+                action=form.action.data,
                 mass_g=form.mass_g.data, angle_deg=disp.internal(form.angle_deg.data),
                 radius_mm=form.radius_mm.data, advised_mass_g=_float(form.advised_mass_g.data),
                 advised_angle_deg=disp.internal(_float(form.advised_angle_deg.data)),

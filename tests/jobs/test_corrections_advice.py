@@ -361,3 +361,47 @@ def test_the_record_form_starts_on_the_planes_method_before_any_advice(
     assert chosen is not None
     assert re.search(r'<option[^>]*selected[^>]*value="remove"|<option[^>]*value="remove"'
                      r'[^>]*selected', chosen.group(0))
+
+
+@pytest.mark.parametrize("ref", ["abc", "999999", "other job", "struck", "12.5"])
+def test_a_tampered_run_reference_is_refused_with_a_message_and_nothing_saved(
+        client, login_as, db, shop, machine, ref) -> None:
+    # The browser walk: "abc" saved a correction with no run; 999999 (and a run of another
+    # job, and a struck run) answered 422 with no message, the error sat on a hidden field.
+    from shopapp.jobs.runs import strike_run
+    from shopapp.models import Correction
+    user = login_as("operator")
+    rt = single_plane(shop)
+    other = book(db, user, rt, machine, serial="OTHER")
+    foreign = run(db, user, other, "initial", _v(900.0, 10.0))
+    job = book(db, user, rt, machine)
+    first = run(db, user, job, "initial", _v(2500.0, 200.0))
+    value = {"other job": str(foreign.id), "struck": str(first.id)}.get(ref, ref)
+    if ref == "struck":
+        strike_run(db, job, first, by=user, reason="wrong speed")
+        run(db, user, job, "initial", _v(2500.0, 200.0))
+    before = db.query(Correction).count()
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-run_id": value, "c1-action": "add", "c1-mass_g": "10",
+        "c1-angle_deg": "20", "c1-radius_mm": str(R)})
+    body = text(resp)
+    assert resp.status_code == 422
+    expected = "was struck out" if ref == "struck" else "no such run on this job"
+    assert re.search(rf'role="alert">run: [^<]*{expected}', body), body[:3000]
+    db.expire_all()
+    assert db.query(Correction).count() == before
+
+
+def test_a_blank_run_reference_still_records_a_correction_without_a_run(
+        client, login_as, db, shop, machine) -> None:
+    from shopapp.models import Correction
+    user = login_as("operator")
+    job = book(db, user, single_plane(shop), machine)
+    run(db, user, job, "initial", _v(2500.0, 200.0))
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-run_id": "", "c1-action": "add", "c1-mass_g": "10",
+        "c1-angle_deg": "20", "c1-radius_mm": str(R)})
+    assert resp.status_code == 302
+    db.expire_all()
+    saved = db.query(Correction).filter_by(job_id=job.id).one()
+    assert saved.run_id is None
