@@ -210,7 +210,9 @@ def _correction_details(c: Correction, show: ShopDisplay) -> str:
         items = []
         for p in c.split:
             where = f"position {p['position']} " if p.get("position") is not None else ""
-            items.append(f"{fixed(float(p['mass_g']), 1)} g at {where}"
+            # The job page's figures for a mass (older certificates printed 0.1 g; the
+            # integrity check compares these numbers, not the text).
+            items.append(f"{quantity(float(p['mass_g']), 'g')} at {where}"
                          f"({quantity(show.angle(float(p['angle_deg'])), '°')})")
         parts.append("split: " + ", ".join(items))
     if c.drill_depth_mm is not None:
