@@ -213,7 +213,9 @@ class ShopForm(FlaskForm):
         valid = super().validate(extra_validators)
         for field in self:
             if any(isinstance(v, str) and FORM_CONTROL.search(v) for v in field.raw_data or ()):
-                field.errors = [*field.errors, f"{field.label.text} {CONTROL_REFUSAL}."]
+                # The one message for the field: a number field's "not a number" about
+                # the same characters would only repeat it.
+                field.errors = [f"{field.label.text} {CONTROL_REFUSAL}."]
                 valid = False
         return valid
 
