@@ -120,10 +120,19 @@ class AngleField(NumberField):
     """
 
     def check(self, raw: str, value: float) -> float:
-        if not 0.0 <= value <= 360.0:
-            raise ValueError(f"{raw}° is outside 0–360°: type the angle as shown (it is not "
-                             f"wrapped to {short(value % 360.0)}° for you).")
+        refusal = angle_refusal(raw, value)
+        if refusal is not None:
+            raise ValueError(refusal)
         return value
+
+
+def angle_refusal(raw: str, value: float) -> str | None:
+    """Why a typed angle is refused (outside 0–360°, see :class:`AngleField`), or None.
+    For forms that read angles as text and check them themselves."""
+    if 0.0 <= value <= 360.0:
+        return None
+    return (f"{raw}° is outside 0–360°: type the angle as shown (it is not wrapped to "
+            f"{short(value % 360.0)}° for you).")
 
 
 class WholeNumberField(IntegerField):
