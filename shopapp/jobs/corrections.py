@@ -15,15 +15,18 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.phasors import normalize_deg
 from shopapp.balancing.positions import position_angles_deg
-from shopapp.core import audit
+from shopapp.core import audit, locks
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import plain_digits
-from shopapp.core.display import plain
-from shopapp.core.errors import TransitionRefused
+from shopapp.core.checks import text as _text
+from shopapp.core.display import plain, quantity
+from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.jobs.learning import record_influence_set
-from shopapp.models import CORRECTION_ACTIONS, Correction, Job, RotorType, Run, User
+from shopapp.jobs.runs import STRIKE_STATES, rejudge_check_runs
+from shopapp.jobs.states import REOPEN_FROM
+from shopapp.models import CORRECTION_ACTIONS, Correction, Job, RotorType, Run, User, utcnow
 
 
 def _parse_split(e: _Errors, split: Any, rt: RotorType, plane: int) -> list[dict[str, Any]] | None:
@@ -170,6 +173,52 @@ def record_correction(
                       applied_by_id=by.id, replaces_correction_id=replaces_correction_id, **cols)
     session.add(corr)
     session.flush()
+    session.expire(job, ["corrections"])  # the view of the corrections that count
     audit.record(session, by=by, entity="correction", entity_id=corr.id,
                  action="record_correction", after=audit.snapshot(corr), job_id=job.id)
+    return corr
+
+
+def strike_correction(session: Session, job: Job, corr: Correction, *, by: User,
+                      reason: str) -> Correction:
+    """Strike out a correction recorded by mistake (twice, say): it stays listed, marked,
+    and counts for nothing (advice, calculations, certificate).
+
+    Never deleted; the same rules as :func:`shopapp.jobs.runs.strike_run`: the people
+    who strike runs, while the job is booked in or on the machine (a certified job's
+    evidence is frozen; reopen it first). A weight another correction was fitted in
+    place of is struck only after that one. An influence set the correction fixed on
+    the job stays fixed. Errors name ``reason``.
+    """
+    require(by, "strike_runs")
+    if corr.job_id != job.id:
+        raise ValidationFailed("correction_id",
+                               f"correction {corr.id} is not a correction of job {job.number}")
+    if job.state not in STRIKE_STATES:
+        raise TransitionRefused(
+            f"Job {job.number} is {job.state.replace('_', ' ')}: corrections are struck out "
+            "while it is on the machine" + (" (reopen it first)" if job.state in REOPEN_FROM
+                                            else "."))
+    if corr.struck_at is not None:
+        raise TransitionRefused(f"That correction (plane {corr.plane}, "
+                                f"{quantity(corr.mass_g, 'g')}) was already struck out.")
+    later = next((c for c in job.corrections if c.replaces_correction_id == corr.id), None)
+    if later is not None:
+        raise TransitionRefused(
+            f"The weight of {quantity(later.mass_g, 'g')} in plane {later.plane} was fitted in "
+            "place of this one: strike that correction out first.")
+    e = _Errors()
+    why = _text(e, "reason", reason, max_len=500, required=True)
+    e.raise_if_any()
+    locks.hold_row(session, job)
+    corr.struck_at = utcnow()
+    corr.struck_by_id = by.id
+    corr.struck_reason = why
+    session.flush()
+    session.expire(job, ["corrections"])
+    rejudge_check_runs(session, job)
+    audit.record(session, by=by, entity="correction", entity_id=corr.id,
+                 action="strike_correction", job_id=job.id, before={"struck": False},
+                 after={"struck": True, "plane": corr.plane, "mass_g": corr.mass_g,
+                        "reason": why})
     return corr

@@ -225,6 +225,14 @@ class StrikeForm(ShopForm):
                                        Length(max=500)])
 
 
+class StrikeCorrectionForm(ShopForm):
+    """Strike a correction recorded by mistake out of the calculations (it stays listed)."""
+
+    reason = TextAreaField("Why is this correction struck out?",
+                           validators=[InputRequired("Give the reason: it is kept with the "
+                                                     "correction."), Length(max=500)])
+
+
 class StateForm(ShopForm):
     action = HiddenField()
     reason = TextAreaField("Reason", validators=[Length(max=5000)])
