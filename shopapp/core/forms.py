@@ -229,6 +229,18 @@ class ShopForm(FlaskForm):
         return valid
 
 
+def field_message(field: Field, message: str) -> str:
+    """A use-case's message as shown beside ``field``: a bare predicate ("is required",
+    "must be a number, got 'x'") gets the field's label as its subject, so every
+    message names its field ("Reason is required"); a whole sentence is kept."""
+    if not message[:1].islower():
+        return message
+    label = str(field.label.text).strip().rstrip(":")
+    if not label or label.endswith("?"):  # a question ("Why is this run struck out?")
+        label = field.short_name.replace("_", " ").capitalize()
+    return f"{label} {message}"
+
+
 def apply_errors(form: FlaskForm, exc: ValidationFailed,
                  mapping: dict[str, Any] | None = None) -> list[str]:
     """Put a use-case's field messages beside the form's fields (the one error mapper).
@@ -247,7 +259,7 @@ def apply_errors(form: FlaskForm, exc: ValidationFailed,
         if field is None:
             field = fields.get(name) or fields.get(name.removesuffix("_id"))
         if isinstance(field, Field) and not isinstance(field, HiddenField):
-            field.errors = [*field.errors, message]
+            field.errors = [*field.errors, field_message(field, message)]
         elif isinstance(field, HiddenField):
             # A hidden field shows no message: name what it stands for above the form
             # ("run", not "run id").

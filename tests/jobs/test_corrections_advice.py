@@ -405,3 +405,42 @@ def test_a_blank_run_reference_still_records_a_correction_without_a_run(
     db.expire_all()
     saved = db.query(Correction).filter_by(job_id=job.id).one()
     assert saved.run_id is None
+
+
+@pytest.mark.parametrize(("typed", "parts"), [
+    ("4:1,95", [(4, 1.95)]),  # a decimal comma, read as the mass fields read it
+    ("3:4.2, 4:1.1", [(3, 4.2), (4, 1.1)]),
+    ("3:4,2, 4:1,1", [(3, 4.2), (4, 1.1)]),
+    ("3:4.2; 4:1,1", [(3, 4.2), (4, 1.1)]),
+])
+def test_the_split_reads_masses_with_the_one_number_parser(typed, parts) -> None:
+    from shopapp.jobs.forms import parse_split
+    split = parse_split(typed)
+    assert split is not None
+    assert [(p["position"], p["mass_g"]) for p in split] == parts
+
+
+def test_an_ambiguous_split_mass_is_refused_not_guessed() -> None:
+    from shopapp.jobs.forms import parse_split
+    with pytest.raises(ValueError, match=re.escape("position 4: '1,500' could be 1.500 or 1500")):
+        parse_split("4:1,500")
+
+
+def test_a_split_typed_with_a_decimal_comma_is_saved_and_shown_with_a_point(
+        client, login_as, db, shop, machine) -> None:
+    # Before: "4:1,95" was cut at the comma into "4:1" and "95" (refused as not
+    # position:grams) where every number field reads 1,95 as 1.95.
+    from shopapp.models import Correction
+    user = login_as("operator")
+    rt = single_plane(shop, positions_1=8, first_position_1_deg=0.0, stock_weights_g=None)
+    job = book(db, user, rt, machine)
+    first = run(db, user, job, "initial", _v(2500.0, 200.0))
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-run_id": str(first.id), "c1-action": "add", "c1-mass_g": "1,95",
+        "c1-angle_deg": "135", "c1-radius_mm": str(R), "c1-split": "4:1,95"})
+    assert resp.status_code == 302, text(resp)[:2000]
+    db.expire_all()
+    saved = db.query(Correction).filter_by(job_id=job.id).one()
+    assert saved.split == [{"position": 4, "angle_deg": 135.0, "mass_g": 1.95}]
+    body = text(client.get(f"/jobs/{job.id}"))
+    assert "1.95 g @ 4" in body and "1,95" not in body
