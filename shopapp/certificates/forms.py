@@ -24,9 +24,10 @@ class ReasonForm(ShopForm):
 
     reason = TextAreaField(
         "Reason",
-        validators=[DataRequired(message="is required: say why"),
+        validators=[DataRequired(message="Reason is required: say why."),
                     Length(min=MIN_REASON_LENGTH, max=MAX_REASON_LENGTH,
-                           message=f"must be {MIN_REASON_LENGTH}–{MAX_REASON_LENGTH} characters")],
+                           message=f"Reason must be {MIN_REASON_LENGTH}–{MAX_REASON_LENGTH} "
+                                   "characters.")],
     )
 
 
@@ -67,14 +68,16 @@ class RegisterSearchForm(_GetForm):
 
 
 class ZipForm(_GetForm):
-    date_from = DayField("Issued from", validators=[DataRequired(message="is required")],
-                         ahead_days=QUERY_AHEAD_DAYS)
-    date_to = DayField("to", validators=[DataRequired(message="is required")],
-                       ahead_days=QUERY_AHEAD_DAYS)
+    date_from = DayField("Issued from", validators=[DataRequired(
+        message="Issued from is required: the first day of the export.")],
+        ahead_days=QUERY_AHEAD_DAYS)
+    date_to = DayField("to", validators=[DataRequired(
+        message="Issued to is required: the last day of the export.")],
+        ahead_days=QUERY_AHEAD_DAYS)
 
     def validate_date_to(self, field: DayField) -> None:
         if field.data and self.date_from.data and field.data < self.date_from.data:
-            raise ValidationError("must not be before the from date")
+            raise ValidationError("Issued to must not be before the from date.")
 
     def range(self) -> tuple[dt.date, dt.date]:
         assert self.date_from.data is not None and self.date_to.data is not None

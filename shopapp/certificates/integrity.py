@@ -17,12 +17,16 @@ reads everything back:
   correction. Values that may change for honest reasons after issue (names,
   addresses, the rotor type's description and geometry, the tolerance's limits)
   are not compared. Angles and correction details are compared only while the
-  shop's angle convention and unit are the ones printed on the certificate.
+  shop's angle convention and unit are the ones printed on the certificate; the
+  numbers in the details (split masses, drill depths) are compared as numbers to
+  the precision printed, so a certificate issued before the split masses were
+  printed with the job page's figures still agrees.
 """
 
 from __future__ import annotations
 
 import hashlib
+import re
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 
@@ -128,17 +132,57 @@ def _correction(c: CorrectionLine, angles: bool) -> str:
     return text
 
 
+_NUMBER = re.compile(r"\d+(?:\.(\d+))?")
+
+
+def _printed(text: str) -> tuple[list[str], list[tuple[float, float]]]:
+    """The words of a printed detail and its numbers, each with its last digit's unit."""
+    numbers = [(float(m.group(0)), 10.0 ** -len(m.group(1) or ""))
+               for m in _NUMBER.finditer(text)]
+    return _NUMBER.split(text)[::2], numbers
+
+
+def same_printed_numbers(certified: str, derived: str) -> bool:
+    """Whether two printed details say the same thing, number by number.
+
+    The words must agree exactly; each number may differ by half a unit of the
+    coarser of its two printed last digits, so a certificate that printed a split
+    mass as ``4.3 g`` (the 0.1 g of older certificates) still agrees with the
+    ``4.26 g`` printed now, while ``4.46 g`` does not. (``_NUMBER.split`` keeps the
+    decimals group, hence every other piece is a word.)
+    """
+    words_a, nums_a = _printed(certified)
+    words_b, nums_b = _printed(derived)
+    if words_a != words_b or len(nums_a) != len(nums_b):
+        return False
+    # Both roundings of the same value lie within half a coarse unit of each other;
+    # the 1e-9 absorbs the binary representation of the printed decimals.
+    return all(abs(x - y) <= max(ux, uy) / 2 * (1 + 1e-9)
+               for (x, ux), (y, uy) in zip(nums_a, nums_b, strict=True))
+
+
+def _same_correction(x: CorrectionLine, y: CorrectionLine, angles: bool) -> bool:
+    # Everything but the details as the finding prints it (six figures), as before.
+    if _correction(x, False) != _correction(y, False):
+        return False
+    return not angles or (plain(x.angle_deg) == plain(y.angle_deg)
+                          and same_printed_numbers(x.details, y.details))
+
+
 def _corrections(certified: Sequence[CorrectionLine], stored: Sequence[CorrectionLine],
                  angles: bool) -> list[str]:
+    if len(certified) == len(stored) and all(
+            _same_correction(x, y, angles) for x, y in zip(certified, stored, strict=True)):
+        return []
     a = [_correction(c, angles) for c in certified]
     b = [_correction(c, angles) for c in stored]
-    if a == b:
-        return []
     if len(a) != len(b):
         return [f"corrections: {len(a)} certified, {len(b)} in the stored evidence "
                 f"(certified: {'; '.join(a) or 'none'}; stored: {'; '.join(b) or 'none'})"]
     return [f"correction {k}: certified {x}, the stored evidence gives {y}"
-            for k, (x, y) in enumerate(zip(a, b, strict=True), start=1) if x != y]
+            for k, (x, y, cx, cy) in enumerate(zip(a, b, certified, stored, strict=True),
+                                               start=1)
+            if not _same_correction(cx, cy, angles)]
 
 
 def evidence_differences(certified: CertificateData, derived: CertificateData) -> list[str]:

@@ -117,9 +117,10 @@ class JobEvidence:
 def _load_job(session: Session, job: Job, as_of: dt.datetime | None = None
               ) -> tuple[list[Run], list[Correction], list[InfluenceSet]]:
     """The job's runs, corrections and stored sets; with ``as_of`` only what existed then."""
-    # Struck-out runs are no evidence (and cannot be struck once a certificate is valid).
+    # Struck-out runs and corrections are no evidence (and cannot be struck once a
+    # certificate is valid).
     run_q = select(Run).where(Run.job_id == job.id, Run.struck_at.is_(None))
-    corr_q = select(Correction).where(Correction.job_id == job.id)
+    corr_q = select(Correction).where(Correction.job_id == job.id, Correction.struck_at.is_(None))
     if as_of is not None:
         run_q = run_q.where(Run.taken_at <= as_of)
         corr_q = corr_q.where(Correction.applied_at <= as_of)
@@ -210,7 +211,9 @@ def _correction_details(c: Correction, show: ShopDisplay) -> str:
         items = []
         for p in c.split:
             where = f"position {p['position']} " if p.get("position") is not None else ""
-            items.append(f"{fixed(float(p['mass_g']), 1)} g at {where}"
+            # The job page's figures for a mass (older certificates printed 0.1 g; the
+            # integrity check compares these numbers, not the text).
+            items.append(f"{quantity(float(p['mass_g']), 'g')} at {where}"
                          f"({quantity(show.angle(float(p['angle_deg'])), '°')})")
         parts.append("split: " + ", ".join(items))
     if c.drill_depth_mm is not None:

@@ -38,7 +38,7 @@ from shopapp.certificates.ratelimit import SlidingWindowLimit
 from shopapp.charts.svg import to_svg
 from shopapp.core.errors import NotFound, ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
-from shopapp.core.forms import apply_errors
+from shopapp.core.forms import apply_errors, field_message
 from shopapp.core.pagination import page_number
 from shopapp.core.permissions import can
 from shopapp.core.web import acting_user, get_or_404, page_size, requires
@@ -242,7 +242,7 @@ def _with_reason(cert_id: int, action: str,
         sess.commit()
     except ValidationFailed as exc:
         sess.rollback()
-        form.reason.errors = [exc.errors.get("reason", exc.message)]
+        form.reason.errors = [field_message(form.reason, exc.errors.get("reason", exc.message))]
         return _reason_page(cert, form, action, 422)
     except ServiceError as exc:
         sess.rollback()
@@ -352,7 +352,7 @@ def verify():  # type: ignore[no-untyped-def]
                 status = 422
     except ValidationFailed as exc:
         target = {"n": form.n, "c": form.c, "q": hash_form.q}.get(exc.field, form.n)
-        target.errors = [exc.errors.get(exc.field, exc.message)]
+        target.errors = [field_message(target, exc.errors.get(exc.field, exc.message))]
         status = 422
     return render_template("certificates/verify.html", form=form, hash_form=hash_form,
                            upload=upload, result=result, proof=proof, remark=remark,

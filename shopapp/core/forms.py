@@ -120,10 +120,19 @@ class AngleField(NumberField):
     """
 
     def check(self, raw: str, value: float) -> float:
-        if not 0.0 <= value <= 360.0:
-            raise ValueError(f"{raw}° is outside 0–360°: type the angle as shown (it is not "
-                             f"wrapped to {short(value % 360.0)}° for you).")
+        refusal = angle_refusal(raw, value)
+        if refusal is not None:
+            raise ValueError(refusal)
         return value
+
+
+def angle_refusal(raw: str, value: float) -> str | None:
+    """Why a typed angle is refused (outside 0–360°, see :class:`AngleField`), or None.
+    For forms that read angles as text and check them themselves."""
+    if 0.0 <= value <= 360.0:
+        return None
+    return (f"{raw}° is outside 0–360°: type the angle as shown (it is not wrapped to "
+            f"{short(value % 360.0)}° for you).")
 
 
 class WholeNumberField(IntegerField):
@@ -215,9 +224,23 @@ class ShopForm(FlaskForm):
         valid = super().validate(extra_validators)
         for field in self:
             if any(isinstance(v, str) and FORM_CONTROL.search(v) for v in field.raw_data or ()):
-                field.errors = [*field.errors, f"{field.label.text} {CONTROL_REFUSAL}."]
+                # The one message for the field: a number field's "not a number" about
+                # the same characters would only repeat it.
+                field.errors = [f"{field.label.text} {CONTROL_REFUSAL}."]
                 valid = False
         return valid
+
+
+def field_message(field: Field, message: str) -> str:
+    """A use-case's message as shown beside ``field``: a bare predicate ("is required",
+    "must be a number, got 'x'") gets the field's label as its subject, so every
+    message names its field ("Reason is required"); a whole sentence is kept."""
+    if not message[:1].islower():
+        return message
+    label = str(field.label.text).strip().rstrip(":")
+    if not label or label.endswith("?"):  # a question ("Why is this run struck out?")
+        label = field.short_name.replace("_", " ").capitalize()
+    return f"{label} {message}"
 
 
 def apply_errors(form: FlaskForm, exc: ValidationFailed,
@@ -237,8 +260,12 @@ def apply_errors(form: FlaskForm, exc: ValidationFailed,
         field = (mapping or {}).get(name)
         if field is None:
             field = fields.get(name) or fields.get(name.removesuffix("_id"))
-        if isinstance(field, Field):
-            field.errors = [*field.errors, message]
+        if isinstance(field, Field) and not isinstance(field, HiddenField):
+            field.errors = [*field.errors, field_message(field, message)]
+        elif isinstance(field, HiddenField):
+            # A hidden field shows no message: name what it stands for above the form
+            # ("run", not "run id").
+            loose.append(f"{name.removesuffix('_id').replace('_', ' ')}: {message}")
         else:
             loose.append(f"{name.replace('_', ' ')}: {message}")
     return loose

@@ -10,7 +10,8 @@ from shopapp.models import User
 PERMISSIONS: dict[str, frozenset[str]] = {
     "read": frozenset({"operator", "quality", "owner", "admin"}),
     "work_jobs": frozenset({"operator", "quality"}),
-    # Striking out a mistaken run (never deleting it): the people who log runs.
+    # Striking out a mistaken run or correction (never deleting it): the people who log
+    # runs.
     "strike_runs": frozenset({"operator", "quality"}),
     "edit_registry": frozenset({"operator", "quality", "admin"}),
     "edit_machines": frozenset({"quality", "admin"}),

@@ -15,14 +15,18 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.phasors import normalize_deg
 from shopapp.balancing.positions import position_angles_deg
-from shopapp.core import audit
+from shopapp.core import audit, locks
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
-from shopapp.core.display import plain
-from shopapp.core.errors import TransitionRefused
+from shopapp.core.checks import plain_digits
+from shopapp.core.checks import text as _text
+from shopapp.core.display import plain, quantity
+from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.jobs.learning import record_influence_set
-from shopapp.models import CORRECTION_ACTIONS, Correction, Job, RotorType, Run, User
+from shopapp.jobs.runs import STRIKE_STATES, rejudge_check_runs
+from shopapp.jobs.states import REOPEN_FROM
+from shopapp.models import CORRECTION_ACTIONS, Correction, Job, RotorType, Run, User, utcnow
 
 
 def _parse_split(e: _Errors, split: Any, rt: RotorType, plane: int) -> list[dict[str, Any]] | None:
@@ -77,12 +81,33 @@ def _check_replaced(e: _Errors, job: Job, ref: Any, plane: int, action: str) -> 
         e.add(field, "that weight was already replaced by a later one")
 
 
+def _answered_run_id(e: _Errors, session: Session, job: Job, ref: Any) -> int | None:
+    """The run a correction answers: a live run of this job, or none when ``ref`` is blank.
+
+    The page carries it in a hidden field, so anything else (text, an unknown id, a run
+    of another job) was tampered with or is stale, and is refused rather than dropped.
+    """
+    if ref is None or ref == "":
+        return None
+    if isinstance(ref, str) and plain_digits(ref) and len(ref) <= 18:
+        ref = int(ref)
+    run = (session.get(Run, ref) if isinstance(ref, int) and not isinstance(ref, bool)
+           and 0 < ref < 2**63 else None)
+    if run is None or run.job_id != job.id:
+        e.add("run_id", f"no such run on this job ({str(ref)[:20]!r})")
+        return None
+    if run.struck_at is not None:
+        e.add("run_id", f"run {run.seq} was struck out: a correction cannot answer it")
+        return None
+    return run.id
+
+
 def record_correction(
     session: Session,
     job: Job,
     *,
     by: User,
-    run_id: int | None,
+    run_id: int | str | None,
     plane: int,
     action: str,
     mass_g: float,
@@ -103,7 +128,8 @@ def record_correction(
     parts fitted on fixed positions (``{"position", "mass_g"}``, angles from the
     rotor type). Drill fields are for removal only. ``replaces_correction_id``
     names an added weight of this job and plane, still on the rotor, that this
-    added weight was fitted in place of (it was taken off).
+    added weight was fitted in place of (it was taken off). ``run_id`` is the run
+    the correction answers, as an id or the page's hidden text ("" for none).
     """
     require(by, "work_jobs")
     if job.state != "on_machine":
@@ -115,12 +141,7 @@ def record_correction(
         e.add("plane", f"must be a plane of this rotor (1–{rt.planes})")
     if action not in CORRECTION_ACTIONS:
         e.add("action", f"{str(action)[:20]!r} is not allowed; choose add or remove")
-    if run_id is not None:
-        run = session.get(Run, run_id) if isinstance(run_id, int) else None
-        if run is None or run.job_id != job.id:
-            e.add("run_id", "must be a run of this job")
-        elif run.struck_at is not None:
-            e.add("run_id", f"run {run.seq} was struck out: a correction cannot answer it")
+    run_id = _answered_run_id(e, session, job, run_id)
     cols: dict[str, Any] = {
         "mass_g": _num(e, "mass_g", mass_g, above=0, maximum=1e6, unit="g"),
         "angle_deg": _num(e, "angle_deg", angle_deg, minimum=-1e6, maximum=1e6),
@@ -152,6 +173,52 @@ def record_correction(
                       applied_by_id=by.id, replaces_correction_id=replaces_correction_id, **cols)
     session.add(corr)
     session.flush()
+    session.expire(job, ["corrections"])  # the view of the corrections that count
     audit.record(session, by=by, entity="correction", entity_id=corr.id,
                  action="record_correction", after=audit.snapshot(corr), job_id=job.id)
+    return corr
+
+
+def strike_correction(session: Session, job: Job, corr: Correction, *, by: User,
+                      reason: str) -> Correction:
+    """Strike out a correction recorded by mistake (twice, say): it stays listed, marked,
+    and counts for nothing (advice, calculations, certificate).
+
+    Never deleted; the same rules as :func:`shopapp.jobs.runs.strike_run`: the people
+    who strike runs, while the job is booked in or on the machine (a certified job's
+    evidence is frozen; reopen it first). A weight another correction was fitted in
+    place of is struck only after that one. An influence set the correction fixed on
+    the job stays fixed. Errors name ``reason``.
+    """
+    require(by, "strike_runs")
+    if corr.job_id != job.id:
+        raise ValidationFailed("correction_id",
+                               f"correction {corr.id} is not a correction of job {job.number}")
+    if job.state not in STRIKE_STATES:
+        raise TransitionRefused(
+            f"Job {job.number} is {job.state.replace('_', ' ')}: corrections are struck out "
+            "while it is on the machine" + (" (reopen it first)" if job.state in REOPEN_FROM
+                                            else "."))
+    if corr.struck_at is not None:
+        raise TransitionRefused(f"That correction (plane {corr.plane}, "
+                                f"{quantity(corr.mass_g, 'g')}) was already struck out.")
+    later = next((c for c in job.corrections if c.replaces_correction_id == corr.id), None)
+    if later is not None:
+        raise TransitionRefused(
+            f"The weight of {quantity(later.mass_g, 'g')} in plane {later.plane} was fitted in "
+            "place of this one: strike that correction out first.")
+    e = _Errors()
+    why = _text(e, "reason", reason, max_len=500, required=True)
+    e.raise_if_any()
+    locks.hold_row(session, job)
+    corr.struck_at = utcnow()
+    corr.struck_by_id = by.id
+    corr.struck_reason = why
+    session.flush()
+    session.expire(job, ["corrections"])
+    rejudge_check_runs(session, job)
+    audit.record(session, by=by, entity="correction", entity_id=corr.id,
+                 action="strike_correction", job_id=job.id, before={"struck": False},
+                 after={"struck": True, "plane": corr.plane, "mass_g": corr.mass_g,
+                        "reason": why})
     return corr

@@ -135,10 +135,14 @@ def facts_select(*, imported_table: bool = True) -> Select[Any]:
     """SELECT of every :class:`JobFact` column, one row per job (FROM job JOIN rotor).
 
     ``imported_table=False`` only for migration 0014, which fills the facts at a revision
-    before ``imported_job`` exists (0022): no job can be an imported one there.
+    before ``imported_job`` exists (0022): no job can be an imported one there (nor a
+    correction struck out, 0024).
     """
     reached = Job.first_in_tolerance_at
     before_tol = Correction.applied_at <= reached
+    if imported_table:
+        # A struck-out correction counts for nothing (revision 0024; 0014 predates it).
+        before_tol = and_(before_tol, Correction.struck_at.is_(None))
     # Correction steps: distinct runs answered; a correction without a run stands alone.
     cycles = (
         select(func.count(func.distinct(func.coalesce(Correction.run_id, -Correction.id))))

@@ -7,6 +7,7 @@ in the shop's display convention; the routes convert them.
 
 from __future__ import annotations
 
+import re
 from typing import Any
 
 from wtforms import (
@@ -225,6 +226,14 @@ class StrikeForm(ShopForm):
                                        Length(max=500)])
 
 
+class StrikeCorrectionForm(ShopForm):
+    """Strike a correction recorded by mistake out of the calculations (it stays listed)."""
+
+    reason = TextAreaField("Why is this correction struck out?",
+                           validators=[InputRequired("Give the reason: it is kept with the "
+                                                     "correction."), Length(max=500)])
+
+
 class StateForm(ShopForm):
     action = HiddenField()
     reason = TextAreaField("Reason", validators=[Length(max=5000)])
@@ -236,21 +245,30 @@ class ReturnForm(OnceForm):
     notes = TextAreaField("What the customer reports", validators=[Length(max=5000)])
 
 
+# Parts are separated by ";" or by a comma before the next "position:" — so a mass typed
+# with a decimal comma ("4:1,95") stays one part, read as the other number fields read it.
+_NEXT_PART = re.compile(r";|,(?=\s*\d+\s*:)")
+
+
 def parse_split(text: str | None) -> list[dict[str, Any]] | None:
-    """``"3:4.2, 4:1.1"`` → ``[{"position": 3, "mass_g": 4.2}, ...]``; raises ValueError."""
+    """``"3:4.2, 4:1.1"`` → ``[{"position": 3, "mass_g": 4.2}, ...]``; raises ValueError.
+
+    Masses are read by the one number parser (:func:`shopapp.core.forms.parse_number`):
+    ``"4:1,95"`` is 1.95 g at position 4, ``"4:1,500"`` is refused as ambiguous.
+    """
     if not text or not text.strip():
         return None
     parts = []
-    for chunk in text.split(","):
-        chunk = chunk.strip()
+    for chunk in _NEXT_PART.split(text):
+        chunk = chunk.strip().rstrip(",").strip()
         if not chunk:
             continue
         pos, sep, mass = chunk.partition(":")
         if not sep or not plain_digits(pos.strip()):
             raise ValueError(f"{chunk[:30]!r} is not position:grams, e.g. 3:4.2")
         try:
-            value = float(mass)
-        except ValueError:
-            raise ValueError(f"{mass.strip()[:20]!r} is not a mass in grams") from None
+            value = forms.parse_number(mass.strip())
+        except ValueError as exc:
+            raise ValueError(f"position {pos.strip()}: {exc}") from None
         parts.append({"position": int(pos), "mass_g": value})
     return parts or None

@@ -26,6 +26,7 @@ from shopapp.models import (
     JOB_KINDS,
     JOB_STATES,
     AuditEvent,
+    Correction,
     Customer,
     InfluenceSet,
     Job,
@@ -61,6 +62,7 @@ def load_job(session: Session, job_id: int) -> Job:
             selectinload(Job.run_log).joinedload(Run.struck_by),
             selectinload(Job.runs),
             selectinload(Job.corrections),
+            selectinload(Job.correction_log).joinedload(Correction.struck_by),
             selectinload(Job.transitions),
         )
     )

@@ -39,11 +39,12 @@ from shopapp.jobs.forms import (
     ReturnForm,
     RunForm,
     StateForm,
+    StrikeCorrectionForm,
     StrikeForm,
     options,
     parse_split,
 )
-from shopapp.models import JOB_KINDS, JOB_STATES, Job, Run
+from shopapp.models import JOB_KINDS, JOB_STATES, Correction, Job, Run
 
 bp = Blueprint("jobs", __name__, url_prefix="/jobs", template_folder="templates")
 
@@ -275,7 +276,9 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
                    corr_forms: dict[int, CorrectionForm] | None = None,
                    state_form: StateForm | None = None, state_action: str = "",
                    return_form: ReturnForm | None = None,
-                   strike_form: tuple[int, StrikeForm] | None = None, page_error: str = "",
+                   strike_form: tuple[int, StrikeForm] | None = None,
+                   strike_corr_form: tuple[int, StrikeCorrectionForm] | None = None,
+                   page_error: str = "",
                    loose: list[str] | None = None):  # type: ignore[no-untyped-def]
     sess = db_session()
     job = queries.load_job(sess, job_id)
@@ -310,6 +313,10 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
                     for r in job.run_log if r.struck_at is None}
     if strike_form is not None and strike_form[0] in strike_forms:
         strike_forms[strike_form[0]] = strike_form[1]
+    strike_corr_forms = {c.id: StrikeCorrectionForm(prefix=f"strike-c{c.id}", formdata=None)
+                         for c in job.correction_log if c.struck_at is None}
+    if strike_corr_form is not None and strike_corr_form[0] in strike_corr_forms:
+        strike_corr_forms[strike_corr_form[0]] = strike_corr_form[1]
     trail = queries.job_audit_trail(sess, job.id)
     returns = queries.return_jobs_of(sess, job.id)
     now = dt.datetime.now(dt.UTC)
@@ -317,8 +324,8 @@ def _render_detail(job_id: int, *, status: int = 200, run_form: RunForm | None =
         "jobs/detail.html", job=job, rt=rt, calc=calc, disp=disp,
         svgs=[to_svg(fig, css_class="chart polar") for fig in figures],
         run_form=run_form, corr_forms=forms, state_forms=state_forms, return_form=return_form,
-        strike_forms=strike_forms, can_strike=can(current_user, "strike_runs")
-        and job.state in runs.STRIKE_STATES,
+        strike_forms=strike_forms, strike_corr_forms=strike_corr_forms,
+        can_strike=can(current_user, "strike_runs") and job.state in runs.STRIKE_STATES,
         page_caution=job_calc.PAGE_CAUTION,
         permitted_speed_rpm=limits.highest_speed_rpm(job.machine, rt, job.service_speed_rpm),
         actions=actions, trail=trail, returns=returns, now=now,
@@ -402,6 +409,28 @@ def strike_run(job_id: int, run_id: int):  # type: ignore[no-untyped-def]
     return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
 
 
+@bp.post("/<int:job_id>/corrections/<int:correction_id>/strike")
+@requires("strike_runs")
+def strike_correction(job_id: int, correction_id: int):  # type: ignore[no-untyped-def]
+    sess = db_session()
+    job = get_or_404(sess, Job, job_id)
+    corr = get_or_404(sess, Correction, correction_id)
+    if corr.job_id != job.id:
+        abort(404, description="No such correction on this job.")
+    form = StrikeCorrectionForm(prefix=f"strike-c{correction_id}")
+    if not form.validate_on_submit():
+        return _render_detail(job_id, status=422, strike_corr_form=(correction_id, form))
+    try:
+        corrections.strike_correction(sess, job, corr, by=acting_user(),
+                                      reason=form.reason.data or "")
+        sess.commit()
+    except ServiceError as exc:
+        return _failed(job_id, exc, form, strike_corr_form=(correction_id, form))
+    flash(f"Correction struck out (plane {corr.plane}, {quantity(corr.mass_g, 'g')}): it stays "
+          "listed and counts for nothing.", "success")
+    return redirect(url_for("jobs.detail", job_id=job_id) + "#applied")
+
+
 @bp.post("/<int:job_id>/corrections/<int:plane>")
 @requires("work_jobs")
 def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
@@ -419,10 +448,10 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
         except ValueError as exc:
             form.split.errors = [str(exc)]
             return _render_detail(job_id, status=422, corr_forms={plane: form})
-        run_id = int(form.run_id.data) if plain_digits(form.run_id.data or "") else None
         try:
             corr = corrections.record_correction(
-                sess, job, by=acting_user(), run_id=run_id, plane=plane, action=form.action.data,
+                sess, job, by=acting_user(), run_id=form.run_id.data, plane=plane,
+                action=form.action.data,
                 mass_g=form.mass_g.data, angle_deg=disp.internal(form.angle_deg.data),
                 radius_mm=form.radius_mm.data, advised_mass_g=_float(form.advised_mass_g.data),
                 advised_angle_deg=disp.internal(_float(form.advised_angle_deg.data)),

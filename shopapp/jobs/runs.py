@@ -207,6 +207,20 @@ def record_run(
 STRIKE_STATES = RUN_STATES
 
 
+def rejudge_check_runs(session: Session, job: Job) -> None:
+    """Store the verdicts of the job's check runs again after something was struck out.
+
+    The shop measures read the stored verdicts; a struck trial run (or correction)
+    changes what they were judged with.
+    """
+    verdicts = evaluate(session, job).verdicts
+    for other in job.runs:
+        if other.purpose in job_calc.CHECK_PURPOSES:
+            v = verdicts.get(other.id)
+            other.within_tolerance = v.passed if v is not None and v.judged else None
+    session.flush()
+
+
 def strike_run(session: Session, job: Job, run: Run, *, by: User, reason: str) -> Run:
     """Strike a mistaken run out: it stays in the log, marked, and counts for nothing.
 
@@ -233,15 +247,8 @@ def strike_run(session: Session, job: Job, run: Run, *, by: User, reason: str) -
     run.struck_reason = why
     session.flush()
     session.expire(job, ["runs"])
-    # The shop measures read the stored verdicts: judge the remaining check runs again
-    # (a struck trial run changes the coefficients they were judged with).
     run.within_tolerance = None
-    verdicts = evaluate(session, job).verdicts
-    for other in job.runs:
-        if other.purpose in job_calc.CHECK_PURPOSES:
-            v = verdicts.get(other.id)
-            other.within_tolerance = v.passed if v is not None and v.judged else None
-    session.flush()
+    rejudge_check_runs(session, job)
     audit.record(session, by=by, entity="run", entity_id=run.id, action="strike_run",
                  job_id=job.id, before={"struck": False},
                  after={"struck": True, "seq": run.seq, "reason": why})

@@ -146,8 +146,15 @@ class Job(Base):
         primaryjoin="and_(Job.id == Run.job_id, Run.struck_at.is_(None))",
         order_by="Run.seq", viewonly=True,
     )
-    corrections: Mapped[list[Correction]] = relationship(
+    # Every correction ever recorded, struck-out ones included (the job page's table).
+    correction_log: Mapped[list[Correction]] = relationship(
         back_populates="job", order_by="Correction.id"
+    )
+    # The corrections that count, as ``runs`` above: a struck-out correction (recorded
+    # twice by mistake) is left out of the advice, the calculations and the certificate.
+    corrections: Mapped[list[Correction]] = relationship(
+        primaryjoin="and_(Job.id == Correction.job_id, Correction.struck_at.is_(None))",
+        order_by="Correction.id", viewonly=True,
     )
     transitions: Mapped[list[JobTransition]] = relationship(
         back_populates="job", order_by="JobTransition.id"
@@ -295,6 +302,12 @@ class Correction(Base):
         positive("drill_diameter_mm"),
         angle_range("angle_deg"),
         angle_range("advised_angle_deg"),
+        # A struck-out correction says when, by whom and why, or none of it (as a run).
+        CheckConstraint(
+            "(struck_at IS NULL AND struck_by_id IS NULL AND struck_reason IS NULL) OR "
+            "(struck_at IS NOT NULL AND struck_by_id IS NOT NULL AND struck_reason <> '')",
+            name="struck_complete",
+        ),
     )
 
     id: Mapped[IntPK]
@@ -324,8 +337,14 @@ class Correction(Base):
         ForeignKey("user_account.id", ondelete="RESTRICT"), index=True
     )
     applied_at: Mapped[Timestamp] = mapped_column(index=True)
+    # Struck out: a correction recorded by mistake stays listed but counts for nothing.
+    # No ON DELETE clause, for the reason given at Run.struck_by_id.
+    struck_at: Mapped[dt.datetime | None] = mapped_column(UTCDateTime())
+    struck_by_id: Mapped[int | None] = mapped_column(ForeignKey("user_account.id"), index=True)
+    struck_reason: Mapped[str | None] = mapped_column(Text)
 
-    job: Mapped[Job] = relationship(back_populates="corrections")
+    job: Mapped[Job] = relationship(back_populates="correction_log")
+    struck_by: Mapped[Any] = relationship("User", foreign_keys=[struck_by_id])
 
 
 class InfluenceSet(Base):

@@ -29,7 +29,7 @@ from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.arbor import FRAMES
 from shopapp.core.display import ShopDisplay, plain
-from shopapp.core.forms import DayField, OnceForm, ShopForm
+from shopapp.core.forms import DayField, OnceForm, ShopForm, angle_refusal, parse_number
 from shopapp.models import KEY_CONVENTIONS, READING_UNITS, RESIDUAL_TEST_POSITIONS
 
 KEY_DIMENSIONS = ("key_width_mm", "key_height_mm", "key_length_mm", "hub_length_mm",
@@ -45,20 +45,26 @@ def blank_to_none(value: Any) -> Any:
     return None if value is None or (isinstance(value, str) and not value.strip()) else value
 
 
-def typed_angle(disp: ShopDisplay, raw: Any) -> Any:
-    """A typed angle in the shop's convention as internal degrees.
-
-    Empty stays None; what is not a finite number passes on unchanged, so the
-    use-case refuses it with the field's name and the reason.
-    """
+def typed_number(raw: Any) -> Any:
+    """A typed number read as every form of the app reads one (:func:`parse_number`: a
+    decimal comma is a point). Empty stays None; what it refuses passes on unchanged, so
+    the use-case refuses it with the field's name and the reason."""
     raw = blank_to_none(raw)
-    if raw is None:
-        return None
-    try:
-        value = float(raw)
-    except (TypeError, ValueError):
+    if not isinstance(raw, str):
         return raw
-    return disp.internal(value) if math.isfinite(value) else raw
+    try:
+        return parse_number(raw.strip())
+    except ValueError:
+        return raw
+
+
+def typed_angle(disp: ShopDisplay, raw: Any) -> Any:
+    """A typed angle in the shop's convention as internal degrees (read by
+    :func:`typed_number`; what is not a finite number passes on unchanged)."""
+    value = typed_number(raw)
+    if isinstance(value, float) and math.isfinite(value):
+        return disp.internal(value)
+    return value
 
 
 def options(pairs: list[tuple[Any, str]]) -> list[SelectChoice]:
@@ -96,6 +102,37 @@ class ProvingTestForm(OnceForm):
     compute = SubmitField("Compute")
     save = SubmitField("Save the test")
 
+    def validate(self, extra_validators: Any = None) -> bool:
+        """The typed figures read as numbers (a decimal comma is a point) and the angles
+        inside 0–360°, each refusal beside its field; the use-case checks the rest."""
+        valid = super().validate(extra_validators)
+        numbers: list[tuple[Any, str, bool]] = [
+            (f, "", f is self.first_position_deg)
+            for f in (self.test_mass_g, self.test_radius_mm, self.first_position_deg,
+                      self.claimed_umar, self.urr_before_1, self.urr_after_1,
+                      self.urr_before_2, self.urr_after_2, self.claimed_urr_pct)]
+        for p, (amps, angs) in enumerate(((self.p1_amp, self.p1_ang),
+                                          (self.p2_amp, self.p2_ang)), start=1):
+            numbers += [(e, f"Plane {p}, position {k} reading: ", False)
+                        for k, e in enumerate(amps.entries, start=1)]
+            numbers += [(e, f"Plane {p}, position {k} angle: ", True)
+                        for k, e in enumerate(angs.entries, start=1)]
+        for fld, name, is_angle in numbers:
+            raw = blank_to_none(fld.data)
+            if not isinstance(raw, str) or fld.errors:
+                continue
+            try:
+                value = parse_number(raw.strip())
+            except ValueError as exc:
+                fld.errors = [f"{name}{exc}"]
+                valid = False
+                continue
+            refusal = angle_refusal(raw.strip(), value) if is_angle else None
+            if refusal is not None:
+                fld.errors = [f"{name}{refusal}"]
+                valid = False
+        return valid
+
     def size_for(self, positions: int) -> None:
         """One reading field per test-mass position in each plane."""
         for fl in (self.p1_amp, self.p1_ang, self.p2_amp, self.p2_ang):
@@ -124,21 +161,21 @@ class ProvingTestForm(OnceForm):
         """The typed test as keyword arguments of the proving-test use-cases."""
         first = typed_angle(disp, self.first_position_deg.data or "0")
         return {
-            "test_mass_g": self.test_mass_g.data,
-            "test_radius_mm": blank_to_none(self.test_radius_mm.data),
-            "indicated_gmm": [[e.data for e in self.p1_amp.entries],
-                              [e.data for e in self.p2_amp.entries]][:planes],
+            "test_mass_g": typed_number(self.test_mass_g.data),
+            "test_radius_mm": typed_number(self.test_radius_mm.data),
+            "indicated_gmm": [[typed_number(e.data) for e in self.p1_amp.entries],
+                              [typed_number(e.data) for e in self.p2_amp.entries]][:planes],
             "indicated_angles_deg": [[typed_angle(disp, e.data) for e in self.p1_ang.entries],
                                      [typed_angle(disp, e.data) for e in self.p2_ang.entries]
                                      ][:planes],
             # As typed when it is not a number: the use-case refuses it by name.
             "first_position_deg": 0.0 if first is None else first,
-            "claimed_umar": blank_to_none(self.claimed_umar.data),
-            "urr_before_gmm": [blank_to_none(self.urr_before_1.data),
-                               blank_to_none(self.urr_before_2.data)][:planes],
-            "urr_after_gmm": [blank_to_none(self.urr_after_1.data),
-                              blank_to_none(self.urr_after_2.data)][:planes],
-            "claimed_urr_pct": blank_to_none(self.claimed_urr_pct.data),
+            "claimed_umar": typed_number(self.claimed_umar.data),
+            "urr_before_gmm": [typed_number(self.urr_before_1.data),
+                               typed_number(self.urr_before_2.data)][:planes],
+            "urr_after_gmm": [typed_number(self.urr_after_1.data),
+                              typed_number(self.urr_after_2.data)][:planes],
+            "claimed_urr_pct": typed_number(self.claimed_urr_pct.data),
         }
 
     def error_fields(self) -> dict[str, Any]:

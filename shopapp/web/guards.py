@@ -5,8 +5,10 @@
   database overflow.
 - Query and form values may not carry control characters (NUL and the other
   C0/C1 codes; tab, carriage return and newline are allowed in form text).
-  A query string with one, or an API post, is refused with a 400 that names
-  the field. A page's form post reaches its view, so the form is drawn again
+  An API request or a download with one in its query, or an API post, is
+  refused with a 400 that names the field. A page asked for with one in its
+  query is drawn without that field, the refusal naming it above the page
+  (422). A page's form post reaches its view, so the form is drawn again
   with what was typed and the refusal beside the field (every form is a
   :class:`~shopapp.core.forms.ShopForm`); the request cannot write: a flush
   during it raises the same 400 (a view that saved without its form, or a
@@ -19,9 +21,10 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from flask import Flask, abort, g, has_request_context, request
+from flask import Flask, Response, abort, current_app, g, has_request_context, request
 from sqlalchemy import event
 from sqlalchemy.orm import Session
+from werkzeug.datastructures import ImmutableMultiDict
 from werkzeug.exceptions import BadRequest
 from werkzeug.routing import IntegerConverter
 
@@ -67,10 +70,41 @@ def _first_bad(values: Any, pattern: re.Pattern[str]) -> str | None:
     return None
 
 
-def _refusal(field: str) -> str:
+def _refusal(field: str, *, left_out: bool = False) -> str:
     shown = _QUERY_CONTROL.sub("?", field)[:40]
-    return (f"The field {shown!r} contains a control character (such as NUL); type plain "
-            "text and try again.")
+    what = ", so it was left out of this page" if left_out else ""
+    return (f"The field {shown!r} contains a control character (such as NUL){what}; type "
+            "plain text and try again.")
+
+
+def _leave_out_query_fields() -> None:
+    """A page asked for with a control character in its query: the fields holding one
+    are left out and the page says so above its content (``g.query_refusals``), rather
+    than a whole-page 400 that loses the page. A search box or filter reads as empty."""
+    kept, refused = [], []
+    for key, value in request.args.items(multi=True):
+        if _QUERY_CONTROL.search(key) or (isinstance(value, str) and _QUERY_CONTROL.search(value)):
+            if key not in refused:
+                refused.append(key)
+        else:
+            kept.append((key, value))
+    # Werkzeug's cached property takes the replacement; every view reads this one.
+    request.args = ImmutableMultiDict(kept)  # type: ignore[misc]
+    g.query_refusals = [_refusal(key, left_out=True) for key in refused]
+
+
+def _refuse_query_outside_pages(response: Response) -> Response:
+    """A download (PDF, CSV, ZIP) cannot show the message: it is refused as before, so
+    it is never answered for other values than those asked for."""
+    refusals = g.get("query_refusals")
+    if not refusals:
+        return response
+    if response.mimetype != "text/html":
+        return current_app.make_response(
+            current_app.handle_http_exception(BadRequest(description=refusals[0])))
+    if response.status_code == 200:
+        response.status_code = 422  # as a GET form with a refused value answers
+    return response
 
 
 def _no_write_with_control_characters(session: Session, *_: Any) -> None:
@@ -89,7 +123,9 @@ def register_guards(app: Flask) -> None:
     def _refuse_control_characters() -> None:
         bad = _first_bad(request.args, _QUERY_CONTROL)
         if bad is not None:
-            abort(400, description=_refusal(bad))
+            if request.method != "GET" or "api" in request.blueprints:
+                abort(400, description=_refusal(bad))
+            _leave_out_query_fields()
         if request.method in ("POST", "PUT", "PATCH") and not request.is_json:
             bad = _first_bad(request.form, FORM_CONTROL)
             if bad is None:
@@ -98,3 +134,5 @@ def register_guards(app: Flask) -> None:
                 abort(400, description=_refusal(bad))
             # The view draws its form again with the refusal beside the field.
             g.control_character_field = bad
+
+    app.after_request(_refuse_query_outside_pages)

@@ -222,3 +222,74 @@ def test_reopened_and_reworked_jobs_still_pass(seeded) -> None:  # type: ignore[
     result = check()
     assert result.exit_code == 0, result.output
     assert "3 certificates checked (1 valid): all agree" in result.output
+
+
+def _details_as_issued_before(c, show):  # type: ignore[no-untyped-def]
+    """The split as certificates printed it before the job page's figures: 0.1 g."""
+    from shopapp.core.display import fixed, quantity
+    items = [f"{fixed(float(p['mass_g']), 1)} g at position {p['position']} "
+             f"({quantity(show.angle(float(p['angle_deg'])), '°')})" for p in c.split or []]
+    return "split: " + ", ".join(items) if items else ""
+
+
+def test_an_old_format_split_still_verifies_and_a_changed_split_mass_is_found(  # type: ignore[no-untyped-def]
+        fresh_database_url, tmp_path, monkeypatch) -> None:
+    from shopapp.models import Certificate
+    from shopapp.reports.certificate import CertificateData
+    engine = make_engine(fresh_database_url)
+    Base.metadata.create_all(engine)
+    monkeypatch.setenv("SHOPAPP_DATABASE_URL", fresh_database_url)
+    monkeypatch.setenv("SHOPAPP_INSTANCE_PATH", str(tmp_path))
+    try:
+        with Session(engine) as db:
+            operator = factories.user(db, username="ola", role="operator", password="long-enough-1")
+            quality = factories.user(db, username="quinn", role="quality",
+                                     password="long-enough-1")
+            shop = factories.ShopFactory(db)
+            # 4.26 g prints 4.3 g at 0.1 g and 4.26 g at three figures.
+            old_job = job_ready_for_certificate(db, shop, operator, split_2_g=(4.26, 19.04))
+            with monkeypatch.context() as m:
+                m.setattr(certificates, "_correction_details", _details_as_issued_before)
+                old = certificates.issue(db, old_job, by=quality)
+            new = certificates.issue(db, job_ready_for_certificate(db, shop, operator,
+                                                                   split_2_g=(4.26, 19.04)),
+                                     by=quality)
+            split_id = db.query(Correction).filter_by(job_id=old_job.id, plane=2).one().id
+            details = {c.number: CertificateData.from_json(c.data_json).corrections[1].details
+                       for c in db.query(Certificate)}
+            old_number, new_number = old.number, new.number
+            db.commit()
+        assert details[old_number].startswith("split: 4.3 g at position 1")
+        assert details[new_number].startswith("split: 4.26 g at position 1")  # job page's figures
+        result = check()
+        assert result.exit_code == 0, result.output
+        # A real change of a split mass is still found on the old certificate.
+        split = ('[{"position": 1, "angle_deg": 0.0, "mass_g": 4.46}, '
+                 '{"position": 2, "angle_deg": 45.0, "mass_g": 19.04}]')
+        cast = "CAST(:s AS JSON)" if engine.dialect.name == "postgresql" else ":s"
+        tamper(engine, ("correction",),
+               (f"UPDATE correction SET split = {cast} WHERE id = :i", {"s": split, "i": split_id}))
+        result = check()
+        assert result.exit_code == 1
+        assert f"{old_number} revision 1: correction 2: certified" in result.output
+        assert "4.46 g at position 1" in result.output
+    finally:
+        Base.metadata.drop_all(engine)
+        engine.dispose()
+
+
+@pytest.mark.parametrize(("certified", "derived", "same"), [
+    # Rounding by hand: 4.26 to 0.1 is 4.3; to three figures 4.26.
+    ("split: 4.3 g at position 1 (0°)", "split: 4.26 g at position 1 (0°)", True),
+    ("split: 4.2 g at position 1 (0°)", "split: 4.25 g at position 1 (0°)", True),
+    ("split: 4.3 g at position 1 (0°)", "split: 4.46 g at position 1 (0°)", False),
+    ("split: 4.3 g at position 1 (0°)", "split: 4.3 g at position 2 (45°)", False),
+    ("split: 4.3 g at position 1 (0°)", "split: 4.3 g at position 1 (0°), 2.0 g at "
+     "position 2 (45°)", False),
+    ("drilled 2 holes Ø8 mm, depth 3.2 mm", "drilled 2 holes Ø8 mm, depth 3.2 mm", True),
+    ("drilled 2 holes Ø8 mm, depth 3.2 mm", "drilled 3 holes Ø8 mm, depth 3.2 mm", False),
+])
+def test_details_are_compared_number_by_number_to_the_printed_precision(
+        certified: str, derived: str, same: bool) -> None:
+    from shopapp.certificates.integrity import same_printed_numbers
+    assert same_printed_numbers(certified, derived) is same

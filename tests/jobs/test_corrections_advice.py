@@ -94,7 +94,7 @@ def test_applied_table_shows_the_run_number_not_its_row_id(client, login_as, db,
     db.commit()
     body = text(client.get(f"/jobs/{job.id}"))
     applied = body[body.index("<h3>Applied</h3>"):]
-    first_cell = re.search(r"<tbody>\s*<tr><td>([^<]*)</td>", applied)
+    first_cell = re.search(r"<tbody>\s*<tr[^>]*><td>([^<]*)</td>", applied)
     assert first_cell and first_cell.group(1) == "1"
 
 
@@ -361,3 +361,86 @@ def test_the_record_form_starts_on_the_planes_method_before_any_advice(
     assert chosen is not None
     assert re.search(r'<option[^>]*selected[^>]*value="remove"|<option[^>]*value="remove"'
                      r'[^>]*selected', chosen.group(0))
+
+
+@pytest.mark.parametrize("ref", ["abc", "999999", "other job", "struck", "12.5"])
+def test_a_tampered_run_reference_is_refused_with_a_message_and_nothing_saved(
+        client, login_as, db, shop, machine, ref) -> None:
+    # The browser walk: "abc" saved a correction with no run; 999999 (and a run of another
+    # job, and a struck run) answered 422 with no message, the error sat on a hidden field.
+    from shopapp.jobs.runs import strike_run
+    from shopapp.models import Correction
+    user = login_as("operator")
+    rt = single_plane(shop)
+    other = book(db, user, rt, machine, serial="OTHER")
+    foreign = run(db, user, other, "initial", _v(900.0, 10.0))
+    job = book(db, user, rt, machine)
+    first = run(db, user, job, "initial", _v(2500.0, 200.0))
+    value = {"other job": str(foreign.id), "struck": str(first.id)}.get(ref, ref)
+    if ref == "struck":
+        strike_run(db, job, first, by=user, reason="wrong speed")
+        run(db, user, job, "initial", _v(2500.0, 200.0))
+    before = db.query(Correction).count()
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-run_id": value, "c1-action": "add", "c1-mass_g": "10",
+        "c1-angle_deg": "20", "c1-radius_mm": str(R)})
+    body = text(resp)
+    assert resp.status_code == 422
+    expected = "was struck out" if ref == "struck" else "no such run on this job"
+    assert re.search(rf'role="alert">run: [^<]*{expected}', body), body[:3000]
+    db.expire_all()
+    assert db.query(Correction).count() == before
+
+
+def test_a_blank_run_reference_still_records_a_correction_without_a_run(
+        client, login_as, db, shop, machine) -> None:
+    from shopapp.models import Correction
+    user = login_as("operator")
+    job = book(db, user, single_plane(shop), machine)
+    run(db, user, job, "initial", _v(2500.0, 200.0))
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-run_id": "", "c1-action": "add", "c1-mass_g": "10",
+        "c1-angle_deg": "20", "c1-radius_mm": str(R)})
+    assert resp.status_code == 302
+    db.expire_all()
+    saved = db.query(Correction).filter_by(job_id=job.id).one()
+    assert saved.run_id is None
+
+
+@pytest.mark.parametrize(("typed", "parts"), [
+    ("4:1,95", [(4, 1.95)]),  # a decimal comma, read as the mass fields read it
+    ("3:4.2, 4:1.1", [(3, 4.2), (4, 1.1)]),
+    ("3:4,2, 4:1,1", [(3, 4.2), (4, 1.1)]),
+    ("3:4.2; 4:1,1", [(3, 4.2), (4, 1.1)]),
+])
+def test_the_split_reads_masses_with_the_one_number_parser(typed, parts) -> None:
+    from shopapp.jobs.forms import parse_split
+    split = parse_split(typed)
+    assert split is not None
+    assert [(p["position"], p["mass_g"]) for p in split] == parts
+
+
+def test_an_ambiguous_split_mass_is_refused_not_guessed() -> None:
+    from shopapp.jobs.forms import parse_split
+    with pytest.raises(ValueError, match=re.escape("position 4: '1,500' could be 1.500 or 1500")):
+        parse_split("4:1,500")
+
+
+def test_a_split_typed_with_a_decimal_comma_is_saved_and_shown_with_a_point(
+        client, login_as, db, shop, machine) -> None:
+    # Before: "4:1,95" was cut at the comma into "4:1" and "95" (refused as not
+    # position:grams) where every number field reads 1,95 as 1.95.
+    from shopapp.models import Correction
+    user = login_as("operator")
+    rt = single_plane(shop, positions_1=8, first_position_1_deg=0.0, stock_weights_g=None)
+    job = book(db, user, rt, machine)
+    first = run(db, user, job, "initial", _v(2500.0, 200.0))
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-run_id": str(first.id), "c1-action": "add", "c1-mass_g": "1,95",
+        "c1-angle_deg": "135", "c1-radius_mm": str(R), "c1-split": "4:1,95"})
+    assert resp.status_code == 302, text(resp)[:2000]
+    db.expire_all()
+    saved = db.query(Correction).filter_by(job_id=job.id).one()
+    assert saved.split == [{"position": 4, "angle_deg": 135.0, "mass_g": 1.95}]
+    body = text(client.get(f"/jobs/{job.id}"))
+    assert "1.95 g @ 4" in body and "1,95" not in body

@@ -91,6 +91,64 @@ def test_proving_test_computes_before_it_saves(client, login_as, shop, db, provi
     assert row.measured_umar_gmm == pytest.approx(1.5, rel=1e-6)
 
 
+def _proving_data(rotor_id: int, *, comma: bool = False) -> dict[str, str]:
+    """The simulated test above (1.5 g·mm at 90°, 60 g·mm test unbalance round 8 positions),
+    typed with a decimal point or, as a person with a comma keyboard types, a comma."""
+    theta = np.radians(np.arange(8) * 45.0)
+    z = cmath.rect(1.5, math.radians(90.0)) + 60.0 * np.exp(1j * theta)
+    data = {"performed_on": TODAY.isoformat(), "proving_rotor_id": str(rotor_id),
+            "test_mass_g": "0.6", "test_radius_mm": "100", "first_position_deg": "0",
+            "claimed_umar": "5", "compute": "Compute"}
+    for k, v in enumerate(z):
+        data[f"p1_amp-{k}"] = f"{abs(v):.6f}"
+        data[f"p1_ang-{k}"] = f"{math.degrees(cmath.phase(v)) % 360:.6f}"
+    if comma:
+        data = {k: v.replace(".", ",") if k.startswith(("p1_", "test_")) else v
+                for k, v in data.items()}
+    return data
+
+
+def test_proving_test_reads_a_decimal_comma_as_the_other_forms_do(client, login_as, shop, db,  # type: ignore[no-untyped-def]
+                                                                  proving_rotor) -> None:
+    # Before: "0,6" and "60,01…" were refused ("must be a number") while the run and
+    # correction forms read them as 0.6 and 60.01.
+    m = shop.machine(claimed_emar_gmm_per_kg=0.5)
+    db.commit()
+    login_as("quality")
+    url = f"/traceability/machines/{m.id}/proving-test"
+    data = _proving_data(proving_rotor.id, comma=True)
+    assert data["test_mass_g"] == "0,6"
+    resp = client.post(url, data=data)
+    page = _plain(resp)
+    assert resp.status_code == 200, page[:2000]
+    assert "PASSED" in page and "must be a number" not in page
+    # The same result as typed with a point (the simulation's residual: 1.5 g·mm).
+    with_point = _plain(client.post(url, data=_proving_data(proving_rotor.id)))
+    assert page[page.index("Computed figures"):] == \
+        with_point[with_point.index("Computed figures"):]
+    assert "Test unbalance 60.0 g·mm" in page  # 0,6 g × 100 mm, by hand
+    assert "1 1.50 5.00 1.00" in page  # U_mar 1.50 g·mm of the 5.00 g·mm claim
+
+
+@pytest.mark.parametrize(("angle", "wrapped"), [("400", "40"), ("370", "10"), ("-10", "350")])
+def test_proving_test_refuses_an_angle_outside_0_to_360(client, login_as, shop, db,  # type: ignore[no-untyped-def]
+                                                        proving_rotor, angle, wrapped) -> None:
+    # Before: 400 gave a circle-fit message and 370 was wrapped to 10° without a word. The
+    # app's angle fields (run, correction) refuse, never wrap: the same here.
+    m = shop.machine(claimed_emar_gmm_per_kg=0.5)
+    db.commit()
+    login_as("quality")
+    data = _proving_data(proving_rotor.id)
+    data["p1_ang-1"] = angle
+    resp = client.post(f"/traceability/machines/{m.id}/proving-test", data=data)
+    page = _plain(resp)
+    assert resp.status_code == 422
+    assert (f"Plane 1, position 2 angle: {angle}° is outside 0–360°: type the angle as shown "
+            f"(it is not wrapped to {wrapped}° for you).") in page
+    assert page.count("is outside 0–360°") == 1
+    assert "PASSED" not in page and "FAILED" not in page
+
+
 def test_proving_test_bad_reading_is_shown_beside_it(client, login_as, shop, db,  # type: ignore[no-untyped-def]
                                                      proving_rotor) -> None:
     m = shop.machine(claimed_emar_gmm_per_kg=0.5)
@@ -103,7 +161,7 @@ def test_proving_test_bad_reading_is_shown_beside_it(client, login_as, shop, db,
     data["p1_amp-3"] = "lots"
     resp = client.post(f"/traceability/machines/{m.id}/proving-test", data=data)
     assert resp.status_code == 422
-    assert "must be a number, got 'lots'" in _text(resp)
+    assert "Plane 1, position 4 reading: Not a number: 'lots'." in _text(resp)
     assert db.scalar(select(func.count()).select_from(MachineVerification)
                      .where(MachineVerification.machine_id == m.id)) == 0
 

@@ -20,6 +20,7 @@ from sqlalchemy.orm import Session
 from shopapp.accounts import api_tokens
 from shopapp.certificates import issue as certificates
 from shopapp.core.permissions import PERMISSIONS
+from shopapp.jobs.corrections import record_correction
 from shopapp.jobs.runs import record_run
 from shopapp.jobs.states import mark_in_tolerance
 from shopapp.models import Arbor
@@ -87,6 +88,7 @@ ACCESS: dict[str, tuple[str | None, str | None]] = {
     "jobs.add_run": (None, "work_jobs"),
     "jobs.strike_run": (None, "strike_runs"),
     "jobs.add_correction": (None, "work_jobs"),
+    "jobs.strike_correction": (None, "strike_runs"),
     "jobs.change_state": (None, "work_jobs"),
     "jobs.open_return": (None, "work_jobs"),
     # certificates and rotor history
@@ -200,6 +202,8 @@ def ids(db: Session, shop: Any, make_user: Callable[..., Any]) -> dict[str, Any]
     job = shop.job(rotor, machine=machine)
     initial = record_run(db, job, by=operator, purpose="initial", speed_rpm=600.0,
                          readings=[(1, 5000.0, 10.0, "g·mm"), (2, 4000.0, 200.0, "g·mm")])
+    corr = record_correction(db, job, by=operator, run_id=initial.id, plane=1, action="add",
+                             mass_g=10.0, angle_deg=190.0, radius_mm=200.0)
     record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
                readings=[(1, 50.0, 10.0, "g·mm"), (2, 40.0, 100.0, "g·mm")])
     mark_in_tolerance(db, job, by=operator)
@@ -213,7 +217,7 @@ def ids(db: Session, shop: Any, make_user: Callable[..., Any]) -> dict[str, Any]
     return {"job_id": job.id, "customer_id": rt.customer_id, "machine_id": machine.id,
             "rotor_type_id": rt.id, "rotor_id": rotor.id, "user_id": operator.id,
             "cert_id": cert.id, "arbor_id": arbor.id, "plane": 1, "run_up_id": run_up.id,
-            "run_id": initial.id, "token_id": token.id}
+            "run_id": initial.id, "token_id": token.id, "correction_id": corr.id}
 
 
 def _url(app: Flask, rule: Any, ids: dict[str, Any]) -> str:

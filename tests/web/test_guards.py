@@ -56,12 +56,50 @@ def test_a_control_character_in_an_api_form_post_is_a_400_naming_the_field(clien
     assert "'notes' contains a control character" in html.unescape(resp.get_data(as_text=True))
 
 
-@pytest.mark.parametrize("url", ["/verify?q=a%00b", "/jobs/?q=%00", "/customers/?q=x%01y"])
-def test_control_characters_in_queries_are_refused(client, login_as, url: str) -> None:
-    login_as("operator")
+@pytest.mark.parametrize(("url", "field", "page"), [
+    ("/verify?q=a%00b", "q", "Verify"), ("/jobs/?q=%00", "q", "Jobs"),
+    ("/customers/?q=x%01y", "q", "Customers"), ("/dashboard?period=year%01", "period", "Shop"),
+    ("/jobs/?state=on_machine&q=a%7fb", "q", "Jobs")])
+def test_a_control_character_in_a_query_draws_the_page_naming_the_field(
+        client, login_as, url: str, field: str, page: str) -> None:
+    # Before: a whole-page 400 (the list or dashboard was lost for a stray character).
+    login_as("quality")
+    resp = client.get(url)
+    body = html.unescape(resp.get_data(as_text=True))
+    assert resp.status_code == 422
+    assert body.count("contains a control character") == 1
+    assert (f"The field '{field}' contains a control character (such as NUL), so it was left "
+            "out of this page") in body
+    assert "<main>" in body and page in body  # the page itself, not the error page
+
+
+@pytest.mark.parametrize("url", ["/dashboard.csv?table=headline%00", "/api/v1/jobs?q=%00"])
+def test_a_control_character_in_a_download_or_api_query_is_still_a_400(
+        client, login_as, url: str) -> None:
+    # A file cannot show the message: answering it without the field would answer
+    # another question than the one asked.
+    login_as("quality")
     resp = client.get(url)
     assert resp.status_code == 400
-    assert "control character" in resp.get_data(as_text=True)
+    assert "'" + url.split("?")[1].split("=")[0] + "' contains a control character" in \
+        html.unescape(resp.get_data(as_text=True))
+
+
+def test_a_control_character_in_a_number_field_gives_one_message(app) -> None:
+    # Before: "Not a number" and "contains a control character" for the same field.
+    from shopapp.core.forms import NumberField, ShopForm
+
+    class MassForm(ShopForm):
+        class Meta:
+            csrf = False
+
+        mass_g = NumberField("Mass (g)")
+
+    with app.test_request_context(method="POST", data={"mass_g": "12\x005"}):
+        form = MassForm()
+        assert not form.validate()
+        assert form.mass_g.errors == ["Mass (g) contains a control character (such as NUL); "
+                                      "type plain text and try again."]
 
 
 def test_newlines_and_tabs_in_form_text_are_allowed(client, login_as) -> None:
