@@ -185,8 +185,11 @@ def test_a_thousands_separator_is_refused_not_guessed(db, op, bay2, rt, quality)
 def test_a_job_in_the_wrong_state_refuses_the_whole_file(db, op, bay2, rt) -> None:
     job = book(db, op, bay2, rt)
     other = book(db, op, bay2, rt, serial="IX-102")
-    # IX-102 passes a check run and is marked in tolerance: no more runs for it.
-    imports.import_file(db, EXCHANGE_HEADER + b",IX-102,check,600,g\xc2\xb7mm,20,1,10,2,,,,,,,\n",
+    # IX-102 is measured as received, passes a check run and is marked in tolerance: no
+    # more runs for it.
+    imports.import_file(db, EXCHANGE_HEADER
+                        + b",IX-102,initial,600,g\xc2\xb7mm,20,1,10,2,,,,,,,\n"
+                        + b",IX-102,check,600,g\xc2\xb7mm,20,1,10,2,,,,,,,\n",
                         file_name="first.csv", machine=bay2, by=op, source="file")
     db.commit()
     mark_in_tolerance(db, other, by=op)
