@@ -20,6 +20,7 @@ from typing import Annotated, Any, Generic, Literal, TypeVar
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, RootModel
 
+from shopapp.core.checks import FORM_CONTROL
 from shopapp.core.web import MAX_ID
 from shopapp.models import JOB_KINDS, JOB_STATES, READING_UNITS, RUN_PURPOSES
 
@@ -27,8 +28,9 @@ T = TypeVar("T")
 
 
 def _plain_text(value: str) -> str:
-    if any((ord(ch) < 32 and ch not in "\n\r\t") or 127 <= ord(ch) <= 159 for ch in value):
-        raise ValueError("contains a control character (such as NUL); send plain text")
+    if FORM_CONTROL.search(value):  # the forms' own rule (shopapp.core.checks)
+        raise ValueError("contains a control character (such as NUL or a text-direction "
+                         "override); send plain text")
     return value
 
 

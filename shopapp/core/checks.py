@@ -67,10 +67,16 @@ def number(e: Errors, field: str, value: Any, *, required: bool = True,
     return None
 
 
-#: Control characters (C0 and C1) a typed form value may not hold; tab, carriage return
-#: and newline are allowed in form text. Checked by the request guard and every form.
-FORM_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
-CONTROL_REFUSAL = "contains a control character (such as NUL); type plain text and try again"
+#: Text-direction embeddings, overrides and isolates (U+202A–U+202E, U+2066–U+2069): typed
+#: into a serial or a reason they turn the page's own text around them backwards.
+BIDI_CONTROL = "\u202a-\u202e\u2066-\u2069"
+#: Control characters (C0 and C1, and the text-direction controls) a typed form value may
+#: not hold; tab, carriage return and newline are allowed in form text. Checked by the
+#: request guard and every form.
+FORM_CONTROL = re.compile(f"[\\x00-\\x08\\x0b\\x0c\\x0e-\\x1f\\x7f-\\x9f{BIDI_CONTROL}]")
+TEXT_CONTROL = re.compile(f"[\\x00-\\x08\\x0b\\x0c\\x0e-\\x1f{BIDI_CONTROL}]")
+CONTROL_REFUSAL = ("contains a control character (such as NUL or a text-direction override); "
+                   "type plain text and try again")
 
 
 def text(e: Errors, field: str, value: Any, *, max_len: int = MAX_TEXT,
@@ -80,7 +86,7 @@ def text(e: Errors, field: str, value: Any, *, max_len: int = MAX_TEXT,
         e.add(field, "is required")
     elif len(text) > max_len:
         e.add(field, f"is too long: {len(text)} characters, at most {max_len}")
-    elif any(ord(ch) < 32 and ch not in "\n\r\t" for ch in text):
+    elif TEXT_CONTROL.search(text):
         e.add(field, "contains control characters; type plain text")
     return text
 

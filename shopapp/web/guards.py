@@ -28,10 +28,10 @@ from werkzeug.datastructures import ImmutableMultiDict
 from werkzeug.exceptions import BadRequest
 from werkzeug.routing import IntegerConverter
 
-from shopapp.core.checks import FORM_CONTROL
+from shopapp.core.checks import BIDI_CONTROL, FORM_CONTROL
 from shopapp.core.web import MAX_ID
 
-_QUERY_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
+_QUERY_CONTROL = re.compile(f"[\\x00-\\x1f\\x7f-\\x9f{BIDI_CONTROL}]")
 
 
 def up_to_pattern(limit: int) -> str:

@@ -159,6 +159,10 @@ def test_refused_run_names_the_api_field_and_saves_nothing(api_as, db, rtype, ma
     nul = api.post(f"/jobs/{job_id}/runs", json={
         "purpose": "initial", "speed_rpm": 600, "readings": readings(U_TRUE_G), "notes": "a\x00b"})
     assert nul.status_code == 422 and "notes" in nul.get_json()["error"]["fields"]
+    bidi = api.post(f"/jobs/{job_id}/runs", json={  # U+202E, as the forms refuse it
+        "purpose": "initial", "speed_rpm": 600, "readings": readings(U_TRUE_G),
+        "notes": "a\u202eb"})
+    assert bidi.status_code == 422 and "notes" in bidi.get_json()["error"]["fields"]
     extra = api.post(f"/jobs/{job_id}/runs", json={
         "purpose": "initial", "speed_rpm": 600, "readings": readings(U_TRUE_G), "colour": 1})
     assert extra.status_code == 422 and "colour" in extra.get_json()["error"]["fields"]

@@ -605,3 +605,15 @@ def test_an_unknown_machine_lists_the_machines_not_the_placeholder(
     offered = body.split("choose one of:")[1].split(".")[0]
     assert machine.name in offered and "choose —" not in offered
     assert count(db, Job) == before
+
+
+def test_a_text_direction_override_in_the_intake_is_refused_and_nothing_saved(
+        client, login_as, db, rtype, machine) -> None:
+    # The walk: U+202E (right-to-left override, Unicode UAX #9) in a serial turned the job
+    # page's own text after it backwards ("rof stnuoc").
+    login_as("operator")
+    before = (count(db, Job), count(db, Rotor), count(db, AuditEvent))
+    resp = client.post("/jobs/new", data=intake_data(rtype, machine,
+                                                      serial_number="CKB-\u202e4321"))
+    assert resp.status_code == 422 and "text-direction override" in text(resp)
+    assert (count(db, Job), count(db, Rotor), count(db, AuditEvent)) == before

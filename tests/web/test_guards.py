@@ -98,8 +98,9 @@ def test_a_control_character_in_a_number_field_gives_one_message(app) -> None:
     with app.test_request_context(method="POST", data={"mass_g": "12\x005"}):
         form = MassForm()
         assert not form.validate()
-        assert form.mass_g.errors == ["Mass (g) contains a control character (such as NUL); "
-                                      "type plain text and try again."]
+        assert form.mass_g.errors == ["Mass (g) contains a control character (such as NUL or "
+                                      "a text-direction override); type plain text and try "
+                                      "again."]
 
 
 def test_newlines_and_tabs_in_form_text_are_allowed(client, login_as) -> None:
