@@ -10,7 +10,6 @@ back and show the messages beside the fields (422). Read queries are in
 from __future__ import annotations
 
 import datetime as dt
-import math
 from typing import Any
 
 from flask import Blueprint, abort, flash, redirect, render_template, request, url_for
@@ -22,7 +21,7 @@ from shopapp.core.checks import plain_digits
 from shopapp.core.display import ShopDisplay, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
-from shopapp.core.forms import apply_errors
+from shopapp.core.forms import apply_errors, parse_number
 from shopapp.core.pagination import page_number
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
@@ -449,12 +448,15 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
             form.split.errors = [str(exc)]
             return _render_detail(job_id, status=422, corr_forms={plane: form})
         try:
+            advised_mass_g = _advised(form.advised_mass_g.data, "advised_mass_g")
+            advised_angle_deg = _advised(form.advised_angle_deg.data, "advised_angle_deg",
+                                         angle=True)
             corr = corrections.record_correction(
                 sess, job, by=acting_user(), run_id=form.run_id.data, plane=plane,
                 action=form.action.data,
                 mass_g=form.mass_g.data, angle_deg=disp.internal(form.angle_deg.data),
-                radius_mm=form.radius_mm.data, advised_mass_g=_float(form.advised_mass_g.data),
-                advised_angle_deg=disp.internal(_float(form.advised_angle_deg.data)),
+                radius_mm=form.radius_mm.data, advised_mass_g=advised_mass_g,
+                advised_angle_deg=disp.internal(advised_angle_deg),
                 split=split, drill_diameter_mm=form.drill_diameter_mm.data,
                 drill_depth_mm=form.drill_depth_mm.data, drill_holes=form.drill_holes.data,
                 replaces_correction_id=(int(form.replaces_correction_id.data)
@@ -469,12 +471,22 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
     return _render_detail(job_id, status=422, corr_forms={plane: form})
 
 
-def _float(raw: str | None) -> float | None:
-    try:
-        value = float((raw or "")[:40])
-    except ValueError:
+def _advised(raw: str | None, field: str, *, angle: bool = False) -> float | None:
+    """A hidden advised figure the page drew, read back: empty is None; anything the page
+    cannot have drawn (not a number, NaN, infinity, an angle outside 0–360°) is refused
+    naming the field, not dropped (a tampered 1e309 was saved as "no advice")."""
+    text = (raw or "").strip()
+    if not text:
         return None
-    return value if math.isfinite(value) else None
+    try:
+        value = parse_number(text)
+    except ValueError as exc:
+        raise ValidationFailed(field, str(exc)) from None
+    if angle and not 0.0 <= value <= 360.0:
+        raise ValidationFailed(field, f"must be between 0 and 360°, got {plain(value)}")
+    if not angle and value < 0.0:
+        raise ValidationFailed(field, f"must not be negative, got {plain(value)}")
+    return value
 
 
 STATE_ACTIONS = ("start", "in_tolerance", "dispatch", "reject", "reopen")

@@ -444,3 +444,31 @@ def test_a_split_typed_with_a_decimal_comma_is_saved_and_shown_with_a_point(
     assert saved.split == [{"position": 4, "angle_deg": 135.0, "mass_g": 1.95}]
     body = text(client.get(f"/jobs/{job.id}"))
     assert "1.95 g @ 4" in body and "1,95" not in body
+
+
+@pytest.mark.parametrize("field, value, expected", [
+    ("advised_mass_g", "NaN", "not allowed"),
+    ("advised_mass_g", "1e309", "not allowed"),
+    ("advised_mass_g", "lots", "Not a number"),
+    ("advised_mass_g", "-3", "must not be negative"),
+    ("advised_angle_deg", "400", "between 0 and 360"),
+    ("advised_angle_deg", "-10", "between 0 and 360"),
+])
+def test_a_tampered_advised_figure_is_refused_not_dropped(
+        client, login_as, db, shop, machine, field, value, expected) -> None:
+    # The browser walk: advised_mass_g=NaN and 1e309 were saved as "no advice" and an
+    # advised angle of 400 was wrapped to 40. The page draws these hidden figures itself.
+    from shopapp.models import Correction
+    user = login_as("operator")
+    job = book(db, user, single_plane(shop), machine)
+    run(db, user, job, "initial", _v(2500.0, 200.0))
+    before = db.query(Correction).count()
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-action": "add", "c1-mass_g": "10", "c1-angle_deg": "20", "c1-radius_mm": str(R),
+        f"c1-{field}": value})
+    body = text(resp)
+    assert resp.status_code == 422
+    assert re.search(rf'role="alert">{field.replace("_", " ")}: [^<]*{expected}', body), \
+        body[:2000]
+    db.expire_all()
+    assert db.query(Correction).count() == before
