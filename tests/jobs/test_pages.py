@@ -617,3 +617,17 @@ def test_a_text_direction_override_in_the_intake_is_refused_and_nothing_saved(
                                                       serial_number="CKB-\u202e4321"))
     assert resp.status_code == 422 and "text-direction override" in text(resp)
     assert (count(db, Job), count(db, Rotor), count(db, AuditEvent)) == before
+
+
+def test_the_missing_trial_run_is_asked_for_once(client, login_as, db, rtype, machine) -> None:
+    # The walk: "Log a trial run for plane 2 to compute the correction." stood twice.
+    user = login_as("operator")
+    job = booked(db, user, rtype, machine)
+    record_run(db, job, by=user, purpose="initial", speed_rpm=600,
+               readings=readings_for(U_TRUE_G))
+    record_run(db, job, by=user, purpose="trial", speed_rpm=600,
+               readings=readings_for(U_TRUE_G + np.array([30.0, 0])),
+               trial=(1, 30.0, 0.0, 300.0))
+    db.commit()
+    page = text(client.get(f"/jobs/{job.id}"))
+    assert page.count("Log a trial run for plane 2 to compute the correction.") == 1
