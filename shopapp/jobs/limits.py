@@ -48,8 +48,8 @@ def check_speed(e: Errors, field: str, speed_rpm: float, *, machine: Machine | N
     """
     if machine is not None and not machine.min_speed_rpm <= speed_rpm <= machine.max_speed_rpm:
         e.add(field, f"{machine.name} runs at {plain(machine.min_speed_rpm)}–"
-              f"{quantity(machine.max_speed_rpm, 'rpm')}; {quantity(speed_rpm, 'rpm')} is "
-              f"outside that range. {OVER_SPEED_CAUTION}")
+              f"{quantity(machine.max_speed_rpm, 'rpm')}; {plain(speed_rpm)} rpm is "
+              f"outside that range. {OVER_SPEED_CAUTION}")  # as typed: 1.5, not "2 rpm"
         return
     limit = permitted_speed_rpm(rotor_type, service_speed_rpm)
     if speed_rpm > limit:
@@ -58,7 +58,7 @@ def check_speed(e: Errors, field: str, speed_rpm: float, *, machine: Machine | N
             why = "the rotor type's permitted balancing speed"
         else:
             why = "the rotor's service speed (no permitted balancing speed is recorded)"
-        e.add(field, f"{quantity(speed_rpm, 'rpm')} is above {why}, "
+        e.add(field, f"{plain(speed_rpm)} rpm is above {why}, "
               f"{quantity(limit, 'rpm')}. {OVER_SPEED_CAUTION}")
 
 

@@ -119,6 +119,7 @@ def test_run_above_the_machines_rating_is_refused(db, op, shop, velocity) -> Non
     """Defect: 9000 rpm was accepted on a machine rated to 2500 rpm (service 1480 rpm)."""
     job = book(db, op, velocity, shop.rotor_type(service_speed_rpm=1480.0))
     for speed, says in ((9000, "outside that range"), (50, "outside that range"),
+                        (1.5, "1.5 rpm is outside that range"),  # as typed, not "2 rpm"
                         (2000, "above the rotor's service speed")):
         with pytest.raises(ValidationFailed) as exc:
             record_run(db, job, by=op, purpose="initial", speed_rpm=speed,
