@@ -8,13 +8,15 @@ stored influence set's advice fixes that set on the job
 
 from __future__ import annotations
 
+import cmath
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
 from sqlalchemy.orm import Session
 
 from shopapp.balancing.phasors import normalize_deg
-from shopapp.balancing.positions import position_angles_deg
+from shopapp.balancing.positions import combine_masses, position_angles_deg
 from shopapp.core import audit, locks
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
@@ -56,6 +58,25 @@ def _parse_split(e: _Errors, split: Any, rt: RotorType, plane: int) -> list[dict
             return None
         out.append({"position": pos, "angle_deg": angles[pos - 1], "mass_g": mass})
     return out or None
+
+
+#: How far the weights of a split may miss the correction they make up, as a share of
+#: its mass: rounding to stock sizes misses by a few per cent (common practice, no source);
+#: more means the split and the recorded mass disagree.
+SPLIT_MISS_SHARE = 0.25
+
+
+def _check_split_sum(e: _Errors, parts: Sequence[Mapping[str, Any]], mass_g: float,
+                     angle_deg: float) -> None:
+    """The split's weights must add up (as vectors) to about the recorded mass and angle:
+    a record that says 53 g in one place and 200 g of weights in another contradicts
+    itself (the certificate would print both)."""
+    total = combine_masses([p["mass_g"] for p in parts], [p["angle_deg"] for p in parts])
+    miss = abs(total.vector_g - cmath.rect(mass_g, math.radians(angle_deg)))
+    if miss > SPLIT_MISS_SHARE * mass_g:
+        e.add("split", f"its weights add up to {quantity(total.mass_g, 'g')} at "
+              f"{plain(round(total.angle_deg, 1))}°, not the {quantity(mass_g, 'g')} at "
+              f"{plain(round(angle_deg, 1))}° recorded; check the split or the mass")
 
 
 def replaceable_weights(job: Job, plane: int) -> list[Correction]:
@@ -166,6 +187,8 @@ def record_correction(
         if cols[f] is not None:
             cols[f] = normalize_deg(cols[f])
     parts = _parse_split(e, split, rt, plane) if plane in (1, 2) else None
+    if parts and cols["mass_g"] is not None and cols["angle_deg"] is not None:
+        _check_split_sum(e, parts, cols["mass_g"], cols["angle_deg"])
     _check_replaced(e, job, replaces_correction_id, plane, action)
     e.raise_if_any()
     record_influence_set(session, job, run_id, by=by)

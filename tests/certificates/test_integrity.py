@@ -246,13 +246,17 @@ def test_an_old_format_split_still_verifies_and_a_changed_split_mass_is_found(  
             quality = factories.user(db, username="quinn", role="quality",
                                      password="long-enough-1")
             shop = factories.ShopFactory(db)
-            # 4.26 g prints 4.3 g at 0.1 g and 4.26 g at three figures.
-            old_job = job_ready_for_certificate(db, shop, operator, split_2_g=(4.26, 19.04))
+            # 4.26 g prints 4.3 g at 0.1 g and 4.26 g at three figures. By hand, 4.26 g at
+            # 0° and 19.04 g at 45° add up to 22.3 g at 37.2°: the correction they make up.
+            made_up = (22.3, 37.2)
+            old_job = job_ready_for_certificate(db, shop, operator, split_2_g=(4.26, 19.04),
+                                                plane_2=made_up)
             with monkeypatch.context() as m:
                 m.setattr(certificates, "_correction_details", _details_as_issued_before)
                 old = certificates.issue(db, old_job, by=quality)
             new = certificates.issue(db, job_ready_for_certificate(db, shop, operator,
-                                                                   split_2_g=(4.26, 19.04)),
+                                                                   split_2_g=(4.26, 19.04),
+                                                                   plane_2=made_up),
                                      by=quality)
             split_id = db.query(Correction).filter_by(job_id=old_job.id, plane=2).one().id
             details = {c.number: CertificateData.from_json(c.data_json).corrections[1].details

@@ -25,6 +25,7 @@ from shopapp.jobs.queries import evaluate
 from shopapp.jobs.runs import record_run
 from shopapp.jobs.states import mark_in_tolerance, start
 from shopapp.models import Job
+from tests import factories
 from tests.jobs.test_pages import U_TRUE_G, booked, readings_for, with_trials
 
 R = 250.0
@@ -472,3 +473,20 @@ def test_a_tampered_advised_figure_is_refused_not_dropped(
         body[:2000]
     db.expire_all()
     assert db.query(Correction).count() == before
+
+
+def test_a_split_that_does_not_make_up_the_mass_is_refused(db, shop, machine) -> None:
+    # The walk: 53.36 g recorded with a split of 100 g + 100 g was saved. By hand: weights
+    # at positions 1 (0°) and 2 (45°) of an 8-position plane add as vectors; 12.0 g at 0°
+    # and 11.6 g at 45° make 21.8 g at 22.1°, close to 23.3 g at 20° (a 7 % miss).
+    from shopapp.core.errors import ValidationFailed
+    from shopapp.jobs.corrections import record_correction
+    from tests.reports.samples import job_ready_for_certificate
+    op = factories.user(db, username="splitter", role="operator", password="long-enough-1")
+    job = job_ready_for_certificate(db, shop, op, mark=False)  # records 23.3 g from 12 + 11.6
+    with pytest.raises(ValidationFailed) as exc:
+        record_correction(db, job, by=op, run_id=None, plane=2, action="add", mass_g=53.36,
+                          angle_deg=20.0, radius_mm=300.0,
+                          split=[{"position": 1, "mass_g": 100.0},
+                                 {"position": 2, "mass_g": 100.0}])
+    assert exc.value.field == "split" and "add up to" in exc.value.message

@@ -80,14 +80,15 @@ RESIDUAL_GMM = ((600.0, 75.0), (450.0, 310.0))
 
 def job_ready_for_certificate(  # type: ignore[no-untyped-def]
     db, shop, operator, *, residual=RESIDUAL_GMM, machine=None, mark=True,
-    split_2_g=(12.0, 11.6), **job_kw
+    split_2_g=(12.0, 11.6), plane_2=(23.3, 20.0), **job_kw
 ):
     """A two-plane fan job balanced on a calibrated (g·mm) machine and marked in tolerance.
 
     Invented values: 120 kg fan, G 6.3 at 1480 rpm; readings are g·mm so the
     residual is the reading itself. Uses the jobs service, as the shop floor would;
     ``mark=False`` leaves the job on the machine; ``split_2_g`` are the masses fitted
-    on positions 1, 2, ... of plane 2.
+    on positions 1, 2, ... of plane 2, making up the correction ``plane_2`` (mass g,
+    angle °) to within the split check of shopapp.jobs.corrections.
     """
     from shopapp.jobs.corrections import record_correction
     from shopapp.jobs.runs import record_run
@@ -102,7 +103,7 @@ def job_ready_for_certificate(  # type: ignore[no-untyped-def]
     record_correction(db, job, by=operator, run_id=None, plane=1, action="add",
                       mass_g=30.0, angle_deg=210.0, radius_mm=300.0)
     record_correction(db, job, by=operator, run_id=None, plane=2, action="add",
-                      mass_g=23.3, angle_deg=20.0, radius_mm=300.0,
+                      mass_g=plane_2[0], angle_deg=plane_2[1], radius_mm=300.0,
                       split=[{"position": k, "mass_g": g} for k, g in enumerate(split_2_g, 1)])
     record_run(db, job, by=operator, purpose="check", speed_rpm=600.0,
                readings=[(p + 1, a, g, "g·mm") for p, (a, g) in enumerate(residual)])
