@@ -73,7 +73,7 @@ def test_good_geometry_has_no_errors() -> None:
         ({"plane_2_mm": 150.5}, "plane_2_mm", "away from plane 1"),
         ({"positions_1": 1}, "positions_1", "at least 2"),
         ({"positions_1": 2.5}, "positions_1", "whole"),
-        ({"positions_1": 10_000}, "positions_1", "between"),
+        ({"positions_1": 10_000}, "positions_1", "at most 360 fixed positions"),
         ({"method_1": "remove"}, "density_g_cm3", "required"),
         ({"method_2": "both"}, "density_g_cm3", "required"),
         ({"method_1": "glue"}, "method_1", "not allowed"),
