@@ -96,15 +96,6 @@ def _glyph_widths(font: str) -> dict[str, int]:
     return {ch: round(stringWidth(ch, font, 1000)) for ch in _CP1252}
 
 
-_CP1252_SET = frozenset(_CP1252)
-
-
-def measurable(text: str) -> bool:
-    """Whether :func:`text_width` can measure ``text``: Windows-1252 characters only (as
-    every text through ``pdf_text`` is)."""
-    return text.isascii() or _CP1252_SET.issuperset(text)
-
-
 def text_width(text: str, font: str, size: float) -> float:
     """Width of ``text`` (already through ``pdf_text``) in points, as reportlab's
     ``stringWidth`` gives it (the same sum, in the same order), without encoding the text
@@ -335,6 +326,13 @@ def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -
 _SHOWN = frozenset(ch for ch in _CP1252 if ch >= " " and ch != "\x7f")
 
 
+def shown_as_is(text: str) -> bool:
+    """Whether reportlab writes ``text`` in a standard font as its Windows-1252 bytes (no
+    control character, nothing outside Windows-1252), so its text operators may be
+    written directly (``escapePDF(text.encode("cp1252"))``)."""
+    return _SHOWN.issuperset(text)
+
+
 def _show(canvas: Canvas, texts: Sequence[tuple[str, float, colors.Color, float, float, str]]
           ) -> None:
     """Draw ``(font, size, colour, x, y, text)`` texts as ``drawString`` draws them, each in
@@ -342,7 +340,7 @@ def _show(canvas: Canvas, texts: Sequence[tuple[str, float, colors.Color, float,
     drawString writes (its font lookup and encoding through its codec cost more than the
     rest of a page's header and footer), any other through drawString."""
     for font, size, colour, x, y, text in texts:
-        if not _SHOWN.issuperset(text):
+        if not shown_as_is(text):
             canvas.setFont(font, size)
             canvas.setFillColor(colour)
             canvas.drawString(x, y, text)

@@ -18,7 +18,7 @@ from reportlab.platypus import Flowable
 
 from shopapp.charts.primitives import Circle, Figure, Line, Polyline, Rect, Text
 from shopapp.charts.styles import Style, style
-from shopapp.reports.common import measurable, text_width
+from shopapp.reports.common import shown_as_is, text_width
 
 _ARROW = "#1d232a"  # arrowheads and texts without a fill of their own
 
@@ -123,12 +123,13 @@ def draw_figure(canvas: Canvas, fig: Figure, scale: float = 1.0) -> None:
 class _Texts:
     """A run of consecutive texts, written as one PDF text object.
 
-    A text of Windows-1252 characters is written as the operators reportlab's text object
-    writes for it (font, fill colour, text matrix, the text's Windows-1252 bytes shown),
-    without the object's per-line font lookup and encoding through its codec, which cost a
-    third of drawing a polar plot; as :class:`shopapp.reports.sheet.Page` does for the
-    certificate's lines. Any other text goes through reportlab's text object (its
-    substitution fonts), in its own text object, in turn.
+    A text that :func:`~shopapp.reports.common.shown_as_is` is written as the operators
+    reportlab's text object writes for it (font, fill colour, text matrix, the text's
+    Windows-1252 bytes shown), without the object's per-line font lookup and encoding
+    through its codec, which cost a third of drawing a polar plot; as
+    :class:`shopapp.reports.sheet.Page` does for the certificate's lines. Any other text
+    goes through reportlab's text object (its substitution fonts), in its own text object,
+    in turn.
     """
 
     def __init__(self, canvas: Canvas) -> None:
@@ -140,7 +141,7 @@ class _Texts:
     def add(self, item: Text, s: Style, k: float) -> None:
         fill = s.fill or _ARROW
         face = ("Helvetica-Bold" if s.bold else "Helvetica", s.font_size * k)
-        if not measurable(item.text):
+        if not shown_as_is(item.text):
             self.draw()
             self._general(item, fill, face, k)
             return
