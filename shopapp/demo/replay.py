@@ -41,6 +41,7 @@ from shopapp.demo.history import History, Op
 from shopapp.demo.shop import ARBOR_INDEX_MIN, PROVING_TEST_MIN, RUN_UP_MIN, Shop
 from shopapp.jobs import certificate_link, residual_tests
 from shopapp.jobs import evidence as jt
+from shopapp.jobs import facts as job_facts
 from shopapp.models import AuditEvent, Job, Machine, Rotor, RotorType, User
 from shopapp.resonance.samples import add_sample_run_up
 from shopapp.traceability import services as tr
@@ -202,9 +203,9 @@ class Replay:
         s.expire_all()  # a person may have changed a job since the last slice
         quality, users = self._users()
         end = None if seconds is None else time.monotonic() + seconds
-        with s.no_autoflush:
+        # Each job's facts once per slice, for its final state (see job_facts.deferred).
+        with s.no_autoflush, job_facts.deferred(s):
             n = self._run(self.cert_ops[self.done:], users, quality, end=end, steps=steps)
-        s.flush()
         return n
 
     def advance(self, n: int) -> None:

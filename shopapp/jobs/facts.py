@@ -20,7 +20,10 @@ How the facts stay true:
 - :func:`refresh_job_fact` does the same for given jobs, for code that writes those
   tables without the ORM (bulk inserts);
 - :func:`rebuild` recomputes every row from scratch (``shopapp measures rebuild``, the
-  bulk demo generator, migrations 0014 and 0023).
+  bulk demo generator, migrations 0014 and 0023);
+- within :func:`deferred` the flushes only note the jobs they touch, whose facts are
+  written once at its end, in the same transaction (a batch that changes the same jobs
+  flush after flush, where only their final rows count).
 
 Imported past jobs (an ``imported_job`` row, :mod:`shopapp.imports`) get no row: the measures
 count the shop's own work in shopapp, and such a job has only a final residual.
@@ -30,7 +33,8 @@ from __future__ import annotations
 
 import datetime as dt
 import functools
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
 from typing import Any
 
 from sqlalchemy import (
@@ -421,9 +425,43 @@ def _touched_jobs(session: Session) -> set[int]:
     return job_ids
 
 
+_DEFERRED = "shopapp.jobs.facts.deferred"  # session.info key: the jobs noted meanwhile
+
+
+@contextmanager
+def deferred(session: Session) -> Iterator[None]:
+    """Flushes inside only note the jobs whose facts they would refresh; at the end (after a
+    last flush) those jobs' facts are written once, in the session's transaction.
+
+    For a batch that changes the same jobs again and again: the demo's certificate slices
+    set each job's state back to what it was at the certificate's date and forward again
+    around every issue (three or four flushes), so each job's facts were written several
+    times for the one final state that counts. The facts are stale inside: nothing there
+    may read them (the measures read them after the commit). On an error nothing is
+    written; the caller rolls back. Nested, the outer one writes.
+    """
+    if _DEFERRED in session.info:
+        yield
+        return
+    noted: set[int] = set()
+    session.info[_DEFERRED] = noted
+    try:
+        yield
+        session.flush()
+    finally:
+        del session.info[_DEFERRED]
+    if noted:
+        _write(session.connection(), noted)
+
+
 @sa_event.listens_for(Session, "after_flush")
 def _refresh_after_flush(session: Session, _flush_context: Any) -> None:
     job_ids = _touched_jobs(session)
-    if job_ids:
-        _write(session.connection(), job_ids)
+    if not job_ids:
+        return
+    noted = session.info.get(_DEFERRED)
+    if noted is not None:
+        noted.update(job_ids)
+        return
+    _write(session.connection(), job_ids)
 

@@ -27,6 +27,7 @@ from typing import Any
 from reportlab.lib import colors
 from reportlab.lib.enums import TA_LEFT, TA_RIGHT
 from reportlab.lib.pagesizes import A4
+from reportlab.lib.rl_accel import escapePDF, fp_str
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.lib.units import mm
 from reportlab.pdfbase.pdfmetrics import stringWidth
@@ -93,15 +94,6 @@ def _glyph_widths(font: str) -> dict[str, int]:
     """The advance width of each Windows-1252 character in ``font``, in 1/1000 of its size
     (the standard fonts' widths are whole numbers of these units)."""
     return {ch: round(stringWidth(ch, font, 1000)) for ch in _CP1252}
-
-
-_CP1252_SET = frozenset(_CP1252)
-
-
-def measurable(text: str) -> bool:
-    """Whether :func:`text_width` can measure ``text``: Windows-1252 characters only (as
-    every text through ``pdf_text`` is)."""
-    return text.isascii() or _CP1252_SET.issuperset(text)
 
 
 def text_width(text: str, font: str, size: float) -> float:
@@ -311,23 +303,53 @@ def _draw_running(canvas: Canvas, meta: DocumentMeta, number: int, total: int) -
     canvas.setStrokeColor(RULE)
     canvas.setLineWidth(0.5)
     top = height - MARGIN + 4 * mm
+    bottom = MARGIN - 6 * mm
     canvas.line(MARGIN, top - 1.5 * mm, width - MARGIN, top - 1.5 * mm)
-    canvas.setFillColor(MUTED)
-    canvas.setFont(FONT, 7.5)
+    canvas.line(MARGIN, bottom + 3.5 * mm, width - MARGIN, bottom + 3.5 * mm)
     left, right = pdf_text(meta.header_left), pdf_text(meta.header_right)
     right = _fit(right, FONT, 7.5, max(line - 12 - text_width(left, FONT, 7.5), line / 2))
     wr = text_width(right, FONT, 7.5)
-    canvas.drawString(MARGIN, top, _fit(left, FONT, 7.5, line - 12 - wr))
-    canvas.drawString(width - MARGIN - wr, top, right)
-    bottom = MARGIN - 6 * mm
-    canvas.line(MARGIN, bottom + 3.5 * mm, width - MARGIN, bottom + 3.5 * mm)
     page = f"page {number} of {total}"
     wp = text_width(page, FONT_BOLD, 8)
-    canvas.drawString(MARGIN, bottom, _fit(pdf_text(meta.footer_left), FONT, 7.5, line - 12 - wp))
-    canvas.setFont(FONT_BOLD, 8)
-    canvas.setFillColor(INK)
-    canvas.drawString(width - MARGIN - wp, bottom, page)
+    _show(canvas, [
+        (FONT, 7.5, MUTED, MARGIN, top, _fit(left, FONT, 7.5, line - 12 - wr)),
+        (FONT, 7.5, MUTED, width - MARGIN - wr, top, right),
+        (FONT, 7.5, MUTED, MARGIN, bottom,
+         _fit(pdf_text(meta.footer_left), FONT, 7.5, line - 12 - wp)),
+        (FONT_BOLD, 8, INK, width - MARGIN - wp, bottom, page),
+    ])
     canvas.restoreState()
+
+
+# Characters a standard font shows as themselves: Windows-1252 without control characters
+# (reportlab draws a control character with a substitution font's glyph).
+_SHOWN = frozenset(ch for ch in _CP1252 if ch >= " " and ch != "\x7f")
+
+
+def shown_as_is(text: str) -> bool:
+    """Whether reportlab writes ``text`` in a standard font as its Windows-1252 bytes (no
+    control character, nothing outside Windows-1252), so its text operators may be
+    written directly (``escapePDF(text.encode("cp1252"))``)."""
+    return _SHOWN.issuperset(text)
+
+
+def _show(canvas: Canvas, texts: Sequence[tuple[str, float, colors.Color, float, float, str]]
+          ) -> None:
+    """Draw ``(font, size, colour, x, y, text)`` texts as ``drawString`` draws them, each in
+    a text object of its own; those of characters in ``_SHOWN`` written as the operators
+    drawString writes (its font lookup and encoding through its codec cost more than the
+    rest of a page's header and footer), any other through drawString."""
+    for font, size, colour, x, y, text in texts:
+        if not shown_as_is(text):
+            canvas.setFont(font, size)
+            canvas.setFillColor(colour)
+            canvas.drawString(x, y, text)
+            continue
+        name = canvas._doc.getInternalFontName(font)
+        canvas.addLiteral(
+            f"{fp_str(colour.red, colour.green, colour.blue)} rg BT {name} {fp_str(size)} Tf "
+            f"{fp_str(1.2 * size)} TL 1 0 0 1 {fp_str(x, y)} Tm "
+            f"({escapePDF(text.encode('cp1252'))}) Tj T* ET")
 
 
 def document_canvas(meta: DocumentMeta, out: BytesIO,

@@ -11,15 +11,14 @@ import math
 from functools import cache
 
 from reportlab.lib.colors import Color, HexColor
-from reportlab.lib.rl_accel import fp_str
+from reportlab.lib.rl_accel import escapePDF, fp_str
 from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.pdfgen.canvas import FILL_EVEN_ODD, PATH_OPS, Canvas
-from reportlab.pdfgen.textobject import PDFTextObject
 from reportlab.platypus import Flowable
 
 from shopapp.charts.primitives import Circle, Figure, Line, Polyline, Rect, Text
 from shopapp.charts.styles import Style, style
-from shopapp.reports.common import measurable, text_width
+from shopapp.reports.common import shown_as_is, text_width
 
 _ARROW = "#1d232a"  # arrowheads and texts without a fill of their own
 
@@ -82,32 +81,16 @@ def draw_figure(canvas: Canvas, fig: Figure, scale: float = 1.0) -> None:
     k = scale
     canvas.saveState()
     pen = _Pen(canvas)
-    text: PDFTextObject | None = None
-    font: tuple[str, float] | None = None
+    text: _Texts | None = None
     for item in fig.items:
         s = style(item.style)
         if isinstance(item, Text):
             if text is None:
-                text, font = canvas.beginText(), None
-                text.setFillColor(_color(s.fill or _ARROW))
-                fill = s.fill or _ARROW
-            elif (s.fill or _ARROW) != fill:
-                fill = s.fill or _ARROW
-                text.setFillColor(_color(fill))
-            face = ("Helvetica-Bold" if s.bold else "Helvetica", s.font_size * k)
-            if face != font:
-                text.setFont(*face)
-                font = face
-            x = item.x * k
-            if item.anchor != "start":
-                width = (text_width(item.text, *face) if measurable(item.text)
-                         else stringWidth(item.text, *face))
-                x -= width / 2 if item.anchor == "middle" else width
-            text.setTextOrigin(x, item.y * k)
-            text.textLine(item.text)
+                text = _Texts(canvas)
+            text.add(item, s, k)
             continue
         if text is not None:
-            canvas.drawText(text)
+            text.draw()
             text = None
             pen.fill = None  # the text's fill colour is the canvas's now
         stroke, fill_it = pen.set(s)
@@ -133,8 +116,72 @@ def draw_figure(canvas: Canvas, fig: Figure, scale: float = 1.0) -> None:
         if isinstance(item, Line) and item.arrow:
             _arrowhead(pen, item, k)
     if text is not None:
-        canvas.drawText(text)
+        text.draw()
     canvas.restoreState()
+
+
+class _Texts:
+    """A run of consecutive texts, written as one PDF text object.
+
+    A text that :func:`~shopapp.reports.common.shown_as_is` is written as the operators
+    reportlab's text object writes for it (font, fill colour, text matrix, the text's
+    Windows-1252 bytes shown), without the object's per-line font lookup and encoding
+    through its codec, which cost a third of drawing a polar plot; as
+    :class:`shopapp.reports.sheet.Page` does for the certificate's lines. Any other text
+    goes through reportlab's text object (its substitution fonts), in its own text object,
+    in turn.
+    """
+
+    def __init__(self, canvas: Canvas) -> None:
+        self.canvas = canvas
+        self.ops: list[str] = []
+        self.font: tuple[str, float] | None = None
+        self.fill: str | None = None
+
+    def add(self, item: Text, s: Style, k: float) -> None:
+        fill = s.fill or _ARROW
+        face = ("Helvetica-Bold" if s.bold else "Helvetica", s.font_size * k)
+        if not shown_as_is(item.text):
+            self.draw()
+            self._general(item, fill, face, k)
+            return
+        ops = self.ops
+        if face != self.font:
+            name = self.canvas._doc.getInternalFontName(face[0])
+            ops.append(f"{name} {fp_str(face[1])} Tf")
+            self.font = face
+        if fill != self.fill:
+            colour = _color(fill)
+            ops.append(f"{fp_str(colour.red, colour.green, colour.blue)} rg")
+            self.fill = fill
+        x = item.x * k
+        if item.anchor != "start":
+            width = text_width(item.text, *face)
+            x -= width / 2 if item.anchor == "middle" else width
+        ops.append(f"1 0 0 1 {fp_str(x, item.y * k)} Tm "
+                   f"({escapePDF(item.text.encode('cp1252'))}) Tj")
+
+    def _general(self, item: Text, fill: str, face: tuple[str, float], k: float) -> None:
+        text = self.canvas.beginText()
+        text.setFillColor(_color(fill))
+        text.setFont(*face)
+        x = item.x * k
+        if item.anchor != "start":
+            width = stringWidth(item.text, *face)
+            x -= width / 2 if item.anchor == "middle" else width
+        text.setTextOrigin(x, item.y * k)
+        text.textLine(item.text)
+        self.canvas.drawText(text)
+        self.font = None  # a new text object starts without a font or colour of ours
+        self.fill = None
+
+    def draw(self) -> None:
+        """Write the texts added since the last call (over what is drawn before them)."""
+        if self.ops:
+            self.canvas.addLiteral("BT\n" + "\n".join(self.ops) + "\nET")
+            self.ops = []
+            self.font = None
+            self.fill = None
 
 
 def _circle(canvas: Canvas, cx: float, cy: float, r: float, stroke: bool, fill: bool) -> None:

@@ -14,6 +14,7 @@ The pages look like our platypus documents: same page, margins, running header a
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable, Sequence
 from io import BytesIO
 
@@ -87,6 +88,16 @@ def wrap(text: str, font: str, size: float, width: float) -> list[str]:
     return lines
 
 
+# A document uses a handful of sizes and colours, each formatted once per process
+# (reportlab's fp_str at every change of style cost more than the rest of writing a line).
+_number = functools.cache(fp_str)
+
+
+@functools.cache
+def _fill_op(red: float, green: float, blue: float) -> str:
+    return f"{fp_str(red, green, blue)} rg"
+
+
 class Page:
     """A page being drawn: its canvas, and the text operators of every line on it, written
     as one PDF text object over the page's rules and shading when the page is done.
@@ -117,11 +128,11 @@ class Page:
                 if name is None:
                     name = self.canvas._doc.getInternalFontName(style.fontName)
                     self._fonts[style.fontName] = name
-                ops.append(f"{name} {fp_str(style.fontSize)} Tf")
+                ops.append(f"{name} {_number(style.fontSize)} Tf")
                 self._font = font
             colour = style.textColor
             if colour != self._colour:
-                ops.append(f"{fp_str(colour.red, colour.green, colour.blue)} rg")
+                ops.append(_fill_op(colour.red, colour.green, colour.blue))
                 self._colour = colour
             self._style = style
         # positions to 1/1000 pt (reportlab's fp_str, to 4 or 5 digits, cost more than the

@@ -255,3 +255,33 @@ def test_the_signature_is_read_by_its_der_length_even_when_its_last_byte_is_zero
     assert der_length(value + b"\0" * 40) == len(value) == 5
     long_value = core.OctetString(bytes(300) + b"\x07\x00").dump()  # long-form length
     assert der_length(long_value + b"\0" * 9) == len(long_value) == 306
+
+
+def test_the_prepared_signer_signs_the_attributes_pyhankos_default_signs(tmp_path: Path) -> None:
+    """The signing-certificate-v2 attribute is built once per key (pdfsign's docstring); the
+    signed attributes are still byte for byte those pyHanko's own PAdES defaults give
+    (content type, message digest, signing-certificate-v2), two signatures apart, and the
+    attribute names the certificate by the SHA-256 of its DER (RFC 5035 ESSCertIDv2,
+    hashed here with hashlib)."""
+    import asyncio
+    import hashlib
+
+    from asn1crypto import x509 as asn1_x509
+    from cryptography.hazmat.primitives import serialization
+    from pyhanko.sign import signers
+
+    key, _ = signing.load_or_create(tmp_path / "signing", "Shop")
+    ours = pdfsign.pdf_signer(key)
+    cert_der = key.certificate.public_bytes(serialization.Encoding.DER)
+    default = signers.SimpleSigner(signing_cert=asn1_x509.Certificate.load(cert_der),
+                                   signing_key=ours.signing_key,
+                                   cert_registry=ours.cert_registry)
+    for content in (b"first file", b"second file"):
+        digest = hashlib.sha256(content).digest()
+        mine = asyncio.run(ours.signed_attrs(digest, "sha256", use_pades=True))
+        reference = asyncio.run(default.signed_attrs(digest, "sha256", use_pades=True))
+        assert mine.dump() == reference.dump()
+    by_type = {a["type"].native: a["values"][0] for a in mine}
+    assert set(by_type) == {"content_type", "message_digest", "signing_certificate_v2"}
+    ess = by_type["signing_certificate_v2"]["certs"][0]
+    assert ess["cert_hash"].native == hashlib.sha256(cert_der).digest()

@@ -295,3 +295,28 @@ def test_drift_lines_fitted_together_equal_each_rotor_fitted_alone(db, generated
             assert [d.p_value for d in rising] == sorted(d.p_value for d in rising)
             seen += len(want)
     assert seen > 0  # the comparison saw rising rotors
+
+
+def test_deferred_facts_are_written_once_at_the_end_as_a_rebuild_gives_them(
+        db, shop, make_user) -> None:  # type: ignore[no-untyped-def]
+    # Inside deferred() flushes leave the facts as they were; at its end they are what a
+    # rebuild from scratch gives for the final rows (a job's state set back and forth, as
+    # the demo's certificate slices do, a reading changed).
+    hs = measures_shop.build(db, shop, make_user)
+    db.flush()
+    before = _snapshot(db)
+    done = next(j for j in hs.jobs.values() if j.state == "dispatched")
+    with facts.deferred(db):
+        reopen(db, done, by=hs.users["A"], reason="weight found loose")
+        db.flush()
+        reading = db.scalars(select(RunReading).where(RunReading.plane == 2)).first()
+        reading.amplitude = 777.0
+        db.flush()
+        db.expire_all()
+        assert _snapshot(db) == before  # nothing written yet
+    kept = _snapshot(db)
+    assert kept != before
+    facts.rebuild(db)
+    assert _snapshot(db) == kept
+    db.expire_all()
+    assert db.get(JobFact, done.id).first_reopen_at is not None

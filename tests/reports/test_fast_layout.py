@@ -136,7 +136,11 @@ def test_figures_drawn_on_the_canvas_look_as_reportlab_graphics_draws_them() -> 
         Polyline(((0, 0), (50, 60), (100, 10)), "series"),
         Polyline(((60, 60), (80, 70), (90, 50)), "point", closed=True),
         Circle(100, 60, 6, "flagged"), Text(60, 72, "a title", "title", "middle"),
-        Text(118, 2, "end", "small", "end"), Line(0, 40, 110, 40, "operating")]))
+        Text(118, 2, "end", "small", "end"), Line(0, 40, 110, 40, "operating"),
+        # outside Windows-1252 or a control character: reportlab's text object (its
+        # substitution fonts) draws it
+        Text(60, 20, "≤ 5 µm", "small", "middle"), Text(4, 30, "ok", "label"),
+        Text(100, 30, "a\x07b", "small", "end")]))
     assert _pixels([FigureFlowable(f) for f in figures]) == _pixels(
         [_drawing(f) for f in figures])
 

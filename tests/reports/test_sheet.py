@@ -204,3 +204,21 @@ def test_the_sections_come_in_their_order_with_the_signature_fields() -> None:
         found = text.find(words, at)
         assert found >= 0, (words, text[at:at + 200])
         at = found + len(words)
+
+
+@pytest.mark.parametrize("shop_name", ["Northgate Rotor Works – “Ø10” µm", "Bell\x07 Works"])
+def test_running_header_and_footer_draw_what_reportlabs_draw_string_draws(
+        shop_name: str, monkeypatch: pytest.MonkeyPatch) -> None:
+    # The header and footer write their text operators themselves; with none of them
+    # written that way (every text through reportlab's drawString) the pages are the same.
+    from shopapp.reports import common
+
+    data = certificate_data(shop_name=shop_name)
+
+    def pixels() -> list[bytes]:
+        pdf = pypdfium2.PdfDocument(report.render(data))
+        return [page.render(scale=2).to_pil().tobytes() for page in pdf]
+
+    ours = pixels()
+    monkeypatch.setattr(common, "_SHOWN", frozenset())
+    assert ours == pixels()
