@@ -120,6 +120,10 @@ def _answered_run_id(e: _Errors, session: Session, job: Job, ref: Any) -> int | 
     if run.struck_at is not None:
         e.add("run_id", f"run {run.seq} was struck out: a correction cannot answer it")
         return None
+    if run.purpose == "trial":  # its reading holds the trial mass, not the rotor's unbalance
+        e.add("run_id", f"run {run.seq} is a trial run: a correction answers an initial, "
+              "check or final run")
+        return None
     return run.id
 
 

@@ -364,7 +364,7 @@ def test_the_record_form_starts_on_the_planes_method_before_any_advice(
                      r'[^>]*selected', chosen.group(0))
 
 
-@pytest.mark.parametrize("ref", ["abc", "999999", "other job", "struck", "12.5"])
+@pytest.mark.parametrize("ref", ["abc", "999999", "other job", "struck", "12.5", "trial"])
 def test_a_tampered_run_reference_is_refused_with_a_message_and_nothing_saved(
         client, login_as, db, shop, machine, ref) -> None:
     # The browser walk: "abc" saved a correction with no run; 999999 (and a run of another
@@ -378,6 +378,12 @@ def test_a_tampered_run_reference_is_refused_with_a_message_and_nothing_saved(
     job = book(db, user, rt, machine)
     first = run(db, user, job, "initial", _v(2500.0, 200.0))
     value = {"other job": str(foreign.id), "struck": str(first.id)}.get(ref, ref)
+    if ref == "trial":  # the walk: a trial run's id in the hidden field was accepted
+        trial = record_run(db, job, by=user, purpose="trial", speed_rpm=600,
+                           readings=[_reading(_v(2500.0, 200.0) + _v(20.0, 0.0) * R)],
+                           trial=(1, 20.0, 0.0, R))
+        db.commit()
+        value = str(trial.id)
     if ref == "struck":
         strike_run(db, job, first, by=user, reason="wrong speed")
         run(db, user, job, "initial", _v(2500.0, 200.0))
@@ -387,7 +393,8 @@ def test_a_tampered_run_reference_is_refused_with_a_message_and_nothing_saved(
         "c1-angle_deg": "20", "c1-radius_mm": str(R)})
     body = text(resp)
     assert resp.status_code == 422
-    expected = "was struck out" if ref == "struck" else "no such run on this job"
+    expected = {"struck": "was struck out", "trial": "is a trial run"}.get(
+        ref, "no such run on this job")
     assert re.search(rf'role="alert">run: [^<]*{expected}', body), body[:3000]
     db.expire_all()
     assert db.query(Correction).count() == before
