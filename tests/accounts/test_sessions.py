@@ -104,3 +104,10 @@ def test_a_session_from_before_the_version_check_is_logged_out(app, client, logi
     with client.session_transaction() as sess:
         sess.pop("session_version")
     assert client.get("/").status_code == 302
+
+
+def test_the_login_page_says_how_long_a_session_lasts_without_use(app, client) -> None:
+    # The walk: after an idle session ended, the page only said "Please log in".
+    minutes = int(app.config["PERMANENT_SESSION_LIFETIME"].total_seconds() // 60)
+    page = client.get("/jobs", follow_redirects=True).get_data(as_text=True)
+    assert f"A session ends after {minutes} minutes without use." in page
