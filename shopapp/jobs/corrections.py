@@ -17,18 +17,16 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.phasors import normalize_deg
 from shopapp.balancing.positions import combine_masses, position_angles_deg
-from shopapp.core import audit, locks
+from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import plain_digits
-from shopapp.core.checks import text as _text
 from shopapp.core.display import plain, quantity
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.jobs.learning import record_influence_set
-from shopapp.jobs.runs import STRIKE_STATES, rejudge_check_runs
-from shopapp.jobs.states import REOPEN_FROM
-from shopapp.models import CORRECTION_ACTIONS, Correction, Job, RotorType, Run, User, utcnow
+from shopapp.jobs.runs import mark_struck, rejudge_check_runs, require_strike_state
+from shopapp.models import CORRECTION_ACTIONS, Correction, Job, RotorType, Run, User
 
 
 def _parse_split(e: _Errors, split: Any, rt: RotorType, plane: int) -> list[dict[str, Any]] | None:
@@ -221,11 +219,7 @@ def strike_correction(session: Session, job: Job, corr: Correction, *, by: User,
     if corr.job_id != job.id:
         raise ValidationFailed("correction_id",
                                f"correction {corr.id} is not a correction of job {job.number}")
-    if job.state not in STRIKE_STATES:
-        raise TransitionRefused(
-            f"Job {job.number} is {job.state.replace('_', ' ')}: corrections are struck out "
-            "while it is on the machine" + (" (reopen it first)" if job.state in REOPEN_FROM
-                                            else "."))
+    require_strike_state(job, "corrections")
     if corr.struck_at is not None:
         raise TransitionRefused(f"That correction (plane {corr.plane}, "
                                 f"{quantity(corr.mass_g, 'g')}) was already struck out.")
@@ -234,15 +228,7 @@ def strike_correction(session: Session, job: Job, corr: Correction, *, by: User,
         raise TransitionRefused(
             f"The weight of {quantity(later.mass_g, 'g')} in plane {later.plane} was fitted in "
             "place of this one: strike that correction out first.")
-    e = _Errors()
-    why = _text(e, "reason", reason, max_len=500, required=True)
-    e.raise_if_any()
-    locks.hold_row(session, job)
-    corr.struck_at = utcnow()
-    corr.struck_by_id = by.id
-    corr.struck_reason = why
-    session.flush()
-    session.expire(job, ["corrections"])
+    why = mark_struck(session, job, corr, by=by, reason=reason, collection="corrections")
     rejudge_check_runs(session, job)
     audit.record(session, by=by, entity="correction", entity_id=corr.id,
                  action="strike_correction", job_id=job.id, before={"struck": False},

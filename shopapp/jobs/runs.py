@@ -221,6 +221,33 @@ def rejudge_check_runs(session: Session, job: Job) -> None:
     session.flush()
 
 
+def require_strike_state(job: Job, what: str) -> None:
+    """Refuse striking ``what`` (runs, corrections) out unless the job is booked in or on
+    the machine: a certified job's evidence is frozen."""
+    if job.state not in STRIKE_STATES:
+        raise TransitionRefused(
+            f"Job {job.number} is {job.state.replace('_', ' ')}: {what} are struck out while "
+            "it is on the machine" + (" (reopen it first)" if job.state in REOPEN_FROM
+                                      else "."))
+
+
+def mark_struck(session: Session, job: Job, row: Any, *, by: User, reason: str,
+                collection: str) -> str:
+    """Mark a run or correction of ``job`` struck out by ``by`` for ``reason`` (checked,
+    errors name ``reason``), under the job's row lock; ``collection`` is the job's
+    relationship to refresh. Returns the reason as stored."""
+    e = _Errors()
+    why = _text(e, "reason", reason, max_len=500, required=True)
+    e.raise_if_any()
+    locks.hold_row(session, job)
+    row.struck_at = utcnow()
+    row.struck_by_id = by.id
+    row.struck_reason = why
+    session.flush()
+    session.expire(job, [collection])
+    return why
+
+
 def strike_run(session: Session, job: Job, run: Run, *, by: User, reason: str) -> Run:
     """Strike a mistaken run out: it stays in the log, marked, and counts for nothing.
 
@@ -232,21 +259,10 @@ def strike_run(session: Session, job: Job, run: Run, *, by: User, reason: str) -
     require(by, "strike_runs")
     if run.job_id != job.id:
         raise ValidationFailed("run_id", f"run {run.id} is not a run of job {job.number}")
-    if job.state not in STRIKE_STATES:
-        raise TransitionRefused(
-            f"Job {job.number} is {job.state.replace('_', ' ')}: runs are struck out while it "
-            "is on the machine" + (" (reopen it first)" if job.state in REOPEN_FROM else "."))
+    require_strike_state(job, "runs")
     if run.struck_at is not None:
         raise TransitionRefused(f"Run {run.seq} was already struck out.")
-    e = _Errors()
-    why = _text(e, "reason", reason, max_len=500, required=True)
-    e.raise_if_any()
-    locks.hold_row(session, job)
-    run.struck_at = utcnow()
-    run.struck_by_id = by.id
-    run.struck_reason = why
-    session.flush()
-    session.expire(job, ["runs"])
+    why = mark_struck(session, job, run, by=by, reason=reason, collection="runs")
     run.within_tolerance = None
     rejudge_check_runs(session, job)
     audit.record(session, by=by, entity="run", entity_id=run.id, action="strike_run",
