@@ -13,6 +13,7 @@ the process that holds the transaction (:attr:`Store.sink`,
 
 from __future__ import annotations
 
+import datetime as dt
 import operator
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -37,6 +38,7 @@ from shopapp.models import (
     RunReading,
     User,
 )
+from shopapp.models.base import UTCDateTime
 
 CHUNK = 5000
 # An INSERT and its rows as the driver takes them.
@@ -183,7 +185,7 @@ def driver_statement(dialect: Any, table: Any, rows: list[dict[str, Any]]) -> St
     get = operator.itemgetter(*cols)
     convert: list[tuple[int, Callable[[Any], Any]]] = []
     for i, c in enumerate(cols):
-        process = table.c[c].type.dialect_impl(dialect).bind_processor(dialect)
+        process = bind_processor(table.c[c].type, dialect)
         if process is not None:
             convert.append((i, process))
     params = []
@@ -194,3 +196,23 @@ def driver_statement(dialect: Any, table: Any, rows: list[dict[str, Any]]) -> St
                 values[i] = process(values[i])
         params.append(tuple(values))
     return sql, params
+
+
+def sqlite_utc_text(value: dt.datetime) -> str:
+    """What :class:`~shopapp.models.base.UTCDateTime` stores on SQLite for ``value``: the
+    UTC time as ``YYYY-MM-DD HH:MM:SS.ffffff`` (SQLAlchemy's SQLite DATETIME format).
+
+    One C call instead of the type's two processors (a quarter of a bulk worker's time at
+    100 000 jobs); tested equal to them (``tests/demo/test_simulator.py``).
+    """
+    if value.tzinfo is None:
+        raise ValueError("naive datetime given; shopapp stores UTC-aware datetimes only")
+    return value.astimezone(dt.UTC).replace(tzinfo=None).isoformat(" ", "microseconds")
+
+
+def bind_processor(column_type: Any, dialect: Any) -> Callable[[Any], Any] | None:
+    """The function that turns a value of ``column_type`` into what the driver stores:
+    the type's own bind processor, or :func:`sqlite_utc_text` for UTC times on SQLite."""
+    if dialect.name == "sqlite" and isinstance(column_type, UTCDateTime):
+        return sqlite_utc_text
+    return column_type.dialect_impl(dialect).bind_processor(dialect)

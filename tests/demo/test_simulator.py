@@ -12,6 +12,7 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import itertools
+import random
 from collections import Counter
 from collections.abc import Iterator
 from pathlib import Path
@@ -671,3 +672,33 @@ def test_bad_parameters_are_refused_with_the_field() -> None:
         demo.load_demo(None, years=0, signing_dir=None)  # type: ignore[arg-type]
     with pytest.raises(ValidationFailed, match="runs_per_job"):
         bulk.generate_bulk(None, jobs=10, runs_per_job=2)  # type: ignore[arg-type]
+
+
+def test_bulk_time_text_is_what_the_column_type_stores_on_sqlite() -> None:
+    # Checked against SQLAlchemy's own processors (UTCDateTime's, then SQLite DATETIME's),
+    # which the ordinary path stores through; times in and out of UTC, with and without
+    # microseconds, either side of midnight and of a year end.
+    from sqlalchemy.dialects import sqlite
+
+    from shopapp.demo import store
+    from shopapp.models.base import UTCDateTime
+
+    dialect = sqlite.dialect()
+    column_type = UTCDateTime()
+    fast = store.bind_processor(column_type, dialect)
+    assert fast is store.sqlite_utc_text
+    inner = column_type.impl_instance.dialect_impl(dialect).bind_processor(dialect)
+    assert inner is not None
+    rng = random.Random(5)
+    zones = [dt.UTC, dt.timezone(dt.timedelta(hours=2)),
+             dt.timezone(dt.timedelta(hours=-9, minutes=-30))]
+    values = [dt.datetime(2025, 12, 31, 23, 59, 59, tzinfo=zones[1]),
+              dt.datetime(2026, 1, 1, 0, 0, 0, tzinfo=dt.UTC)]
+    values += [dt.datetime(2020, 1, 1, tzinfo=rng.choice(zones))
+               + dt.timedelta(seconds=rng.randrange(10**8),
+                              microseconds=rng.choice([0, rng.randrange(10**6)]))
+               for _ in range(300)]
+    for v in values:
+        assert fast(v) == inner(column_type.process_bind_param(v, dialect)), v
+    with pytest.raises(ValueError, match="naive"):
+        fast(dt.datetime(2026, 1, 1))
