@@ -402,3 +402,24 @@ def test_a_focus_is_named_even_without_jobs_and_an_unknown_id_is_refused(
     assert "Showing only" not in page
     resp = client.get("/dashboard.csv?table=headline&operator_id=999999")
     assert resp.status_code == 422 and "999999" in resp.get_data(as_text=True)
+
+
+def test_a_long_list_of_rising_rotors_shows_the_likeliest_and_says_the_csv_has_all(
+    client, login_as, monkeypatch
+) -> None:  # type: ignore[no-untyped-def]
+    # A busy shop's year has a few hundred rotors rising beyond chance (one in twenty by
+    # chance alone among thousands): the page lists the likeliest 25, the CSV all.
+    from shopapp.measures import drift, services
+
+    visits = tuple(drift.RotorVisit(f"J-{k}", dt.date(2026, 1 + k, 5), "g·mm", 10.0 + k, None)
+                   for k in range(3))
+    rotors = [drift.RotorDrift(1000 + i, f"CUT-{i:02d}", "Cut Customer", "Cut type", visits,
+                               "g·mm", 12.0, 0.001 * (i + 1), 60.0) for i in range(30)]
+    monkeypatch.setattr(services, "drift",
+                        lambda *_a, **_k: drift.Drift(400, rotors, []))
+    login_as("owner")
+    html = _page(client, "/dashboard?period=year&on=2026-06-01")
+    table = html.split('data-table="drift_rotors"', 1)[1].split("</table>", 1)[0]
+    assert table.count('<tr><td><a href=') == 25
+    assert "CUT-24" in table and "CUT-25" not in table  # likeliest first, as given
+    assert re.search(r'data-cut="drift_rotors">The 25 likeliest of 30;', table)
