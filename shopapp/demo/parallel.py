@@ -55,6 +55,12 @@ def play(history: History, order: list[Plan], steps: Steps | None) -> None:
     """Play ``order`` in :data:`WORKERS` processes and write their rows here (see module)."""
     store = history.store
     store.flush_rows()  # the shop's own rows (setup audits): written once, here
+    with demo_store.sqlite_indexes_built_after(store.session):
+        _play(history, order, steps)
+
+
+def _play(history: History, order: list[Plan], steps: Steps | None) -> None:
+    store = history.store
     groups = split(order, WORKERS)
     base = history.shop.rng.getrandbits(62)
     ctx = multiprocessing.get_context("fork")

@@ -15,7 +15,8 @@ from __future__ import annotations
 
 import datetime as dt
 import operator
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -216,3 +217,36 @@ def bind_processor(column_type: Any, dialect: Any) -> Callable[[Any], Any] | Non
     if dialect.name == "sqlite" and isinstance(column_type, UTCDateTime):
         return sqlite_utc_text
     return column_type.dialect_impl(dialect).bind_processor(dialect)
+
+
+#: The tables the bulk generator's workers fill (a 100 000-job shop: about 6 million rows).
+BULK_TABLES = (Job, JobTransition, Run, RunReading, Correction, AuditEvent)
+
+
+@contextmanager
+def sqlite_indexes_built_after(session: Session, models: tuple[type[Any], ...] = BULK_TABLES
+                               ) -> Iterator[None]:
+    """On SQLite: the non-unique indexes of ``models`` are dropped inside, and created again
+    at the end from their own stored DDL (``sqlite_master.sql``), in the same transaction.
+
+    Building an index once over sorted keys is far cheaper than keeping it up to date row
+    by row through millions of inserts; unique indexes stay, so every constraint is checked
+    as the rows go in. Nothing may read these tables inside. An error leaves the indexes to
+    the caller's rollback (SQLite's DDL is transactional).
+    """
+    conn = session.connection()
+    if conn.dialect.name != "sqlite":
+        raise ValueError("SQLite only (the bulk generator's parallel path), "
+                         f"not {conn.dialect.name}")
+    names = [m.__tablename__ for m in models]
+    marks = ", ".join("?" for _ in names)
+    kept = [(str(name), str(sql)) for name, sql in conn.exec_driver_sql(
+        f"SELECT name, sql FROM sqlite_master WHERE type = 'index' AND sql IS NOT NULL "
+        f"AND tbl_name IN ({marks}) ORDER BY name", tuple(names))]
+    dropped = [(name, sql) for name, sql in kept
+               if not sql.lstrip().upper().startswith("CREATE UNIQUE")]
+    for name, _sql in dropped:
+        conn.exec_driver_sql(f'DROP INDEX "{name}"')
+    yield
+    for _name, sql in dropped:
+        conn.exec_driver_sql(sql)

@@ -702,3 +702,37 @@ def test_bulk_time_text_is_what_the_column_type_stores_on_sqlite() -> None:
         assert fast(v) == inner(column_type.process_bind_param(v, dialect)), v
     with pytest.raises(ValueError, match="naive"):
         fast(dt.datetime(2026, 1, 1))
+
+
+def test_bulk_indexes_are_built_after_the_rows_exactly_as_they_were(ds: Session) -> None:
+    # The parallel bulk path drops the non-unique indexes of the tables its workers fill and
+    # creates them again from their stored DDL: afterwards sqlite_master must hold the very
+    # same indexes (compared with what the migrations/metadata made), and inside it the
+    # unique ones must still be there to check each row.
+    from shopapp.demo import store
+
+    conn = ds.connection()
+    if conn.dialect.name != "sqlite":
+        with pytest.raises(ValueError, match="SQLite only"), \
+                store.sqlite_indexes_built_after(ds):
+            pass
+        return
+
+    def indexes() -> list[tuple[str, str, str]]:
+        return [tuple(r) for r in conn.exec_driver_sql(
+            "SELECT tbl_name, name, coalesce(sql, '') FROM sqlite_master "
+            "WHERE type = 'index' ORDER BY tbl_name, name")]
+
+    before = indexes()
+    bulk_tables = {m.__tablename__ for m in store.BULK_TABLES}
+    non_unique = [i for i in before if i[0] in bulk_tables and i[2]
+                  and not i[2].upper().startswith("CREATE UNIQUE")]
+    assert len(non_unique) >= 10  # run, audit_event, correction … carry several each
+    with store.sqlite_indexes_built_after(ds):
+        inside = indexes()
+        assert not set(non_unique) & set(inside)
+        assert set(inside) == set(before) - set(non_unique)
+        # the job number stays unique
+        assert any(i[1].startswith("sqlite_autoindex_job_") or
+                   (i[0] == "job" and i[2].upper().startswith("CREATE UNIQUE")) for i in inside)
+    assert indexes() == before
