@@ -14,8 +14,9 @@ and nothing else.
 How the facts stay true:
 
 - every flush of an ORM session that adds, changes or deletes a job, run, reading,
-  correction or transition refreshes the facts of the jobs concerned (and of the job
-  a customer return names) before the flush ends, in the same transaction — so every
+  correction or transition, or moves a rotor to another rotor type, refreshes the facts
+  of the jobs concerned (and of the job a customer return names) before the flush ends,
+  in the same transaction — so every
   jobs use-case, present or to come, keeps them without a call of its own;
 - :func:`refresh_job_fact` does the same for given jobs, for code that writes those
   tables without the ORM (bulk inserts);
@@ -395,18 +396,25 @@ def _with_returned(conn: Connection, job_ids: set[int]) -> set[int]:
 # --------------------------------------------------------------------------- the flush hook
 
 # ImportedJob: its row, added after the job's first flush, takes the job's facts away.
-_WATCHED = (Job, Run, RunReading, Correction, JobTransition, ImportedJob)
+# Rotor: a job's rotor type is its rotor's, so moving a rotor to another type moves its jobs.
+_WATCHED = (Job, Run, RunReading, Correction, JobTransition, ImportedJob, Rotor)
 
 
 def _touched_jobs(session: Session) -> set[int]:
-    """Jobs whose facts may have changed in the flush that just ran (ids, one query at most
-    for readings whose run is not loaded)."""
+    """Jobs whose facts may have changed in the flush that just ran (ids; one query for
+    readings whose run is not loaded, one for the jobs of a rotor moved to another type)."""
     job_ids: set[int] = set()
     run_ids: set[int] = set()
+    rotor_ids: set[int] = set()
     for obj in (*session.new, *session.dirty, *session.deleted):
         if not isinstance(obj, _WATCHED):
             continue
-        if isinstance(obj, Job):
+        if isinstance(obj, Rotor):
+            if obj.id is not None and any(
+                    get_history(obj, name, passive=PASSIVE_NO_INITIALIZE).has_changes()
+                    for name in ("rotor_type_id", "rotor_type")):
+                rotor_ids.add(obj.id)
+        elif isinstance(obj, Job):
             if obj.id is not None:
                 job_ids.add(obj.id)
             # A return names an earlier job whose rework it is (also a name it no longer
@@ -422,6 +430,9 @@ def _touched_jobs(session: Session) -> set[int]:
     if run_ids:
         job_ids.update(session.connection().scalars(
             select(Run.job_id).where(Run.id.in_(sorted(run_ids)))))
+    if rotor_ids:
+        job_ids.update(session.connection().scalars(
+            select(Job.id).where(Job.rotor_id.in_(sorted(rotor_ids)))))
     return job_ids
 
 

@@ -320,3 +320,22 @@ def test_deferred_facts_are_written_once_at_the_end_as_a_rebuild_gives_them(
     assert _snapshot(db) == kept
     db.expire_all()
     assert db.get(JobFact, done.id).first_reopen_at is not None
+
+
+def test_a_rotor_moved_to_another_rotor_type_moves_its_jobs_facts(db, shop, make_user) -> None:  # type: ignore[no-untyped-def]
+    # A job's rotor type is its rotor's (the slices and limits follow it): when a rotor is
+    # put under another type of the same customer (registry.rotors.update_rotor), its
+    # jobs' facts must follow at once, as a rebuild from scratch would give them.
+    from shopapp.registry.rotors import update_rotor
+
+    hs = measures_shop.build(db, shop, make_user)
+    job = next(iter(hs.jobs.values()))
+    rotor = job.rotor
+    other = shop.rotor_type(rotor.customer, part_number="MOVED-TO")
+    admin = make_user("admin")
+    update_rotor(db, rotor, by=admin, rotor_type=other)
+    db.flush()
+    kept = _snapshot(db)
+    assert db.get(JobFact, job.id).rotor_type_id == other.id
+    facts.rebuild(db)
+    assert _snapshot(db) == kept
