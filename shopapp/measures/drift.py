@@ -193,7 +193,8 @@ def _visit_rows(session: Session, p: Period, scope: Scope) -> list[Any]:
         .subquery("ranked")
     )
     v = ranked.c
-    # A visit whose first initial run has no readings is left out (units = 0).
+    # A visit whose first initial run has no readings is left out (units = 0). _visit reads
+    # the columns by position (_NUMBER, _RECEIVED, _INPUTS, _TYPE_ID, _AMP1 …): keep in step.
     stmt = (
         select(
             v.rotor_id, v.job_id, Job.number, v.received_on,
@@ -236,21 +237,38 @@ def _percent_of_limit(amps: tuple[float | None, float | None],
     """The larger plane reading as % of that plane's limit (g·mm readings only)."""
     if limits is None:
         return None
-    shares = [100.0 * amp / lim for amp, lim in zip(amps, limits, strict=False)
-              if amp is not None and lim > 0]
-    return max(shares) if shares else None
+    best = None
+    for amp, lim in zip(amps, limits, strict=False):
+        if amp is not None and lim > 0:
+            share = 100.0 * amp / lim
+            if best is None or share > best:
+                best = share
+    return best
+
+
+# Where _visit_rows puts each value (positions, not names: a year of a busy shop is 40 000
+# rows, and a name lookup or a starred unpacking of a result row is slow).
+_NUMBER, _RECEIVED = 2, 3
+_INPUTS = slice(4, 4 + len(_JOB_TOLERANCE_COLUMNS))
+_TYPE_ID = 4 + len(_JOB_TOLERANCE_COLUMNS) + 1
+_AMP1, _AMP2, _UNIT, _UNIT_MAX = (_TYPE_ID + 3, _TYPE_ID + 4, _TYPE_ID + 5, _TYPE_ID + 6)
 
 
 def _visit(row: Any, types: dict[int, RotorType], known: Limits) -> RotorVisit:
-    """One row of :func:`_visit_rows` as a :class:`RotorVisit` (positions, not names: a
-    year of a busy shop is 40 000 rows, and a name lookup on a result row is slow)."""
-    (_rotor_id, _job_id, number, received_on, *inputs, _serial, rotor_type_id, _customer,
-     _part, amp1, amp2, unit, unit_max) = row
-    rt = types.get(rotor_type_id)
+    """One row of :func:`_visit_rows` as a :class:`RotorVisit`."""
+    amp1, amp2, unit, unit_max = row[_AMP1], row[_AMP2], row[_UNIT], row[_UNIT_MAX]
     percent = None
-    if rt is not None and unit == GMM and unit_max == GMM:
-        percent = _percent_of_limit((amp1, amp2), _plane_limits(rt, tuple(inputs), known))
-    return RotorVisit(number, _as_date(received_on), unit if unit == unit_max else "mixed",
+    if unit == GMM and unit_max == GMM:
+        rt = types.get(row[_TYPE_ID])
+        if rt is not None:
+            inputs = tuple(row[_INPUTS])
+            key = (rt.id, *inputs)
+            limits = known[key] if key in known else _plane_limits(rt, inputs, known)
+            percent = _percent_of_limit((amp1, amp2), limits)
+    received = row[_RECEIVED]
+    return RotorVisit(row[_NUMBER],
+                      dt.date.fromisoformat(received) if isinstance(received, str) else received,
+                      unit if unit == unit_max else "mixed",
                       amp1 if amp2 is None else amp2 if amp1 is None else max(amp1, amp2),
                       percent)
 
