@@ -662,3 +662,24 @@ def test_residual_test_and_repeat_run_phases_outside_0_to_360_are_refused(client
     assert resp.status_code == 422
     assert "Run 3, plane 1 angle: 720° is outside 0–360°" in _plain(resp)
     assert db.scalar(select(func.count()).select_from(BalanceErrorEstimate)) == 0
+
+
+def test_a_proving_test_exactly_on_a_circle_shows_u_mar_as_0(client, login_as, shop, db,  # type: ignore[no-untyped-def]
+                                                             proving_rotor) -> None:
+    """Walk finding: "U_mar less than 0.000000001 g·mm" on the page; the readings lie on a
+    circle round the origin, so U_mar is 0 (geometry), shown through the one formatter."""
+    m = shop.machine(claimed_emar_gmm_per_kg=0.5)
+    db.commit()
+    login_as("quality")
+    data = {"performed_on": TODAY.isoformat(), "proving_rotor_id": str(proving_rotor.id),
+            "test_mass_g": "0.6", "test_radius_mm": "100", "first_position_deg": "0",
+            "claimed_umar": "5", "compute": "Compute"}
+    for k in range(8):
+        data[f"p1_amp-{k}"] = "60"
+        data[f"p1_ang-{k}"] = str(45 * k)
+    resp = client.post(f"/traceability/machines/{m.id}/proving-test", data=data)
+    page = _plain(resp)
+    assert resp.status_code == 200 and "PASSED" in page
+    assert "less than 0.0" not in page
+    assert re.search(r"\b1 0 5\.00 1\.0+ 0\.0 % within claim", page)  # single-plane rotor
+    assert "Specific, whole rotor: 0 g·mm/kg" in page
