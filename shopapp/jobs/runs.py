@@ -161,8 +161,9 @@ def record_run(
         e.add("purpose", f"{str(purpose)[:20]!r} is not allowed; choose "
               + ", ".join(RUN_PURPOSES))
     elif purpose in AFTER_INITIAL_PURPOSES and not _has_initial_run(job):
-        e.add("purpose", f"log the initial run (as received) first: a {purpose} run is "
-              "measured against it")
+        # A predicate: the form puts the field's label before it ("Purpose cannot be …").
+        e.add("purpose", f"cannot be {purpose} before the job's initial run: log the rotor "
+              f"as received first (a {purpose} run is measured against it)")
     speed = _num(e, "speed_rpm", speed_rpm, above=0, maximum=MAX_SPEED_RPM, unit="rpm")
     if speed is not None:
         limits.check_speed(e, "speed_rpm", speed, machine=job.machine,

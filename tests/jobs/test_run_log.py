@@ -505,5 +505,7 @@ def test_a_check_run_first_is_refused_beside_the_purpose_field(client, login_as,
     assert resp.status_code == 422
     beside = re.search(r'<div class="field has-error">\s*<label for="run-purpose".*?</div>',
                        body, re.S)
-    assert beside is not None and "initial run" in html.unescape(beside.group(0))
+    assert beside is not None
+    assert "Purpose cannot be check before the job's initial run" in html.unescape(
+        beside.group(0))
     assert _rows(db, job) == 0
