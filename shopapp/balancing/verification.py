@@ -52,6 +52,10 @@ FIT_WARN = 0.10
 FIT_REFUSE = 0.20
 RATIO_WARN = 0.5
 AMPLITUDE_RATIO_REFUSE = 0.8
+# A residual below a billionth of the test unbalance is the arithmetic's rounding of
+# readings that lie exactly on a circle round the origin (typed or simulated), far below
+# any reading's resolution: it is taken as zero, not reported as a measured 1e-14 g·mm.
+ROUNDING_RATIO = 1e-9
 # Positions closer together than this (design-matrix condition) carry no circle.
 _DESIGN_COND_REFUSE = 1e6
 
@@ -286,6 +290,8 @@ def verify_residual(
                 "cannot separate them — use a larger test unbalance",
             )
         residual_angle = math.degrees(math.atan2(p2, p1))
+    if ratio < ROUNDING_RATIO:
+        ratio = 0.0
     residual = ratio * t_gmm
     if fit > FIT_WARN:
         warnings.append(

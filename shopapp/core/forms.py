@@ -271,6 +271,14 @@ def apply_errors(form: FlaskForm, exc: ValidationFailed,
     return loose
 
 
+def hidden_field_errors(form: FlaskForm) -> list[str]:
+    """The messages of ``form``'s hidden fields, for above the form: a hidden field shows
+    none beside it, so a tampered one (a control character, say) would leave the page
+    refused without a word. Named as :func:`apply_errors` names them ("run", not "run id")."""
+    return [f"{f.short_name.removesuffix('_id').replace('_', ' ')}: {m}"
+            for f in form if isinstance(f, HiddenField) for m in f.errors]
+
+
 def new_form_token() -> str:
     """A fresh one-time token for a create form (32 URL-safe characters)."""
     return secrets.token_urlsafe(24)

@@ -111,15 +111,15 @@ class MachineSpec:
 MACHINES: tuple[MachineSpec, ...] = (
     MachineSpec("hb2", "Bay 1 — hard-bearing, 2 t", "hard", 20.0, 2000.0, 100.0, 2500.0,
                 0.5, 90.0, 3600.0, 365, "mm/s", "due_soon",
-                "Proving rotor PR-200 (shop's own, 200 kg)", 200.0,
+                "Proving rotor PR-200", 200.0,
                 "Pedestal vibration readout; influence coefficients per rotor type."),
     MachineSpec("hb03", "Bay 2 — hard-bearing, 300 kg, calibrated", "hard", 0.5, 300.0, 200.0,
                 8000.0, 0.2, 95.0, 12000.0, 180, "g·mm", "lapsed",
-                "Proving rotor PR-10 (shop's own, 10 kg)", 10.0,
+                "Proving rotor PR-10", 10.0,
                 "Permanently calibrated: shows unbalance per correction plane in g·mm."),
     MachineSpec("sb5", "Bay 3 — soft-bearing, 5 t", "soft", 100.0, 5000.0, 300.0, 1500.0,
                 1.0, 85.0, 150.0, 365, "um", "current",
-                "Proving rotor PR-1000 (shop's own, 1 t)", 1000.0,
+                "Proving rotor PR-1000", 1000.0,
                 "Long-bed soft-bearing machine for rolls and large fans."),
 )
 

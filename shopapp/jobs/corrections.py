@@ -17,7 +17,7 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.phasors import normalize_deg
 from shopapp.balancing.positions import combine_masses, position_angles_deg
-from shopapp.core import audit
+from shopapp.core import audit, locks
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import plain_digits
@@ -100,6 +100,25 @@ def _check_replaced(e: _Errors, job: Job, ref: Any, plane: int, action: str) -> 
         e.add(field, "that weight was already replaced by a later one")
 
 
+def _check_one_per_run(e: _Errors, job: Job, run_id: int | None, plane: int,
+                       replaces: Any) -> None:
+    """One correction per plane answers a run (common practice, no source): a second one
+    is most often the same weight recorded twice (two people at once, say). A weight
+    swapped before the next run is recorded as fitted in place of the first."""
+    if run_id is None:
+        return
+    earlier = [c for c in job.corrections if c.run_id == run_id and c.plane == plane]
+    replaced = {c.replaces_correction_id for c in job.corrections}
+    standing = [c for c in earlier if c.id not in replaced and c.id != replaces]
+    if standing:
+        c = standing[-1]
+        seq = next((r.seq for r in job.runs if r.id == run_id), None)
+        e.add("run_id", f"plane {plane} already has a correction answering run {seq}: "
+              f"{quantity(c.mass_g, 'g')} {'added' if c.action == 'add' else 'removed'}, "
+              f"recorded {c.applied_at:%Y-%m-%d %H:%M}. Log a check run first, strike that "
+              "one out, or record this weight as fitted in place of it")
+
+
 def _answered_run_id(e: _Errors, session: Session, job: Job, ref: Any) -> int | None:
     """The run a correction answers: a live run of this job, or none when ``ref`` is blank.
 
@@ -151,10 +170,14 @@ def record_correction(
     parts fitted on fixed positions (``{"position", "mass_g"}``, angles from the
     rotor type). Drill fields are for removal only. ``replaces_correction_id``
     names an added weight of this job and plane, still on the rotor, that this
-    added weight was fitted in place of (it was taken off). ``run_id`` is the run
+    added weight was fitted in place of (it was taken off); without it a plane takes
+    one correction per run (decided under the job's row lock, so two people saving at
+    once do not both record one). ``run_id`` is the run
     the correction answers, as an id or the page's hidden text ("" for none).
     """
     require(by, "work_jobs")
+    # Decided on the committed corrections: two people saving at once are serialised.
+    locks.hold_row(session, job)
     if job.state != "on_machine":
         raise TransitionRefused(f"Job {job.number} is {job.state.replace('_', ' ')}: corrections "
                                 "are recorded while it is on the machine.")
@@ -192,6 +215,7 @@ def record_correction(
     if parts and cols["mass_g"] is not None and cols["angle_deg"] is not None:
         _check_split_sum(e, parts, cols["mass_g"], cols["angle_deg"])
     _check_replaced(e, job, replaces_correction_id, plane, action)
+    _check_one_per_run(e, job, run_id, plane, replaces_correction_id)
     e.raise_if_any()
     record_influence_set(session, job, run_id, by=by)
     corr = Correction(job=job, run_id=run_id, plane=plane, action=action, split=parts,

@@ -9,7 +9,7 @@ the shop's display convention (:class:`shopapp.core.display.ShopDisplay`).
 from __future__ import annotations
 
 import datetime as dt
-import math
+from functools import partial
 from typing import Any
 
 from flask import Blueprint, abort, flash, redirect, render_template, request, url_for
@@ -36,6 +36,7 @@ from shopapp.traceability.forms import (
     index_runs_from,
     options,
     sized,
+    typed_angle,
 )
 
 bp = Blueprint("evidence", __name__, url_prefix="/traceability", template_folder="templates")
@@ -43,19 +44,6 @@ bp = Blueprint("evidence", __name__, url_prefix="/traceability", template_folder
 
 def _blank(v: Any) -> Any:
     return None if v is None or (isinstance(v, str) and not v.strip()) else v
-
-
-def _internal(disp: ShopDisplay, typed: Any) -> Any:
-    """A typed display angle as internal degrees.
-
-    What is not a finite number passes on unchanged, so the use-case names the field
-    and says why (these forms take text).
-    """
-    try:
-        value = float(typed)
-    except (TypeError, ValueError):
-        return typed
-    return disp.internal(value) if math.isfinite(value) else typed
 
 
 # --------------------------------------------------------------------------- job steps
@@ -142,9 +130,9 @@ def residual_test(job_id: int):  # type: ignore[no-untyped-def]
             plane=plane, test_mass_g=form.test_mass_g.data, positions=n,
             test_radius_mm=_blank(form.test_radius_mm.data) or advice.radius_mm,
             amplitudes=[e.data for e in form.amp.entries],
-            angles_deg=[_internal(disp, _blank(e.data)) for e in form.ang.entries],
+            angles_deg=[typed_angle(disp, _blank(e.data)) for e in form.ang.entries],
             repeat_amplitude=form.repeat_amplitude.data,
-            repeat_angle_deg=_internal(disp, _blank(form.repeat_angle_deg.data)),
+            repeat_angle_deg=typed_angle(disp, _blank(form.repeat_angle_deg.data)),
         )
         mapping: dict[str, Any] = {f"amplitude_{k}": e for k, e in enumerate(form.amp.entries, 1)}
         mapping.update({f"angle_{k}": e for k, e in enumerate(form.ang.entries, 1)})
@@ -209,10 +197,12 @@ def job_index_runs(job_id: int):  # type: ignore[no-untyped-def]
     planes = job.rotor.rotor_type.planes
     spend = once(sess, form, lambda _spent: _back_url(job))
     if not form.validate_on_submit():
-        flash("Index runs: " + "; ".join(f"{k}: {' '.join(v) if isinstance(v, list) else v}"
-                                         for k, v in form.errors.items()), "error")
+        # A sub-form's errors are a dict of its fields': its fields are listed themselves.
+        flash("Index runs: " + "; ".join(
+            m for fld in (*form, *form.first, *form.second)
+            if isinstance(fld.errors, list | tuple) for m in fld.errors), "error")
         return _back(job)
-    first, second = index_runs_from(form, planes, lambda typed: _internal(disp, typed))
+    first, second = index_runs_from(form, planes, partial(typed_angle, disp))
     try:
         tr.record_arbor_error(sess, a, by=acting_user(), measured_on=form.measured_on.data,
                               first_run=first, second_run=second, planes=planes,
@@ -269,9 +259,9 @@ def repeat_runs(job_id: int):  # type: ignore[no-untyped-def]
                 if any(_blank(getattr(r.form, f).data) is not None for f in ("amp_1", "ang_1"))]
         runs = []
         for r in rows:
-            run = [(r.form.amp_1.data, _internal(disp, r.form.ang_1.data))]
+            run = [(r.form.amp_1.data, typed_angle(disp, r.form.ang_1.data))]
             if planes == 2:
-                run.append((r.form.amp_2.data, _internal(disp, r.form.ang_2.data)))
+                run.append((r.form.amp_2.data, typed_angle(disp, r.form.ang_2.data)))
             runs.append(run)
         try:
             evidence.record_error_estimate(

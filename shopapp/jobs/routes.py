@@ -21,7 +21,7 @@ from shopapp.core.checks import plain_digits
 from shopapp.core.display import ShopDisplay, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
-from shopapp.core.forms import apply_errors, parse_number
+from shopapp.core.forms import apply_errors, hidden_field_errors, parse_number
 from shopapp.core.pagination import page_number
 from shopapp.core.permissions import can
 from shopapp.core.settings import get_settings
@@ -468,7 +468,8 @@ def add_correction(job_id: int, plane: int):  # type: ignore[no-untyped-def]
             return redirect(url_for("jobs.detail", job_id=job_id) + "#correction")
         except ServiceError as exc:
             return _failed(job_id, exc, form, corr_forms={plane: form})
-    return _render_detail(job_id, status=422, corr_forms={plane: form})
+    return _render_detail(job_id, status=422, corr_forms={plane: form},
+                          loose=hidden_field_errors(form))
 
 
 def _advised(raw: str | None, field: str, *, angle: bool = False) -> float | None:

@@ -32,6 +32,9 @@ from shopapp.models import READING_UNITS, RUN_PURPOSES, Job, Run, RunReading, Us
 from shopapp.registry.common import MAX_SPEED_RPM
 
 RUN_STATES = frozenset({"booked_in", "on_machine"})
+# Runs measured against the reading as received (a trial mass's effect, a correction's
+# result): they need the job's initial run first (common practice, no source).
+AFTER_INITIAL_PURPOSES = frozenset({"trial", "check", "final"})
 
 Reading = tuple[int, float, float, str]
 Trial = tuple[int, float, float, float]
@@ -97,6 +100,11 @@ def _readings(e: _Errors, readings: Sequence[Any], planes: int
     return clean
 
 
+def _has_initial_run(job: Job) -> bool:
+    """Whether the job has a live (not struck-out) initial run."""
+    return any(r.purpose == "initial" for r in job.runs)
+
+
 def _trial_columns(e: _Errors, trial: Any, planes: int) -> dict[str, Any]:
     """The trial mass of a trial run as Run columns (plane, mass, internal angle, radius)."""
     try:
@@ -133,10 +141,11 @@ def record_run(
 
     Every correction plane of the rotor needs its reading, and a single-plane
     rotor takes none for plane 2. ``trial = (plane, mass_g, angle_deg,
-    radius_mm)`` for trial runs only. The first run moves a booked-in job onto
-    the machine. Angles of −360…360° are stored as [0, 360); beyond a turn they
-    are refused. The speed must suit the machine and the rotor and the unit must
-    be the machine's (:mod:`shopapp.jobs.limits`). Errors name the form fields
+    radius_mm)`` for trial runs only. A trial, check or final run needs the job's
+    initial run first. The first run moves a booked-in job onto the machine.
+    Angles of −360…360° are stored as [0, 360); beyond a turn they are refused.
+    The speed must suit the machine and the rotor and the unit must be the
+    machine's (:mod:`shopapp.jobs.limits`). Errors name the form fields
     ``amplitude_<plane>``, ``angle_<plane>_deg``, ``unit``, ``trial_*``,
     ``speed_rpm``, ``purpose``.
     """
@@ -151,6 +160,10 @@ def record_run(
     if purpose not in RUN_PURPOSES:
         e.add("purpose", f"{str(purpose)[:20]!r} is not allowed; choose "
               + ", ".join(RUN_PURPOSES))
+    elif purpose in AFTER_INITIAL_PURPOSES and not _has_initial_run(job):
+        # A predicate: the form puts the field's label before it ("Purpose cannot be …").
+        e.add("purpose", f"cannot be {purpose} before the job's initial run: log the rotor "
+              f"as received first (a {purpose} run is measured against it)")
     speed = _num(e, "speed_rpm", speed_rpm, above=0, maximum=MAX_SPEED_RPM, unit="rpm")
     if speed is not None:
         limits.check_speed(e, "speed_rpm", speed, machine=job.machine,

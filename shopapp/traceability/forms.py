@@ -10,7 +10,7 @@ is a FlaskForm (CSRF on).
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from typing import Any
 
 from wtforms import (
@@ -65,6 +65,27 @@ def typed_angle(disp: ShopDisplay, raw: Any) -> Any:
     if isinstance(value, float) and math.isfinite(value):
         return disp.internal(value)
     return value
+
+
+def refuse_angles_outside_a_turn(fields: Iterable[tuple[Any, str]]) -> bool:
+    """Refuse, beside each field, a typed angle outside 0–360° (``(field, label)`` pairs;
+    the label starts the message), as every angle field of the app does
+    (:func:`shopapp.core.forms.angle_refusal`): never wrapped. What is not a number is
+    left to the use-case, which names it. True when none was refused."""
+    ok = True
+    for fld, label in fields:
+        raw = blank_to_none(fld.data)
+        if not isinstance(raw, str):
+            continue
+        try:
+            value = parse_number(raw.strip())
+        except ValueError:
+            continue
+        refusal = angle_refusal(raw.strip(), value)
+        if refusal is not None:
+            fld.errors = [*fld.errors, f"{label}{refusal}"]
+            ok = False
+    return ok
 
 
 def options(pairs: list[tuple[Any, str]]) -> list[SelectChoice]:
@@ -228,6 +249,13 @@ class IndexRunsForm(OnceForm):
     rotor_mass_kg = StringField("Rotor mass, kg")
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
 
+    def validate(self, extra_validators: Any = None) -> bool:
+        """Angles outside 0–360° are refused beside their fields, not wrapped."""
+        valid = super().validate(extra_validators)
+        return refuse_angles_outside_a_turn(
+            (getattr(sub, f"ang_{p}"), f"Run {k}, plane {p} angle: ")
+            for k, sub in ((1, self.first), (2, self.second)) for p in (1, 2)) and valid
+
 
 class JobArborForm(ShopForm):
     arbor_id = SelectField("Arbor", coerce=int)
@@ -255,11 +283,25 @@ class ResidualTestForm(OnceForm):
     compute = SubmitField("Compute")
     save = SubmitField("Save the test")
 
+    def validate(self, extra_validators: Any = None) -> bool:
+        """Phases outside 0–360° are refused beside their fields, not wrapped."""
+        valid = super().validate(extra_validators)
+        fields = [(e, f"Position {k} phase: ") for k, e in enumerate(self.ang.entries, 1)]
+        fields.append((self.repeat_angle_deg, "Repeat phase: "))
+        return refuse_angles_outside_a_turn(fields) and valid
+
 
 class ErrorRunsForm(OnceForm):
     runs = FieldList(FormField(PlaneReading), min_entries=3, max_entries=8)
     key_compensation_applied = BooleanField("The key compensation was applied to the rotor")
     notes = TextAreaField("Notes", validators=[Optional(), Length(max=5000)])
+
+    def validate(self, extra_validators: Any = None) -> bool:
+        """Angles outside 0–360° are refused beside their fields, not wrapped."""
+        valid = super().validate(extra_validators)
+        return refuse_angles_outside_a_turn(
+            (getattr(r.form, f"ang_{p}"), f"Run {k}, plane {p} angle: ")
+            for k, r in enumerate(self.runs.entries, 1) for p in (1, 2)) and valid
 
 
 class KeyForm(ShopForm):
@@ -271,6 +313,11 @@ class KeyForm(ShopForm):
     hub_length_mm = StringField("Hub length, mm")
     key_radius_mm = StringField("Radius of the key's centre, mm")
     key_angle_deg = StringField("Keyway angle, °")
+
+    def validate(self, extra_validators: Any = None) -> bool:
+        """The keyway angle outside 0–360° is refused beside it, not wrapped."""
+        valid = super().validate(extra_validators)
+        return refuse_angles_outside_a_turn([(self.key_angle_deg, "")]) and valid
 
     def load(self, rt: Any, disp: ShopDisplay) -> None:
         """Fill from a stored rotor type (the keyway angle in the shop's convention)."""

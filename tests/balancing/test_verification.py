@@ -244,3 +244,19 @@ def test_proving_test_bad_claim() -> None:
     with pytest.raises(BalancingInputError) as err:
         minimum_achievable_residual(30.0, theta, np.ones(6), claimed_umar_gmm=0.0)
     assert err.value.field == "claimed_umar_gmm"
+
+
+@pytest.mark.parametrize("use_phase", [True, False])
+def test_readings_exactly_on_a_centred_circle_leave_a_residual_of_zero(use_phase: bool) -> None:
+    """Walk finding: a proving test typed exactly on a circle round the origin printed
+    "U_mar less than 0.000000001 g·mm" (floating-point rounding shown as a measurement).
+    Geometry: the circle's centre is the origin, so the residual is exactly zero."""
+    theta = np.arange(8) * 45.0
+    u = 750.4 * np.exp(1j * np.radians(theta))
+    r = verify_residual(750.4, theta, np.abs(u),
+                        np.degrees(np.angle(u)) % 360.0 if use_phase else None)
+    assert r.residual_gmm == 0.0 and r.residual_ratio == 0.0
+    assert r.angle_deg is None
+    m = minimum_achievable_residual(750.4, theta, np.abs(u), np.degrees(np.angle(u)) % 360.0,
+                                    claimed_umar_gmm=50.0, rotor_mass_kg=200.0)
+    assert m.umar_gmm == 0.0 and m.specific_gmm_per_kg == 0.0

@@ -13,6 +13,7 @@ import datetime as dt
 import hashlib
 import itertools
 import random
+import re
 from collections import Counter
 from collections.abc import Iterator
 from pathlib import Path
@@ -46,6 +47,7 @@ from shopapp.models import (
     JobTransition,
     Machine,
     MachineVerification,
+    ProvingRotor,
     ResidualTest,
     Rotor,
     RotorType,
@@ -389,6 +391,15 @@ def test_proving_tests_are_complete_records_of_the_service(ds: Session) -> None:
         assert ds.get(AuditEvent, ds.scalar(select(AuditEvent.id).where(
             AuditEvent.entity == "machine_verification", AuditEvent.entity_id == v.id))
         ).at.date() == v.performed_on
+
+
+def test_proving_rotor_names_leave_the_mass_to_the_pages(ds: Session) -> None:
+    """Walk finding: "Proving rotor PR-10 (shop's own, 10 kg) (10 kg, 2 plane(s), …)" — the
+    pages add the mass beside the name, so a name that carries it says it twice."""
+    rotors = list(ds.scalars(select(ProvingRotor)))
+    assert rotors
+    for r in rotors:
+        assert not re.search(r"\d\s*(kg|t)\b", r.name), r.name
 
 
 def test_four_w_over_n_jobs_carry_valid_residual_tests_before_their_certificates(

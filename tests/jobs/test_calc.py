@@ -227,6 +227,8 @@ def test_check_run_in_mm_s_is_judged_through_the_coefficients(db, op, shop, mms_
 def test_readings_in_um_without_coefficients_are_not_judged(db, op, shop, um_machine) -> None:
     rt = shop.rotor_type()
     job = book(db, op, rt, um_machine, ToleranceSpec("grade", grade=6.3))
+    record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+               readings=[(1, 20.0, 0.0, "um"), (2, 10.0, 0.0, "um")])
     run = record_run(db, job, by=op, purpose="check", speed_rpm=600,
                      readings=[(1, 2.0, 0.0, "um"), (2, 1.0, 0.0, "um")])
     calc = evaluate(db, job)

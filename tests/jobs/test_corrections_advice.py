@@ -497,3 +497,49 @@ def test_a_split_that_does_not_make_up_the_mass_is_refused(db, shop, machine) ->
                           split=[{"position": 1, "mass_g": 100.0},
                                  {"position": 2, "mass_g": 100.0}])
     assert exc.value.field == "split" and "add up to" in exc.value.message
+
+
+def test_a_second_correction_of_the_same_plane_and_run_is_refused(db, shop, machine,
+                                                                  make_user) -> None:
+    """Walk finding: two corrections of plane 1 answering the same run were both saved
+    with no word. Common practice, no source: one correction per plane answers a run;
+    a weight swapped before the next run is recorded as fitted in place of the first."""
+    user = make_user("operator")
+    job = book(db, user, single_plane(shop), machine)
+    first = run(db, user, job, "initial", _v(10000.0, 200.0))
+    old = record_correction(db, job, by=user, run_id=first.id, plane=1, action="add",
+                            mass_g=40.0, angle_deg=20.0, radius_mm=R)
+    db.commit()
+    with pytest.raises(ValidationFailed) as err:
+        record_correction(db, job, by=user, run_id=first.id, plane=1, action="add",
+                          mass_g=40.0, angle_deg=20.0, radius_mm=R)
+    assert err.value.field == "run_id"
+    assert "already has a correction answering run 1" in str(err.value)
+    db.rollback()
+    job = db.get(Job, job.id)
+    assert len(job.corrections) == 1
+    # A weight fitted in place of the first one answers the same run.
+    record_correction(db, job, by=user, run_id=first.id, plane=1, action="add",
+                      mass_g=41.0, angle_deg=20.0, radius_mm=R, replaces_correction_id=old.id)
+    db.commit()
+    assert len(job.corrections) == 2
+
+
+@pytest.mark.parametrize("field", ["c1-run_id", "c1-advised_mass_g", "c1-advised_angle_deg"])
+def test_a_control_character_in_a_hidden_field_is_said_above_the_form(
+        client, login_as, db, shop, machine, field) -> None:
+    """Walk finding: a tampered hidden field holding a control character gave a 422 page
+    with no message at all (a hidden field shows none beside it)."""
+    user = login_as("operator")
+    job = book(db, user, single_plane(shop), machine)
+    first = run(db, user, job, "initial", _v(2500.0, 200.0))
+    data = {"c1-run_id": str(first.id), "c1-action": "add", "c1-mass_g": "10",
+            "c1-angle_deg": "20", "c1-radius_mm": str(R)}
+    data[field] = "1\x07"
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data=data)
+    body = text(resp)
+    assert resp.status_code == 422
+    alert = re.findall(r'<p class="flash error" role="alert">(.*?)</p>', body, re.S)
+    assert any("control character" in m for m in alert), alert
+    db.expire_all()
+    assert db.get(Job, job.id).corrections == []

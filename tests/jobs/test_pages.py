@@ -385,6 +385,8 @@ def test_verdict_percentages_match_the_iso_limits(client, login_as, db, rtype, c
     user = login_as("operator")
     job = booked(db, user, rtype, calibrated)
     # A calibrated machine (g·mm readings): residual 300 g·mm at 0° in plane 1 only.
+    record_run(db, job, by=user, purpose="initial", speed_rpm=600,
+               readings=[(1, 5000.0, 90.0, "g·mm"), (2, 4000.0, 270.0, "g·mm")])
     record_run(db, job, by=user, purpose="check", speed_rpm=600,
                readings=[(1, 300.0, 0.0, "g·mm"), (2, 0.0, 0.0, "g·mm")])
     db.commit()

@@ -78,13 +78,15 @@ def test_calibrated_reading_on_a_velocity_machine_is_refused(db, op, shop, veloc
     """Defect: a g·mm reading on a velocity machine was judged against U_per (nonsense)."""
     job = book(db, op, velocity, shop.rotor_type())
     with pytest.raises(ValidationFailed) as exc:
-        record_run(db, job, by=op, purpose="check", speed_rpm=600,
+        record_run(db, job, by=op, purpose="initial", speed_rpm=600,
                    readings=[(1, 300.0, 0.0, "g·mm"), (2, 0.0, 0.0, "g·mm")])
     assert exc.value.field == "unit" and "reads vibration in mm/s" in exc.value.message
     db.rollback()
     # Its own unit is logged, and (common shop practice: a vibration reading is not an
     # unbalance until influence coefficients turn it into one) it is not judged.
     job = db.get(Job, job.id)
+    record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+               readings=[(1, 30.0, 0.0, "mm/s"), (2, 10.0, 0.0, "mm/s")])
     run = record_run(db, job, by=op, purpose="check", speed_rpm=600,
                      readings=[(1, 3.0, 0.0, "mm/s"), (2, 1.0, 0.0, "mm/s")])
     v = evaluate(db, job).verdicts[run.id]
@@ -449,3 +451,61 @@ def test_a_trial_mass_far_past_the_usual_force_is_cautioned(client, login_as, db
             assert shown and shown.group(2) == shown.group(4) == unit
             assert float(shown.group(1)) == pytest.approx(force_n / scale, rel=5e-3)
             assert float(shown.group(3)) == pytest.approx(load_n / scale, rel=5e-3)
+
+
+# --------------------------------------------------------------------------- first run
+
+
+@pytest.mark.parametrize("purpose", ["trial", "check", "final"])
+def test_a_job_starts_with_its_initial_run(db, op, shop, calibrated, purpose) -> None:
+    """Walk finding: a check (or trial) run was accepted as a job's first run. A trial run's
+    effect and a correction's result are measured against the reading as received
+    (common practice, no source), so the initial run comes first; the refusal names the
+    purpose field and nothing is written (the job stays booked in)."""
+    job = book(db, op, calibrated, shop.rotor_type())
+    trial = (1, 10.0, 0.0, 100.0) if purpose == "trial" else None
+    with pytest.raises(ValidationFailed) as exc:
+        record_run(db, job, by=op, purpose=purpose, speed_rpm=600,
+                   readings=[(1, 30.0, 10.0, "g·mm"), (2, 10.0, 0.0, "g·mm")], trial=trial)
+    assert exc.value.field == "purpose" and "initial run" in str(exc.value)
+    db.rollback()
+    job = db.get(Job, job.id)
+    assert _rows(db, job) == 0 and job.state == "booked_in"
+
+
+def test_a_struck_initial_run_does_not_count_as_the_first(db, op, shop, calibrated) -> None:
+    """A struck-out initial run counts for nothing: a check run still needs a live one."""
+    job = book(db, op, calibrated, shop.rotor_type())
+    first = record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+                       readings=[(1, 300.0, 10.0, "g·mm"), (2, 100.0, 0.0, "g·mm")])
+    strike_run(db, job, first, by=op, reason="typed on the wrong job")
+    db.commit()
+    with pytest.raises(ValidationFailed) as exc:
+        record_run(db, job, by=op, purpose="check", speed_rpm=600,
+                   readings=[(1, 3.0, 10.0, "g·mm"), (2, 1.0, 0.0, "g·mm")])
+    assert exc.value.field == "purpose"
+    db.rollback()
+    job = db.get(Job, job.id)
+    record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+               readings=[(1, 300.0, 10.0, "g·mm"), (2, 100.0, 0.0, "g·mm")])
+    run = record_run(db, job, by=op, purpose="check", speed_rpm=600,
+                     readings=[(1, 3.0, 10.0, "g·mm"), (2, 1.0, 0.0, "g·mm")])
+    assert run.seq == 3
+
+
+def test_a_check_run_first_is_refused_beside_the_purpose_field(client, login_as, db, shop,
+                                                               calibrated) -> None:
+    user = login_as("operator")
+    job = book(db, user, calibrated, shop.rotor_type())
+    resp = client.post(f"/jobs/{job.id}/runs", data={
+        "run-purpose": "check", "run-speed_rpm": "600", "run-unit": "g·mm",
+        "run-amplitude_1": "30", "run-angle_1_deg": "10",
+        "run-amplitude_2": "10", "run-angle_2_deg": "0"})
+    body = resp.get_data(as_text=True)
+    assert resp.status_code == 422
+    beside = re.search(r'<div class="field has-error">\s*<label for="run-purpose".*?</div>',
+                       body, re.S)
+    assert beside is not None
+    assert "Purpose cannot be check before the job's initial run" in html.unescape(
+        beside.group(0))
+    assert _rows(db, job) == 0

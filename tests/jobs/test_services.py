@@ -31,7 +31,7 @@ from shopapp.jobs.queries import (
     influence_sets_for,
     rotor_history,
 )
-from shopapp.jobs.runs import record_run
+from shopapp.jobs.runs import record_run, strike_run
 from shopapp.jobs.states import (
     ALLOWED,
     dispatch,
@@ -759,8 +759,13 @@ def test_in_tolerance_is_refused_without_an_initial_run(db, op, rtype, machine) 
     # The walk: a job with only a check run in tolerance could be marked in tolerance and
     # certified, and its certificate stated "Initial unbalance (run 0)" with no readings.
     # Common practice, no source: the as-received reading is taken before anything else.
+    # A check run now needs the initial run first (jobs.runs.record_run); the state rule
+    # still guards a job whose initial run was struck out after the check.
     job = book(db, op, rtype, machine)
+    first = record_run(db, job, by=op, purpose="initial", speed_rpm=600,
+                       readings=readings_for(np.array([20.0 + 0j, 10.0j])))
     passing_check(db, op, job)
+    strike_run(db, job, first, by=op, reason="logged on the wrong job")
     with pytest.raises(TransitionRefused, match="no initial run"):
         mark_in_tolerance(db, job, by=op)
     assert job.state != "in_tolerance" and job.first_in_tolerance_at is None

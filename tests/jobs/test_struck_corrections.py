@@ -33,8 +33,11 @@ def machine(shop):  # type: ignore[no-untyped-def]
 
 
 def _twice(db: Any, user: Any, job: Job, first: Any) -> tuple[Correction, Correction]:
-    kept, twin = (record_correction(db, job, by=user, run_id=first.id, plane=1, action="add",
-                                    mass_g=10.0, angle_deg=20.0, radius_mm=R) for _ in range(2))
+    # The same weight recorded twice; the twin answers no run, as a second correction of
+    # the plane answering the same run is refused (jobs.corrections.record_correction).
+    kept, twin = (record_correction(db, job, by=user, run_id=ref, plane=1, action="add",
+                                    mass_g=10.0, angle_deg=20.0, radius_mm=R)
+                  for ref in (first.id, None))
     db.commit()
     return kept, twin
 

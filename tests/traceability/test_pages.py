@@ -589,3 +589,97 @@ def test_no_from_memory_remark_on_pages_or_reports_an_auditor_sees() -> None:
     from shopapp.balancing.runup import RUNUP_CAUTIONS
 
     assert all("from memory" not in t for t in (RULE_WITH_ERRORS, *RUNUP_CAUTIONS))
+
+
+# --------------------------------------------------------------------------- angles not wrapped
+
+
+def test_arbor_index_run_angle_outside_0_to_360_is_refused_not_wrapped(client, login_as,  # type: ignore[no-untyped-def]
+                                                                      db) -> None:
+    """Walk finding: 400° in an index run was taken as 40° without a word; the app's other
+    angle fields refuse it (a wrapped angle puts a mass in the wrong place)."""
+    user = login_as("quality")
+    arbor = arbors.create_arbor(db, by=user, name="Arbor 400")
+    db.commit()
+    resp = client.post(f"/traceability/arbors/{arbor.id}/measurements", data={
+        "measured_on": TODAY.isoformat(), "index_deg": "180", "second_frame": "arbor",
+        "first-amp_1": "10", "first-ang_1": "400", "second-amp_1": "6", "second-ang_1": "0"})
+    assert resp.status_code == 422
+    assert ("Run 1, plane 1 angle: 400° is outside 0–360°: type the angle as shown (it is "
+            "not wrapped to 40° for you).") in _plain(resp)
+    assert db.scalar(select(func.count()).select_from(ArborErrorMeasurement)) == 0
+
+
+def test_job_index_run_angle_outside_0_to_360_is_refused_not_wrapped(client, login_as,  # type: ignore[no-untyped-def]
+                                                                    wn_job, db) -> None:
+    user = login_as("quality")
+    arbor = arbors.create_arbor(db, by=user, name="Arbor W400")
+    db.commit()
+    client.post(f"/traceability/jobs/{wn_job.id}/arbor", data={"arbor_id": str(arbor.id)})
+    resp = client.post(f"/traceability/jobs/{wn_job.id}/index-runs", data={
+        "ix-measured_on": TODAY.isoformat(), "ix-index_deg": "180", "ix-second_frame": "arbor",
+        "ix-first-amp_1": "20", "ix-first-ang_1": "0", "ix-first-amp_2": "10",
+        "ix-first-ang_2": "-90", "ix-second-amp_1": "10", "ix-second-ang_1": "0",
+        "ix-second-amp_2": "4", "ix-second-ang_2": "90"}, follow_redirects=True)
+    assert "Run 1, plane 2 angle: -90° is outside 0–360°" in _plain(resp)
+    assert db.scalar(select(func.count()).select_from(ArborErrorMeasurement)) == 0
+
+
+def test_keyway_angle_outside_0_to_360_is_refused_not_wrapped(client, login_as, shop,  # type: ignore[no-untyped-def]
+                                                             db) -> None:
+    rt = shop.rotor_type(radius_1_mm=100.0, radius_2_mm=100.0)
+    db.commit()
+    login_as("operator")
+    resp = client.post(f"/traceability/rotor-types/{rt.id}/key", data={
+        "key_convention": "half_key", "key_width_mm": "8", "key_height_mm": "7",
+        "key_length_mm": "50", "hub_length_mm": "40", "key_radius_mm": "20",
+        "key_angle_deg": "390"})
+    assert resp.status_code == 422
+    assert "390° is outside 0–360°" in _plain(resp)
+    db.expire_all()
+    assert rt.key_angle_deg is None
+
+
+def test_residual_test_and_repeat_run_phases_outside_0_to_360_are_refused(client, login_as,  # type: ignore[no-untyped-def]
+                                                                         wn_job, db) -> None:
+    login_as("operator")
+    data = {"plane": "1", "positions": "8", "test_mass_g": "2", "test_radius_mm": "300",
+            "unit": "g·mm", "repeat_amplitude": "600", "repeat_angle_deg": "0",
+            "compute": "Compute"}
+    for k in range(8):
+        data[f"amp-{k}"] = "600"
+        data[f"ang-{k}"] = str(45 * k)
+    data["ang-3"] = "495"  # 135° plus a turn
+    resp = client.post(f"/traceability/jobs/{wn_job.id}/residual-test", data=data)
+    assert resp.status_code == 422
+    assert "Position 4 phase: 495° is outside 0–360°" in _plain(resp)
+    runs = {}
+    for k in range(3):
+        runs.update({f"runs-{k}-amp_1": "30", f"runs-{k}-ang_1": "0",
+                     f"runs-{k}-amp_2": "20", f"runs-{k}-ang_2": "90"})
+    runs["runs-2-ang_1"] = "720"
+    resp = client.post(f"/traceability/jobs/{wn_job.id}/repeat-runs", data=runs)
+    assert resp.status_code == 422
+    assert "Run 3, plane 1 angle: 720° is outside 0–360°" in _plain(resp)
+    assert db.scalar(select(func.count()).select_from(BalanceErrorEstimate)) == 0
+
+
+def test_a_proving_test_exactly_on_a_circle_shows_u_mar_as_0(client, login_as, shop, db,  # type: ignore[no-untyped-def]
+                                                             proving_rotor) -> None:
+    """Walk finding: "U_mar less than 0.000000001 g·mm" on the page; the readings lie on a
+    circle round the origin, so U_mar is 0 (geometry), shown through the one formatter."""
+    m = shop.machine(claimed_emar_gmm_per_kg=0.5)
+    db.commit()
+    login_as("quality")
+    data = {"performed_on": TODAY.isoformat(), "proving_rotor_id": str(proving_rotor.id),
+            "test_mass_g": "0.6", "test_radius_mm": "100", "first_position_deg": "0",
+            "claimed_umar": "5", "compute": "Compute"}
+    for k in range(8):
+        data[f"p1_amp-{k}"] = "60"
+        data[f"p1_ang-{k}"] = str(45 * k)
+    resp = client.post(f"/traceability/machines/{m.id}/proving-test", data=data)
+    page = _plain(resp)
+    assert resp.status_code == 200 and "PASSED" in page
+    assert "less than 0.0" not in page
+    assert re.search(r"\b1 0 5\.00 1\.0+ 0\.0 % within claim", page)  # single-plane rotor
+    assert "Specific, whole rotor: 0 g·mm/kg" in page

@@ -170,3 +170,34 @@ def test_certificates_issued_at_once_get_distinct_gapless_numbers(live_app) -> N
     with live_app.extensions["shopapp.db"].session() as db:
         numbers = sorted(db.scalars(select(Certificate.number)))
     assert [int(n.rsplit("-", 1)[1]) for n in numbers] == list(range(1, len(names) + 1))
+
+
+def test_corrections_posted_at_once_on_one_plane_of_one_run_store_one(live_app) -> None:
+    """Walk finding: two people recording the correction of the same plane for the same
+    run at the same moment both got it saved, silently: the rotor seemed to carry two
+    weights where one was fitted. One is stored; every other person is told why."""
+    from shopapp.jobs.runs import record_run
+
+    names, job_id, _rt, _m = _setup(live_app)
+    with live_app.extensions["shopapp.db"].session() as db:
+        job = db.get(Job, job_id)
+        by = db.scalar(select(User).where(User.username == names[0]))
+        assert job is not None and by is not None
+        run_id = record_run(db, job, by=by, purpose="initial", speed_rpm=600,
+                            readings=[(1, 40.0, 10.0, "um"), (2, 3.0, 350.0, "um")]).id
+        db.commit()
+
+    def post_correction(c: ShopClient, i: int) -> list[int]:
+        resp = c.post(f"/jobs/{job_id}/corrections/1", data={
+            "c1-run_id": str(run_id), "c1-action": "add", "c1-mass_g": f"{20 + i}",
+            "c1-angle_deg": "30", "c1-radius_mm": "100"})
+        if resp.status_code != 302:
+            assert "already has a correction answering run 1" in resp.get_data(as_text=True)
+        return [resp.status_code]
+
+    statuses = _together(live_app, names, post_correction)
+    assert sorted(statuses) == [302] + [422] * (WRITERS - 1), statuses
+    from shopapp.models import Correction
+    with live_app.extensions["shopapp.db"].session() as db:
+        stored = db.scalars(select(Correction).where(Correction.job_id == job_id)).all()
+    assert len(stored) == 1
