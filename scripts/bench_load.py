@@ -161,7 +161,12 @@ def _book_jobs(url: str, client: Client, count: int) -> list[int]:
         if status != 302:
             raise RuntimeError(f"booking a bench job answered {status}")
         _, page = client.get("/jobs")
-        ids.append(max(int(x) for x in re.findall(r'href="/jobs/(\d+)"', page)))
+        job_id = max(int(x) for x in re.findall(r'href="/jobs/(\d+)"', page))
+        # A check run needs the job's initial run first, as at the machine.
+        status = _post_run(client, job_id, "initial")
+        if status != 302:
+            raise RuntimeError(f"the initial run of a bench job answered {status}")
+        ids.append(job_id)
     return ids
 
 
@@ -181,6 +186,11 @@ def _mix(client: Client, job_id: int, owner: Client, step: int) -> tuple[str, in
         return "dashboard", owner.get("/dashboard")[0]
     if kind == 3:
         return "home", client.get("/")[0]
+    return "post", _post_run(client, job_id, "check")
+
+
+def _post_run(client: Client, job_id: int, purpose: str) -> int:
+    """Open the job page and log a run of ``purpose`` through its form; the status."""
     _, page = client.get(f"/jobs/{job_id}")
     speed = re.search(r'name="run-speed_rpm"[^>]*value="([^"]*)"', page)
     # The form starts in the machine's unit (the only one it accepts): take the selected one.
@@ -189,11 +199,11 @@ def _mix(client: Client, job_id: int, owner: Client, step: int) -> tuple[str, in
                                 select.group(1))
     status, _ = client.post(f"/jobs/{job_id}/runs", {
         "run-form_token": _hidden(page, "run-form_token"),
-        "run-purpose": "check", "run-speed_rpm": speed.group(1) if speed else "600",
+        "run-purpose": purpose, "run-speed_rpm": speed.group(1) if speed else "600",
         "run-unit": unit.group(1) if unit else "um",
         "run-amplitude_1": "1.5", "run-angle_1_deg": "10",
         "run-amplitude_2": "1.2", "run-angle_2_deg": "200"})
-    return "post", status
+    return status
 
 
 def _measure(base: str, users: int, seconds: float, jobs: list[int],
