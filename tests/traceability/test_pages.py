@@ -343,14 +343,17 @@ def test_job_arbor_subtraction_and_repeat_runs(client, login_as, wn_job, db) -> 
     assert resp.status_code == 422 and "at least 3" in _text(resp)
 
 
+# A half key 8 × 7 × 50 mm in a 40 mm hub, its centre at 20 mm (the key page's fields).
+HALF_KEY_FORM = {"key_convention": "half_key", "key_width_mm": "8", "key_height_mm": "7",
+                 "key_length_mm": "50", "hub_length_mm": "40", "key_radius_mm": "20"}
+
+
 def test_key_page_saves_the_convention(client, login_as, shop, db) -> None:  # type: ignore[no-untyped-def]
     rt = shop.rotor_type(radius_1_mm=100.0, radius_2_mm=100.0)
     db.commit()
     login_as("operator")
-    resp = client.post(f"/traceability/rotor-types/{rt.id}/key", data={
-        "key_convention": "half_key", "key_width_mm": "8", "key_height_mm": "7",
-        "key_length_mm": "50", "hub_length_mm": "40", "key_radius_mm": "20",
-        "key_angle_deg": "30"})
+    resp = client.post(f"/traceability/rotor-types/{rt.id}/key",
+                       data={**HALF_KEY_FORM, "key_angle_deg": "30"})
     assert resp.status_code == 302
     page = _text(client.get(f"/traceability/rotor-types/{rt.id}/key"))
     # Hand computation (first principles): 0.4396 g at 100 mm, at 30° + 180°.
@@ -630,10 +633,8 @@ def test_keyway_angle_outside_0_to_360_is_refused_not_wrapped(client, login_as, 
     rt = shop.rotor_type(radius_1_mm=100.0, radius_2_mm=100.0)
     db.commit()
     login_as("operator")
-    resp = client.post(f"/traceability/rotor-types/{rt.id}/key", data={
-        "key_convention": "half_key", "key_width_mm": "8", "key_height_mm": "7",
-        "key_length_mm": "50", "hub_length_mm": "40", "key_radius_mm": "20",
-        "key_angle_deg": "390"})
+    resp = client.post(f"/traceability/rotor-types/{rt.id}/key",
+                       data={**HALF_KEY_FORM, "key_angle_deg": "390"})
     assert resp.status_code == 422
     assert "390° is outside 0–360°" in _plain(resp)
     db.expire_all()
