@@ -203,8 +203,8 @@ def sqlite_utc_text(value: dt.datetime) -> str:
     """What :class:`~shopapp.models.base.UTCDateTime` stores on SQLite for ``value``: the
     UTC time as ``YYYY-MM-DD HH:MM:SS.ffffff`` (SQLAlchemy's SQLite DATETIME format).
 
-    One C call instead of the type's two processors (a quarter of a bulk worker's time at
-    100 000 jobs); tested equal to them (``tests/demo/test_simulator.py``).
+    One C call instead of the type's two processors (they took about a tenth of a bulk
+    worker's time); tested equal to them (``tests/demo/test_simulator.py``).
     """
     if value.tzinfo is None:
         raise ValueError("naive datetime given; shopapp stores UTC-aware datetimes only")

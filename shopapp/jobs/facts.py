@@ -16,8 +16,8 @@ How the facts stay true:
 - every flush of an ORM session that adds, changes or deletes a job, run, reading,
   correction or transition, or moves a rotor to another rotor type, refreshes the facts
   of the jobs concerned (and of the job a customer return names) before the flush ends,
-  in the same transaction — so every
-  jobs use-case, present or to come, keeps them without a call of its own;
+  in the same transaction — so every jobs use-case, present or to come, keeps them
+  without a call of its own;
 - :func:`refresh_job_fact` does the same for given jobs, for code that writes those
   tables without the ORM (bulk inserts);
 - :func:`rebuild` recomputes every row from scratch (``shopapp measures rebuild``, the
