@@ -261,13 +261,9 @@ def _visit(row: Any, types: dict[int, RotorType], known: Limits) -> RotorVisit:
     if unit == GMM and unit_max == GMM:
         rt = types.get(row[_TYPE_ID])
         if rt is not None:
-            inputs = tuple(row[_INPUTS])
-            key = (rt.id, *inputs)
-            limits = known[key] if key in known else _plane_limits(rt, inputs, known)
+            limits = _plane_limits(rt, tuple(row[_INPUTS]), known)
             percent = _percent_of_limit((amp1, amp2), limits)
-    received = row[_RECEIVED]
-    return RotorVisit(row[_NUMBER],
-                      dt.date.fromisoformat(received) if isinstance(received, str) else received,
+    return RotorVisit(row[_NUMBER], _as_date(row[_RECEIVED]),
                       unit if unit == unit_max else "mixed",
                       amp1 if amp2 is None else amp2 if amp1 is None else max(amp1, amp2),
                       percent)
