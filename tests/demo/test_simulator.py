@@ -10,6 +10,7 @@ the generator's own bookkeeping, and also ask the app's job evaluation
 from __future__ import annotations
 
 import datetime as dt
+import gc
 import hashlib
 import itertools
 import random
@@ -657,6 +658,30 @@ def test_bulk_mode_gives_the_same_rows_for_the_same_seed(ds: Session) -> None:
     first, second = rows(), rows()
     assert len(first["job"]) > 100 and len(first["run"]) > 400
     assert first == second
+
+
+def test_bulk_load_pauses_the_cycle_collector_and_gives_it_back(ds: Session) -> None:
+    # The load runs with Python's cyclic collector paused (its full passes over millions of
+    # live rows grew with the history); afterwards, and after a failed load, it runs again.
+    seen: dict[str, bool] = {}
+
+    def note(message: str) -> None:
+        seen[message.split()[1]] = gc.isenabled()
+
+    bulk.generate_bulk(ds, jobs=20, runs_per_job=4, seed=2, years=0.2, end_date=END,
+                       force=True, progress=note)
+    ds.rollback()
+    assert seen["simulating"] is False and seen["job"] is False  # "job facts for ..."
+    assert gc.isenabled()
+
+    def fail(_message: str) -> None:
+        raise RuntimeError("stopped by the test")
+
+    with pytest.raises(RuntimeError, match="stopped by the test"):
+        bulk.generate_bulk(ds, jobs=20, runs_per_job=4, seed=2, years=0.2, end_date=END,
+                           force=True, progress=fail)
+    ds.rollback()
+    assert gc.isenabled()
 
 
 def test_bulk_jobs_are_split_by_whole_rotor_types() -> None:
