@@ -196,18 +196,20 @@ def facts_select(*, imported_table: bool = True) -> Select[Any]:
         .correlate(Job)
         .scalar_subquery()
     )
-    # The first initial run (lowest seq, not struck out) and its readings.
+    # The first initial run (lowest seq, not struck out), found once per job by the outer
+    # join below, and its readings (six figures: the run was looked up six times before).
     first_initial = (
         select(Run.id).where(Run.job_id == Job.id, Run.purpose == "initial",
                              Run.struck_at.is_(None))
         .order_by(Run.seq).limit(1).correlate(Job).scalar_subquery()
     )
+    initial_run = aliased(Run, name="initial_run")
 
     def reading(agg: Any, plane: int | None = None) -> Any:
-        where = [RunReading.run_id == first_initial]
+        where = [RunReading.run_id == initial_run.id]
         if plane is not None:
             where.append(RunReading.plane == plane)
-        return select(agg).where(*where).correlate(Job).scalar_subquery()
+        return select(agg).where(*where).correlate(initial_run).scalar_subquery()
 
     hit = case(
         (Job.dispatched_on.is_(None), None),
@@ -251,7 +253,8 @@ def facts_select(*, imported_table: bool = True) -> Select[Any]:
     # runs, corrections or transitions of its own, so every measure (first pass, rework,
     # turnaround, work in progress, rotors getting worse) leaves it out by construction.
     stmt = (select(*(c.label(n) for n, c in columns.items()))
-            .select_from(Job).join(Rotor, Rotor.id == Job.rotor_id))
+            .select_from(Job).join(Rotor, Rotor.id == Job.rotor_id)
+            .outerjoin(initial_run, initial_run.id == first_initial))
     if not imported_table:
         return stmt
     return stmt.where(~select(ImportedJob.job_id).where(ImportedJob.job_id == Job.id)
