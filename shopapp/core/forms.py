@@ -217,7 +217,9 @@ class ChoiceField(SelectField):
         labels = [str(c.label) for c in self.iter_choices()
                   if not str(c.label).startswith("—")]
         shown = ", ".join(labels[:12]) + (", …" if len(labels) > 12 else "")
-        self.invalid_choice_message = f"Not one of the choices; choose one of: {shown}."
+        self.invalid_choice_message = (
+            f"Not one of the choices; choose one of: {shown}." if labels
+            else "Not one of the choices: there is nothing to choose from here yet.")
         super().pre_validate(form)
 
 

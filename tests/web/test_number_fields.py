@@ -123,3 +123,22 @@ def test_a_use_case_check_refuses_a_typed_number_that_underflows() -> None:
                               "as 0)"}
     ok = Errors()
     assert number(ok, "start_deg", "-0") == 0.0 and not ok
+
+
+def test_a_refused_choice_with_nothing_to_choose_says_so(app) -> None:
+    # The walk: a new customer has no rotor types yet; a tampered rotor type answered
+    # "Not one of the choices; choose one of: ." (an empty list).
+    from shopapp.core.forms import ChoiceField
+
+    class _Pick(FlaskForm):
+        class Meta:
+            csrf = False
+
+        rotor_type_id = ChoiceField("Rotor type", coerce=int,
+                                    choices=[(0, "— none: one-off geometry —")])
+
+    with app.test_request_context():
+        form = _Pick(formdata=MultiDict({"rotor_type_id": "-5"}))
+        assert not form.validate()
+    assert form.rotor_type_id.errors == ["Not one of the choices: there is nothing to choose "
+                                         "from here yet."]
