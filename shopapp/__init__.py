@@ -84,9 +84,10 @@ def register_extensions(app: Flask) -> None:
     login_manager.login_view = "auth.login"
     # Said to someone never logged in and to someone whose session ran out alike: the
     # server cannot tell them apart once the cookie has expired.
-    idle_min = int(app.config["PERMANENT_SESSION_LIFETIME"].total_seconds() // 60)
-    login_manager.login_message = (f"Please log in to see that page. A session ends after "
-                                   f"{idle_min} minutes without use.")
+    from shopapp.core.web import session_end_notice
+
+    login_manager.login_message = ("Please log in to see that page. "
+                                   + session_end_notice(app.config["PERMANENT_SESSION_LIFETIME"]))
     login_manager.session_protection = "strong"
 
 

@@ -35,6 +35,12 @@ class Errors(dict[str, str]):
             raise ValidationFailed(first, self[first], errors=dict(self))
 
 
+def underflows_to_zero(text: str, value: float) -> bool:
+    """Whether a typed non-zero number was read as 0 (``"1e-400"``: below the smallest
+    double, about 4.9e-324); a typed zero ("0", "-0", "0.0e5") is not."""
+    return value == 0.0 and any(ch in "123456789" for ch in text.lower().partition("e")[0])
+
+
 def number(e: Errors, field: str, value: Any, *, required: bool = True,
          above: float | None = None, minimum: float | None = None, maximum: float | None = None,
          unit: str = "") -> float | None:
@@ -53,6 +59,8 @@ def number(e: Errors, field: str, value: Any, *, required: bool = True,
     suffix = f" {unit}" if unit else ""
     if not math.isfinite(out):
         e.add(field, f"must be a finite number, got {str(value)[:40]!r}")
+    elif isinstance(value, str) and underflows_to_zero(value, out):
+        e.add(field, f"is too small to represent, got {value[:40]!r} (it would be stored as 0)")
     elif above is not None and out <= above:
         e.add(field, f"must be greater than {short(above)}{suffix}, got {short(out)}")
     elif minimum is not None and out < minimum:

@@ -28,7 +28,7 @@ from wtforms.validators import ValidationError
 from wtforms.widgets import TextInput
 
 from shopapp.balancing.numtext import short
-from shopapp.core.checks import CONTROL_REFUSAL, FORM_CONTROL, day_refusal
+from shopapp.core.checks import CONTROL_REFUSAL, FORM_CONTROL, day_refusal, underflows_to_zero
 from shopapp.core.errors import ValidationFailed
 from shopapp.models import Base
 
@@ -44,13 +44,15 @@ def _raw(valuelist: list[Any]) -> str | None:
     return raw or None
 
 
-def parse_number(raw: str) -> float:
+def parse_number(raw: str, field: str = "") -> float:
     """A typed decimal number as a float, or ValueError with a message for the person.
 
     The one place a typed number is read, so a magnitude is never changed on the way:
     a decimal comma is read as a point ("1,5" is 1.5); anything a thousands separator
     could be part of is refused rather than guessed ("1,500", "1.234,5", "1,234.5",
     "1 500"), and so are Python's digit underscores ("1_5" would silently be 15).
+    A non-zero number too small for a float ("1e-400") is refused, not read as 0;
+    ``field`` (the field's label) names the field in that message.
     """
     if len(raw) > MAX_NUMBER_CHARS:
         raise ValueError(f"Too long for a number: at most {MAX_NUMBER_CHARS} characters.")
@@ -73,6 +75,10 @@ def parse_number(raw: str) -> float:
         raise ValueError(f"Not a number: {raw!r}. Type digits, e.g. 12.5.") from None
     if not math.isfinite(value):
         raise ValueError(f"{raw!r} is not allowed: type a finite number, e.g. 12.5.")
+    if underflows_to_zero(text, value):
+        subject = f"{field}: " if field else ""
+        raise ValueError(f"{subject}{raw!r} is too small to represent (it would be stored "
+                         "as 0); type 0 for zero or use a larger unit.")
     return value
 
 
@@ -100,7 +106,7 @@ class NumberField(FloatField):
         self.data = None
         if raw is None:
             return
-        self.data = self.check(raw, parse_number(raw))
+        self.data = self.check(raw, parse_number(raw, str(self.label.text).strip()))
 
     def check(self, raw: str, value: float) -> float:
         """Hook for a subclass's range; returns the value kept."""
@@ -211,7 +217,9 @@ class ChoiceField(SelectField):
         labels = [str(c.label) for c in self.iter_choices()
                   if not str(c.label).startswith("—")]
         shown = ", ".join(labels[:12]) + (", …" if len(labels) > 12 else "")
-        self.invalid_choice_message = f"Not one of the choices; choose one of: {shown}."
+        self.invalid_choice_message = (
+            f"Not one of the choices; choose one of: {shown}." if labels
+            else "Not one of the choices: there is nothing to choose from here yet.")
         super().pre_validate(form)
 
 

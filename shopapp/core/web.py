@@ -8,6 +8,7 @@ request-aware code below the features (docs/architecture.md).
 
 from __future__ import annotations
 
+import datetime as dt
 import functools
 import re
 from collections.abc import Callable, Sequence
@@ -21,6 +22,7 @@ from sqlalchemy import Select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
+from shopapp.core.display import counted
 from shopapp.core.errors import AlreadySaved, ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import OnceForm, apply_errors
@@ -68,6 +70,12 @@ def get_or_404(session: Session, model: type[M], ident: int) -> M:
 def page_size() -> int:
     """Rows per list page (setting ``PAGE_SIZE``)."""
     return int(current_app.config.get("PAGE_SIZE", 25))
+
+
+def session_end_notice(lifetime: dt.timedelta) -> str:
+    """How long a session lasts, as the login page and the ended-session page say it."""
+    minutes = int(lifetime.total_seconds() // 60)
+    return f"A session ends after {counted(minutes, 'minute')} without use."
 
 
 def safe_next(target: str | None, fallback: str) -> str:

@@ -169,6 +169,14 @@ def _drill(plane: int, parts: Sequence[tuple[int | None, float, float]], rt: Rot
     return tuple(plans), "", notes
 
 
+def _in_plane(plane: int, warning: str) -> str:
+    """A warning of the numerics (which know no plane) as the page shows it: both planes
+    may say the same words, so each names its plane."""
+    if warning.startswith("Plane "):
+        return warning
+    return f"Plane {plane}: {warning[:1].lower()}{warning[1:]}"
+
+
 def plane_method(rt: RotorType, plane: int) -> str:
     """The rotor type's correction method in ``plane`` (plane 2 takes plane 1's method
     when it has none of its own)."""
@@ -205,12 +213,13 @@ def plane_advice(
         else:
             res = positions.split_to_positions(mass, angle, count, first)
             split = res.parts
-            warnings.extend(res.warnings)
+            warnings.extend(_in_plane(plane, w) for w in res.warnings)
     fit = None
     if action == "add" and mass > 0.0:
         fit = positions.plan_trim(vector_g, on_rotor, positions=fixed, first_position_deg=first,
                                   available_g=rt.stock_weights_g or None)
-        warnings.extend(w for w in fit.warnings if w not in warnings)
+        warnings.extend(w for w in (_in_plane(plane, x) for x in fit.warnings)
+                        if w not in warnings)
     drill: tuple[removal.DrillPlan, ...] = ()
     refusal = ""
     notes: list[str] = []
@@ -226,7 +235,8 @@ def plane_advice(
                                            density)
             notes.insert(0, density_note)
             for d in drill:
-                warnings.extend(w for w in d.warnings if w not in warnings)
+                warnings.extend(w for w in (_in_plane(plane, x) for x in d.warnings)
+                                if w not in warnings)
     if method == "both":
         warnings.append(f"Plane {plane} allows adding or removing: removing the same mass at "
                         f"{normalize_deg(add_angle + 180.0):.0f}° (internal) works as well.")

@@ -195,7 +195,7 @@ def book_in(
     serial = _text(e, "serial_number", serial_number, max_len=100, required=True)
     machine = session.get(Machine, machine_id) if isinstance(machine_id, int) else None
     if machine is None:
-        e.add("machine_id", "choose the balancing machine")
+        e.add("machine_id", "is required: choose the balancing machine")
     elif machine.archived:
         e.add("machine_id", f"{machine.name} is archived")
     rt_pick = session.get(RotorType, rotor_type_id) if isinstance(rotor_type_id, int) else None
@@ -236,7 +236,8 @@ def _book_in_rows(
             e.add("serial_number", f"rotor {rotor.serial_number} is still in the shop on job "
                   f"{open_job.number}")
     elif rt_pick is None and one_off is None:
-        e.add("rotor_type_id", "new serial: choose its rotor type, or give one-off geometry")
+        e.add("rotor_type_id", "is required for a new serial: choose its rotor type, or give "
+              "one-off geometry")
     if earlier is not None and rotor is not None and earlier.rotor_id != rotor.id:
         e.add("return_of_job_id", f"job {earlier.number} was for another rotor")
     e.raise_if_any()

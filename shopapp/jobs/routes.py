@@ -10,6 +10,7 @@ back and show the messages beside the fields (422). Read queries are in
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Callable
 from typing import Any
 
 from flask import Blueprint, abort, flash, redirect, render_template, request, url_for
@@ -388,46 +389,47 @@ def add_run(job_id: int):  # type: ignore[no-untyped-def]
     return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
 
 
+def _strike(job_id: int, model: type[Run] | type[Correction], row_id: int, *, noun: str,
+            form: StrikeForm | StrikeCorrectionForm, form_arg: str,
+            strike: Callable[..., Any], done: Callable[[Any], str], anchor: str):  # type: ignore[no-untyped-def]
+    """Strike out a run or a correction of the job: the row must belong to the job (404
+    otherwise), the reason is checked by ``form``, ``strike`` is the use-case; a refusal
+    draws the job page again with ``form`` (the page's ``form_arg``) and its messages."""
+    sess = db_session()
+    job = get_or_404(sess, Job, job_id)
+    row = get_or_404(sess, model, row_id)
+    if row.job_id != job.id:
+        abort(404, description=f"No such {noun} on this job.")
+    if not form.validate_on_submit():
+        return _render_detail(job_id, status=422, **{form_arg: (row_id, form)})
+    try:
+        strike(sess, job, row, by=acting_user(), reason=form.reason.data or "")
+        sess.commit()
+    except ServiceError as exc:
+        return _failed(job_id, exc, form, **{form_arg: (row_id, form)})
+    flash(done(row), "success")
+    return redirect(url_for("jobs.detail", job_id=job_id) + anchor)
+
+
 @bp.post("/<int:job_id>/runs/<int:run_id>/strike")
 @requires("strike_runs")
 def strike_run(job_id: int, run_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    job = get_or_404(sess, Job, job_id)
-    run = get_or_404(sess, Run, run_id)
-    if run.job_id != job.id:
-        abort(404, description="No such run on this job.")
-    form = StrikeForm(prefix=f"strike-{run_id}")
-    if not form.validate_on_submit():
-        return _render_detail(job_id, status=422, strike_form=(run_id, form))
-    try:
-        runs.strike_run(sess, job, run, by=acting_user(), reason=form.reason.data or "")
-        sess.commit()
-    except ServiceError as exc:
-        return _failed(job_id, exc, form, strike_form=(run_id, form))
-    flash(f"Run {run.seq} struck out: it stays in the log and counts for nothing.", "success")
-    return redirect(url_for("jobs.detail", job_id=job_id) + "#runs")
+    return _strike(
+        job_id, Run, run_id, noun="run", form=StrikeForm(prefix=f"strike-{run_id}"),
+        form_arg="strike_form", strike=runs.strike_run, anchor="#runs",
+        done=lambda run: f"Run {run.seq} struck out: it stays in the log and counts for nothing.")
 
 
 @bp.post("/<int:job_id>/corrections/<int:correction_id>/strike")
 @requires("strike_runs")
 def strike_correction(job_id: int, correction_id: int):  # type: ignore[no-untyped-def]
-    sess = db_session()
-    job = get_or_404(sess, Job, job_id)
-    corr = get_or_404(sess, Correction, correction_id)
-    if corr.job_id != job.id:
-        abort(404, description="No such correction on this job.")
-    form = StrikeCorrectionForm(prefix=f"strike-c{correction_id}")
-    if not form.validate_on_submit():
-        return _render_detail(job_id, status=422, strike_corr_form=(correction_id, form))
-    try:
-        corrections.strike_correction(sess, job, corr, by=acting_user(),
-                                      reason=form.reason.data or "")
-        sess.commit()
-    except ServiceError as exc:
-        return _failed(job_id, exc, form, strike_corr_form=(correction_id, form))
-    flash(f"Correction struck out (plane {corr.plane}, {quantity(corr.mass_g, 'g')}): it stays "
-          "listed and counts for nothing.", "success")
-    return redirect(url_for("jobs.detail", job_id=job_id) + "#applied")
+    return _strike(
+        job_id, Correction, correction_id, noun="correction",
+        form=StrikeCorrectionForm(prefix=f"strike-c{correction_id}"),
+        form_arg="strike_corr_form", strike=corrections.strike_correction, anchor="#applied",
+        done=lambda corr: (f"Correction struck out (plane {corr.plane}, "
+                           f"{quantity(corr.mass_g, 'g')}): it stays listed and counts "
+                           "for nothing."))
 
 
 @bp.post("/<int:job_id>/corrections/<int:plane>")

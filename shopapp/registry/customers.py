@@ -59,11 +59,11 @@ def _check_name(session: Session, e: checks.Errors, name: str, exclude_id: int |
     other = session.scalars(stmt.limit(1)).first()
     if other is not None:
         where = " (archived: unarchive it instead)" if other.archived else ""
-        e.add("name", f"a customer called {other.name!r} already exists{where}")
+        e.add("name", f"A customer called {other.name!r} already exists{where}.")
 
 
 def _taken(name: str) -> str:
-    return f"a customer called {name!r} already exists"
+    return f"A customer called {name!r} already exists."
 
 
 def create_customer(

@@ -103,13 +103,13 @@ def _clean_machine(
             stmt = stmt.where(Machine.id != exclude_id)
         other = session.scalar(stmt.limit(1))
         if other is not None:
-            e.add("name", f"a machine called {other!r} already exists; machine names are unique")
+            e.add("name", f"A machine called {other!r} already exists; machine names are unique.")
     e.raise_if_any()
     return out
 
 
 def _taken(name: str) -> str:
-    return f"a machine called {name!r} already exists"
+    return f"A machine called {name!r} already exists."
 
 
 def create_machine(session: Session, *, by: User, **values: Any) -> Machine:

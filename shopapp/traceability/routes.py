@@ -17,7 +17,7 @@ from typing import Any
 from flask import Blueprint, abort, flash, redirect, render_template, request, url_for
 from flask_login import current_user
 
-from shopapp.core.display import ShopDisplay, plain
+from shopapp.core.display import ShopDisplay, counted, plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import apply_errors
@@ -106,7 +106,8 @@ def proving_test(machine_id: int):  # type: ignore[no-untyped-def]
     posted = request.method == "POST"
     form = ProvingTestForm() if posted else ProvingTestForm(formdata=None)
     form.proving_rotor_id.choices = options([
-        (r.id, f"{r.name} ({plain(r.mass_kg)} kg, {r.planes} plane(s), {r.positions} positions)")
+        (r.id, f"{r.name} ({plain(r.mass_kg)} kg, {counted(r.planes, 'plane')}, "
+               f"{counted(r.positions, 'position')})")
         for r in rotors])
     pick = form.proving_rotor_id.data if posted else request.args.get("rotor", type=int)
     proposed = verifications.proposed_proving_rotor(m, rotors)

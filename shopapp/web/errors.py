@@ -9,15 +9,16 @@ error page itself cannot fail and still carries the security headers.
 from __future__ import annotations
 
 import logging
+from urllib.parse import urlsplit
 
-from flask import Flask, flash, redirect, render_template, request
+from flask import Flask, current_app, flash, redirect, render_template, request, session, url_for
 from flask_wtf.csrf import CSRFError
 from sqlalchemy.exc import DBAPIError, OperationalError
 from werkzeug.exceptions import HTTPException
 
 from shopapp.core.errors import AlreadySaved, ServiceError, error_body
 from shopapp.core.extensions import discard_db_session
-from shopapp.core.web import ALREADY_SAVED_MESSAGE
+from shopapp.core.web import ALREADY_SAVED_MESSAGE, safe_next, session_end_notice
 
 log = logging.getLogger("shopapp.web")
 
@@ -29,14 +30,16 @@ def _wants_json() -> bool:
     return request.path.startswith("/api/") or request.accept_mimetypes.best == "application/json"
 
 
-def _page(status: int, title: str, message: str, *, plain: bool = False):  # type: ignore[no-untyped-def]
+def _page(status: int, title: str, message: str, *, plain: bool = False,  # type: ignore[no-untyped-def]
+          login_url: str | None = None):
     if request.path.startswith("/api/"):
         # Paths under /api that match no API route: the API's one error shape.
         return error_body(status, message or title), status
     if _wants_json():
         return {"error": {"code": status, "title": title, "message": message}}, status
     template = "error_plain.html" if plain else "error.html"
-    return render_template(template, status=status, title=title, message=message), status
+    return render_template(template, status=status, title=title, message=message,
+                           login_url=login_url), status
 
 
 def _is_busy(exc: DBAPIError) -> bool:
@@ -49,6 +52,15 @@ def _is_busy(exc: DBAPIError) -> bool:
 def register_error_pages(app: Flask) -> None:
     @app.errorhandler(CSRFError)
     def _csrf(exc: CSRFError):  # type: ignore[no-untyped-def]
+        if "_user_id" not in session and request.path != url_for("auth.login"):
+            # No login in the session: it ran out while the page was open (the browser
+            # dropped the expired cookie), so the form's token has nothing to match.
+            back = safe_next(urlsplit(request.referrer or "").path or None, "/")
+            return _page(400, "Your session had ended: nothing was saved", (
+                "Your session had ended, so what this form sent was not saved. "
+                + session_end_notice(current_app.config["PERMANENT_SESSION_LIFETIME"])
+                + " Log in again, then enter it once more."),
+                login_url=url_for("auth.login", next=back))
         return _page(
             400, "Form expired or forged", f"{exc.description} Reload the page and try again."
         )

@@ -63,34 +63,49 @@ class BoundedId(IntegerConverter):
         super().__init__(map, *args, **kwargs)
 
 
-def _first_bad(values: Any, pattern: re.Pattern[str]) -> str | None:
+_BIDI = re.compile(f"[{BIDI_CONTROL}]")
+
+
+def _bad_character(key: str, value: Any, pattern: re.Pattern[str]) -> str | None:
+    """The first character ``pattern`` refuses in a field's name or value."""
+    found = pattern.search(key) or (isinstance(value, str) and pattern.search(value))
+    return found.group() if found else None
+
+
+def _first_bad(values: Any, pattern: re.Pattern[str]) -> tuple[str, str] | None:
+    """The first field holding a character ``pattern`` refuses, and that character."""
     for key, value in values.items(multi=True):
-        if pattern.search(key) or (isinstance(value, str) and pattern.search(value)):
-            return key
+        character = _bad_character(key, value, pattern)
+        if character is not None:
+            return key, character
     return None
 
 
-def _refusal(field: str, *, left_out: bool = False) -> str:
+def _refusal(field: str, character: str, *, left_out: bool = False) -> str:
+    """The message naming the field and the character found in it (its code point and
+    kind: a NUL, another control code, or a text-direction control)."""
     shown = _QUERY_CONTROL.sub("?", field)[:40]
+    kind = ("a text-direction control" if _BIDI.match(character)
+            else "NUL" if character == "\x00" else "a control code")
     what = ", so it was left out of this page" if left_out else ""
-    return (f"The field {shown!r} contains a control character (such as NUL){what}; type "
-            "plain text and try again.")
+    return (f"The field {shown!r} contains a control character (U+{ord(character):04X}, "
+            f"{kind}){what}; type plain text and try again.")
 
 
 def _leave_out_query_fields() -> None:
     """A page asked for with a control character in its query: the fields holding one
     are left out and the page says so above its content (``g.query_refusals``), rather
     than a whole-page 400 that loses the page. A search box or filter reads as empty."""
-    kept, refused = [], []
+    kept, refused = [], {}
     for key, value in request.args.items(multi=True):
-        if _QUERY_CONTROL.search(key) or (isinstance(value, str) and _QUERY_CONTROL.search(value)):
-            if key not in refused:
-                refused.append(key)
+        character = _bad_character(key, value, _QUERY_CONTROL)
+        if character is not None:
+            refused.setdefault(key, character)
         else:
             kept.append((key, value))
     # Werkzeug's cached property takes the replacement; every view reads this one.
     request.args = ImmutableMultiDict(kept)  # type: ignore[misc]
-    g.query_refusals = [_refusal(key, left_out=True) for key in refused]
+    g.query_refusals = [_refusal(key, ch, left_out=True) for key, ch in refused.items()]
 
 
 def _refuse_query_outside_pages(response: Response) -> Response:
@@ -110,7 +125,7 @@ def _refuse_query_outside_pages(response: Response) -> Response:
 def _no_write_with_control_characters(session: Session, *_: Any) -> None:
     """before_flush: a form post holding a control character writes nothing."""
     if has_request_context() and "control_character_field" in g:
-        raise BadRequest(description=_refusal(g.control_character_field))
+        raise BadRequest(description=_refusal(*g.control_character_field))
 
 
 def register_guards(app: Flask) -> None:
@@ -124,14 +139,14 @@ def register_guards(app: Flask) -> None:
         bad = _first_bad(request.args, _QUERY_CONTROL)
         if bad is not None:
             if request.method != "GET" or "api" in request.blueprints:
-                abort(400, description=_refusal(bad))
+                abort(400, description=_refusal(*bad))
             _leave_out_query_fields()
         if request.method in ("POST", "PUT", "PATCH") and not request.is_json:
             bad = _first_bad(request.form, FORM_CONTROL)
             if bad is None:
                 return
             if "api" in request.blueprints:  # the JSON API answers 400 with the field named
-                abort(400, description=_refusal(bad))
+                abort(400, description=_refusal(*bad))
             # The view draws its form again with the refusal beside the field.
             g.control_character_field = bad
 

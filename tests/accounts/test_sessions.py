@@ -111,3 +111,53 @@ def test_the_login_page_says_how_long_a_session_lasts_without_use(app, client) -
     minutes = int(app.config["PERMANENT_SESSION_LIFETIME"].total_seconds() // 60)
     page = client.get("/jobs", follow_redirects=True).get_data(as_text=True)
     assert f"A session ends after {minutes} minutes without use." in page
+
+
+def test_a_one_minute_session_is_said_in_the_singular(tmp_path) -> None:
+    # The walk (SHOPAPP_SESSION_LIFETIME_MINUTES=1): "A session ends after 1 minutes".
+    from shopapp import create_app
+
+    app = create_app({"INSTANCE_PATH": str(tmp_path), "SECRET_KEY": "test-only-secret",
+                      "DATABASE_URL": f"sqlite:///{tmp_path}/a.db",
+                      "SESSION_LIFETIME_MINUTES": 1})
+    message = app.login_manager.login_message  # type: ignore[attr-defined]
+    assert "A session ends after 1 minute without use." in message
+
+
+def test_a_form_sent_after_the_session_ended_says_so_and_saves_nothing(
+        app, client, login_as, db, shop) -> None:
+    # The walk: a run typed, the session ran out, "Log run" answered "Form expired or
+    # forged: The CSRF session token is missing" - nothing about the session or the run.
+    import html
+
+    from sqlalchemy import func, select
+
+    from shopapp.models import Run
+
+    login_as("operator")
+    job = shop.job()
+    db.commit()
+    with client.session_transaction() as sess:
+        sess.clear()  # what the browser sends once the session cookie has expired
+    resp = client.post(f"/jobs/{job.id}/runs", data={
+        "run-purpose": "initial", "run-speed_rpm": "1000", "run-unit": "g·mm",
+        "run-amplitude_1": "10", "run-angle_1_deg": "10"})
+    page = html.unescape(resp.get_data(as_text=True))
+    minutes = int(app.config["PERMANENT_SESSION_LIFETIME"].total_seconds() // 60)
+    assert resp.status_code == 400
+    assert "Your session had ended" in page and "was not saved" in page
+    assert f"A session ends after {minutes} minutes without use" in page
+    assert "CSRF" not in page
+    assert 'href="/login?next=' in page
+    assert db.scalar(select(func.count()).select_from(Run).where(Run.job_id == job.id)) == 0
+
+
+def test_a_forged_form_in_a_live_session_is_still_refused_as_such(client, login_as, shop,
+                                                                   db) -> None:
+    login_as("operator")
+    job = shop.job()
+    db.commit()
+    resp = client.post(f"/jobs/{job.id}/runs", data={"csrf_token": "not-the-token",
+                                                     "run-purpose": "initial"})
+    assert resp.status_code == 400
+    assert "Form expired or forged" in resp.get_data(as_text=True)

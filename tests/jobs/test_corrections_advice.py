@@ -543,3 +543,19 @@ def test_a_control_character_in_a_hidden_field_is_said_above_the_form(
     assert any("control character" in m for m in alert), alert
     db.expire_all()
     assert db.get(Job, job.id).corrections == []
+
+
+def test_a_drilling_warning_names_its_plane(shop) -> None:
+    # The walk: both planes of a remove-only rotor needed two holes, and the page showed
+    # "One hole would exceed the 30 mm depth limit; 2 holes at 11.5° pitch are needed."
+    # twice, word for word, without saying which plane either was about.
+    from shopapp.jobs.advice import plane_advice
+
+    rt = shop.rotor_type(method_1="remove", method_2="remove", density_g_cm3=2.7,
+                         radius_1_mm=75.0, radius_2_mm=75.0)
+    for plane in (1, 2):
+        a = plane_advice(plane, _v(10.7, 210.0), rt, 75.0, 10.0)
+        assert a.drill and a.drill[0].holes > 1  # 10.7 g of aluminium: more than one hole
+        about_holes = [w for w in a.warnings if "depth limit" in w]
+        assert about_holes, a.warnings
+        assert all(w.startswith(f"Plane {plane}: one hole would exceed") for w in about_holes)

@@ -175,7 +175,8 @@ def test_a_control_character_in_the_intake_is_refused_and_nothing_saved(
         ({"balancing_speed_rpm": "nan"}, "finite number"),
         ({"balancing_speed_rpm": "-600"}, "must be greater than 0"),
         ({"serial_number": ""}, "serial number"),
-        ({"machine_id": "0"}, "choose the balancing machine"),
+        # Before: "Machine choose the balancing machine" (the label before an imperative).
+        ({"machine_id": "0"}, "Machine is required: choose the balancing machine"),
         ({"machine_id": "abc"}, "Not one of the choices"),
         ({"tolerance_method": "4w/n"}, "journal_load_a_kg"),
         ({"tolerance_grade": "7"}, "Not one of the choices"),
@@ -183,7 +184,8 @@ def test_a_control_character_in_the_intake_is_refused_and_nothing_saved(
         ({"promised_on": "2026-01-01"}, "before the job is received"),
         # A new customer has no rotor types yet, so none is chosen (the list is narrowed).
         ({"customer_id": "0", "new_customer_name": "", "rotor_type_id": "0"}, "is required"),
-        ({"rotor_type_id": "0"}, "choose its rotor type"),
+        ({"rotor_type_id": "0"}, "part number) is required for a new serial: choose its "
+                                 "rotor type, or give one-off geometry"),
         ({"notes": "x" * 6000}, "Field cannot be longer"),
         ({"one_off-mass_kg": "1e999", "rotor_type_id": "0"}, "finite number"),
     ],

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import html
 
 import pytest
 from sqlalchemy import func, select
@@ -117,7 +118,9 @@ def test_duplicate_name_and_edit(client, login_as, shop, db):
     login_as("quality")
     assert 'value="Bay 2"' in client.get(f"/machines/{other.id}/edit").get_data(as_text=True)
     resp = client.post(f"/machines/{other.id}/edit", data=FORM | {"name": "bay 1"})
-    assert resp.status_code == 422 and "already exists" in resp.get_data(as_text=True)
+    page = html.unescape(resp.get_data(as_text=True))
+    assert resp.status_code == 422 and "A machine called 'Bay 1' already exists" in page
+    assert "Name a machine" not in page  # before: the label in front of a clause
     resp = client.post(f"/machines/{other.id}/edit", data=FORM | {"name": "Bay 2b"})
     assert resp.status_code == 302
     db.refresh(other)

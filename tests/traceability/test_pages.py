@@ -62,6 +62,17 @@ def test_register_lists_every_machine_with_its_standing(client, login_as, shop, 
     assert "run a proving test" not in page  # operators do not verify machines
 
 
+def test_proving_rotor_choice_counts_planes_in_words(client, login_as, shop, db,
+                                                    proving_rotor) -> None:  # type: ignore[no-untyped-def]
+    # Before: "PR-web (10 kg, 1 plane(s), 8 positions)".
+    m = shop.machine(name="Bay W")
+    db.commit()
+    login_as("quality")
+    page = _plain(client.get(f"/traceability/machines/{m.id}/proving-test"))
+    assert "PR-web (10 kg, 1 plane, 8 positions)" in page
+    assert "plane(s)" not in page
+
+
 def test_proving_test_computes_before_it_saves(client, login_as, shop, db, proving_rotor) -> None:  # type: ignore[no-untyped-def]
     m = shop.machine(name="Bay P", claimed_emar_gmm_per_kg=0.5)  # claim 5 g·mm on 10 kg
     db.commit()

@@ -56,20 +56,25 @@ def test_a_control_character_in_an_api_form_post_is_a_400_naming_the_field(clien
     assert "'notes' contains a control character" in html.unescape(resp.get_data(as_text=True))
 
 
-@pytest.mark.parametrize(("url", "field", "page"), [
-    ("/verify?q=a%00b", "q", "Verify"), ("/jobs/?q=%00", "q", "Jobs"),
-    ("/customers/?q=x%01y", "q", "Customers"), ("/dashboard?period=year%01", "period", "Shop"),
-    ("/jobs/?state=on_machine&q=a%7fb", "q", "Jobs")])
+@pytest.mark.parametrize(("url", "field", "page", "character"), [
+    ("/verify?q=a%00b", "q", "Verify", "U+0000, NUL"), ("/jobs/?q=%00", "q", "Jobs", "U+0000, NUL"),
+    ("/customers/?q=x%01y", "q", "Customers", "U+0001, a control code"),
+    ("/dashboard?period=year%01", "period", "Shop", "U+0001, a control code"),
+    ("/jobs/?state=on_machine&q=a%7fb", "q", "Jobs", "U+007F, a control code"),
+    # Before: a right-to-left override was called "a control character (such as NUL)".
+    ("/verify?n=%E2%80%AEBC", "n", "Verify", "U+202E, a text-direction control"),
+    ("/jobs/?q=a%E2%81%A6b", "q", "Jobs", "U+2066, a text-direction control")])
 def test_a_control_character_in_a_query_draws_the_page_naming_the_field(
-        client, login_as, url: str, field: str, page: str) -> None:
+        client, login_as, url: str, field: str, page: str, character: str) -> None:
     # Before: a whole-page 400 (the list or dashboard was lost for a stray character).
     login_as("quality")
     resp = client.get(url)
     body = html.unescape(resp.get_data(as_text=True))
     assert resp.status_code == 422
     assert body.count("contains a control character") == 1
-    assert (f"The field '{field}' contains a control character (such as NUL), so it was left "
+    assert (f"The field '{field}' contains a control character ({character}), so it was left "
             "out of this page") in body
+    assert "such as NUL" not in body
     assert "<main>" in body and page in body  # the page itself, not the error page
 
 
@@ -83,6 +88,14 @@ def test_a_control_character_in_a_download_or_api_query_is_still_a_400(
     assert resp.status_code == 400
     assert "'" + url.split("?")[1].split("=")[0] + "' contains a control character" in \
         html.unescape(resp.get_data(as_text=True))
+
+
+def test_a_download_refusal_names_a_direction_override_as_such(client, login_as) -> None:
+    login_as("owner")
+    resp = client.get("/dashboard.csv?table=headline%E2%80%AE")
+    body = html.unescape(resp.get_data(as_text=True))
+    assert resp.status_code == 400
+    assert "'table' contains a control character (U+202E, a text-direction control)" in body
 
 
 def test_a_control_character_in_a_number_field_gives_one_message(app) -> None:

@@ -89,3 +89,56 @@ def test_number_inputs_reach_the_server_as_typed(app) -> None:
         html = str(form.value()) + str(form.angle())
     assert 'type="number"' not in html
     assert html.count('type="text"') == 2 and html.count('inputmode="decimal"') == 2
+
+
+@pytest.mark.parametrize("typed", ["1e-400", "-1e-400", "0.1e-330", "2e-324"])
+def test_a_typed_non_zero_that_underflows_to_zero_is_refused(typed: str) -> None:
+    # Before: "1e-400" was read as 0 (a typed non-zero value silently became zero)
+    # while "1e400" was refused. IEEE 754 doubles: the smallest positive subnormal is
+    # about 4.9e-324, anything smaller rounds to 0 (common practice, no source).
+    with pytest.raises(ValueError, match="too small to represent"):
+        parse_number(typed)
+
+
+@pytest.mark.parametrize("typed", ["0", "0.0", "-0", "0,0", "0e5", "-0.000"])
+def test_a_typed_zero_stays_zero(typed: str) -> None:
+    assert parse_number(typed) == 0.0
+
+
+def test_the_underflow_message_names_the_field(app) -> None:
+    form = _form(app, value="1e-400", angle="10")
+    assert form.value.data is None
+    assert form.value.errors == ["Value: '1e-400' is too small to represent (it would be "
+                                 "stored as 0); type 0 for zero or use a larger unit."]
+
+
+def test_a_use_case_check_refuses_a_typed_number_that_underflows() -> None:
+    # Forms hand what parse_number refused on to the use-case unchanged (the traceability
+    # forms do); float("1e-400") there was 0.0 and was saved as zero.
+    from shopapp.core.checks import Errors, number
+
+    e = Errors()
+    assert number(e, "start_deg", "1e-400") is None
+    assert e == {"start_deg": "is too small to represent, got '1e-400' (it would be stored "
+                              "as 0)"}
+    ok = Errors()
+    assert number(ok, "start_deg", "-0") == 0.0 and not ok
+
+
+def test_a_refused_choice_with_nothing_to_choose_says_so(app) -> None:
+    # The walk: a new customer has no rotor types yet; a tampered rotor type answered
+    # "Not one of the choices; choose one of: ." (an empty list).
+    from shopapp.core.forms import ChoiceField
+
+    class _Pick(FlaskForm):
+        class Meta:
+            csrf = False
+
+        rotor_type_id = ChoiceField("Rotor type", coerce=int,
+                                    choices=[(0, "— none: one-off geometry —")])
+
+    with app.test_request_context():
+        form = _Pick(formdata=MultiDict({"rotor_type_id": "-5"}))
+        assert not form.validate()
+    assert form.rotor_type_id.errors == ["Not one of the choices: there is nothing to choose "
+                                         "from here yet."]
