@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Any
 
 HERE = Path(__file__).resolve().parent
-PARTS = ("calc", "certificate", "dashboard", "joblist", "firststart", "load")
+PARTS = ("calc", "certificate", "dashboard", "joblist", "firststart", "generator", "load")
 
 
 def _run(part: str) -> Any:
