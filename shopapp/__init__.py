@@ -43,6 +43,10 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     app.config["PERMANENT_SESSION_LIFETIME"] = dt.timedelta(
         minutes=int(cfg["SESSION_LIFETIME_MINUTES"])
     )
+    # A form's anti-forgery token lives as long as the session it is kept in (the session
+    # ends after SESSION_LIFETIME_MINUTES without use). Flask-WTF's own one-hour limit
+    # refused a run typed before lunch, and a login page left open, as "expired or forged".
+    app.config["WTF_CSRF_TIME_LIMIT"] = None
     # Flask's defaults already hold these keys, so setdefault would never apply them.
     app.config["SESSION_COOKIE_HTTPONLY"] = True
     app.config["SESSION_COOKIE_SAMESITE"] = cfg.get("SESSION_COOKIE_SAMESITE") or "Lax"

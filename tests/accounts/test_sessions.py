@@ -161,3 +161,46 @@ def test_a_forged_form_in_a_live_session_is_still_refused_as_such(client, login_
                                                      "run-purpose": "initial"})
     assert resp.status_code == 400
     assert "Form expired or forged" in resp.get_data(as_text=True)
+
+
+def _ninety_minutes_later(monkeypatch) -> None:
+    """Signed tokens and cookies are read as if an hour and a half had passed (lunch)."""
+    import itsdangerous.timed
+
+    real = itsdangerous.timed.TimestampSigner.get_timestamp
+    monkeypatch.setattr(itsdangerous.timed.TimestampSigner, "get_timestamp",
+                        lambda self: real(self) + 90 * 60)
+
+
+def test_a_form_left_open_over_lunch_is_saved_while_the_session_lives(
+        app, client, login_as, db, shop, monkeypatch) -> None:
+    # A session lasts 8 hours without use (config default); a form's anti-forgery token
+    # expired after one hour on its own (Flask-WTF's default), so a run typed before lunch
+    # and sent after it was refused as "expired or forged" and lost. The token now lives
+    # as long as the session it belongs to.
+    from sqlalchemy import func, select
+
+    from shopapp.models import Run
+
+    assert app.config["PERMANENT_SESSION_LIFETIME"].total_seconds() > 90 * 60
+    login_as("operator")
+    job = shop.job()
+    db.commit()
+    client.refresh_csrf(f"/jobs/{job.id}")
+    _ninety_minutes_later(monkeypatch)
+    resp = client.post(f"/jobs/{job.id}/runs", data={
+        "run-purpose": "initial", "run-speed_rpm": "1000", "run-unit": "g·mm",
+        "run-amplitude_1": "10", "run-angle_1_deg": "10",
+        "run-amplitude_2": "12", "run-angle_2_deg": "20"})
+    assert resp.status_code in (302, 303), resp.get_data(as_text=True)[:500]
+    assert db.scalar(select(func.count()).select_from(Run).where(Run.job_id == job.id)) == 1
+
+
+def test_a_login_page_left_open_over_lunch_still_logs_in(app, client, make_user,
+                                                         monkeypatch) -> None:
+    user = make_user("operator")
+    client.refresh_csrf("/login")
+    _ninety_minutes_later(monkeypatch)
+    resp = client.post("/login", data={"username": user.username, "password": PASSWORD})
+    assert resp.status_code == 302, resp.get_data(as_text=True)[:500]
+    assert client.get("/").status_code == 200
