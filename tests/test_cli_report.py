@@ -102,7 +102,7 @@ def test_rotor_history_pdf(seeded, tmp_path) -> None:  # type: ignore[no-untyped
     result = run("report", "rotor-history", seeded["serial"], "--customer",
                  seeded["customer"].upper(), "--output", str(out))
     assert result.exit_code == 0, result.output
-    assert "1 visit(s)" in result.output
+    assert "1 visit of serial" in result.output
     text = "\n".join(p.extract_text() for p in pypdf.PdfReader(str(out)).pages)
     assert seeded["serial"] in text and seeded["number"] in text
     missing = run("report", "rotor-history", "NO-SUCH", "-o", str(tmp_path / "n.pdf"))

@@ -34,7 +34,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from shopapp.certificates import issue as services
-from shopapp.core.display import plain
+from shopapp.core.display import counted, plain
 from shopapp.core.errors import TransitionRefused
 from shopapp.models import Certificate, Job, User
 from shopapp.reports import certificate as report
@@ -264,8 +264,8 @@ def check_certificates(session: Session) -> IntegrityReport:
         session.expunge_all()  # nothing is written; keep memory flat over a long register
     notes = []
     if angles_skipped:
-        notes.append(f"angles and correction details were not compared on {angles_skipped} "
-                     "valid certificate(s): the shop's angle convention or unit changed after "
-                     "they were issued")
+        notes.append("angles and correction details were not compared on "
+                     f"{counted(angles_skipped, 'valid certificate')}: the shop's angle "
+                     "convention or unit changed after they were issued")
     return IntegrityReport(len(ids), issued, tuple(findings), tuple(notes))
 

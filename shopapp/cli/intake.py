@@ -16,6 +16,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from shopapp.cli.common import app_db, one_line_errors
+from shopapp.core.display import counted
 from shopapp.core.errors import NotFound, ValidationFailed
 from shopapp.intake import files, folder, imports
 from shopapp.models import Machine, User
@@ -85,7 +86,7 @@ def file_command(path: Path, machine_name: str | None, username: str, dry_run: b
             _print_plan(exc.plan)
             raise click.ClickException("the file was refused; nothing was written") from None
     _print_plan(plan)
-    click.echo(f"imported {len(plan.runs)} run(s)")
+    click.echo(f"imported {counted(len(plan.runs), 'run')}")
 
 
 def _one(path: Path, machine_name: str, username: str) -> str:
@@ -124,7 +125,7 @@ def _one(path: Path, machine_name: str, username: str) -> str:
     folder.move_done(path, sha)
     if earlier is not None:
         return f"{path.name}: already imported ({earlier.outcome}); moved to {folder.DONE}/"
-    return f"{path.name}: imported {len(plan.runs)} run(s)"
+    return f"{path.name}: imported {counted(len(plan.runs), 'run')}"
 
 
 @intake_group.command("watch", help="Import every new file in DIR with --machine's mapping "

@@ -26,6 +26,7 @@ from shopapp.certificates import pdfsign, register, signing
 from shopapp.certificates import queries as certificates
 from shopapp.cli.common import app_db, one_line_errors
 from shopapp.cli.report_shop import shop_command
+from shopapp.core.display import counted
 from shopapp.jobs import rotor_history
 from shopapp.reports import rotor_history as history_report
 
@@ -124,8 +125,8 @@ def rotor_history_command(serial: str, customer: str | None, output: Path) -> No
         rotor = rotor_history.find_rotor(sess, serial, customer=customer)
         data = rotor_history.build(sess, rotor)
     _write(output, history_report.render(data))
-    click.echo(f"wrote {output}: {len(data.visits)} visit(s) of serial {data.serial_number} "
-               f"({data.customer_name})")
+    click.echo(f"wrote {output}: {counted(len(data.visits), 'visit')} of serial "
+               f"{data.serial_number} ({data.customer_name})")
     if data.growth_note:
         click.echo(data.growth_note)
 

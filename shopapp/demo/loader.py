@@ -31,6 +31,7 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.numtext import short
 from shopapp.certificates import issue as cert_service
+from shopapp.core.display import counted
 from shopapp.core.errors import ValidationFailed
 from shopapp.demo import physics as ph
 from shopapp.demo.days import at
@@ -289,7 +290,8 @@ def demo_tag(session: Session, force: bool) -> str:
         return ""
     if not force:
         raise DemoRefused(
-            f"the database already holds {has_customers} customer(s) and {has_jobs} job(s); "
+            f"the database already holds {counted(has_customers, 'customer')} and "
+            f"{counted(has_jobs, 'job')}; "
             "the demo shop loads only into an empty shop (use --force to add it beside the "
             "existing data under distinct names; nothing is deleted)"
         )

@@ -27,7 +27,7 @@ from typing import Any
 
 from shopapp.balancing.phasors import from_display_deg
 from shopapp.core.checks import day_refusal
-from shopapp.core.display import plain
+from shopapp.core.display import counted, plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.forms import parse_number
 from shopapp.models import READING_UNITS, RUN_PURPOSES
@@ -312,7 +312,7 @@ def parse_csv(data: bytes, layout: Layout) -> ParsedFile:
     lines = text.splitlines()
     header_at = layout.skip_rows  # 0-based index of the header line
     if len(lines) <= header_at:
-        raise refuse(f"the file has {len(lines)} line(s); the header was expected on line "
+        raise refuse(f"the file has {counted(len(lines), 'line')}; the header was expected on line "
                      f"{header_at + 1}")
     reader = csv.reader(io.StringIO("\n".join(lines[header_at:])), delimiter=layout.delimiter,
                         strict=True)

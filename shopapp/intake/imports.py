@@ -27,8 +27,8 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from shopapp.core import audit
+from shopapp.core.display import counted, plain
 from shopapp.core.display import date as show_date
-from shopapp.core.display import plain
 from shopapp.core.errors import PermissionDenied, ServiceError, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.intake import files
@@ -89,7 +89,7 @@ class ImportRefused(ValidationFailed):
         first = plan.why().splitlines()[0] if plan.why() else "nothing to import"
         more = len(plan.refused) - 1
         super().__init__("file", f"{plan.file_name}: {first}"
-                         + (f" (and {more} more refused run(s))" if more > 0 else ""))
+                         + (f" (and {counted(more, 'more refused run')})" if more > 0 else ""))
         self.plan = plan
 
 
@@ -167,7 +167,7 @@ def _record(session: Session, row: files.Row, job: Job, machine: Machine | None,
 def _summary(v: dict[str, Any]) -> str:
     planes = 2 if v.get("amplitude_2") is not None else 1
     return (f"{v.get('purpose')} run at {plain(v.get('speed_rpm'))} rpm, "
-            f"{planes} plane(s) in {v.get('unit')}")
+            f"{counted(planes, 'plane')} in {v.get('unit')}")
 
 
 def _read(data: bytes, session: Session, machine: Machine | None) -> files.ParsedFile:
@@ -259,7 +259,7 @@ def import_file(session: Session, data: bytes, *, file_name: str, machine: Machi
     if not plan.ok:
         raise ImportRefused(plan)
     jobs = sorted({r.job_number for r in plan.runs})
-    outcome = f"{len(made)} run(s) into {', '.join(jobs)}"[:1000]
+    outcome = f"{counted(len(made), 'run')} into {', '.join(jobs)}"[:1000]
     imported = ImportedFile(sha256=plan.sha256, file_name=plan.file_name, source=source,
                             machine_id=machine.id if machine is not None else None,
                             by_id=by.id, outcome=outcome)

@@ -23,6 +23,7 @@ from flask import (
     url_for,
 )
 
+from shopapp.core.display import counted
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import apply_errors
@@ -158,7 +159,8 @@ def confirm():  # type: ignore[no-untyped-def]
     pending.drop(current_app.instance_path, sha)
     session.pop(_PREVIEWED, None)
     jobs = ", ".join(sorted({r.job_number for r in plan.runs}))
-    flash(f"Imported {len(plan.runs)} run(s) from {plan.file_name} into {jobs}.", "success")
+    flash(f"Imported {counted(len(plan.runs), 'run')} from {plan.file_name} into {jobs}.",
+          "success")
     return redirect(back)
 
 

@@ -31,6 +31,7 @@ from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import derived_row
 from shopapp.core.checks import text as _text
+from shopapp.core.display import counted
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.jobs import calc as job_calc
@@ -106,8 +107,8 @@ def set_arbor_subtraction(
         raise ValidationFailed("measurement_id", "choose a measured error of the job's arbor")
     planes = job.rotor.rotor_type.planes
     if measurement.planes != planes:
-        raise ValidationFailed("measurement_id", f"that measurement has {measurement.planes} "
-                               f"plane(s); the rotor has {planes}")
+        raise ValidationFailed("measurement_id", "that measurement has "
+                               f"{counted(measurement.planes, 'plane')}; the rotor has {planes}")
     if current is None:
         current = ArborErrorSubtraction(job_id=job.id, measurement_id=measurement.id, by_id=by.id)
         session.add(current)
@@ -206,8 +207,8 @@ def record_error_estimate(
     for k, run in enumerate(runs, start=1):
         vectors.append(traceability._run_phasors(e, f"run_{k}", run, planes))
     if len(runs) < errors_core.MIN_RUNS:
-        e.add("runs", f"{len(runs)} run(s) given; at least {errors_core.MIN_RUNS} repeated runs "
-              "are needed")
+        e.add("runs", f"{counted(len(runs), 'run')} given; at least {errors_core.MIN_RUNS} "
+              "repeated runs are needed")
     e.raise_if_any()
     random_gmm: list[float] = []
     for p in range(planes):

@@ -16,7 +16,7 @@ from flask import Blueprint, abort, flash, redirect, render_template, request, u
 from flask_login import current_user
 
 from shopapp.charts.svg import to_svg
-from shopapp.core.display import ShopDisplay, number, plain
+from shopapp.core.display import ShopDisplay, counted, number, plain
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.forms import apply_errors
@@ -96,7 +96,7 @@ def residual_test(job_id: int):  # type: ignore[no-untyped-def]
         except ValueError:
             plane = 1
     if plane not in range(1, planes + 1):
-        abort(404, description=f"The rotor has {planes} plane(s).")
+        abort(404, description=f"The rotor has {counted(planes, 'plane')}.")
     try:
         advice = residual_tests.suggested_test_masses(job)[plane - 1]
     except ValidationFailed as exc:

@@ -44,7 +44,7 @@ from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import derived_row
 from shopapp.core.checks import number as _num
-from shopapp.core.display import plain, quantity
+from shopapp.core.display import counted, plain, quantity
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import can, require
 from shopapp.jobs import calc as job_calc
@@ -255,7 +255,7 @@ def record_residual_test(
                                 "test is made while the rotor is on the machine or in tolerance")
     planes = job.rotor.rotor_type.planes
     if plane not in range(1, planes + 1):
-        raise ValidationFailed("plane", f"the rotor has {planes} plane(s)")
+        raise ValidationFailed("plane", f"the rotor has {counted(planes, 'plane')}")
     if unit not in READING_UNITS:
         raise ValidationFailed("unit", f"choose one of {', '.join(READING_UNITS)}")
     limits = plane_limits(job)

@@ -21,6 +21,7 @@ from shopapp.core import audit, locks
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import text as _text
+from shopapp.core.display import counted
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.jobs import calc as job_calc
@@ -73,7 +74,8 @@ def _readings(e: _Errors, readings: Sequence[Any], planes: int
             e.add("amplitude_2", "This rotor has one correction plane: leave plane 2 empty.")
             continue
         if plane not in range(1, planes + 1):
-            e.add("readings", f"plane {plane!r} does not exist: this rotor has {planes} plane(s)")
+            e.add("readings", f"plane {plane!r} does not exist: this rotor has "
+                  f"{counted(planes, 'plane')}")
             continue
         if plane in given:
             e.add("readings", f"plane {plane} is given twice")

@@ -9,6 +9,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from shopapp.core import checks
+from shopapp.core.display import counted
 from shopapp.core.permissions import require
 from shopapp.models import Customer, Job, User
 from shopapp.registry.common import (
@@ -120,7 +121,8 @@ def archive_customer(session: Session, customer: Customer, *, by: User) -> Custo
     set_archived(
         session, customer, by=by, action="edit_registry", entity="customer", archived=True,
         open_job_column=Job.customer_id,
-        refusal=lambda n: f"{customer.name} has {n} open job(s); dispatch or reject them first",
+        refusal=lambda n: (f"{customer.name} has {counted(n, 'open job')}; "
+                           "dispatch or reject them first"),
     )
     return customer
 

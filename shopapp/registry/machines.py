@@ -12,7 +12,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from shopapp.core import checks
-from shopapp.core.display import plain
+from shopapp.core.display import counted, plain
 from shopapp.core.permissions import require
 from shopapp.models import BEARING_KINDS, READING_UNITS, Job, Machine, User
 from shopapp.registry.common import (
@@ -146,7 +146,7 @@ def archive_machine(session: Session, machine: Machine, *, by: User) -> Machine:
     set_archived(
         session, machine, by=by, action="edit_machines", entity="machine", archived=True,
         open_job_column=Job.machine_id,
-        refusal=lambda n: f"{machine.name} has {n} open job(s); move or finish them first",
+        refusal=lambda n: f"{machine.name} has {counted(n, 'open job')}; move or finish them first",
     )
     return machine
 

@@ -19,7 +19,7 @@ from shopapp.balancing import arbor as arbor_core
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.phasors import amplitude_angle, phasor
 from shopapp.core import audit, checks
-from shopapp.core.display import percent, plain
+from shopapp.core.display import counted, percent, plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.models import Arbor, ArborErrorMeasurement, Job, User
@@ -90,7 +90,7 @@ def run_phasors(e: checks.Errors, field: str, run: Sequence[Any], planes: int
     (``<field>.plane_<p>.amplitude`` / ``.angle_deg``)."""
     out: list[complex] = []
     if len(run) != planes:
-        e.add(field, f"give a reading for each of the {planes} plane(s)")
+        e.add(field, f"give a reading for every plane (the rotor has {counted(planes, 'plane')})")
         return out
     for p, pair in enumerate(run, start=1):
         try:

@@ -40,7 +40,7 @@ from shopapp.balancing.verification import (
     unbalance_reduction_ratio,
 )
 from shopapp.core import audit, checks
-from shopapp.core.display import plain, quantity
+from shopapp.core.display import counted, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
@@ -438,7 +438,8 @@ def evaluate_proving_test(
                                  "give the maker's U_mar for this proving rotor in g·mm")
     n_planes = proving_rotor.planes
     if len(indicated_gmm) != n_planes:
-        e.add("readings", f"the proving rotor has {n_planes} plane(s); give readings for each")
+        e.add("readings", f"the proving rotor has {counted(n_planes, 'plane')}; give readings "
+                          "for each")
     # Checked like any typed angle: "nan" or "abc" were once stored as 0°.
     first = checks.number(e, "first_position_deg", first_position_deg,
                           minimum=-360.0, maximum=360.0, unit="°")
@@ -480,8 +481,8 @@ def evaluate_proving_test(
         after = [checks.number(e, f"urr_after_{k + 1}_gmm", v, minimum=0)
                  for k, v in enumerate(urr_after_gmm or ())]
         if len(before) != n_planes or len(after) != n_planes:
-            e.add("urr", f"give the unbalance before and after for each of the {n_planes} "
-                  "plane(s)")
+            e.add("urr", "give the unbalance before and after for every plane (the proving "
+                  f"rotor has {counted(n_planes, 'plane')})")
     e.raise_if_any()
     assert mass is not None and radius is not None and claim is not None
     t_gmm = mass * radius

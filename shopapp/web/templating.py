@@ -27,6 +27,7 @@ def register_helpers(app: Flask) -> None:
     app.add_template_filter(display.percent, "pct")
     app.add_template_filter(display.date, "isodate")
     app.add_template_filter(display.plain, "plain")
+    app.add_template_filter(display.counted, "counted")
 
     @app.context_processor
     def _inject() -> dict[str, Any]:

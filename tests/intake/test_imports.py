@@ -124,7 +124,7 @@ def test_preview_writes_nothing_and_names_the_runs(db, op, bay2, rt) -> None:
                              file_name="x.json", machine=bay2, by=op)
     assert plan.ok
     assert [(r.job_number, r.seq) for r in plan.runs] == [(job.number, 1), (job.number, 2)]
-    assert plan.runs[1].summary == "check run at 600 rpm, 2 plane(s) in g·mm"
+    assert plan.runs[1].summary == "check run at 600 rpm, 2 planes in g·mm"
     db.commit()
     assert runs_of(db, job) == [] and count(db, ImportedFile) == 0
     assert count(db, AuditEvent) == before
@@ -284,7 +284,7 @@ def test_cli_file_dry_run_then_import(runner, db, op, bay2, rt, tmp_path) -> Non
     assert runs_of(db, job) == []
     done = runner.invoke(args=["intake", "file", str(path), "--machine", "Bay 2",
                                "--user", "olga.op"])
-    assert done.exit_code == 0 and "imported 2 run(s)" in done.output
+    assert done.exit_code == 0 and "imported 2 runs" in done.output
     again = runner.invoke(args=["intake", "file", str(path), "--user", "olga.op"])
     assert again.exit_code == 1 and "already imported" in again.output
     assert len(runs_of(db, job)) == 2
@@ -360,7 +360,7 @@ def test_watch_stopped_mid_file_leaves_nothing_half_written(
     monkeypatch.setattr(imports, "record_run", real)
     again = runner.invoke(args=["intake", "watch", str(tmp_path), "--machine", "Bay 2",
                                 "--user", "olga.op", "--once", "--settle", "0"])
-    assert "imported 2 run(s)" in again.output
+    assert "imported 2 runs" in again.output
     assert len(runs_of(db, job)) == 2
 
 
@@ -412,7 +412,7 @@ def test_imported_runs_get_the_same_verdict_as_typed_ones(
     out = app.test_cli_runner().invoke(args=[
         "intake", "watch", str(watched), "--machine", "Bay 2", "--user", "tess.typist",
         "--once", "--settle", "0"])
-    assert "imported 1 run(s)" in out.output, out.output
+    assert "imported 1 run" in out.output, out.output
     token = api_tokens.create_token(db, by=typist, user=typist, name="bay 2 script").secret
     db.commit()
     api = client.post(f"/api/v1/jobs/{jobs['api'].id}/runs", headers={

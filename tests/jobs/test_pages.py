@@ -548,7 +548,7 @@ def test_page_says_how_old_the_stored_set_is_and_how_it_predicted(client, login_
                readings=readings_for(U_TRUE_G))
     db.commit()
     body = text(client.get(f"/jobs/{job.id}"))
-    assert "Stored influence coefficients" in body and "learned 0 day(s) ago" in body
+    assert "Stored influence coefficients" in body and "learned 0 days ago" in body
     assert "Not yet checked against a later job" in body
     calc = evaluate(db, job)
     for a in calc.advice.planes:  # type: ignore[union-attr]
