@@ -517,17 +517,19 @@ def issue(session: Session, job: Job, *, by: User, issued_at: dt.datetime | None
     locks.hold_row(session, job)  # two quality users issuing at once: the second sees the first
     historical = issued_at is not None
     issued_at = _moment(issued_at, "issued_at")
-    if job.state not in CERTIFIABLE_STATES:
-        raise TransitionRefused(
-            f"Job {job.number} is {job.state.replace('_', ' ')}: only a job in tolerance can "
-            "be certified."
-        )
+    # A valid certificate is named first: the second of two people issuing at once learns
+    # which one the first issued, not only that the job is no longer in tolerance.
     earlier = job_certificates(session, job)
     existing = next((c for c in earlier if c.state == "issued"), None)
     if existing is not None:
         raise TransitionRefused(
             f"Job {job.number} already has certificate {existing.number} revision "
             f"{existing.revision}; reissue it instead."
+        )
+    if job.state not in CERTIFIABLE_STATES:
+        raise TransitionRefused(
+            f"Job {job.number} is {job.state.replace('_', ' ')}: only a job in tolerance can "
+            "be certified."
         )
     ev = evidence(session, job, as_of=issued_at if historical else None)
     if earlier:

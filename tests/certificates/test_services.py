@@ -244,11 +244,15 @@ def test_voided_from_the_queue_then_issued_again_says_so(db, shop, people) -> No
     assert "superseded" not in v.message and "A later revision (2) exists" in v.message
 
 
-def test_issue_twice_is_refused(db, shop, people) -> None:
+def test_issue_twice_is_refused_naming_the_certificate(db, shop, people) -> None:
+    # Two quality managers issuing at once: the second is told which certificate the first
+    # issued (the walk found "Job ... is certified: only a job in tolerance can be
+    # certified", true but silent about the certificate).
     operator, quality = people
     job = job_ready_for_certificate(db, shop, operator)
-    certificates.issue(db, job, by=quality)
-    with pytest.raises(TransitionRefused, match="is certified: only a job in tolerance"):
+    first = certificates.issue(db, job, by=quality)
+    with pytest.raises(TransitionRefused,
+                       match=f"already has certificate {first.number} revision 1"):
         certificates.issue(db, job, by=quality)
 
 
