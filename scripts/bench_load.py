@@ -1,7 +1,8 @@
 """``scripts/bench load``: a busy shop against a real server, side by side with its floor.
 
-Starts ``shopapp serve`` (waitress, 4 threads), and gunicorn with 2 workers when it is
-installed (the ``dev`` extra), on a free loopback port over a fresh database — SQLite in
+Starts ``shopapp serve`` as shipped on Linux (2 gunicorn processes × 4 threads), and
+``shopapp serve --workers 1`` (one waitress process, 4 threads: Windows' only choice), on a
+free loopback port over a fresh database — SQLite in
 a temp folder, and PostgreSQL too when ``SHOPAPP_BENCH_POSTGRES_URL`` names an empty
 database (refused when it holds tables; emptied of the bench's tables between servers)
 — with the invented demo
@@ -50,8 +51,8 @@ import bench_shop
 
 ROOT = Path(__file__).resolve().parent.parent
 SHOPAPP = str(ROOT / ".venv" / "bin" / "shopapp")
-GUNICORN = ROOT / ".venv" / "bin" / "gunicorn"
-SERVERS = {"waitress": "waitress, 4 threads", "gunicorn": "gunicorn, 2 sync workers"}
+SERVERS = {"gunicorn": "shopapp serve: 2 gunicorn processes x 4 threads",
+           "waitress": "shopapp serve --workers 1: waitress, 4 threads"}
 USERS = int(os.environ.get("SHOPAPP_BENCH_USERS", "8"))
 SECONDS = float(os.environ.get("SHOPAPP_BENCH_SECONDS", "20"))
 MAX_REQUESTS_PER_USER = 2000
@@ -306,11 +307,9 @@ def _rss_kb(pid: int) -> int:
 
 
 def _start(kind: str, port: int, env: dict[str, str]) -> subprocess.Popen[bytes]:
-    if kind == "waitress":
-        cmd = [SHOPAPP, "serve", "--host", "127.0.0.1", "--port", str(port), "--threads", "4"]
-    else:
-        cmd = [str(GUNICORN), "--workers", "2", "--bind", f"127.0.0.1:{port}",
-               "shopapp:create_app()"]
+    workers = "2" if kind == "gunicorn" else "1"
+    cmd = [SHOPAPP, "serve", "--host", "127.0.0.1", "--port", str(port), "--workers", workers,
+           "--threads", "4"]
     return subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
 
 
@@ -383,11 +382,7 @@ def _ratios(result: dict[str, Any]) -> list[dict[str, Any]]:
 
 def main() -> dict[str, Any]:
     """Print one JSON object per backend and server; return their ratios and goals."""
-    kinds = ["waitress"] + (["gunicorn"] if GUNICORN.is_file() else [])
-    if len(kinds) == 1:
-        print(json.dumps({"load": {"server": SERVERS["gunicorn"],
-                                   "skipped": "gunicorn is not installed (pip install -e "
-                                              "'.[dev]')"}}))
+    kinds = list(SERVERS)
     backends = [("sqlite", None)]
     pg = os.environ.get("SHOPAPP_BENCH_POSTGRES_URL")
     if pg:

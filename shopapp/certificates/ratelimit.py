@@ -28,7 +28,7 @@ class SlidingWindowLimit:
         self.window = window
         self._clock = clock
         self._hits: dict[str, deque[float]] = {}
-        self._lock = threading.Lock()  # waitress serves requests on several threads
+        self._lock = threading.Lock()  # each server process answers on several threads
 
     def hit(self, client: str) -> int:
         now = self._clock()
