@@ -105,8 +105,8 @@ def random_error(readings_gmm: Sequence[complex] | np.ndarray) -> RandomError:
     if z.size < MIN_RUNS:
         raise BalancingInputError(
             "readings_gmm",
-            f"{z.size} run(s) given; at least {MIN_RUNS} repeated runs are needed to see "
-            "the scatter",
+            f"at least {MIN_RUNS} repeated runs are needed to see the scatter; "
+            f"given: {z.size}",
         )
     mean = complex(z.mean())
     dist = np.abs(z - mean)

@@ -409,8 +409,8 @@ def influence_coefficients(
     if v0.size < n_planes:
         raise BalancingInputError(
             "initial",
-            f"{v0.size} reading(s) cannot resolve {n_planes} planes; "
-            "need at least one reading per plane",
+            f"{n_planes} planes need at least one reading per plane; readings given: "
+            f"{v0.size}",
         )
     seen: set[int] = set()
     columns: dict[int, np.ndarray] = {}
@@ -506,8 +506,8 @@ def correction_from_coefficients(
     if n_readings < n_planes:
         raise BalancingInputError(
             "initial",
-            f"{n_readings} reading(s) cannot resolve {n_planes} planes; "
-            "need at least one reading per plane",
+            f"{n_planes} planes need at least one reading per plane; readings given: "
+            f"{n_readings}",
         )
     cond = _condition_number(a, "coefficients")
     w = np.linalg.lstsq(a, -v0, rcond=None)[0]
@@ -614,7 +614,8 @@ def predict_residual(
     w = _complex_vector("applied_g", applied_g)
     if w.size != a.shape[1]:
         raise BalancingInputError(
-            "applied_g", f"has {w.size} plane(s); the coefficients are for {a.shape[1]}"
+            "applied_g",
+            f"needs one mass per plane of the coefficients ({a.shape[1]}); given: {w.size}"
         )
     v0 = _complex_vector("initial", initial)
     readings = a @ w + v0

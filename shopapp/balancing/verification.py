@@ -152,8 +152,8 @@ def _readings(
     if pos.size < MIN_POSITIONS:
         raise BalancingInputError(
             "readings",
-            f"{pos.size} position(s) given; at least {MIN_POSITIONS} are needed to check that "
-            f"the readings lie on a circle ({RECOMMENDED_POSITIONS} or more recommended)",
+            f"at least {MIN_POSITIONS} test-mass positions are needed to check that the readings "
+            f"lie on a circle ({RECOMMENDED_POSITIONS} or more recommended); given: {pos.size}",
         )
     if np.any(amp < 0.0):
         raise BalancingInputError("readings.amplitude", "amplitudes must not be negative")

@@ -322,7 +322,7 @@ def parse_csv(data: bytes, layout: Layout) -> ParsedFile:
         if layout.ours:
             unknown = [h for h in header if h not in FIELDS]
             if unknown:
-                raise refuse(f"line {header_at + 1}: unknown column(s) "
+                raise refuse(f"line {header_at + 1}: {counted(len(unknown), 'unknown column')} "
                              f"{', '.join(repr(h) for h in unknown[:5])}; the columns are "
                              + ", ".join(FIELDS))
             if len(set(header)) != len(header):
@@ -379,7 +379,8 @@ def parse_json(data: bytes) -> ParsedFile:
         raise refuse(f"more than {MAX_RUNS} runs in one file: split it")
     unknown_top = set(doc) - {"format", "version", "runs"}
     if unknown_top:
-        raise refuse(f"unknown key(s) {', '.join(sorted(map(str, unknown_top)))[:80]}")
+        raise refuse(f"{counted(len(unknown_top), 'unknown key')} "
+                     f"{', '.join(sorted(map(str, unknown_top)))[:80]}")
     rows: list[Row] = []
     for n, item in enumerate(runs, start=1):
         where = f"run {n}"
@@ -389,7 +390,8 @@ def parse_json(data: bytes) -> ParsedFile:
         unknown = set(item) - set(FIELDS)
         if unknown:
             rows.append(Row(where=where, errors=[
-                f"unknown field(s) {', '.join(sorted(map(str, unknown)))[:80]}"]))
+                f"{counted(len(unknown), 'unknown field')} "
+                f"{', '.join(sorted(map(str, unknown)))[:80]}"]))
             continue
         rows.append(clean_row(where, item, Layout(name=f"{FORMAT_NAME} JSON"),
                               numbers_as_text=False))

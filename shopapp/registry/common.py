@@ -66,7 +66,7 @@ def refuse_unknown(fields: Mapping[str, Any], allowed: tuple[str, ...]) -> None:
     """A field name the use-case does not know is a programming error, not a message."""
     extra = sorted(set(fields) - set(allowed))
     if extra:
-        raise TypeError(f"unknown field(s): {', '.join(extra)}")
+        raise TypeError(f"fields the use-case does not know: {', '.join(extra)}")
 
 
 def update_fields(

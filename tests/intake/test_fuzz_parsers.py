@@ -178,3 +178,25 @@ def test_a_refused_file_writes_nothing(db, make_user, shop, lines: list[list[str
     after = [db.scalar(select(func.count()).select_from(m)) for m in (Run, AuditEvent,
                                                                      ImportedFile)]
     assert after == before
+
+
+# Unknown names are counted in words, not "column(s)" (common practice, no source).
+def test_an_unknown_csv_column_is_named_and_counted() -> None:
+    data = (files.CSV_MARK + "\n" + ",".join(files.FIELDS) + ",mass_lb\n").encode()
+    with pytest.raises(ValidationFailed) as one:
+        files.parse_exchange(data)
+    assert "1 unknown column 'mass_lb'" in str(one.value)
+    data = (files.CSV_MARK + "\n" + ",".join(files.FIELDS) + ",mass_lb,colour\n").encode()
+    with pytest.raises(ValidationFailed) as two:
+        files.parse_exchange(data)
+    assert "2 unknown columns 'mass_lb', 'colour'" in str(two.value)
+
+
+def test_unknown_json_keys_and_fields_are_named_and_counted() -> None:
+    with pytest.raises(ValidationFailed) as top:
+        files.parse_exchange(json.dumps({"format": files.FORMAT_NAME, "version": 1,
+                                         "runs": [{"a": 1}], "colour": 1}).encode())
+    assert "1 unknown key colour" in str(top.value)
+    parsed = files.parse_exchange(json.dumps({"format": files.FORMAT_NAME, "version": 1,
+                                              "runs": [{"a": 1, "b": 2}]}).encode())
+    assert parsed.rows[0].errors == ["2 unknown fields a, b"]
