@@ -54,7 +54,7 @@ from shopapp.certificates.queries import (
     job_certificates,
 )
 from shopapp.core import audit, locks
-from shopapp.core.display import ShopDisplay, fixed, plain, quantity
+from shopapp.core.display import ShopDisplay, fixed, of_limit, plain, quantity
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
@@ -168,7 +168,7 @@ def evidence(session: Session, job: Job, *, as_of: dt.datetime | None = None) ->
             f"Job {job.number}: run {final.seq} cannot be judged ({final.message})."
         )
     if not final.passed:
-        out = [f"{r.label} at {fixed(r.pct, 0)} % of its limit"
+        out = [f"{r.label} at {of_limit(r.pct)} of its limit"
                for r in final.rows if not r.passed]
         raise TransitionRefused(
             f"Job {job.number}: the last {final.purpose} run (run {final.seq}) is out of "

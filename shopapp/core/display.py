@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import cmath
 import datetime as dt
+import decimal
 import math
 from typing import Any, overload
 
@@ -107,6 +108,23 @@ def percent(rate: Any, decimals: int = 0) -> str:
     """A rate 0..1 as a percentage (``0.183`` → ``18 %``)."""
     v = _finite(rate)
     return NOTHING if v is None else f"{v * 100:.{decimals}f} %"
+
+
+def of_limit(pct: Any) -> str:
+    """A residual as a share of its limit, ``pct`` in percent (``83.4`` → ``83 %``), never
+    shown on the wrong side of 100 %: between 99 % and 101 % one decimal, cut towards 100
+    (``99.97`` → ``99.9 %``, ``100.03`` → ``100.1 %``, exactly ``100`` → ``100.0 %``), so
+    the figure beside an "in" verdict never reads above 100 % and beside an "out" never
+    reads 100 % or less. Whole percent elsewhere (ordinary rounding cannot reach 100 there).
+    """
+    v = _finite(pct)
+    if v is None:
+        return NOTHING
+    if 99.0 <= v <= 101.0:
+        # From the float's shortest decimal text, so 99.3 stays 99.3 (99.3 × 10 is 992.99…).
+        cut = decimal.ROUND_FLOOR if v < 100.0 else decimal.ROUND_CEILING
+        return f"{decimal.Decimal(repr(v)).quantize(decimal.Decimal('0.1'), rounding=cut)} %"
+    return f"{v:.0f} %"
 
 
 def date(value: str | dt.date | dt.datetime | None) -> str:

@@ -32,6 +32,7 @@ from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import day_refusal
 from shopapp.core.checks import text as _text
+from shopapp.core.display import of_limit
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.jobs import calc as job_calc
@@ -167,7 +168,7 @@ def _refuse_in_tolerance(job: Job, calc: job_calc.JobCalc) -> TransitionRefused:
     elif not v.judged:
         why = f"Run {v.seq} could not be judged: {v.message}."
     else:
-        out = [f"{r.label} at {r.pct:.0f} % of its limit" for r in v.rows if not r.passed]
+        out = [f"{r.label} at {of_limit(r.pct)} of its limit" for r in v.rows if not r.passed]
         why = f"Run {v.seq} is out of tolerance: {', '.join(out)}."
     return _refuse(job, "in_tolerance", why)
 

@@ -378,7 +378,7 @@ def _acceptance_block(sheet: Sheet, data: CertificateData) -> None:
     verdict = Boxed([
         _fixed(_verdict_word(data.passed), _VERDICT, inner),
         Text(judged_where(data) if data.passed else "see the result table", st.body, inner),
-        Text(f"worst at {worst:.0f} % of its limit", st.body, inner),
+        Text(f"worst at {display.of_limit(worst)} of its limit", st.body, inner),
     ], box, pad=6, line_width=1.6)
     sheet.place(Gap(4 * mm), Columns([(0, [table]), (W - box, [verdict])]))
 
@@ -470,7 +470,7 @@ def _result_section(sheet: Sheet, data: CertificateData) -> None:
         if not lim.deciding:
             continue  # a residual outside the basis is stated above, without a limit
         rows.append([lim.name, display.number(lim.residual_shop), display.number(lim.limit_shop),
-                     f"{lim.percent_of_limit:.0f} %", "within" if lim.passed else "OUT"])
+                     display.of_limit(lim.percent_of_limit), "within" if lim.passed else "OUT"])
     sheet.place(
         Text(f"4  Result (run {data.final_run})", st.heading, W),
         _vector_table(data.residual, "Residual", data.unit),

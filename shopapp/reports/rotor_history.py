@@ -122,7 +122,7 @@ def _meta(title: str, data: object, generated_at: str, shop: str, right: str) ->
 
 
 def _pct(v: float | None) -> str:
-    return "–" if v is None else f"{v:.0f} %"
+    return display.of_limit(v)
 
 
 def trend_figures(data: RotorHistoryData, width: float = _WIDTH) -> list[Figure]:

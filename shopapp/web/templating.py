@@ -25,6 +25,7 @@ def register_helpers(app: Flask) -> None:
     app.add_template_filter(display.number, "num")
     app.add_template_filter(display.quantity, "qty")
     app.add_template_filter(display.percent, "pct")
+    app.add_template_filter(display.of_limit, "of_limit")
     app.add_template_filter(display.date, "isodate")
     app.add_template_filter(display.plain, "plain")
     app.add_template_filter(display.counted, "counted")

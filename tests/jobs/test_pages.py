@@ -405,6 +405,25 @@ def test_verdict_percentages_match_the_iso_limits(client, login_as, db, rtype, c
     assert f"{tol.plane_1_gmm:.4g}" in body
 
 
+def test_a_residual_just_inside_its_limit_never_reads_100_percent(client, login_as, db, rtype,
+                                                                   calibrated) -> None:
+    user = login_as("operator")
+    job = booked(db, user, rtype, calibrated)
+    record_run(db, job, by=user, purpose="initial", speed_rpm=600,
+               readings=[(1, 5000.0, 90.0, "g·mm"), (2, 4000.0, 270.0, "g·mm")])
+    # As in the test above (ISO 21940-11 allocation, rigid-body statics): plane 1 alone
+    # loads bearing A with 650/800 of it; aim at 99.97 % of A's half of U_per.
+    u_per = 1000 * 6.3 * 120 / (2 * math.pi * 1480 / 60)
+    residual = 0.9997 * (u_per / 2) * 800 / 650
+    record_run(db, job, by=user, purpose="check", speed_rpm=600,
+               readings=[(1, residual, 0.0, "g·mm"), (2, 0.0, 0.0, "g·mm")])
+    db.commit()
+    body = text(client.get(f"/jobs/{job.id}"))
+    assert "in tolerance" in body
+    assert "99.9 %" in body  # whole-percent rounding printed "100 %" beside "in"
+    assert "100 %" not in body
+
+
 def test_state_buttons_reject_needs_a_reason_and_refusals_explain(client, login_as, db, rtype,
                                                                   machine) -> None:
     user = login_as("operator")
