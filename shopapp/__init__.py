@@ -14,6 +14,7 @@ from typing import Any
 from flask import Flask, request
 from werkzeug.middleware.proxy_fix import ProxyFix
 
+from shopapp.core import clock
 from shopapp.core.config import check_config, load_config
 from shopapp.core.database import Database
 from shopapp.core.extensions import close_db_session, csrf, login_manager
@@ -32,6 +33,8 @@ def create_app(config: Mapping[str, Any] | None = None) -> Flask:
     """
     cfg = load_config(config)
     check_config(cfg)
+    # The shop's days (today, the day of a moment) for every page, form and command.
+    clock.set_shop_zone(cfg.get("TIME_ZONE"))
     app = Flask(
         __name__,
         instance_path=cfg["INSTANCE_PATH"],

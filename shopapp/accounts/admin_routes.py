@@ -9,6 +9,7 @@ from flask import Blueprint, flash, redirect, render_template, request, url_for
 
 from shopapp.accounts import logins, users
 from shopapp.accounts.forms import AddUserForm, PasswordForm, RoleForm, SettingsForm
+from shopapp.core import clock
 from shopapp.core import settings as shop_settings
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
@@ -162,7 +163,8 @@ def settings():  # type: ignore[no-untyped-def]
     def page(status: int, loose: Sequence[str]):  # type: ignore[no-untyped-def]
         sample, _error = _sample(form.job_number_pattern.data or "")
         return (
-            render_template("admin/settings.html", form=form, sample=sample, loose=loose),
+            render_template("admin/settings.html", form=form, sample=sample, loose=loose,
+                            zone=clock.shop_zone_name(), now=clock.shop_now()),
             status,
         )
 

@@ -3,12 +3,11 @@
 
 from __future__ import annotations
 
-import datetime as dt
-
 from flask import Blueprint, current_app
 
 from shopapp.api.operations import Call, operation
 from shopapp.api.schemas import JsonObject, ShopMeasuresQuery
+from shopapp.core.clock import shop_today
 from shopapp.measures import services as measures
 from shopapp.measures.costs import cost_settings
 from shopapp.measures.periods import parse_month
@@ -24,6 +23,6 @@ def shop_measures(call: Call) -> JsonObject:
     ``funnels``, ``control_charts``, ``rework_cost``, ``drift``, ``definitions``."""
     q: ShopMeasuresQuery = call.query
     report = measures.shop_report(call.session, parse_month(q.month), by=call.by,
-                                  today=q.as_of or dt.date.today(),
+                                  today=q.as_of or shop_today(),
                                   costs=cost_settings(current_app.config))
     return JsonObject(report.to_json())

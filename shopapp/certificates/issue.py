@@ -54,6 +54,7 @@ from shopapp.certificates.queries import (
     job_certificates,
 )
 from shopapp.core import audit, locks
+from shopapp.core.clock import shop_date
 from shopapp.core.display import ShopDisplay, fixed, of_limit, plain, quantity
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
@@ -178,7 +179,7 @@ def evidence(session: Session, job: Job, *, as_of: dt.datetime | None = None) ->
     final_run = by_id[final.run_id]
     initial_run = next((r for r in runs if r.purpose == "initial"), None)
     initial = calc.verdicts.get(initial_run.id) if initial_run is not None else None
-    on = final_run.taken_at.astimezone(dt.UTC).date()
+    on = shop_date(final_run.taken_at)
     # The register rule (the only one: a machine never tested counts from its register
     # entry) on the final run's date, and a required residual-unbalance test.
     try:
@@ -331,7 +332,7 @@ def build_data(
                               if status is None or status.last_test_on is None
                               else "passed" if status.last_test_passed else "failed"),
         received_on=job.received_on.isoformat(),
-        balanced_on=ev.final_run.taken_at.astimezone(dt.UTC).date().isoformat(),
+        balanced_on=shop_date(ev.final_run.taken_at).isoformat(),
         initial_run=ev.initial_run.seq if ev.initial_run is not None else 0,
         final_run=ev.final_run.seq,
         initial=initial,

@@ -18,6 +18,7 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.dynamics import SPEED_CAUTION
 from shopapp.core import display
+from shopapp.core.clock import shop_date, shop_today
 from shopapp.core.display import ShopDisplay
 from shopapp.core.errors import TransitionRefused
 from shopapp.core.permissions import require
@@ -33,7 +34,7 @@ TAGGABLE_STATES = ("in_tolerance", "certified", "dispatched")
 
 
 def _today(today: dt.date | None) -> str:
-    return (today or dt.datetime.now(dt.UTC).date()).isoformat()
+    return (today or shop_today()).isoformat()
 
 
 def _speed_note(job: Job) -> str:
@@ -132,7 +133,7 @@ def rotor_tag(session: Session, job: Job, *, by: User, job_url: str,
         if calc.last_check is not None and calc.last_check.passed:
             run = next((r for r in job.runs if r.id == calc.last_check.run_id), None)
             if run is not None:
-                balanced_on = run.taken_at.astimezone(dt.UTC).date().isoformat()
+                balanced_on = shop_date(run.taken_at).isoformat()
         certificate = ""
     return TagData(
         shop_name=settings.shop_name, serial_number=job.rotor.serial_number,

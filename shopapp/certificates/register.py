@@ -39,6 +39,7 @@ from shopapp.certificates.queries import (
     latest_revision,
     number_exists,
 )
+from shopapp.core.clock import shop_date
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.pagination import Page, paginate
 from shopapp.jobs.certificate_link import superseded_reason
@@ -116,7 +117,7 @@ def _answer(session: Session, query: str, cert: Certificate, matched_by: str) ->
         number=cert.number,
         revision=cert.revision,
         latest_revision=latest,
-        voided_on=cert.voided_at.date().isoformat() if cert.voided_at else None,
+        voided_on=shop_date(cert.voided_at).isoformat() if cert.voided_at else None,
         void_reason=cert.void_reason,
         lines=tuple(report.first_lines(data)),
     )

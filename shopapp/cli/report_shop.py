@@ -19,6 +19,7 @@ from flask.cli import with_appcontext
 
 from shopapp.cli.common import Day, app_db, one_line_errors
 from shopapp.core.checks import QUERY_AHEAD_DAYS, day_refusal
+from shopapp.core.clock import shop_today
 from shopapp.measures import monthly
 from shopapp.measures import services as measures
 from shopapp.measures.costs import cost_settings
@@ -44,7 +45,7 @@ def shop_command(month: str, output: Path | None, as_json: bool,
     refusal = day_refusal(period.start, ahead_days=QUERY_AHEAD_DAYS)
     if refusal is not None:
         raise click.BadParameter(f"the month starts on {refusal}", param_hint="--month")
-    today = as_of or dt.date.today()
+    today = as_of or shop_today()
     with app_db().session() as sess:
         report = measures.shop_report(sess, period, by=None, today=today,
                                       costs=cost_settings(current_app.config))

@@ -35,8 +35,8 @@ def gunicorn_options(host: str, port: int, workers: int, threads: int) -> dict[s
     bind = f"[{host}]:{port}" if ":" in host else f"{host}:{port}"
     return {"bind": [bind], "workers": workers, "worker_class": "gthread",
             "threads": threads, "proc_name": "shopapp",
-            # A PDF of a year's report takes seconds on a busy shop; the default 30 s kills
-            # a worker that is merely slow. Two minutes is still a stuck one.
+            # The heartbeat a worker's main loop sends while its threads answer: a long
+            # request (an audit ZIP) does not stop it, so silence this long is a stuck process.
             "timeout": 120, "graceful_timeout": 30,
             # No admin socket in the user's home: two shops on one server would share it,
             # and stopping is a signal to the master (Ctrl-C, SIGTERM) as with waitress.

@@ -13,6 +13,7 @@ import re
 from typing import Any
 
 from shopapp.balancing.numtext import short
+from shopapp.core.clock import shop_today
 from shopapp.core.errors import ValidationFailed
 
 MAX_TEXT = 5000
@@ -107,11 +108,6 @@ QUERY_AHEAD_DAYS = 366  # a list or dashboard may look at a period reaching into
 PROMISE_AHEAD_DAYS = 3 * 366  # a promised date: about three years ahead at most
 
 
-def utc_today() -> dt.date:
-    """Today's date in UTC: the services' "today" (models.base.utcnow's date)."""
-    return dt.datetime.now(dt.UTC).date()
-
-
 def day_refusal(value: dt.date, *, ahead_days: int = 0, today: dt.date | None = None
                 ) -> str | None:
     """Why ``value`` lies outside the date window, or None when it is inside.
@@ -121,7 +117,7 @@ def day_refusal(value: dt.date, *, ahead_days: int = 0, today: dt.date | None = 
     if value < EARLIEST_DAY:
         return (f"{value.isoformat()} is before {EARLIEST_DAY.isoformat()}, the earliest "
                 "date shopapp takes")
-    latest = (today or utc_today()) + dt.timedelta(days=ahead_days)
+    latest = (today or shop_today()) + dt.timedelta(days=ahead_days)
     if value > latest:
         if ahead_days == 0:
             return f"{value.isoformat()} is in the future (today is {latest.isoformat()})"
@@ -135,7 +131,7 @@ def date(e: Errors, field: str, value: Any, *, not_after: dt.date | None = None,
     """``value`` as a date inside the date window (:func:`day_refusal`), or None.
 
     The latest day is ``not_after`` when given, else ``today + ahead_days`` (``today``
-    defaults to :func:`utc_today`).
+    defaults to :func:`shopapp.core.clock.shop_today`).
     """
     if value is None and not required:
         return None

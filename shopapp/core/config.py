@@ -63,6 +63,8 @@ KEY_TYPES: dict[str, type] = {
     "MACHINE_HOURLY_RATE": float,
     "MACHINE_IDLE_MINUTES": float,
     "MONEY_UNIT": str,
+    # The IANA zone of the shop's days (shopapp.core.clock); unset: the server's local zone.
+    "TIME_ZONE": str,
 }
 _TRUE = {"1", "true", "yes", "on"}
 _FALSE = {"0", "false", "no", "off", ""}

@@ -23,6 +23,7 @@ from shopapp.balancing import numtext
 from shopapp.balancing.numtext import figures
 from shopapp.balancing.phasors import from_display_deg, to_display_deg
 from shopapp.balancing.units import convert_unbalance
+from shopapp.core.clock import shop_date
 
 NOTHING = "–"
 
@@ -128,13 +129,14 @@ def of_limit(pct: Any) -> str:
 
 
 def date(value: str | dt.date | dt.datetime | None) -> str:
-    """An ISO date (``YYYY-MM-DD``); datetimes print their UTC date."""
+    """An ISO date (``YYYY-MM-DD``); datetimes print the shop's day of them
+    (:func:`shopapp.core.clock.shop_date`)."""
     if value is None or value == "":
         return NOTHING
     if isinstance(value, str):
         return value[:10]
     if isinstance(value, dt.datetime):
-        return value.astimezone(dt.UTC).date().isoformat()
+        return shop_date(value).isoformat()
     return value.isoformat()
 
 

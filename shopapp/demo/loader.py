@@ -31,6 +31,7 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.numtext import short
 from shopapp.certificates import issue as cert_service
+from shopapp.core.clock import shop_today
 from shopapp.core.display import counted
 from shopapp.core.errors import ValidationFailed
 from shopapp.demo import physics as ph
@@ -80,7 +81,11 @@ def history_end(now: dt.datetime | None = None, end_date: dt.date | None = None
         raise ValidationFailed("now", "must be a date and time with its time zone")
     current = (now or utcnow()).astimezone(dt.UTC).replace(microsecond=0)
     if end_date is None:
-        return current
+        if now is not None:
+            return current
+        # The demo's days are UTC days of its moments: in a shop west of Greenwich, in the
+        # evening, the UTC day is already the shop's tomorrow. End with the shop's today.
+        end_date = shop_today()
     return min(current, at(end_date, 24 * 60) - dt.timedelta(seconds=1))
 
 

@@ -27,6 +27,7 @@ from typing import Any
 
 from shopapp.balancing.phasors import from_display_deg
 from shopapp.core.checks import day_refusal
+from shopapp.core.clock import shop_date
 from shopapp.core.display import counted, plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.forms import parse_number
@@ -207,7 +208,7 @@ def _taken_at(raw: str) -> dt.datetime:
     if when.tzinfo is None:
         when = when.replace(tzinfo=dt.UTC)  # documented: a time without an offset is UTC
     when = when.astimezone(dt.UTC)
-    refusal = day_refusal(when.date())
+    refusal = day_refusal(shop_date(when))
     if refusal:
         raise ValueError(refusal)
     return when

@@ -17,6 +17,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session, defer
 
 from shopapp.core import audit
+from shopapp.core.clock import shop_date
 from shopapp.core.errors import TransitionRefused
 from shopapp.models import Certificate, Job, User, utcnow
 
@@ -75,7 +76,7 @@ def void_certificate(session: Session, cert: Certificate, *, by: User | None, re
                      at: dt.datetime | None = None) -> None:
     """Mark an issued certificate void (the only change the database allows on its row)."""
     if cert.state != "issued":
-        when = cert.voided_at.date().isoformat() if cert.voided_at else "earlier"
+        when = shop_date(cert.voided_at).isoformat() if cert.voided_at else "earlier"
         raise TransitionRefused(
             f"{cert.number} revision {cert.revision} is already void (since {when})."
         )

@@ -31,6 +31,7 @@ from shopapp.core import audit
 from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import derived_row
 from shopapp.core.checks import text as _text
+from shopapp.core.clock import shop_date
 from shopapp.core.display import counted
 from shopapp.core.errors import TransitionRefused, ValidationFailed
 from shopapp.core.permissions import require
@@ -347,7 +348,7 @@ def job_traceability(session: Session, job: Job, calc: job_calc.JobCalc | None =
             .order_by(Run.seq)
         ).all()
         for seq, taken in runs:
-            day = taken.astimezone(dt.UTC).date()
+            day = shop_date(taken)
             st = traceability.status_from_records(job.machine, records, day, soon)
             if st.blocks:
                 out.overdue_runs.append((seq, st.message()))

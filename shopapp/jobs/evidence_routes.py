@@ -8,7 +8,6 @@ the shop's display convention (:class:`shopapp.core.display.ShopDisplay`).
 
 from __future__ import annotations
 
-import datetime as dt
 from functools import partial
 from typing import Any
 
@@ -16,6 +15,7 @@ from flask import Blueprint, abort, flash, redirect, render_template, request, u
 from flask_login import current_user
 
 from shopapp.charts.svg import to_svg
+from shopapp.core.clock import shop_today
 from shopapp.core.display import ShopDisplay, counted, number, plain
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
@@ -310,7 +310,7 @@ def _panel() -> dict[str, Any]:
         sub_form.measurement_id.choices = options(choices)
         sub_form.measurement_id.data = data.subtraction.measurement_id if data.subtraction else 0
         ix_form = IndexRunsForm(prefix="ix", formdata=None)
-        ix_form.measured_on.data = dt.datetime.now(dt.UTC).date()
+        ix_form.measured_on.data = shop_today()
         ix_form.rotor_mass_kg.data = plain(job.rotor.rotor_type.mass_kg)
         return {"data": data, "disp": disp, "svgs": svgs, "arbor_form": arbor_form,
                 "sub_form": sub_form, "ix_form": ix_form, "req_form": RequiredForm(formdata=None),

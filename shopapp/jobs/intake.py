@@ -24,6 +24,7 @@ from shopapp.core.checks import Errors as _Errors
 from shopapp.core.checks import date as _date
 from shopapp.core.checks import number as _num
 from shopapp.core.checks import text as _text
+from shopapp.core.clock import shop_today
 from shopapp.core.display import plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.permissions import require
@@ -39,7 +40,6 @@ from shopapp.models import (
     Machine,
     RotorType,
     User,
-    utcnow,
 )
 from shopapp.registry import customers, rotor_types, rotors
 from shopapp.registry.common import MAX_SPEED_RPM
@@ -47,8 +47,9 @@ from shopapp.traceability import services as traceability
 
 
 def today() -> dt.date:
-    """Today's date (UTC), the default day of intake, dispatch and returns."""
-    return utcnow().date()
+    """The shop's today (:func:`shopapp.core.clock.shop_today`), the default day of intake,
+    dispatch and returns."""
+    return shop_today()
 
 
 def _prefixed(exc: ValidationFailed, prefix: str, keep: Sequence[str] = ()) -> ValidationFailed:

@@ -16,6 +16,7 @@ from sqlalchemy import Select, and_, func, or_, select
 from sqlalchemy.orm import Session, joinedload, selectinload
 
 from shopapp.core.checks import QUERY_AHEAD_DAYS, day_refusal, plain_digits
+from shopapp.core.clock import shop_today
 from shopapp.core.errors import NotFound
 from shopapp.core.pagination import Page, paginate_ids
 from shopapp.core.sqltime import utc_start
@@ -368,7 +369,7 @@ def _conditions(f: JobFilter, matches: TextMatches | None = None) -> list[Any]:
         conds.append(and_(Job.reopen_count == 0, Job.kind == "new"))
     facts = []
     if f.reworked == "window":
-        facts.append(reworked_within_window(dt.date.today()))
+        facts.append(reworked_within_window(shop_today()))
     if f.reached_from is not None:
         facts.append(JobFact.first_in_tolerance_at >= utc_start(f.reached_from))
     if f.reached_to is not None:

@@ -19,6 +19,7 @@ from flask_login import current_user
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.charts.svg import to_svg
 from shopapp.core.checks import plain_digits
+from shopapp.core.clock import shop_today
 from shopapp.core.display import ShopDisplay, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.extensions import db_session
@@ -180,7 +181,7 @@ def new():  # type: ignore[no-untyped-def]
                     form.balancing_speed_rpm.data = last.balancing_speed_rpm
                     form.service_speed_rpm.data = last.service_speed_rpm
                     form.machine_id.data = last.machine_id or 0
-        form.received_on.data = form.received_on.data or dt.date.today()
+        form.received_on.data = form.received_on.data or shop_today()
         return render_template("jobs/new.html", form=form, lookup=lookup, history=history,
                                types_by_customer=types_by_customer,
                                disp=disp, loose=loose)

@@ -24,6 +24,7 @@ from flask import Blueprint, Response, current_app, g, render_template, request,
 from flask_login import current_user
 
 from shopapp.charts.svg import to_svg
+from shopapp.core.clock import shop_today
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
 from shopapp.core.permissions import can
@@ -156,8 +157,8 @@ class Links:
 
 # --------------------------------------------------------------------------- request parsing
 def _today() -> dt.date:
-    """Today's date (one place, so tests can fix the calendar)."""
-    return dt.date.today()
+    """The shop's today (one place, so tests can fix the calendar)."""
+    return shop_today()
 
 
 def _parse() -> tuple[PeriodForm, Period, Scope, dict[str, str], list[tuple[str, str]], bool]:

@@ -106,6 +106,7 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
+from shopapp.core.clock import shop_today
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
@@ -318,7 +319,7 @@ def period_figures(
 ) -> Figures | list[SliceRow]:
     """The figures of ``period`` as a whole, or one row per slice of ``dimension``."""
     _allowed(by)
-    today = today or dt.date.today()
+    today = today or shop_today()
     as_of = min(period.end, today)
     if dimension is None:
         return figures_for(session, period, scope, ["all"], as_of, today=today).get(
@@ -352,7 +353,7 @@ def shop_report(
     for dim in dimensions:
         if dim not in DIMENSIONS:
             raise ValidationFailed("by", f"'{dim}' is not one of {', '.join(DIMENSIONS)}")
-    today = today or dt.date.today()
+    today = today or shop_today()
     as_of = min(period.end, today)
     prev = period.compared_with(today)
     merged = figures_for(session, period, scope, ["all", *dimensions], as_of, today=today)
@@ -425,7 +426,7 @@ class Headline:
 def headline(session: Session, *, by: User | None, today: dt.date | None = None) -> Headline:
     """This month so far against the same days of last month, in five queries."""
     _allowed(by)
-    today = today or dt.date.today()
+    today = today or shop_today()
     month = Period.containing("month", today)
     before = month.compared_with(today)
     families = ("received", "tolerance")

@@ -8,7 +8,6 @@ Thin: parse the form, call one use-case (:mod:`shopapp.resonance.runups`,
 
 from __future__ import annotations
 
-import datetime as dt
 from typing import Any
 
 from flask import (
@@ -25,6 +24,7 @@ from flask_login import current_user
 from sqlalchemy.orm import Session
 
 from shopapp.charts.svg import to_svg
+from shopapp.core.clock import shop_today
 from shopapp.core.display import ShopDisplay
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
@@ -68,7 +68,7 @@ def _new(job: Job | None, machine: Machine | None):  # type: ignore[no-untyped-d
     loose: list[str] = []
     status = 200
     if request.method == "GET":
-        form.recorded_on.data = dt.datetime.now(dt.UTC).date()
+        form.recorded_on.data = shop_today()
         form.measured.data, form.unit.data = "displacement", RUNUP_UNITS["displacement"][0]
         if job is not None:
             form.operating_speed_rpm.data = job.service_speed_rpm

@@ -38,6 +38,7 @@ from shopapp.core.checks import Errors
 from shopapp.core.checks import date as check_date
 from shopapp.core.checks import number as check_number
 from shopapp.core.checks import text as check_text
+from shopapp.core.clock import shop_today
 from shopapp.core.display import ShopDisplay, number, quantity
 from shopapp.core.permissions import require
 from shopapp.core.settings import get_settings
@@ -178,7 +179,7 @@ def record_run_up(
         e.add("job", "a run-up belongs to a job or a machine; name one")
     if machine is None and job is not None:
         machine = job.machine
-    today = today or dt.datetime.now(dt.UTC).date()
+    today = today or shop_today()
     day = check_date(e, "recorded_on", recorded_on, not_after=today)
     label = check_text(e, "sensor", sensor, max_len=SENSOR_MAX, required=True)
     if measured not in MEASURED_QUANTITIES:

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 from sqlalchemy.orm import Session
 
+from shopapp.core.clock import shop_today
 from shopapp.core.display import ShopDisplay
 from shopapp.core.settings import get_settings
 from shopapp.models import Job, RunUpRecord, User
@@ -97,7 +98,7 @@ def add_sample_run_up(
     points = [PointIn(s, round(a, 2), round(float(disp.angle(ang) or 0.0), 1), line=k + 1)
               for k, (s, a, ang) in enumerate(data.points)]
     slow = data.runout
-    today = today or dt.datetime.now(dt.UTC).date()
+    today = today or shop_today()
     done = record_run_up(
         session, by=by, job=job, recorded_on=recorded_on or min(job.received_on, today),
         sensor="bearing A, horizontal", measured="displacement", unit="µm", points=points,

@@ -11,13 +11,15 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.core import audit
+from shopapp.core.clock import shop_today
 from shopapp.core.errors import ValidationFailed
-from shopapp.models import Arbor, ProvingRotor, User, utcnow
+from shopapp.models import Arbor, ProvingRotor, User
 
 
 def today() -> dt.date:
-    """Today's date (UTC), the latest date a test or measurement may carry."""
-    return utcnow().date()
+    """The shop's today (:func:`shopapp.core.clock.shop_today`), the latest date a test or
+    measurement may carry."""
+    return shop_today()
 
 
 def core_error(exc: BalancingInputError, prefix: str = "") -> ValidationFailed:

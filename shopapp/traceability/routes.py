@@ -17,6 +17,7 @@ from typing import Any
 from flask import Blueprint, abort, flash, redirect, render_template, request, url_for
 from flask_login import current_user
 
+from shopapp.core.clock import shop_today
 from shopapp.core.display import ShopDisplay, counted, plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.extensions import db_session
@@ -45,7 +46,7 @@ bp = Blueprint("traceability", __name__, url_prefix="/traceability", template_fo
 
 
 def _today() -> dt.date:
-    return dt.datetime.now(dt.UTC).date()
+    return shop_today()
 
 
 def _display() -> ShopDisplay:

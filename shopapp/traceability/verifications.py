@@ -40,6 +40,7 @@ from shopapp.balancing.verification import (
     unbalance_reduction_ratio,
 )
 from shopapp.core import audit, checks
+from shopapp.core.clock import shop_date
 from shopapp.core.display import counted, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.permissions import require
@@ -148,7 +149,7 @@ def status_from_records(
     if last_passed is not None:
         basis, due = "proving_test", last_passed + interval
     else:
-        entered = (machine.created_at or utcnow()).astimezone(dt.UTC).date()
+        entered = shop_date(machine.created_at or utcnow())
         basis, due = "register_entry", entered + interval
     since: dt.date | None = None
     if latest is not None and not latest.passed:
