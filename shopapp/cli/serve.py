@@ -29,12 +29,15 @@ MULTI_PROCESS = sys.platform != "win32"
 DEFAULT_WORKERS = 2 if MULTI_PROCESS else 1
 
 
-def gunicorn_options(host: str, port: int, workers: int, threads: int) -> dict[str, Any]:
+def gunicorn_options(host: str, port: int, workers: int, threads: int,
+                     log_level: str = "INFO") -> dict[str, Any]:
     """gunicorn's settings for ``shopapp serve``: threaded workers, so one slow page (a
     year's dashboard, a PDF) holds one thread, not a whole process."""
     bind = f"[{host}]:{port}" if ":" in host else f"{host}:{port}"
     return {"bind": [bind], "workers": workers, "worker_class": "gthread",
             "threads": threads, "proc_name": "shopapp",
+            # gunicorn's own lines (workers booting, exiting) at the app's LOG_LEVEL.
+            "loglevel": log_level.lower(),
             # The heartbeat a worker's main loop sends while its threads answer: a long
             # request (an audit ZIP) does not stop it, so silence this long is a stuck process.
             "timeout": 120, "graceful_timeout": 30,
@@ -88,7 +91,8 @@ def serve(host: str, port: int, workers: int, threads: int) -> None:
               else f"waitress, {threads} threads")
     log.info("serving on http://%s:%d (database: %s; %s)", host, port, backend, server)
     if workers > 1:
-        _serve_with_gunicorn(gunicorn_options(host, port, workers, threads))
+        _serve_with_gunicorn(gunicorn_options(host, port, workers, threads,
+                                              str(app.config.get("LOG_LEVEL", "INFO"))))
         return
     import waitress
 
