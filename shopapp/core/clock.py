@@ -32,7 +32,8 @@ def set_shop_zone(name: str | None) -> None:
         return
     try:
         _zone = zoneinfo.ZoneInfo(str(name).strip())
-    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+    # OSError: a folder of zones ("Europe"), a name too long for a file name.
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError, OSError):
         raise ConfigError(
             f"TIME_ZONE: {str(name)[:60]!r} is not a known time zone; use an IANA name such "
             "as Europe/Vienna or America/Chicago, or leave it out for the server's own"
