@@ -25,6 +25,7 @@ reads everything back:
 
 from __future__ import annotations
 
+import datetime as dt
 import hashlib
 import re
 from collections.abc import Iterator, Sequence
@@ -185,16 +186,45 @@ def _corrections(certified: Sequence[CorrectionLine], stored: Sequence[Correctio
             if not _same_correction(cx, cy, angles)]
 
 
-def evidence_differences(certified: CertificateData, derived: CertificateData) -> list[str]:
-    """What the evidence-derived values of ``derived`` change against ``certified``."""
+#: The calendar day of one moment differs between the world's time zones (UTC−12 to
+#: UTC+14, IANA tz database), so a day printed in any of them is that moment's day.
+_EARLIEST_OFFSET = dt.timedelta(hours=-12)
+_LATEST_OFFSET = dt.timedelta(hours=14)
+
+
+def day_of_moment_somewhere(day: str, moment: dt.datetime) -> bool:
+    """Whether ``day`` (ISO) is the calendar day of ``moment`` in some time zone.
+
+    Certificates print the shop's day of the judged run (:mod:`shopapp.core.clock`);
+    those issued before the shop's zone was known printed the UTC day, and a shop may set
+    ``time_zone`` later. Neither is a change of the evidence.
+    """
+    try:
+        start = dt.datetime.combine(dt.date.fromisoformat(day), dt.time(), tzinfo=dt.UTC)
+    except ValueError:
+        return False
+    # Midnight at UTC+14 comes first, the next midnight at UTC−12 last.
+    return start - _LATEST_OFFSET <= moment < start + dt.timedelta(days=1) - _EARLIEST_OFFSET
+
+
+def evidence_differences(certified: CertificateData, derived: CertificateData,
+                         judged_at: dt.datetime | None = None) -> list[str]:
+    """What the evidence-derived values of ``derived`` change against ``certified``.
+
+    ``judged_at``, the judged run's moment: the certified "balanced on" day agrees when it
+    is that moment's day in some time zone (:func:`day_of_moment_somewhere`).
+    """
     angles = (certified.angle_convention == derived.angle_convention
               and certified.unit == derived.unit)
     out = []
+    same_day = (judged_at is not None and certified.final_run == derived.final_run
+                and day_of_moment_somewhere(certified.balanced_on, judged_at))
     scalars = (
         ("judged run", certified.final_run, derived.final_run, ""),
         ("initial run", certified.initial_run, derived.initial_run, ""),
         ("balancing speed", certified.balancing_speed_rpm, derived.balancing_speed_rpm, "rpm"),
-        ("balanced on", certified.balanced_on, derived.balanced_on, ""),
+        ("balanced on", certified.balanced_on,
+         certified.balanced_on if same_day else derived.balanced_on, ""),
         ("verdict", certified.passed, derived.passed, ""),
     )
     for name, x, y, unit in scalars:
@@ -226,7 +256,7 @@ def _derived_checks(session: Session, cert: Certificate, data: CertificateData
                                   issued_by=issuer)
     same_convention = (data.angle_convention == derived.angle_convention
                        and data.unit == derived.unit)
-    return evidence_differences(data, derived), same_convention
+    return (evidence_differences(data, derived, ev.final_run.taken_at), same_convention)
 
 
 def _chunks(ids: Sequence[int]) -> Iterator[Sequence[int]]:

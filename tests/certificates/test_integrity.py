@@ -9,6 +9,7 @@ certificate and what differs. The expected values come from the tampering itself
 
 from __future__ import annotations
 
+import datetime as dt
 import hashlib
 
 import pytest
@@ -16,9 +17,10 @@ from click.testing import CliRunner
 from sqlalchemy import Connection, text
 from sqlalchemy.orm import Session
 
+from shopapp.certificates import integrity, pdfsign, signing
 from shopapp.certificates import issue as certificates
-from shopapp.certificates import pdfsign, signing
 from shopapp.cli import main
+from shopapp.core import clock
 from shopapp.core.database import make_engine
 from shopapp.jobs import states as jobs
 from shopapp.models import Base, Correction, Run, RunReading
@@ -297,3 +299,46 @@ def test_details_are_compared_number_by_number_to_the_printed_precision(
         certified: str, derived: str, same: bool) -> None:
     from shopapp.certificates.integrity import same_printed_numbers
     assert same_printed_numbers(certified, derived) is same
+
+
+def _judged_at(seeded):  # type: ignore[no-untyped-def]
+    with Session(seeded["engine"]) as db:
+        return db.get(Run, seeded["check_run"]).taken_at.astimezone(dt.UTC)
+
+
+def test_a_certificate_stays_sound_when_the_shop_sets_its_time_zone_later(seeded, monkeypatch  # type: ignore[no-untyped-def]
+                                                                          ) -> None:
+    # Issued while the shop's days were UTC days. A zone where the judged run falls on
+    # another calendar day (IANA tz database: Kiritimati is UTC+14, Etc/GMT+12 is UTC−12)
+    # changes the day the evidence gives, not the evidence.
+    taken = _judged_at(seeded)
+    zone = "Pacific/Kiritimati" if taken.hour >= 10 else "Etc/GMT+12"
+    monkeypatch.setenv("SHOPAPP_TIME_ZONE", zone)
+    result = check()
+    assert result.exit_code == 0, result.output
+    assert "all agree" in result.output
+    clock.set_shop_zone(None)
+
+
+def test_a_judged_run_moved_by_two_days_is_still_found(seeded) -> None:  # type: ignore[no-untyped-def]
+    moved = _judged_at(seeded) + dt.timedelta(days=2)
+    tamper(seeded["engine"], ("run",),
+           ("UPDATE run SET taken_at = :t WHERE id = :id",
+            {"t": moved, "id": seeded["check_run"]}))
+    result = check()
+    assert result.exit_code == 1, result.output
+    assert "balanced on" in result.output
+
+
+def test_a_day_is_the_day_of_a_moment_somewhere_only_within_the_world_s_offsets() -> None:
+    # UTC−12 to UTC+14 (IANA tz database): 2026-12-04 00:00 at UTC+14 is 12-03 10:00 UTC,
+    # 2026-12-05 00:00 at UTC−12 is 12-05 12:00 UTC.
+    day = "2026-12-04"
+    assert integrity.day_of_moment_somewhere(day, dt.datetime(2026, 12, 3, 10, 0, tzinfo=dt.UTC))
+    assert not integrity.day_of_moment_somewhere(day, dt.datetime(2026, 12, 3, 9, 59,
+                                                                  tzinfo=dt.UTC))
+    assert integrity.day_of_moment_somewhere(day, dt.datetime(2026, 12, 5, 11, 59,
+                                                              tzinfo=dt.UTC))
+    assert not integrity.day_of_moment_somewhere(day, dt.datetime(2026, 12, 5, 12, 0,
+                                                                  tzinfo=dt.UTC))
+    assert not integrity.day_of_moment_somewhere("not a day", dt.datetime.now(dt.UTC))
