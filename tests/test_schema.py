@@ -311,8 +311,15 @@ def test_migration_0020_gives_every_existing_revision_its_own_code(fresh_databas
         with eng.connect() as conn:
             guards_before = _guards(conn)
         with Session(eng) as db:
-            user = factories.user(db, username="quinn", role="quality",
-                                 password="long-enough-1")
+            # The user by a Core INSERT too: the model has columns added after 0020
+            # (user_account.must_change_password, 0025).
+            account = table("user_account", *(column(c) for c in (
+                "id", "username", "full_name", "role", "password_hash", "active",
+                "created_at", "session_version")))
+            user_id = db.execute(insert(account).values(
+                username="quinn", full_name="Quinn", role="quality",
+                password_hash="not-a-login", active=True, created_at=utcnow(),
+                session_version=0).returning(account.c.id)).scalar_one()
             # The job by a Core INSERT: the ORM's flush hook keeps the job facts with
             # today's SQL, which reads imported_job (0022), not there at this revision.
             rotor = factories.ShopFactory(db).rotor()
@@ -327,10 +334,10 @@ def test_migration_0020_gives_every_existing_revision_its_own_code(fresh_databas
                 pdf = f"%PDF-1.4 rev {rev}".encode()
                 db.execute(insert(cert).values(
                     number="BC-2025-00001", revision=rev, job_id=job_id,
-                    state="void" if rev < 3 else "issued", issued_by_id=user.id,
+                    state="void" if rev < 3 else "issued", issued_by_id=user_id,
                     issued_at=utcnow().replace(tzinfo=None), reason="",
                     voided_at=utcnow().replace(tzinfo=None) if rev < 3 else None,
-                    voided_by_id=user.id if rev < 3 else None, void_reason="",
+                    voided_by_id=user_id if rev < 3 else None, void_reason="",
                     pdf=pdf, pdf_sha256=hashlib.sha256(pdf).hexdigest(), data_json="{}",
                     data_sha256=hashlib.sha256(f"{{}}{rev}".encode()).hexdigest()))
             db.commit()

@@ -31,6 +31,23 @@ def _load_user(user_id: str) -> User | None:
     return user
 
 
+#: What a user whose password an administrator gave may open before choosing an own one.
+_OPEN_BEFORE_OWN_PASSWORD = frozenset({"auth.own_password", "auth.logout", "auth.login",
+                                       "static"})
+
+
+@bp.before_app_request
+def _own_password_first():  # type: ignore[no-untyped-def]
+    """Every page of a user with ``must_change_password`` leads to the password page (the
+    JSON API answers its tokens as before: a token is made by its user, after a log-in)."""
+    if (request.endpoint is None or request.endpoint in _OPEN_BEFORE_OWN_PASSWORD
+            or "api" in request.blueprints):
+        return None
+    if current_user.is_authenticated and current_user.must_change_password:
+        return redirect(url_for("auth.own_password"))
+    return None
+
+
 def _start_session(user: User) -> None:
     session.clear()
     session.permanent = True

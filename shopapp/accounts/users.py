@@ -48,7 +48,9 @@ def create_user(
     by: User | None = None,
 ) -> User:
     """Create an active user. ``by`` is None only for the first admin and the CLI;
-    a given ``by`` must be allowed to manage users."""
+    a given ``by`` must be allowed to manage users, and the new user is asked for an own
+    password at the first log-in (``must_change_password``): the administrator knows this
+    one."""
     if by is not None:
         require(by, "manage_users")
     username = username.strip().lower()
@@ -70,6 +72,7 @@ def create_user(
         role=role,
         password_hash=hash_password(password),
         active=True,
+        must_change_password=by is not None,
     )
     session.add(user)
     session.flush()
@@ -195,6 +198,8 @@ def reset_password(session: Session, user: User, *, by: User | None, password: s
         require(by, "manage_users")
     validate_password(password, username=user.username)
     user.password_hash = hash_password(password)
+    # Given by somebody else: the user sets an own one at the next log-in.
+    user.must_change_password = by is not None and by.id != user.id
     end_sessions(user)
     session.flush()
     audit.record(
@@ -215,6 +220,7 @@ def change_own_password(
         raise ValidationFailed("password", "is your current password; choose a new one")
     validate_password(password, username=user.username)
     user.password_hash = hash_password(password)
+    user.must_change_password = False
     end_sessions(user)
     session.flush()
     audit.record(

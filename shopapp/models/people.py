@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 
-from sqlalchemy import Boolean, CheckConstraint, Float, Integer, String, Text
+from sqlalchemy import Boolean, CheckConstraint, Float, Integer, String, Text, false
 from sqlalchemy.orm import Mapped, mapped_column
 
 from shopapp.models.base import Base, IntPK, Timestamp, UTCDateTime, one_of
@@ -30,6 +30,12 @@ class User(Base):
     # a password change or reset) ends every session the user has open anywhere.
     session_version: Mapped[int] = mapped_column(
         Integer, nullable=False, default=0, server_default="0"
+    )
+    # Set when an administrator gave the password (a new account, a reset on the users
+    # page): every page asks for an own one first (shopapp.web.guards). The user's own
+    # change clears it.
+    must_change_password: Mapped[bool] = mapped_column(
+        Boolean, nullable=False, default=False, server_default=false()
     )
 
     # Flask-Login protocol, kept here so the web layer needs no wrapper class.
