@@ -95,7 +95,7 @@ class MachineForm(OnceForm):
         "Rotor-on-suspension resonance (rpm)", validators=[Optional()]
     )
     reading_unit = ChoiceField(
-        "Its readings are", choices=[("", "— choose —")] + [
+        "Reading unit", choices=[("", "— choose —")] + [
             (u, READING_UNIT_LABELS[u]) for u in READING_UNITS]
     )
     reading_planes = ChoiceField(
