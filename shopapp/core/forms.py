@@ -216,14 +216,18 @@ class ChoiceField(SelectField):
         SelectField.choices.fset(self, _select_choices(value))
 
     def pre_validate(self, form: Any) -> None:
-        # A placeholder ("— choose —") is not a choice to offer in the message.
-        labels = [str(c.label) for c in self.iter_choices()
-                  if not str(c.label).startswith("—")]
-        shown = ", ".join(labels[:12]) + (", …" if len(labels) > 12 else "")
-        self.invalid_choice_message = (
-            f"Not one of the choices; choose one of: {shown}." if labels
-            else "Not one of the choices: there is nothing to choose from here yet.")
+        self.invalid_choice_message = _not_a_choice(self)
         super().pre_validate(form)
+
+
+def _not_a_choice(field: Any) -> str:
+    """"Not one of the choices; choose one of: …" with ``field``'s choices (the first 12),
+    or that there is nothing to choose yet."""
+    # A placeholder ("— choose —") is not a choice to offer in the message.
+    labels = [str(c.label) for c in field.iter_choices() if not str(c.label).startswith("—")]
+    shown = ", ".join(labels[:12]) + (", …" if len(labels) > 12 else "")
+    return (f"Not one of the choices; choose one of: {shown}." if labels
+            else "Not one of the choices: there is nothing to choose from here yet.")
 
 
 class ShopForm(FlaskForm):
@@ -260,7 +264,7 @@ def _field_name(field: Field) -> str:
 # shop forms meet (Length, DataRequired/InputRequired, DateField, SelectField).
 _STOCK_REQUIRED = "This field is required."
 _STOCK_NOT_A_DATE = "Not a valid date value."
-_STOCK_NOT_A_CHOICE = "Not a valid choice."
+_STOCK_NOT_A_CHOICE = ("Not a valid choice.", "Invalid Choice: could not coerce.")
 
 
 def stock_message_named(field: Field, message: str) -> str:
@@ -272,10 +276,9 @@ def stock_message_named(field: Field, message: str) -> str:
         return f"{name} is required."
     if message == _STOCK_NOT_A_DATE:
         return f"{name}: not a date; type it as YYYY-MM-DD, e.g. 2026-11-03."
-    if message == _STOCK_NOT_A_CHOICE:
-        labels = [str(c.label) for c in field.iter_choices()  # type: ignore[attr-defined]
-                  if not str(c.label).startswith("—")]
-        return f"{name}: not one of the choices; choose one of: {', '.join(labels)}."
+    if message in _STOCK_NOT_A_CHOICE:
+        refusal = _not_a_choice(field)
+        return f"{name}: {refusal[:1].lower()}{refusal[1:]}"
     if message.startswith("Field ") and "character" in message:
         text = f"{name} {message.removeprefix('Field ')}"
         if "longer than" in message and isinstance(field.data, str):

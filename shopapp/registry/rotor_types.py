@@ -253,7 +253,7 @@ def _relations(e: checks.Errors, out: dict[str, Any]) -> None:
         if span < MIN_SPAN_MM:
             e.add(
                 "bearing_b_mm",
-                f"bearings A and B must be at least {plain(MIN_SPAN_MM)} mm apart "
+                f"must be at least {plain(MIN_SPAN_MM)} mm from bearing A "
                 f"(A = {plain(a)} mm, B = {plain(b)} mm)",
             )
         else:

@@ -110,7 +110,10 @@ GARBAGE: list[tuple[str, str, str]] = [
     ("mass_kg", "12,500", "could be 12.500 or 12500"),  # never guessed: 12.5 or 12 500 kg
     ("mass_kg", "9" * 50, "at most 40 characters"),
     ("service_speed_rpm", "fast", "Not a number"),
-    ("bearing_b_mm", "0", "apart"),
+    # The walk: "Bearing B position (mm) bearings A and B must be at least 1 mm apart" (the
+    # label before a clause with its own subject).
+    ("bearing_b_mm", "0", "Bearing B position (mm) must be at least 1 mm from bearing A "
+                          "(A = 0 mm, B = 0 mm)"),
     ("radius_1_mm", "0", "greater than 0"),
     ("centre_of_mass_mm", "99999", "too far"),
     ("plane_2_mm", "", "both its position and its radius"),
@@ -128,7 +131,8 @@ GARBAGE: list[tuple[str, str, str]] = [
     ("part_number", "P" * 101, "100"),
     ("description", "d" * 201, "200"),
     ("notes", "n" * 5001, "5000"),
-    ("customer", "abc", "Invalid Choice"),
+    # The walk: WTForms' "Invalid Choice: could not coerce." named neither field nor choices.
+    ("customer", "abc", "Customer: not one of the choices; choose one of:"),
     ("customer", "999999", "Not one of the choices"),
 ]
 
@@ -239,7 +243,7 @@ def test_create_rotor_and_duplicate_serial(client, login_as, shop, db):
     [
         ({"serial_number": ""}, "Give the serial number"),
         ({"serial_number": "S" * 101}, "100"),
-        ({"rotor_type": "abc"}, "Invalid Choice"),
+        ({"rotor_type": "abc"}, "Rotor type (customer · part number): not one of the choices"),
         ({"rotor_type": "0"}, "Not one of the choices"),
     ],
 )

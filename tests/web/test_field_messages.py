@@ -29,12 +29,14 @@ class _Form(ShopForm):
     reason = StringField("Why is this struck out?", validators=[DataRequired()])
     on = DayField("Containing the day")
     period = SelectField("Period", choices=[SelectChoice("week"), SelectChoice("month")])
+    size = SelectField("Size", coerce=int, choices=[SelectChoice(1, "small"),
+                                                    SelectChoice(2, "large")])
     part = FormField(_Part)
 
 
 def _errors(app, **data: str) -> dict[str, list[str]]:
     base = {"contact": "Ann", "code": "abcd", "reason": "typo", "on": "2026-11-02",
-            "period": "week"}
+            "period": "week", "size": "1"}
     with app.test_request_context():
         form = _Form(formdata=MultiDict({**base, **data}))
         form.validate()
@@ -88,3 +90,9 @@ def test_a_customer_contact_too_long_names_the_field(client, login_as) -> None:
     assert resp.status_code == 422
     assert "Contact person cannot be longer than 200 characters (10000 typed)." in resp.get_data(
         as_text=True)
+
+
+def test_a_choice_that_is_not_even_a_number_names_the_field_and_its_choices(app) -> None:
+    # WTForms says "Invalid Choice: could not coerce." when an id is not a whole number.
+    assert _errors(app, size="1e309") == {
+        "size": ["Size: not one of the choices; choose one of: small, large."]}
