@@ -300,13 +300,23 @@ def _leaf_fields(fields: Any) -> Iterator[Field]:
             yield field
 
 
+# The first words of a bare predicate, which takes the field's label as its subject.
+_PREDICATE_STARTS = frozenset({
+    "is", "are", "must", "may", "cannot", "can", "has", "have", "contains", "needs",
+    "should", "was", "were", "does", "adds", "holds", "differs", "lies", "exceeds", "would",
+})
+
+
 def field_message(field: Field, message: str) -> str:
-    """A use-case's message as shown beside ``field``: a bare predicate ("is required",
-    "must be a number, got 'x'") gets the field's label as its subject, so every
-    message names its field ("Reason is required"); a whole sentence is kept."""
+    """A use-case's message as shown beside ``field``, naming its field: a bare predicate
+    ("is required", "must be a number, got 'x'") gets the field's label as its subject
+    ("Reason is required"); a clause of its own ("give the unbalance or the eccentricity",
+    "at most 20 readings") follows the label after a colon; a whole sentence is kept."""
     if not message[:1].islower():
         return message
-    return f"{_field_name(field)} {message}"
+    if message.split(" ", 1)[0] in _PREDICATE_STARTS:
+        return f"{_field_name(field)} {message}"
+    return f"{_field_name(field)}: {message}"
 
 
 def apply_errors(form: FlaskForm, exc: ValidationFailed,

@@ -96,3 +96,32 @@ def test_a_choice_that_is_not_even_a_number_names_the_field_and_its_choices(app)
     # WTForms says "Invalid Choice: could not coerce." when an id is not a whole number.
     assert _errors(app, size="1e309") == {
         "size": ["Size: not one of the choices; choose one of: small, large."]}
+
+
+@pytest.mark.parametrize(("message", "shown"), [
+    # a bare predicate takes the label as its subject
+    ("is required", "Contact is required"),
+    ("must be at most 10 kg, got 12", "Contact must be at most 10 kg, got 12"),
+    # a clause of its own follows the label after a colon (the walk: "Unbalance, g·mm give
+    # the unbalance or the eccentricity", "Readings ... one per line at least 5 readings
+    # are needed")
+    ("give the unbalance or the eccentricity (one of them)",
+     "Contact: give the unbalance or the eccentricity (one of them)"),
+    ("at least 5 readings are needed, got 0", "Contact: at least 5 readings are needed, got 0"),
+    # a whole sentence is kept
+    ("Give the shop's name.", "Give the shop's name."),
+])
+def test_a_use_case_message_beside_a_field_reads_as_a_sentence(app, message, shown) -> None:
+    from shopapp.core.forms import field_message
+
+    with app.test_request_context():
+        form = _Form(formdata=MultiDict({}))
+        assert field_message(form.contact, message) == shown
+
+
+def test_the_loose_mass_page_says_which_figure_to_give(client, login_as) -> None:
+    login_as("operator")
+    resp = client.get("/resonance/loose-mass", query_string={"rotor_mass_kg": "12"})
+    assert resp.status_code == 422
+    assert "Unbalance, g·mm: give the unbalance or the eccentricity (one of them)" in (
+        resp.get_data(as_text=True))
