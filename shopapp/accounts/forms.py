@@ -67,7 +67,7 @@ class SettingsForm(ShopForm):
     )
     shop_address = TextAreaField("Shop address", validators=[Length(max=2000)])
     angle_sense = ChoiceField(
-        "Angles are counted", choices=[(s, SENSE_LABELS[s]) for s in ANGLE_SENSES]
+        "Angle direction", choices=[(s, SENSE_LABELS[s]) for s in ANGLE_SENSES]
     )
     angle_zero_deg = NumberField(
         "Zero reference (°)", validators=[InputRequired("Required: 0 to 359.9.")]

@@ -189,8 +189,9 @@ def check(session: Session, number: str, code: str = "") -> Verification:
         cert = by_number_and_hash_prefix(session, n, c)
         how = "number and hash"
     else:
-        raise ValidationFailed("c", "a verification code has 10 characters (letters A-Z and "
-                                    "digits 2-7); a hash at least its first 16 hex digits")
+        raise ValidationFailed("c", "must be the 10 characters printed on the certificate "
+                                    "(letters A-Z and digits 2-7), or at least the first 16 "
+                                    "hex digits of its content hash")
     if cert is None:
         return Verification(query=query, status="unknown", with_code=True)
     return _answer(session, query, cert, how)

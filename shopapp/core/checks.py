@@ -84,8 +84,21 @@ BIDI_CONTROL = "\u202a-\u202e\u2066-\u2069"
 #: request guard and every form.
 FORM_CONTROL = re.compile(f"[\\x00-\\x08\\x0b\\x0c\\x0e-\\x1f\\x7f-\\x9f{BIDI_CONTROL}]")
 TEXT_CONTROL = re.compile(f"[\\x00-\\x08\\x0b\\x0c\\x0e-\\x1f{BIDI_CONTROL}]")
-CONTROL_REFUSAL = ("contains a control character (such as NUL or a text-direction override); "
-                   "type plain text and try again")
+_BIDI = re.compile(f"[{BIDI_CONTROL}]")
+
+
+def control_character_named(character: str) -> str:
+    """A control character as a person can look it up: its code point and kind
+    ("U+202E, a text-direction control", "U+0000, NUL", "U+0007, a control code")."""
+    kind = ("a text-direction control" if _BIDI.match(character)
+            else "NUL" if character == "\x00" else "a control code")
+    return f"U+{ord(character):04X}, {kind}"
+
+
+def control_refusal(character: str) -> str:
+    """What follows a field's name when its value holds ``character``."""
+    return (f"contains a control character ({control_character_named(character)}); "
+            "type plain text and try again")
 
 
 def text(e: Errors, field: str, value: Any, *, max_len: int = MAX_TEXT,

@@ -11,13 +11,16 @@ from __future__ import annotations
 import datetime as dt
 import math
 import secrets
+from collections.abc import Iterator
 from typing import Any, TypeVar
 
 from flask_wtf import FlaskForm
 from wtforms import (
     DateField,
     Field,
+    FieldList,
     FloatField,
+    FormField,
     HiddenField,
     IntegerField,
     SelectField,
@@ -28,7 +31,7 @@ from wtforms.validators import ValidationError
 from wtforms.widgets import TextInput
 
 from shopapp.balancing.numtext import short
-from shopapp.core.checks import CONTROL_REFUSAL, FORM_CONTROL, day_refusal, underflows_to_zero
+from shopapp.core.checks import FORM_CONTROL, control_refusal, day_refusal, underflows_to_zero
 from shopapp.core.errors import ValidationFailed
 from shopapp.models import Base
 
@@ -213,42 +216,107 @@ class ChoiceField(SelectField):
         SelectField.choices.fset(self, _select_choices(value))
 
     def pre_validate(self, form: Any) -> None:
-        # A placeholder ("— choose —") is not a choice to offer in the message.
-        labels = [str(c.label) for c in self.iter_choices()
-                  if not str(c.label).startswith("—")]
-        shown = ", ".join(labels[:12]) + (", …" if len(labels) > 12 else "")
-        self.invalid_choice_message = (
-            f"Not one of the choices; choose one of: {shown}." if labels
-            else "Not one of the choices: there is nothing to choose from here yet.")
+        self.invalid_choice_message = _not_a_choice(self)
         super().pre_validate(form)
 
 
+def _not_a_choice(field: Any) -> str:
+    """"Not one of the choices; choose one of: …" with ``field``'s choices (the first 12),
+    or that there is nothing to choose yet."""
+    # A placeholder ("— choose —") is not a choice to offer in the message.
+    labels = [str(c.label) for c in field.iter_choices() if not str(c.label).startswith("—")]
+    shown = ", ".join(labels[:12]) + (", …" if len(labels) > 12 else "")
+    return (f"Not one of the choices; choose one of: {shown}." if labels
+            else "Not one of the choices: there is nothing to choose from here yet.")
+
+
 class ShopForm(FlaskForm):
-    """The base of every form: a field whose typed value holds a control character is
-    refused beside it, with what was typed kept in the form. The request guard lets such
+    """The base of every form: WTForms' stock messages name their field
+    (:func:`stock_message_named`), and a field whose typed value holds a control character
+    is refused beside it, with what was typed kept in the form. The request guard lets such
     a post reach its view for this (and stops any write, :mod:`shopapp.web.guards`)."""
 
     def validate(self, extra_validators: Any = None) -> bool:
         valid = super().validate(extra_validators)
+        for leaf in _leaf_fields(self):
+            leaf.errors = [stock_message_named(leaf, e) for e in leaf.errors]
         for field in self:
-            if any(isinstance(v, str) and FORM_CONTROL.search(v) for v in field.raw_data or ()):
+            found = next((m for v in field.raw_data or () if isinstance(v, str)
+                          for m in [FORM_CONTROL.search(v)] if m), None)
+            if found:
                 # The one message for the field: a number field's "not a number" about
                 # the same characters would only repeat it.
-                field.errors = [f"{field.label.text} {CONTROL_REFUSAL}."]
+                field.errors = [f"{field.label.text} {control_refusal(found.group())}."]
                 valid = False
         return valid
 
 
+def _field_name(field: Field) -> str:
+    """The words that name ``field`` in a message: its label, or its name where the label
+    is a question ("Why is this run struck out?") or empty."""
+    label = str(field.label.text).strip().rstrip(":")
+    if not label or label.endswith("?"):
+        label = field.short_name.replace("_", " ").capitalize()
+    return label
+
+
+# WTForms' own messages say "Field ..." or nothing of the field at all; these are the ones
+# shop forms meet (Length, DataRequired/InputRequired, DateField, SelectField).
+_STOCK_REQUIRED = "This field is required."
+_STOCK_NOT_A_DATE = "Not a valid date value."
+_STOCK_NOT_A_CHOICE = ("Not a valid choice.", "Invalid Choice: could not coerce.")
+
+
+def stock_message_named(field: Field, message: str) -> str:
+    """One of WTForms' stock messages as the field's own: "Field cannot be longer than 200
+    characters." beside the contact reads "Contact person cannot be longer than 200
+    characters (10000 typed)."; any other message is returned unchanged."""
+    name = _field_name(field)
+    if message == _STOCK_REQUIRED:
+        return f"{name} is required."
+    if message == _STOCK_NOT_A_DATE:
+        return f"{name}: not a date; type it as YYYY-MM-DD, e.g. 2026-11-03."
+    if message in _STOCK_NOT_A_CHOICE:
+        refusal = _not_a_choice(field)
+        return f"{name}: {refusal[:1].lower()}{refusal[1:]}"
+    if message.startswith("Field ") and "character" in message:
+        text = f"{name} {message.removeprefix('Field ')}"
+        if "longer than" in message and isinstance(field.data, str):
+            text = f"{text.removesuffix('.')} ({len(field.data)} typed)."
+        return text
+    return message
+
+
+def _leaf_fields(fields: Any) -> Iterator[Field]:
+    """Every field among ``fields`` (a form, or a list of fields) that holds its own
+    messages: the fields inside a sub-form (``FormField``) or a list of entries
+    (``FieldList``), not the container, whose messages are read-only."""
+    for field in fields:
+        if isinstance(field, FormField):
+            yield from _leaf_fields(field.form)
+        elif isinstance(field, FieldList):
+            yield from _leaf_fields(field.entries)
+        else:
+            yield field
+
+
+# The first words of a bare predicate, which takes the field's label as its subject.
+_PREDICATE_STARTS = frozenset({
+    "is", "are", "must", "may", "cannot", "can", "has", "have", "contains", "needs",
+    "should", "was", "were", "does", "adds", "holds", "differs", "lies", "exceeds", "would",
+})
+
+
 def field_message(field: Field, message: str) -> str:
-    """A use-case's message as shown beside ``field``: a bare predicate ("is required",
-    "must be a number, got 'x'") gets the field's label as its subject, so every
-    message names its field ("Reason is required"); a whole sentence is kept."""
+    """A use-case's message as shown beside ``field``, naming its field: a bare predicate
+    ("is required", "must be a number, got 'x'") gets the field's label as its subject
+    ("Reason is required"); a clause of its own ("give the unbalance or the eccentricity",
+    "at most 20 readings") follows the label after a colon; a whole sentence is kept."""
     if not message[:1].islower():
         return message
-    label = str(field.label.text).strip().rstrip(":")
-    if not label or label.endswith("?"):  # a question ("Why is this run struck out?")
-        label = field.short_name.replace("_", " ").capitalize()
-    return f"{label} {message}"
+    if message.split(" ", 1)[0] in _PREDICATE_STARTS:
+        return f"{_field_name(field)} {message}"
+    return f"{_field_name(field)}: {message}"
 
 
 def apply_errors(form: FlaskForm, exc: ValidationFailed,

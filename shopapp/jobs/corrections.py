@@ -72,7 +72,7 @@ def _check_split_sum(e: _Errors, parts: Sequence[Mapping[str, Any]], mass_g: flo
     total = combine_masses([p["mass_g"] for p in parts], [p["angle_deg"] for p in parts])
     miss = abs(total.vector_g - cmath.rect(mass_g, math.radians(angle_deg)))
     if miss > SPLIT_MISS_SHARE * mass_g:
-        e.add("split", f"its weights add up to {quantity(total.mass_g, 'g')} at "
+        e.add("split", f"adds up to {quantity(total.mass_g, 'g')} at "
               f"{plain(round(total.angle_deg, 1))}°, not the {quantity(mass_g, 'g')} at "
               f"{plain(round(angle_deg, 1))}° recorded; check the split or the mass")
 

@@ -7,7 +7,9 @@ audit event (before/after snapshots) in the caller's transaction.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+import hashlib
+import json
+from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 from sqlalchemy import func, select
@@ -60,6 +62,46 @@ def flush_unique(session: Session, obj: Base, field: str, message: str) -> None:
         if _is_unique_violation(exc):
             raise ValidationFailed(field, message) from exc
         raise
+
+
+def edit_stamp(obj: Base, fields: Sequence[str]) -> str:
+    """The state of ``obj``'s ``fields`` as an edit form is drawn with it: a short hash of
+    each field's stored value, in order, so a later save can tell which ones someone else
+    changed meanwhile (:func:`changed_since`)."""
+    values = audit.snapshot(obj, fields)
+    return ".".join(
+        hashlib.sha256(json.dumps(values[f], sort_keys=True, default=str).encode()).hexdigest()[:8]
+        for f in fields)
+
+
+def changed_since(obj: Base, fields: Sequence[str], drawn: str) -> list[str]:
+    """The fields of ``obj`` stored differently now than when the form stamped ``drawn``
+    was drawn (every field, when the stamp is not one of this record's)."""
+    then, now = drawn.split("."), edit_stamp(obj, fields).split(".")
+    if len(then) != len(now):
+        return list(fields)
+    return [f for f, a, b in zip(fields, then, now, strict=True) if a != b]
+
+
+def edit_conflict(changed: Sequence[str]) -> str:
+    """The refusal of an edit saved over someone else's (``changed``: their fields)."""
+    return (f"saved by someone else since you opened this form "
+            f"({', '.join(f.replace('_', ' ') for f in changed)} changed); nothing of yours "
+            "was saved. The form keeps what you typed and now stands on the stored record: "
+            "check the fields named and save again to keep yours")
+
+
+def refuse_if_changed(obj: Base, fields: Sequence[str], drawn: str | None, *,
+                      entity: str) -> None:
+    """Refuse an edit form's save when someone else saved ``obj`` after the form was
+    drawn (``drawn``: its :func:`edit_stamp`); ``None`` (API, imports: they send only what
+    changes) is not checked. Two people saving the whole form at once otherwise put the
+    first one's fields back without a word."""
+    if drawn is None:
+        return
+    changed = changed_since(obj, fields, drawn)
+    if changed:
+        raise ValidationFailed(entity, edit_conflict(changed))
 
 
 def refuse_unknown(fields: Mapping[str, Any], allowed: tuple[str, ...]) -> None:

@@ -18,7 +18,7 @@ from shopapp.core.web import (
 from shopapp.models import Customer
 from shopapp.registry import customers, queries
 from shopapp.registry.forms import CustomerForm
-from shopapp.registry.pages import archive_button
+from shopapp.registry.pages import archive_button, drawn_on_record
 
 bp = Blueprint("customers", __name__, url_prefix="/customers", template_folder="templates")
 
@@ -53,9 +53,10 @@ def edit(customer_id: int):  # type: ignore[no-untyped-def]
     customer = get_or_404(db_session(), Customer, customer_id)
     form = CustomerForm(obj=customer)
     return submit_form(
-        form, form_page("customers/form.html", form=form, customer=customer),
+        form, drawn_on_record(form_page("customers/form.html", form=form, customer=customer),
+                              form, customer, customers.CUSTOMER_FIELDS, entity="customer"),
         lambda sess: customers.update_customer(sess, customer, by=acting_user(),
-                                               **form.values()),
+                                               drawn=form.drawn.data or None, **form.values()),
         done=lambda _: ("Customer saved.", url_for("customers.detail", customer_id=customer_id)),
     )
 

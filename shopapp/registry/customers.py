@@ -16,6 +16,7 @@ from shopapp.registry.common import (
     MAX_NOTES,
     flush_unique,
     record,
+    refuse_if_changed,
     refuse_unknown,
     set_archived,
     update_fields,
@@ -103,10 +104,13 @@ def create_customer(
     return customer
 
 
-def update_customer(session: Session, customer: Customer, *, by: User, **fields: Any) -> Customer:
-    """Change some of a customer's fields (:data:`CUSTOMER_FIELDS`); same rules as create."""
+def update_customer(session: Session, customer: Customer, *, by: User, drawn: str | None = None,
+                    **fields: Any) -> Customer:
+    """Change some of a customer's fields (:data:`CUSTOMER_FIELDS`); same rules as create.
+    ``drawn``: the edit form's stamp (:func:`~shopapp.registry.common.refuse_if_changed`)."""
     require(by, "edit_registry")
     refuse_unknown(fields, CUSTOMER_FIELDS)
+    refuse_if_changed(customer, CUSTOMER_FIELDS, drawn, entity="customer")
     merged = {name: getattr(customer, name) for name in CUSTOMER_FIELDS} | fields
     clean, e = _clean_customer(merged)
     _check_name(session, e, clean["name"], customer.id)

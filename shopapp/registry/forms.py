@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from wtforms import BooleanField, StringField, TextAreaField
+from wtforms import BooleanField, HiddenField, StringField, TextAreaField
 from wtforms.validators import InputRequired, Length, Optional
 
 from shopapp.balancing.removal import DENSITIES
@@ -48,6 +48,8 @@ class CustomerForm(OnceForm):
     address = TextAreaField("Address", validators=[Length(max=2000)])
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
     requires_residual_test = BooleanField("Residual-unbalance test on every job by default")
+    # The record's stamp when the edit form was drawn (registry.pages.drawn_on_record).
+    drawn = HiddenField()
 
     def values(self) -> dict[str, object]:
         return {
@@ -95,7 +97,7 @@ class MachineForm(OnceForm):
         "Rotor-on-suspension resonance (rpm)", validators=[Optional()]
     )
     reading_unit = ChoiceField(
-        "Its readings are", choices=[("", "— choose —")] + [
+        "Reading unit", choices=[("", "— choose —")] + [
             (u, READING_UNIT_LABELS[u]) for u in READING_UNITS]
     )
     reading_planes = ChoiceField(
@@ -106,6 +108,8 @@ class MachineForm(OnceForm):
         "Verification interval (days)", validators=[Optional()], default=365
     )
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
+
+    drawn = HiddenField()  # the record's stamp (registry.pages.drawn_on_record)
 
     def values(self) -> dict[str, Any]:
         return {name: getattr(self, name).data for name in MACHINE_FIELDS}
@@ -229,6 +233,8 @@ class RotorTypeForm(GeometryForm, OnceForm):
     )
     description = StringField("Description", validators=[Length(max=200)])
 
+    drawn = HiddenField()  # the record's stamp (registry.pages.drawn_on_record)
+
     def values(self) -> dict[str, Any]:
         values = self.geometry_values()
         values["part_number"] = self.part_number.data or ""
@@ -253,3 +259,4 @@ class RotorForm(OnceForm):
         "Serial number", validators=[InputRequired("Give the serial number."), Length(max=100)]
     )
     notes = TextAreaField("Notes", validators=[Length(max=5000)])
+    drawn = HiddenField()  # the record's stamp (registry.pages.drawn_on_record)

@@ -21,7 +21,7 @@ from shopapp.core.web import (
 from shopapp.models import Machine
 from shopapp.registry import machines, queries
 from shopapp.registry.forms import READING_UNIT_LABELS, MachineForm
-from shopapp.registry.pages import archive_button
+from shopapp.registry.pages import archive_button, drawn_on_record
 
 bp = Blueprint("machines", __name__, url_prefix="/machines", template_folder="templates")
 
@@ -52,8 +52,10 @@ def edit(machine_id: int):  # type: ignore[no-untyped-def]
     machine = get_or_404(db_session(), Machine, machine_id)
     form = MachineForm(obj=machine)
     return submit_form(
-        form, form_page("machines/form.html", form=form, machine=machine),
-        lambda sess: machines.update_machine(sess, machine, by=acting_user(), **form.values()),
+        form, drawn_on_record(form_page("machines/form.html", form=form, machine=machine),
+                              form, machine, machines.MACHINE_FIELDS, entity="machine"),
+        lambda sess: machines.update_machine(sess, machine, by=acting_user(),
+                                             drawn=form.drawn.data or None, **form.values()),
         done=lambda _: ("Machine saved.", url_for("machines.detail", machine_id=machine_id)),
     )
 

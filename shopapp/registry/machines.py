@@ -21,6 +21,7 @@ from shopapp.registry.common import (
     MAX_SPEED_RPM,
     flush_unique,
     record,
+    refuse_if_changed,
     refuse_unknown,
     set_archived,
     update_fields,
@@ -130,10 +131,13 @@ def create_machine(session: Session, *, by: User, **values: Any) -> Machine:
     return machine
 
 
-def update_machine(session: Session, machine: Machine, *, by: User, **fields: Any) -> Machine:
-    """Change some of a machine's fields; same rules as :func:`create_machine`."""
+def update_machine(session: Session, machine: Machine, *, by: User, drawn: str | None = None,
+                   **fields: Any) -> Machine:
+    """Change some of a machine's fields; same rules as :func:`create_machine`.
+    ``drawn``: the edit form's stamp (:func:`~shopapp.registry.common.refuse_if_changed`)."""
     require(by, "edit_machines")
     refuse_unknown(fields, MACHINE_FIELDS)
+    refuse_if_changed(machine, MACHINE_FIELDS, drawn, entity="machine")
     merged = {name: getattr(machine, name) for name in MACHINE_FIELDS} | fields
     clean = _clean_machine(session, merged, machine.id)
     update_fields(session, machine, clean, by=by, entity="machine", field="name",

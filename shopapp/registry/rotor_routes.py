@@ -22,7 +22,7 @@ from shopapp.core.web import (
 from shopapp.models import ROTOR_KINDS, Rotor, RotorType
 from shopapp.registry import queries, rotor_types, rotors
 from shopapp.registry.forms import OneOffRotorForm, RotorForm, RotorTypeForm
-from shopapp.registry.pages import archive_button
+from shopapp.registry.pages import archive_button, drawn_on_record
 
 bp = Blueprint("rotors", __name__, template_folder="templates")
 
@@ -87,8 +87,11 @@ def type_edit(rotor_type_id: int):  # type: ignore[no-untyped-def]
         form.load(rotor_type)
     form.customer.data = rotor_type.customer_id
     return submit_form(
-        form, form_page("rotors/type_form.html", form=form, rotor_type=rotor_type),
+        form, drawn_on_record(
+            form_page("rotors/type_form.html", form=form, rotor_type=rotor_type), form,
+            rotor_type, rotor_types.ROTOR_TYPE_FIELDS, entity="rotor type"),
         lambda s: rotor_types.update_rotor_type(s, rotor_type, by=acting_user(),
+                                                drawn=form.drawn.data or None,
                                                 **form.values()),
         done=lambda _: ("Rotor type saved.",
                         url_for("rotors.type_detail", rotor_type_id=rotor_type_id)),
@@ -214,9 +217,10 @@ def edit(rotor_id: int):  # type: ignore[no-untyped-def]
     if request.method == "GET":
         form.rotor_type.data = rotor.rotor_type_id
     return submit_form(
-        form, form_page("rotors/form.html", form=form, rotor=rotor),
+        form, drawn_on_record(form_page("rotors/form.html", form=form, rotor=rotor), form,
+                              rotor, rotors.ROTOR_COLUMNS, entity="rotor"),
         lambda s: rotors.update_rotor(
-            s, rotor, by=acting_user(),
+            s, rotor, by=acting_user(), drawn=form.drawn.data or None,
             rotor_type=queries.rotor_type_or_none(s, form.rotor_type.data),
             serial_number=form.serial_number.data or "", notes=form.notes.data or ""),
         done=lambda _: ("Rotor saved.", url_for("rotors.detail", rotor_id=rotor_id)),

@@ -45,6 +45,7 @@ from shopapp.registry.common import (
     flush_unique,
     like_prefix,
     record,
+    refuse_if_changed,
     refuse_unknown,
     require_live_customer,
     set_archived,
@@ -253,7 +254,7 @@ def _relations(e: checks.Errors, out: dict[str, Any]) -> None:
         if span < MIN_SPAN_MM:
             e.add(
                 "bearing_b_mm",
-                f"bearings A and B must be at least {plain(MIN_SPAN_MM)} mm apart "
+                f"must be at least {plain(MIN_SPAN_MM)} mm from bearing A "
                 f"(A = {plain(a)} mm, B = {plain(b)} mm)",
             )
         else:
@@ -379,11 +380,14 @@ def create_rotor_type(
 
 
 def update_rotor_type(
-    session: Session, rotor_type: RotorType, *, by: User, **fields: Any
+    session: Session, rotor_type: RotorType, *, by: User, drawn: str | None = None,
+    **fields: Any
 ) -> RotorType:
-    """Change some fields of a rotor type; the whole geometry is re-checked."""
+    """Change some fields of a rotor type; the whole geometry is re-checked.
+    ``drawn``: the edit form's stamp (:func:`~shopapp.registry.common.refuse_if_changed`)."""
     require(by, "edit_registry")
     refuse_unknown(fields, ROTOR_TYPE_FIELDS)
+    refuse_if_changed(rotor_type, ROTOR_TYPE_FIELDS, drawn, entity="rotor type")
     merged = {name: getattr(rotor_type, name) for name in ROTOR_TYPE_FIELDS} | fields
     clean = _clean_rotor_type(session, merged, rotor_type.customer, rotor_type.id)
     update_fields(session, rotor_type, clean, by=by, entity="rotor_type", field="part_number",

@@ -19,6 +19,7 @@ from shopapp.registry.common import (
     MAX_NOTES,
     flush_unique,
     record,
+    refuse_if_changed,
     refuse_unknown,
     require_live_customer,
     set_archived,
@@ -27,6 +28,8 @@ from shopapp.registry.common import (
 from shopapp.registry.rotor_types import create_one_off_rotor_type
 
 ROTOR_FIELDS: tuple[str, ...] = ("serial_number", "notes", "rotor_type")
+# The stored columns behind them, stamped by the edit form (common.edit_stamp).
+ROTOR_COLUMNS: tuple[str, ...] = ("serial_number", "notes", "rotor_type_id")
 
 
 def _serial_taken(
@@ -126,10 +129,13 @@ def register_one_off_rotor(
                         serial_number=serial_number, notes=rotor_notes)
 
 
-def update_rotor(session: Session, rotor: Rotor, *, by: User, **fields: Any) -> Rotor:
-    """Change a rotor's serial number, notes or rotor type (of the same customer)."""
+def update_rotor(session: Session, rotor: Rotor, *, by: User, drawn: str | None = None,
+                 **fields: Any) -> Rotor:
+    """Change a rotor's serial number, notes or rotor type (of the same customer).
+    ``drawn``: the edit form's stamp (:func:`~shopapp.registry.common.refuse_if_changed`)."""
     require(by, "edit_registry")
     refuse_unknown(fields, ROTOR_FIELDS)
+    refuse_if_changed(rotor, ROTOR_COLUMNS, drawn, entity="rotor")
     rotor_type = fields.get("rotor_type", rotor.rotor_type)
     clean = _clean_rotor(
         session,

@@ -28,7 +28,7 @@ from werkzeug.datastructures import ImmutableMultiDict
 from werkzeug.exceptions import BadRequest
 from werkzeug.routing import IntegerConverter
 
-from shopapp.core.checks import BIDI_CONTROL, FORM_CONTROL
+from shopapp.core.checks import BIDI_CONTROL, FORM_CONTROL, control_character_named
 from shopapp.core.web import MAX_ID
 
 _QUERY_CONTROL = re.compile(f"[\\x00-\\x1f\\x7f-\\x9f{BIDI_CONTROL}]")
@@ -63,9 +63,6 @@ class BoundedId(IntegerConverter):
         super().__init__(map, *args, **kwargs)
 
 
-_BIDI = re.compile(f"[{BIDI_CONTROL}]")
-
-
 def _bad_character(key: str, value: Any, pattern: re.Pattern[str]) -> str | None:
     """The first character ``pattern`` refuses in a field's name or value."""
     found = pattern.search(key) or (isinstance(value, str) and pattern.search(value))
@@ -85,11 +82,9 @@ def _refusal(field: str, character: str, *, left_out: bool = False) -> str:
     """The message naming the field and the character found in it (its code point and
     kind: a NUL, another control code, or a text-direction control)."""
     shown = _QUERY_CONTROL.sub("?", field)[:40]
-    kind = ("a text-direction control" if _BIDI.match(character)
-            else "NUL" if character == "\x00" else "a control code")
     what = ", so it was left out of this page" if left_out else ""
-    return (f"The field {shown!r} contains a control character (U+{ord(character):04X}, "
-            f"{kind}){what}; type plain text and try again.")
+    return (f"The field {shown!r} contains a control character "
+            f"({control_character_named(character)}){what}; type plain text and try again.")
 
 
 def _leave_out_query_fields() -> None:

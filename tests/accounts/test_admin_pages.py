@@ -202,6 +202,9 @@ def test_settings_save(client, login_as, db):
         ("angle_zero_deg", "", "Required"),
         ("unbalance_unit", "kg·m", "Not one of the choices"),
         ("angle_sense", "sideways", "Not one of the choices"),
+        # The walk: "Angles are counted contains a control character" (a sentence's start
+        # as the label); the message names the field.
+        ("angle_sense", "\u202eagainst_rotation", "Angle direction contains a control character"),
         ("job_number_pattern", "J{year}", "{seq}"),
         ("job_number_pattern", "J{seq", "not a valid pattern"),
         ("job_number_pattern", "J{when}-{seq}", "{when}"),

@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import re
 import zipfile
 
 import pytest
@@ -106,6 +107,33 @@ def test_register_page_queries_are_bounded(client, login_as, db, shop, make_user
     with count_queries() as more:
         client.get("/certificates/")
     assert more.count == few.count
+
+
+def test_a_superseded_revision_says_so_once_and_names_the_latest(client, login_as, ready,
+                                                                   db) -> None:
+    # The walk: revision 1's page read "void: superseded by revision 2 since 2026-12-04 —
+    # superseded by revision 2"; with a third revision it named revision 3 as the one
+    # that replaced it and then revision 2 again.
+    login_as("quality")
+    _issue(client, ready)
+    first = db.query(Certificate).filter_by(job_id=ready.id).one()
+    assert client.post(f"/certificates/{first.id}/reissue",
+                       data={"reason": "drawing revision"}).status_code == 302
+    second = db.query(Certificate).filter_by(job_id=ready.id, revision=2).one()
+
+    def status_line(cert_id: int) -> str:
+        page = client.get(f"/certificates/{cert_id}").get_data(as_text=True)
+        line = re.search(r"</h1>\s*<p>(.*?)</p>", page, re.S)
+        assert line is not None
+        return " ".join(re.sub(r"<[^>]+>", "", line.group(1)).split())
+
+    db.refresh(first)
+    day = first.voided_at.date().isoformat()
+    assert status_line(first.id) == f"void: superseded by revision 2 since {day}"
+    assert client.post(f"/certificates/{second.id}/reissue",
+                       data={"reason": "customer order number"}).status_code == 302
+    assert status_line(first.id) == (f"void: superseded by revision 2 (the latest is "
+                                     f"revision 3) since {day}")
 
 
 def test_reissue_and_void_pages(client, login_as, ready, db) -> None:

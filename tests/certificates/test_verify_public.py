@@ -115,7 +115,11 @@ def test_bad_input_names_the_field_never_a_500(client, cert) -> None:
     status, page = _get(client, n="", c=cert.verification_code)
     assert status == 422 and "enter the certificate number" in page
     status, page = _get(client, n=cert.number, c="not-a-code!")
-    assert status == 422 and "a verification code has 10 characters" in page
+    # The walk: "Verification code a verification code has 10 characters ..." (the label
+    # put before a message that named the field itself).
+    assert status == 422 and ("Verification code must be the 10 characters printed on the "
+                              "certificate (letters A-Z and digits 2-7), or at least the "
+                              "first 16 hex digits of its content hash") in page
     status, page = _get(client, n="X" * 41)
     assert status == 422
 

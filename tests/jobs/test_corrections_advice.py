@@ -454,6 +454,25 @@ def test_a_split_typed_with_a_decimal_comma_is_saved_and_shown_with_a_point(
     assert "1.95 g @ 4" in body and "1,95" not in body
 
 
+def test_a_split_that_does_not_add_up_is_said_as_a_sentence_beside_the_field(
+        client, login_as, db, shop, machine) -> None:
+    # The walk: "Split onto positions (position:grams, …) its weights add up to 9.33 g ...":
+    # the field's label was put before a clause that had its own subject.
+    from shopapp.models import Correction
+    user = login_as("operator")
+    rt = single_plane(shop, positions_1=8, first_position_1_deg=0.0, stock_weights_g=None)
+    job = book(db, user, rt, machine)
+    first = run(db, user, job, "initial", _v(2500.0, 200.0))
+    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-run_id": str(first.id), "c1-action": "add", "c1-mass_g": "50",
+        "c1-angle_deg": "135", "c1-radius_mm": str(R), "c1-split": "4:2"})
+    assert resp.status_code == 422
+    assert ("Split onto positions (position:grams, …) adds up to 2.00 g at 135°, not the "
+            "50.0 g at 135° recorded; check the split or the mass") in text(resp)
+    db.expire_all()
+    assert db.query(Correction).filter_by(job_id=job.id).count() == 0
+
+
 @pytest.mark.parametrize("field, value, expected", [
     ("advised_mass_g", "NaN", "not allowed"),
     ("advised_mass_g", "1e309", "not allowed"),
@@ -496,7 +515,7 @@ def test_a_split_that_does_not_make_up_the_mass_is_refused(db, shop, machine) ->
                           angle_deg=20.0, radius_mm=300.0,
                           split=[{"position": 1, "mass_g": 100.0},
                                  {"position": 2, "mass_g": 100.0}])
-    assert exc.value.field == "split" and "add up to" in exc.value.message
+    assert exc.value.field == "split" and "adds up to" in exc.value.message
 
 
 def test_a_second_correction_of_the_same_plane_and_run_is_refused(db, shop, machine,

@@ -180,13 +180,13 @@ def test_a_control_character_in_the_intake_is_refused_and_nothing_saved(
         ({"machine_id": "abc"}, "Not one of the choices"),
         ({"tolerance_method": "4w/n"}, "journal_load_a_kg"),
         ({"tolerance_grade": "7"}, "Not one of the choices"),
-        ({"received_on": "31/02/2026"}, "Not a valid date"),
+        ({"received_on": "31/02/2026"}, "Received on: not a date; type it as YYYY-MM-DD"),
         ({"promised_on": "2026-01-01"}, "before the job is received"),
         # A new customer has no rotor types yet, so none is chosen (the list is narrowed).
         ({"customer_id": "0", "new_customer_name": "", "rotor_type_id": "0"}, "is required"),
         ({"rotor_type_id": "0"}, "part number) is required for a new serial: choose its "
                                  "rotor type, or give one-off geometry"),
-        ({"notes": "x" * 6000}, "Field cannot be longer"),
+        ({"notes": "x" * 6000}, "Notes cannot be longer than 5000 characters (6000 typed)."),
         ({"one_off-mass_kg": "1e999", "rotor_type_id": "0"}, "finite number"),
     ],
 )
@@ -638,7 +638,9 @@ def test_a_text_direction_override_in_the_intake_is_refused_and_nothing_saved(
     before = (count(db, Job), count(db, Rotor), count(db, AuditEvent))
     resp = client.post("/jobs/new", data=intake_data(rtype, machine,
                                                       serial_number="CKB-\u202e4321"))
-    assert resp.status_code == 422 and "text-direction override" in text(resp)
+    assert resp.status_code == 422
+    assert "Serial number contains a control character (U+202E, a text-direction control)" in (
+        text(resp))
     assert (count(db, Job), count(db, Rotor), count(db, AuditEvent)) == before
 
 

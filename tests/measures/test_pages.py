@@ -238,8 +238,8 @@ def test_query_count_does_not_grow_with_the_jobs(
 @pytest.mark.parametrize("query, field", [
     ("period=custom&start=2026-10-05&end=2026-10-01", "before the first day"),
     ("period=custom&start=2026-10-05", "last day"),
-    ("period=fortnight", "Not a valid choice"),
-    ("period=month&on=not-a-date", "Not a valid date"),
+    ("period=fortnight", "Period: not one of the choices; choose one of: week, month"),
+    ("period=month&on=not-a-date", "Containing the day: not a date"),
     # TODAY is 2026-11-15: a year or range not begun has no figures (the walk's "next"
     # from the current year showed "2027-01-01 to 2026-11-15")
     ("period=year&on=2027-01-01", "has not begun (today is 2026-11-15)"),

@@ -9,6 +9,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from shopapp.models import AuditEvent, Customer
+from tests.registry.edits import drawn_stamp
 
 ROLES = ("operator", "quality", "owner", "admin")
 
@@ -116,6 +117,39 @@ def test_edit_page_is_prefilled_and_saves(client, login_as, shop, db):
     assert resp.status_code == 302
     db.refresh(customer)
     assert customer.contact == "Q"
+
+
+def test_two_people_editing_one_customer_lose_nothing(client, login_as, make_user, shop, db):
+    # The walk: two people opened the same customer's edit form; one changed the contact,
+    # the other the phone; both read "Customer saved." and the second save put the old
+    # phone (or contact) back: a change was lost without a word.
+    from shopapp.registry import customers
+
+    customer = shop.customer(name="Elm Fans", contact="A. Ash", phone="100")
+    other = make_user("operator")
+    db.commit()
+    login_as("operator")
+    page = client.get(f"/customers/{customer.id}/edit").get_data(as_text=True)
+    drawn = drawn_stamp(page)
+    # Someone else saves the phone meanwhile.
+    customers.update_customer(db, customer, by=other, phone="555-0199")
+    db.commit()
+    mine = {"name": "Elm Fans", "contact": "B. Birch", "phone": "100", "drawn": drawn}
+    resp = client.post(f"/customers/{customer.id}/edit", data=mine)
+    assert resp.status_code == 422
+    body = html.unescape(resp.get_data(as_text=True))
+    assert ("customer: saved by someone else since you opened this form (phone changed); "
+            "nothing of yours was saved") in body
+    db.refresh(customer)
+    assert (customer.contact, customer.phone) == ("A. Ash", "555-0199")
+    # The form drawn again holds what was typed and the stamp of the record as it is now:
+    # saving it again is a decision taken knowing the other change.
+    assert 'value="B. Birch"' in body
+    again = client.post(f"/customers/{customer.id}/edit",
+                        data=mine | {"phone": "555-0199", "drawn": drawn_stamp(body)})
+    assert again.status_code == 302
+    db.refresh(customer)
+    assert (customer.contact, customer.phone) == ("B. Birch", "555-0199")
 
 
 def test_post_without_csrf_token_is_refused(client, login_as, db):

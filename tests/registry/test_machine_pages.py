@@ -10,6 +10,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from shopapp.models import AuditEvent, Machine, MachineVerification
+from tests.registry.edits import drawn_stamp
 
 ROLES = ("operator", "quality", "owner", "admin")
 FORM = {
@@ -78,7 +79,10 @@ def test_a_machine_without_a_reading_unit_is_refused(client, login_as, db):
     """Defect: g·mm was assumed for every machine; now the person must choose."""
     login_as("quality")
     resp = client.post("/machines/new", data=FORM | {"reading_unit": ""})
-    assert resp.status_code == 422 and "is required" in resp.get_data(as_text=True)
+    # The walk: the label was a sentence's start, so the message read "Its readings are is
+    # required; choose one of ..."; it names the field as the run form does.
+    assert resp.status_code == 422
+    assert "Reading unit is required; choose one of" in resp.get_data(as_text=True)
     assert db.scalars(select(Machine).where(Machine.name == FORM["name"])).first() is None
 
 
@@ -161,3 +165,23 @@ def test_verifications_newest_first_and_paginated(client, login_as, shop, db, co
     with count_queries() as q_small:
         client.get(f"/machines/{small.id}")
     assert q.count == q_small.count  # no query per verification row
+
+
+def test_two_people_editing_one_machine_lose_nothing(client, login_as, make_user, db):
+    # The walk (customers; machines are edited by the same kind of form): the second of two
+    # saves at once put the first one's fields back without a word.
+    from shopapp.registry import machines
+
+    login_as("quality")
+    assert client.post("/machines/new", data=FORM).status_code == 302
+    machine = db.scalars(select(Machine).where(Machine.name == FORM["name"])).one()
+    drawn = drawn_stamp(client.get(f"/machines/{machine.id}/edit").get_data(as_text=True))
+    machines.update_machine(db, machine, by=make_user("quality"), claimed_urr_pct=90.0)
+    db.commit()
+    resp = client.post(f"/machines/{machine.id}/edit",
+                       data=FORM | {"notes": "new sensor cable", "drawn": drawn})
+    assert resp.status_code == 422
+    assert ("machine: saved by someone else since you opened this form (claimed urr pct "
+            "changed)") in html.unescape(resp.get_data(as_text=True))
+    db.refresh(machine)
+    assert (machine.claimed_urr_pct, machine.notes) == (90.0, "")

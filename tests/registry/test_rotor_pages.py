@@ -110,7 +110,10 @@ GARBAGE: list[tuple[str, str, str]] = [
     ("mass_kg", "12,500", "could be 12.500 or 12500"),  # never guessed: 12.5 or 12 500 kg
     ("mass_kg", "9" * 50, "at most 40 characters"),
     ("service_speed_rpm", "fast", "Not a number"),
-    ("bearing_b_mm", "0", "apart"),
+    # The walk: "Bearing B position (mm) bearings A and B must be at least 1 mm apart" (the
+    # label before a clause with its own subject).
+    ("bearing_b_mm", "0", "Bearing B position (mm) must be at least 1 mm from bearing A "
+                          "(A = 0 mm, B = 0 mm)"),
     ("radius_1_mm", "0", "greater than 0"),
     ("centre_of_mass_mm", "99999", "too far"),
     ("plane_2_mm", "", "both its position and its radius"),
@@ -128,7 +131,8 @@ GARBAGE: list[tuple[str, str, str]] = [
     ("part_number", "P" * 101, "100"),
     ("description", "d" * 201, "200"),
     ("notes", "n" * 5001, "5000"),
-    ("customer", "abc", "Invalid Choice"),
+    # The walk: WTForms' "Invalid Choice: could not coerce." named neither field nor choices.
+    ("customer", "abc", "Customer: not one of the choices; choose one of:"),
     ("customer", "999999", "Not one of the choices"),
 ]
 
@@ -239,7 +243,7 @@ def test_create_rotor_and_duplicate_serial(client, login_as, shop, db):
     [
         ({"serial_number": ""}, "Give the serial number"),
         ({"serial_number": "S" * 101}, "100"),
-        ({"rotor_type": "abc"}, "Invalid Choice"),
+        ({"rotor_type": "abc"}, "Rotor type (customer · part number): not one of the choices"),
         ({"rotor_type": "0"}, "Not one of the choices"),
     ],
 )
@@ -365,3 +369,44 @@ def test_rotor_types_list_query_count_is_bounded(client, login_as, shop, db, cou
     with count_queries() as q_many:
         client.get("/rotor-types/")
     assert q_few.count == q_many.count
+
+
+def test_two_people_editing_one_rotor_type_lose_nothing(client, login_as, make_user, shop, db):
+    # The walk (customers; rotor types are edited by the same kind of form).
+    from shopapp.registry import rotor_types
+    from tests.registry.edits import drawn_stamp
+
+    rt = shop.rotor_type()
+    db.commit()
+    part_number = rt.part_number
+    login_as("operator")
+    drawn = drawn_stamp(client.get(f"/rotor-types/{rt.id}/edit").get_data(as_text=True))
+    rotor_types.update_rotor_type(db, rt, by=make_user("operator"), description="new drawing")
+    db.commit()
+    resp = client.post(f"/rotor-types/{rt.id}/edit", data=TYPE_FORM | {
+        "customer": str(rt.customer_id), "drawn": drawn})
+    assert resp.status_code == 422
+    assert ("rotor type: saved by someone else since you opened this form (description "
+            "changed)") in resp.get_data(as_text=True)
+    db.refresh(rt)
+    assert (rt.description, rt.part_number) == ("new drawing", part_number)  # not IMP-450
+
+
+def test_two_people_editing_one_rotor_lose_nothing(client, login_as, make_user, shop, db):
+    # The walk (customers; a rotor is edited by the same kind of form).
+    from shopapp.registry import rotors
+    from tests.registry.edits import drawn_stamp
+
+    rotor = shop.rotor(serial_number="ED-7")
+    db.commit()
+    login_as("operator")
+    drawn = drawn_stamp(client.get(f"/rotors/{rotor.id}/edit").get_data(as_text=True))
+    rotors.update_rotor(db, rotor, by=make_user("operator"), notes="keyway worn")
+    db.commit()
+    resp = client.post(f"/rotors/{rotor.id}/edit", data={
+        "rotor_type": str(rotor.rotor_type_id), "serial_number": "ED-7B", "drawn": drawn})
+    assert resp.status_code == 422
+    assert ("rotor: saved by someone else since you opened this form (notes changed)"
+            in resp.get_data(as_text=True))
+    db.refresh(rotor)
+    assert (rotor.serial_number, rotor.notes) == ("ED-7", "keyway worn")

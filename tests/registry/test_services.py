@@ -52,8 +52,8 @@ def test_good_geometry_has_no_errors() -> None:
 @pytest.mark.parametrize(
     ("change", "field", "words"),
     [
-        ({"bearing_b_mm": 0.0}, "bearing_b_mm", "apart"),
-        ({"bearing_b_mm": 0.5}, "bearing_b_mm", "apart"),
+        ({"bearing_b_mm": 0.0}, "bearing_b_mm", "from bearing A"),
+        ({"bearing_b_mm": 0.5}, "bearing_b_mm", "from bearing A"),
         ({"radius_1_mm": 0.0}, "radius_1_mm", "greater than 0"),
         ({"radius_2_mm": -5.0}, "radius_2_mm", "greater than 0"),
         ({"mass_kg": 0.0}, "mass_kg", "greater than 0"),

@@ -98,8 +98,15 @@ def test_a_download_refusal_names_a_direction_override_as_such(client, login_as)
     assert "'table' contains a control character (U+202E, a text-direction control)" in body
 
 
-def test_a_control_character_in_a_number_field_gives_one_message(app) -> None:
-    # Before: "Not a number" and "contains a control character" for the same field.
+@pytest.mark.parametrize(("typed", "named"), [
+    ("12\x005", "U+0000, NUL"),
+    ("\u202e12", "U+202E, a text-direction control"),
+    ("1\x072", "U+0007, a control code"),
+])
+def test_a_control_character_in_a_number_field_gives_one_message(app, typed, named) -> None:
+    # Before: "Not a number" and "contains a control character" for the same field; and
+    # (the walk) the field's message said "such as NUL or a text-direction override"
+    # whatever was found, while the request guard's named the character.
     from shopapp.core.forms import NumberField, ShopForm
 
     class MassForm(ShopForm):
@@ -108,12 +115,11 @@ def test_a_control_character_in_a_number_field_gives_one_message(app) -> None:
 
         mass_g = NumberField("Mass (g)")
 
-    with app.test_request_context(method="POST", data={"mass_g": "12\x005"}):
+    with app.test_request_context(method="POST", data={"mass_g": typed}):
         form = MassForm()
         assert not form.validate()
-        assert form.mass_g.errors == ["Mass (g) contains a control character (such as NUL or "
-                                      "a text-direction override); type plain text and try "
-                                      "again."]
+        assert form.mass_g.errors == [f"Mass (g) contains a control character ({named}); "
+                                      "type plain text and try again."]
 
 
 def test_newlines_and_tabs_in_form_text_are_allowed(client, login_as) -> None:
