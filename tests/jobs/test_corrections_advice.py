@@ -434,18 +434,28 @@ def test_an_ambiguous_split_mass_is_refused_not_guessed() -> None:
         parse_split("4:1,500")
 
 
+def _eight_position_job(login_as, db, shop, machine):  # type: ignore[no-untyped-def]
+    """An operator's single-plane job on a rotor with 8 fixed positions, its initial run."""
+    user = login_as("operator")
+    rt = single_plane(shop, positions_1=8, first_position_1_deg=0.0, stock_weights_g=None)
+    job = book(db, user, rt, machine)
+    return job, run(db, user, job, "initial", _v(2500.0, 200.0))
+
+
+def _post_split(client, job, first, *, mass_g: str, split: str):  # type: ignore[no-untyped-def]
+    """Plane 1's correction form: ``mass_g`` added at 135°, split onto positions as typed."""
+    return client.post(f"/jobs/{job.id}/corrections/1", data={
+        "c1-run_id": str(first.id), "c1-action": "add", "c1-mass_g": mass_g,
+        "c1-angle_deg": "135", "c1-radius_mm": str(R), "c1-split": split})
+
+
 def test_a_split_typed_with_a_decimal_comma_is_saved_and_shown_with_a_point(
         client, login_as, db, shop, machine) -> None:
     # Before: "4:1,95" was cut at the comma into "4:1" and "95" (refused as not
     # position:grams) where every number field reads 1,95 as 1.95.
     from shopapp.models import Correction
-    user = login_as("operator")
-    rt = single_plane(shop, positions_1=8, first_position_1_deg=0.0, stock_weights_g=None)
-    job = book(db, user, rt, machine)
-    first = run(db, user, job, "initial", _v(2500.0, 200.0))
-    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
-        "c1-run_id": str(first.id), "c1-action": "add", "c1-mass_g": "1,95",
-        "c1-angle_deg": "135", "c1-radius_mm": str(R), "c1-split": "4:1,95"})
+    job, first = _eight_position_job(login_as, db, shop, machine)
+    resp = _post_split(client, job, first, mass_g="1,95", split="4:1,95")
     assert resp.status_code == 302, text(resp)[:2000]
     db.expire_all()
     saved = db.query(Correction).filter_by(job_id=job.id).one()
@@ -459,13 +469,8 @@ def test_a_split_that_does_not_add_up_is_said_as_a_sentence_beside_the_field(
     # The walk: "Split onto positions (position:grams, …) its weights add up to 9.33 g ...":
     # the field's label was put before a clause that had its own subject.
     from shopapp.models import Correction
-    user = login_as("operator")
-    rt = single_plane(shop, positions_1=8, first_position_1_deg=0.0, stock_weights_g=None)
-    job = book(db, user, rt, machine)
-    first = run(db, user, job, "initial", _v(2500.0, 200.0))
-    resp = client.post(f"/jobs/{job.id}/corrections/1", data={
-        "c1-run_id": str(first.id), "c1-action": "add", "c1-mass_g": "50",
-        "c1-angle_deg": "135", "c1-radius_mm": str(R), "c1-split": "4:2"})
+    job, first = _eight_position_job(login_as, db, shop, machine)
+    resp = _post_split(client, job, first, mass_g="50", split="4:2")
     assert resp.status_code == 422
     assert ("Split onto positions (position:grams, …) adds up to 2.00 g at 135°, not the "
             "50.0 g at 135° recorded; check the split or the mass") in text(resp)
