@@ -48,6 +48,8 @@ def shop_zone_name() -> str:
 
 
 def _utc_now() -> dt.datetime:
+    # Not models.utcnow: core.display reads this module, and the reports and charts that
+    # use the display may not reach the models (docs/architecture.md, "Layers").
     return dt.datetime.now(dt.UTC)
 
 

@@ -19,11 +19,12 @@ from shopapp.balancing import arbor as arbor_core
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.balancing.phasors import amplitude_angle, phasor
 from shopapp.core import audit, checks
+from shopapp.core.clock import shop_today
 from shopapp.core.display import counted, percent, plain
 from shopapp.core.errors import ValidationFailed
 from shopapp.core.permissions import require
 from shopapp.models import Arbor, ArborErrorMeasurement, Job, User
-from shopapp.traceability.common import add_named, core_error, flush_named, today
+from shopapp.traceability.common import add_named, core_error, flush_named
 
 # Judgement: a stored arbor error holds for rotors within ±20 % of the mass it was
 # measured with (its seat-eccentricity part scales with the rotor's mass).
@@ -154,7 +155,7 @@ def record_arbor_error(
     """
     require(by, "work_jobs")
     e = checks.Errors()
-    day = checks.date(e, "measured_on", measured_on, not_after=today())
+    day = checks.date(e, "measured_on", measured_on, not_after=shop_today())
     note = checks.text(e, "notes", notes)
     if arbor.archived:
         e.add("arbor_id", f"arbor {arbor.name} is archived")

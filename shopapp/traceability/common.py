@@ -1,9 +1,7 @@
-"""What the traceability use-cases share: today's date, the numerics' refusals as
+"""What the traceability use-cases share: the numerics' refusals as
 messages, and adding a row with a unique name (arbors, proving rotors)."""
 
 from __future__ import annotations
-
-import datetime as dt
 
 from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
@@ -11,15 +9,8 @@ from sqlalchemy.orm import Session
 
 from shopapp.balancing.errors import BalancingInputError
 from shopapp.core import audit
-from shopapp.core.clock import shop_today
 from shopapp.core.errors import ValidationFailed
 from shopapp.models import Arbor, ProvingRotor, User
-
-
-def today() -> dt.date:
-    """The shop's today (:func:`shopapp.core.clock.shop_today`), the latest date a test or
-    measurement may carry."""
-    return shop_today()
 
 
 def core_error(exc: BalancingInputError, prefix: str = "") -> ValidationFailed:

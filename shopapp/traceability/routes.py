@@ -10,7 +10,6 @@ render. Angles are typed and shown in the shop's display convention
 
 from __future__ import annotations
 
-import datetime as dt
 from functools import partial
 from typing import Any
 
@@ -45,10 +44,6 @@ from shopapp.traceability.forms import (
 bp = Blueprint("traceability", __name__, url_prefix="/traceability", template_folder="templates")
 
 
-def _today() -> dt.date:
-    return shop_today()
-
-
 def _display() -> ShopDisplay:
     return ShopDisplay(get_settings(db_session()))
 
@@ -58,7 +53,7 @@ def _display() -> ShopDisplay:
 
 def _register_page(rotor_form: ProvingRotorForm, status: int = 200):  # type: ignore[no-untyped-def]
     sess = db_session()
-    day = _today()
+    day = shop_today()
     return render_template(
         "traceability/index.html", register=verifications.register(sess, day), day=day,
         rotors=verifications.proving_rotors(sess), rotor_form=rotor_form,
@@ -93,7 +88,7 @@ def machine(machine_id: int):  # type: ignore[no-untyped-def]
     sess = db_session()
     m = get_or_404(sess, Machine, machine_id)
     return render_template("traceability/machine.html", machine=m,
-                           standing=verifications.machine_status(sess, m, _today()),
+                           standing=verifications.machine_status(sess, m, shop_today()),
                            records=verifications.verifications_of(sess, m))
 
 
@@ -120,7 +115,7 @@ def proving_test(machine_id: int):  # type: ignore[no-untyped-def]
                        f"({plain(m.min_mass_kg)}–{plain(m.max_mass_kg)} kg); "
                        f"{rotor.name} is shown: choose the rotor you test with.")
     if not posted:
-        form.performed_on.data = _today()
+        form.performed_on.data = shop_today()
         if rotor is not None:
             form.proving_rotor_id.data = rotor.id
         form.propose(verifications.proving_test_defaults(m, rotor),
@@ -203,7 +198,7 @@ def _arbor_page(arbor: Arbor, form: IndexRunsForm | None = None, status: int = 2
                 loose: list[str] | None = None):  # type: ignore[no-untyped-def]
     if form is None:
         form = IndexRunsForm(formdata=None)
-        form.measured_on.data = _today()
+        form.measured_on.data = shop_today()
     return render_template("traceability/arbor.html", arbor=arbor, form=form,
                            disp=_display(), loose=loose or [],
                            history=list(reversed(arbor.measurements))), status
@@ -285,7 +280,7 @@ def _panels() -> dict[str, Any]:
     def traceability_home() -> list[verifications.VerificationStatus] | None:
         if not current_user.is_authenticated or not can(current_user, "verify_machines"):
             return None
-        return verifications.machines_due_soon(db_session(), _today())
+        return verifications.machines_due_soon(db_session(), shop_today())
 
     def machine_verifications(machine: Machine) -> Page[Any]:
         """The machine's proving tests for ``traceability/_machine_panel.html``, one page of

@@ -40,7 +40,7 @@ from shopapp.balancing.verification import (
     unbalance_reduction_ratio,
 )
 from shopapp.core import audit, checks
-from shopapp.core.clock import shop_date
+from shopapp.core.clock import shop_date, shop_today
 from shopapp.core.display import counted, plain, quantity
 from shopapp.core.errors import ServiceError, ValidationFailed
 from shopapp.core.permissions import require
@@ -52,7 +52,7 @@ from shopapp.models import (
     User,
     utcnow,
 )
-from shopapp.traceability.common import add_named, core_error, today
+from shopapp.traceability.common import add_named, core_error
 
 STATES = ("current", "due_soon", "overdue", "failed")
 BLOCKING_STATES = ("overdue", "failed")
@@ -185,14 +185,14 @@ def records_of(session: Session, machine: Machine) -> list[MachineVerification]:
 def machine_status(session: Session, machine: Machine, on_date: dt.date | None = None
                    ) -> VerificationStatus:
     """The machine's standing on ``on_date`` (today when omitted); two queries."""
-    day = on_date or today()
+    day = on_date or shop_today()
     return status_from_records(machine, records_of(session, machine), day,
                                get_settings(session).due_soon_days)
 
 
 def register(session: Session, on_date: dt.date | None = None) -> list[VerificationStatus]:
     """Every live machine's standing on ``on_date``, by name (three queries)."""
-    day = on_date or today()
+    day = on_date or shop_today()
     soon = get_settings(session).due_soon_days
     machines = session.scalars(
         select(Machine).where(Machine.archived.is_(False))
@@ -574,7 +574,7 @@ def record_proving_test(
     """
     require(by, "verify_machines")
     e = checks.Errors()
-    day = checks.date(e, "performed_on", performed_on, not_after=today())
+    day = checks.date(e, "performed_on", performed_on, not_after=shop_today())
     note = checks.text(e, "notes", notes)
     if machine.archived:
         e.add("machine_id", f"{machine.name} is archived")
